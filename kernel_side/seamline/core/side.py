@@ -1,0 +1,111 @@
+"""One side of the cutoff, prepared once: sorted by distance, with lazily built moment tables.
+
+Everything here is plain float64 arrays; the data adapter (seamline.data) builds Sides from user data.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from .moments import SideMoments
+from .neighbors import neighbor_residuals
+
+
+class Side:
+    """Observations on one side of the cutoff sorted by distance |score - cutoff| (ascending).
+
+    Parameters
+    ----------
+    sign : -1 for the side below the cutoff, +1 for the side above (signed x = sign * distance).
+    distance : (n,) sorted distances (>= 0).
+    values : (n, k) variables in the same order (outcome, take-up, covariates ...). The Side takes
+        ownership: the array is centred in place on the side mean (``offsets``, which level
+        estimates add back), so pass a fresh array, never user data.
+    weights : (n,) positive user weights or None (all ones).
+    clusters : (n,) integer cluster codes (shared coding across sides) or None.
+    neighbors : J for the nearest-neighbour residuals.
+    """
+
+    def __init__(self, sign: int, distance: np.ndarray, values: np.ndarray,
+                 weights: np.ndarray | None = None, clusters: np.ndarray | None = None,
+                 neighbors: int = 3):
+        self.sign = sign
+        self.distance = distance
+        values = values if values.ndim == 2 else values[:, None]
+        # Centre each variable on this side: the moment engine expands squared residuals, which
+        # would cancel catastrophically for outcomes with a large offset (e.g. y + 1e6).
+        self.offsets = values.mean(axis=0) if len(values) else np.zeros(values.shape[1])
+        values -= self.offsets  # the caller hands over a fresh array (never user data)
+        self.values = values
+        self.weights = weights
+        self.clusters = clusters
+        self.neighbors = neighbors
+        self.n = len(distance)
+        self.moments = SideMoments(distance)
+        self._nn: np.ndarray | None = None
+        self._group_starts: np.ndarray | None = None
+
+    # ---- per-row series, each a function of a row slice -------------------------------------
+    def w(self, rows: slice) -> np.ndarray:
+        return np.ones(len(self.distance[rows])) if self.weights is None else self.weights[rows]
+
+    def nn_residuals(self) -> np.ndarray:
+        """(n, k) scaled nearest-neighbour residuals; neighbours are searched over the whole side."""
+        if self._nn is None:
+            self._nn, _ = neighbor_residuals(self.distance, self.values, self.neighbors)
+        return self._nn
+
+    def series(self, kind: str, a: int = -1, b: int = -1):
+        """(key, function of rows) for the series the moment engine sums."""
+        v = self.values
+        if kind == "w":
+            return ("w",), self.w
+        if kind == "wv":
+            return ("wv", a), lambda r: self.w(r) * v[r, a]
+        if kind == "wvv":
+            return ("wvv", a, b), lambda r: self.w(r) * v[r, a] * v[r, b]
+        if kind == "w2":
+            return ("w2",), lambda r: self.w(r) ** 2
+        if kind == "w2v":
+            return ("w2v", a), lambda r: self.w(r) ** 2 * v[r, a]
+        if kind == "w2vv":
+            return ("w2vv", a, b), lambda r: self.w(r) ** 2 * v[r, a] * v[r, b]
+        if kind == "w2nn":
+            return ("w2nn", a, b), lambda r: (self.w(r) ** 2 * self.nn_residuals()[r, a]
+                                              * self.nn_residuals()[r, b])
+        raise KeyError(kind)
+
+    def warm(self, variance: str, degree: int) -> None:
+        """Build, in one pass, the moment tables a fit with this variance will ask for."""
+        k = self.values.shape[1]
+        kinds = [("w",)] + [("wv", a) for a in range(k)]
+        if variance == "neighbors":
+            kinds += [("w2nn", a, b) for a in range(k) for b in range(a, k)]
+        else:
+            kinds += [("w2",)] + [("w2v", a) for a in range(k)]
+            kinds += [("w2vv", a, b) for a in range(k) for b in range(a, k)]
+        self.moments.ensure([self.series(*kind) for kind in kinds], degree)
+
+    # ---- counts -------------------------------------------------------------------------------
+    def count_positive(self, h: float, kernel: str) -> int:
+        """Observations with positive kernel weight at bandwidth h (uniform includes d == h)."""
+        side = "right" if kernel == "uniform" else "left"
+        return int(np.searchsorted(self.distance, h, side=side))
+
+    def distinct_within(self, n_rows: int) -> int:
+        """Number of distinct distances among the first n_rows observations."""
+        if self._group_starts is None:
+            self._group_starts = np.flatnonzero(np.r_[True, np.diff(self.distance) > 0])
+        return int(np.searchsorted(self._group_starts, n_rows, side="left"))
+
+    def bandwidth_for_distinct(self, needed: int, kernel: str) -> float:
+        """Smallest bandwidth giving ``needed`` distinct distances positive weight (nan if impossible)."""
+        self.distinct_within(0)
+        starts = self._group_starts
+        if len(starts) < needed:
+            return float("nan")
+        d = self.distance[starts[needed - 1]]
+        if kernel == "uniform":
+            return float(d)
+        # d == h gets zero weight under triangular/Epanechnikov: go a little past the value
+        nxt = self.distance[starts[needed]] if len(starts) > needed else d * 1.01 + 1e-12
+        return float(d + 0.01 * (nxt - d)) if nxt > d else float(d * 1.01)

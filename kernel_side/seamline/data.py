@@ -1,0 +1,214 @@
+"""The one place user data is touched: columns -> validated float64 arrays -> prepared Sides.
+
+Nothing here modifies the user's DataFrame; arrays are read with ``to_numpy`` and every derived array
+is a new one. Rows with missing values in the columns a fit uses are dropped and counted.
+"""
+from __future__ import annotations
+
+import difflib
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .core.side import Side
+from .errors import (ColumnNotFoundError, ColumnTypeError, CutoffOutOfRangeError,
+                     DuplicateColumnError, EmptyColumnError, InvalidWeightsError,
+                     NonFiniteValueError, OneSidedDataError, TakeupRangeError, TooFewClustersError)
+
+
+def as_frame(data) -> pd.DataFrame:
+    """Accept a pandas DataFrame, or anything with ``__dataframe__`` / ``to_pandas`` (Arrow, polars)."""
+    if isinstance(data, pd.DataFrame):
+        return data
+    if hasattr(data, "to_pandas"):
+        return data.to_pandas()
+    if hasattr(data, "__dataframe__"):
+        return pd.api.interchange.from_dataframe(data)
+    raise TypeError(f"`data` must be a pandas DataFrame (or Arrow/polars table); got {type(data).__name__}. "
+                    "Convert it with pandas.DataFrame(...) first.")
+
+
+def _missing_column(frame: pd.DataFrame, name: str, role: str) -> ColumnNotFoundError:
+    close = difflib.get_close_matches(str(name), [str(c) for c in frame.columns], n=3)
+    hint = f" Did you mean {', '.join(repr(c) for c in close)}?" if close else \
+        " Check the spelling against data.columns."
+    return ColumnNotFoundError(f"`{role}` column {name!r} is not in the data.{hint}")
+
+
+def numeric_column(frame: pd.DataFrame, name: str, role: str) -> np.ndarray:
+    """A column as float64 (NaN for missing); errors name the column and the fix."""
+    if name not in frame.columns:
+        raise _missing_column(frame, name, role)
+    col = frame[name]
+    if isinstance(col, pd.DataFrame):
+        raise DuplicateColumnError(f"`{role}` column {name!r} appears more than once in the data; "
+                                   "got duplicate column names. Rename or drop the duplicates.")
+    if pd.api.types.is_bool_dtype(col):
+        col = col.astype(float)
+    elif not pd.api.types.is_numeric_dtype(col):
+        coerced = pd.to_numeric(col, errors="coerce")
+        bad = col[coerced.isna() & col.notna()]
+        example = repr(bad.iloc[0]) if len(bad) else "non-numeric dtype"
+        raise ColumnTypeError(f"`{role}` column {name!r} must be numeric; got dtype {col.dtype} "
+                              f"(e.g. {example}). Convert it with pandas.to_numeric or choose a numeric column.")
+    if col.dtype == np.float64:
+        values = col.to_numpy()          # no copy: read-only use only
+    else:
+        values = col.to_numpy(dtype=float, na_value=np.nan)
+    if np.isinf(values).any():
+        row = col.index[np.flatnonzero(np.isinf(values))[0]]
+        raise NonFiniteValueError(f"`{role}` column {name!r} must be finite; got infinite values "
+                                  f"(first at row {row!r}). Replace them with NaN (dropped) or a finite value.")
+    if np.isnan(values).all():
+        raise EmptyColumnError(f"`{role}` column {name!r} must have non-missing values; got only "
+                               "missing values. Choose a column with data.")
+    return values
+
+
+def _sorted_quantile(x_sorted: np.ndarray, q: float) -> float:
+    """Linear-interpolation quantile (numpy's default) of an already sorted array."""
+    pos = q * (len(x_sorted) - 1)
+    lo = int(np.floor(pos))
+    hi = min(lo + 1, len(x_sorted) - 1)
+    return float(x_sorted[lo] + (pos - lo) * (x_sorted[hi] - x_sorted[lo]))
+
+
+@dataclass
+class Prepared:
+    """Both sides ready for estimation, for one set of variables and one donut radius."""
+    below: Side
+    above: Side
+    variables: tuple[str, ...]
+    n_dropped: int
+    n_donut: int
+    score_sd: float
+    score_scale: float          # min(sd, IQR / 1.349): robust spread for rule-of-thumb pilots
+    n_clusters: int | None
+
+    @property
+    def n_total(self) -> int:
+        return self.below.n + self.above.n
+
+
+class DesignData:
+    """Validated columns of one design. Construct once; ``prepare`` builds Sides on demand (cached)."""
+
+    def __init__(self, data, *, score: str, cutoff: float, outcomes: tuple[str, ...],
+                 takeup: str | None, covariates: tuple[str, ...], cluster: str | None,
+                 weights: str | None):
+        frame = as_frame(data)
+        dups = frame.columns[frame.columns.duplicated()].unique().tolist()
+        if dups:
+            raise DuplicateColumnError(f"column names must be unique; got duplicates {dups!r}. "
+                                       "Rename or drop the duplicated columns before declaring the design.")
+        self.index = frame.index
+        self.n_rows = len(frame)
+        self.score_name = score
+        self.arrays: dict[str, np.ndarray] = {}
+        self.roles: dict[str, str] = {}
+        self.arrays[score] = numeric_column(frame, score, "score")
+        for name in outcomes:
+            self.arrays[name] = numeric_column(frame, name, "outcome")
+        if takeup is not None:
+            t = numeric_column(frame, takeup, "takeup")
+            outside = (t < 0) | (t > 1)
+            if outside.any():
+                raise TakeupRangeError(f"`takeup` column {takeup!r} must lie in [0, 1] (treatment received, "
+                                       f"or its probability); got {t[outside][0]!r} at row "
+                                       f"{frame.index[np.flatnonzero(outside)[0]]!r}. Recode it as 0/1.")
+            self.arrays[takeup] = t
+        for name in covariates:
+            self.arrays[name] = numeric_column(frame, name, "covariates")
+        self.weights = None
+        if weights is not None:
+            w = numeric_column(frame, weights, "weights")
+            if (w < 0).any():
+                raise InvalidWeightsError(f"`weights` column {weights!r} must be non-negative; got "
+                                          f"{w[w < 0][0]!r}. Use sampling weights >= 0.")
+            if not (w > 0).any():
+                raise InvalidWeightsError(f"`weights` column {weights!r} must have a positive value; got "
+                                          "all zeros or missing. Choose another weights column.")
+            self.weights = w
+        self.cluster_codes = None
+        if cluster is not None:
+            if cluster not in frame.columns:
+                raise _missing_column(frame, cluster, "cluster")
+            codes, _ = pd.factorize(frame[cluster], use_na_sentinel=True)
+            self.cluster_codes = codes.astype(np.int64)
+        x = self.arrays[score]
+        finite = x[~np.isnan(x)]
+        lo, hi = float(finite.min()), float(finite.max())
+        if not np.isfinite(cutoff) or cutoff < lo or cutoff > hi:
+            raise CutoffOutOfRangeError(f"`cutoff` must lie within the range of score {score!r} "
+                                        f"[{lo:g}, {hi:g}]; got {cutoff!r}. Check the cutoff and its units.")
+        self.cutoff = float(cutoff)
+        self._cache: dict[tuple, Prepared] = {}
+
+    def prepare(self, variables: tuple[str, ...], donut: float = 0.0, neighbors: int = 3) -> Prepared:
+        key = (variables, float(donut), neighbors)
+        if key not in self._cache:
+            self._cache[key] = self._prepare(variables, float(donut), neighbors)
+        return self._cache[key]
+
+    def _prepare(self, variables: tuple[str, ...], donut: float, neighbors: int) -> Prepared:
+        score = self.arrays[self.score_name]
+        keep = ~np.isnan(score)
+        for v in variables:
+            keep &= ~np.isnan(self.arrays[v])
+        if self.weights is not None:
+            keep &= ~np.isnan(self.weights)
+        if self.cluster_codes is not None:
+            keep &= self.cluster_codes >= 0
+        n_dropped = int(self.n_rows - keep.sum())
+        if self.weights is not None:
+            keep &= self.weights > 0  # zero weight: no information, not "dropped"
+        all_rows = bool(keep.all())
+        rows = None if all_rows else np.flatnonzero(keep)
+        xs = score if all_rows else score[rows]
+        if len(xs) < 2:
+            raise OneSidedDataError(f"the design must keep observations on both sides of the cutoff; got "
+                                    f"{len(xs)} usable rows after dropping missing values in "
+                                    f"{[self.score_name, *variables]}. Check for missing data.")
+        order = np.argsort(xs)
+        x_sorted = xs[order]
+        x_sorted -= self.cutoff
+        del xs
+        split = int(np.searchsorted(x_sorted, 0.0, side="left"))
+        score_sd = float(np.std(x_sorted, ddof=1))
+        q25, q75 = _sorted_quantile(x_sorted, 0.25), _sorted_quantile(x_sorted, 0.75)
+        score_scale = min(score_sd, (q75 - q25) / 1.349) if q75 > q25 else score_sd
+        n_donut = 0
+        sides = []
+        # below: walk outward from the cutoff, i.e. the sorted order reversed; above: as sorted
+        for sign, part in ((-1, slice(split - 1, None, -1) if split else slice(0, 0)), (1, slice(split, None))):
+            # above: a view (already >= 0); below: reversed and negated, a new array
+            dist = x_sorted[part] if sign > 0 else -x_sorted[part]
+            idx = order[part]
+            if donut > 0:
+                start = int(np.searchsorted(dist, donut, side="left"))
+                n_donut += start
+                idx, dist = idx[start:], dist[start:]
+            name = "below" if sign < 0 else "above"
+            if len(idx) == 0:
+                why = f" outside the donut of radius {donut:g}" if donut > 0 else ""
+                raise OneSidedDataError(f"the design must have observations {name} the cutoff{why}; got none "
+                                        f"(score {self.score_name!r}, cutoff {self.cutoff:g}). Check the cutoff, "
+                                        "the treated side, or reduce the donut radius.")
+            src = idx if rows is None else rows[idx]
+            values = np.empty((len(src), len(variables)), order="F")  # columns contiguous
+            for j, v in enumerate(variables):
+                np.take(self.arrays[v], src, out=values[:, j])
+            w = None if self.weights is None else self.weights[src]
+            cl = None if self.cluster_codes is None else self.cluster_codes[src]
+            sides.append(Side(sign, dist, values, w, cl, neighbors))
+        del x_sorted, order
+        n_clusters = None
+        if self.cluster_codes is not None:
+            for side, name in zip(sides, ("below", "above")):
+                g = len(np.unique(side.clusters))
+                if g < 2:
+                    raise TooFewClustersError(f"`cluster` must have at least two clusters {name} the cutoff; "
+                                              f"got {g}. Use a finer cluster variable or drop `cluster`.")
+            n_clusters = int(len(np.unique(np.concatenate([s.clusters for s in sides]))))
+        return Prepared(sides[0], sides[1], variables, n_dropped, n_donut, score_sd, score_scale, n_clusters)

@@ -1,0 +1,1 @@
+"""The public estimation API: Design and its fits and diagnostics."""

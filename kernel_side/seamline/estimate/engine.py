@@ -1,0 +1,190 @@
+"""Two-sided jump estimation on prepared Sides: estimates, variances, covariate adjustment, clusters.
+
+The jump of a variable combination ``lam`` (outcome, or outcome - tau * take-up for fuzzy designs) is
+tau(lam) = sign * (mu_above(lam) - mu_below(lam)), where sign = +1 when the treated side is above.
+Variances come from the moment engine when possible (NN, HC0, HC1 without clusters or covariates)
+and from a direct pass over the window otherwise; both give the same numbers (tests check it).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..core.locpoly import SideFit, WindowArrays, fit_side, variance_fast, window_arrays
+from ..data import Prepared
+from ..errors import CollinearCovariatesError, TooFewClustersError, TooFewDistinctValuesError
+
+FAST_VARIANCES = ("neighbors", "hc0", "hc1")
+
+
+def check_support(prep: Prepared, h: tuple[float, float], b: tuple[float, float], p: int, q: int,
+                  kernel: str) -> None:
+    """Each side needs p+1 (q+1) distinct score values with positive weight at h (b)."""
+    for side, name, hs, bs in ((prep.below, "below", h[0], b[0]), (prep.above, "above", h[1], b[1])):
+        for bw, order, what in ((hs, p, "bandwidth"), (bs, q, "pilot (bias) bandwidth")):
+            have = side.distinct_within(side.count_positive(bw, kernel))
+            if have < order + 1:
+                need = side.bandwidth_for_distinct(order + 1, kernel)
+                fix = (f"Use a {what} of at least {need:.6g} on that side" if np.isfinite(need)
+                       else "The side has too few distinct values for this degree: lower the degree")
+                raise TooFewDistinctValuesError(
+                    f"`{what}` {bw:.6g} must give at least {order + 1} distinct score values with positive "
+                    f"weight {name} the cutoff for a degree-{order} fit; got {have}. {fix}.")
+
+
+@dataclass
+class Adjustment:
+    """Covariate adjustment (additive covariates, Calonico-Cattaneo-Farrell-Titiunik 2019)."""
+    gamma: np.ndarray          # (m, n_main) coefficients of the covariates for each main variable
+    q_inv: np.ndarray          # inverse of the covariates' residual cross-product matrix
+    delta: np.ndarray          # (m,) conventional covariate jumps
+    delta_bc: np.ndarray       # (m,) bias-corrected covariate jumps
+
+
+class JumpEngine:
+    """Both sides fitted for one specification; answers estimates and variances for any lam."""
+
+    def __init__(self, prep: Prepared, *, h: tuple[float, float], b: tuple[float, float], p: int,
+                 q: int, nu: int, kernel: str, treated_sign: int, n_main: int,
+                 covariate_names: tuple[str, ...] = (), direct: bool = False):
+        self.prep = prep
+        self.sides = (prep.below, prep.above)
+        self.p, self.q, self.nu, self.kernel = p, q, nu, kernel
+        self.sign = treated_sign
+        self.n_main = n_main
+        self.m = len(covariate_names)
+        self.covariate_names = covariate_names
+        self.direct = direct or self.m > 0
+        self.fits: tuple[SideFit, SideFit] = tuple(
+            fit_side(s, hs, bs, p, q, nu, kernel, direct=self.direct)
+            for s, hs, bs in zip(self.sides, h, b))
+        self._arrays: list[WindowArrays] | None = None
+        self.adjustment = self._adjust() if self.m else None
+
+    # ---- estimates ---------------------------------------------------------------------------
+    def _full(self, lam: np.ndarray) -> np.ndarray:
+        """Extend lam over the main variables to all variables (covariates get -gamma lam)."""
+        if self.adjustment is None:
+            return lam
+        return np.concatenate([lam, -self.adjustment.gamma @ lam])
+
+    def limits(self, lam: np.ndarray, robust: bool = False) -> tuple[float, float]:
+        lam = self._full(lam)
+        return tuple(float((f.estimate_bc if robust else f.estimate) @ lam) for f in self.fits)
+
+    def jump(self, lam: np.ndarray, robust: bool = False) -> float:
+        below, above = self.limits(lam, robust)
+        return self.sign * (above - below)
+
+    # ---- variances ---------------------------------------------------------------------------
+    def arrays(self) -> list[WindowArrays]:
+        if self._arrays is None:
+            self._arrays = [window_arrays(f) for f in self.fits]
+        return self._arrays
+
+    def counts(self, robust: bool) -> tuple[int, int]:
+        return tuple(max(f.n_h, f.n_b) if robust else f.n_h for f in self.fits)
+
+    def dof(self, robust: bool) -> tuple[int, int]:
+        """(N, k) of the single interacted regression, for HC1 and cluster small-sample factors."""
+        n = sum(self.counts(robust))
+        k = 2 * ((self.q if robust else self.p) + 1) + self.m
+        return n, k
+
+    def variance(self, lam: np.ndarray, variance: str, robust: bool = False,
+                 cluster: bool = False) -> float:
+        """Variance of jump(lam) (conventional, or of the bias-corrected estimate when robust)."""
+        if not self.direct and not cluster and variance in FAST_VARIANCES:
+            kind = "neighbors" if variance == "neighbors" else "hc0"
+            total = sum(variance_fast(f, lam, kind, robust) for f in self.fits)
+            if variance == "hc1":
+                n, k = self.dof(robust)
+                total *= n / (n - k)
+            return float(total)
+        return self._variance_direct(lam, variance, robust, cluster)
+
+    def _variance_direct(self, lam: np.ndarray, variance: str, robust: bool, cluster: bool) -> float:
+        full = self._full(lam)
+        adj = self.adjustment
+        contributions, codes = [], []
+        n_used, k = self.dof(robust)
+        for side, f, wa in zip(self.sides, self.fits, self.arrays()):
+            side_sign = self.sign * side.sign  # +sign above, -sign below
+            weight = side_sign * (wa.abc if robust else wa.a)
+            resid = (wa.resid_b if robust else wa.resid_h) @ full
+            lev = wa.lev_b if robust else wa.lev_h
+            if adj is not None:
+                zt = wa.resid_h[:, self.n_main:]
+                zt = np.where((wa.kw_h > 0)[:, None], zt, 0.0)
+                weight = weight - wa.kw_h * (zt @ (adj.q_inv @ (adj.delta_bc if robust else adj.delta)))
+                if not robust:
+                    lev = lev + wa.kw_h * np.einsum("ij,jk,ik->i", zt, adj.q_inv, zt)
+            if variance == "neighbors" and not cluster:
+                omega = (side.nn_residuals()[: wa.rows] @ full) ** 2
+            elif variance in ("hc2", "hc3") and not cluster:
+                power = 1 if variance == "hc2" else 2
+                omega = resid ** 2 / (1.0 - np.minimum(lev, 1 - 1e-12)) ** power
+            else:
+                omega = resid ** 2
+            if cluster:
+                contributions.append(weight * resid)
+                codes.append(side.clusters[: wa.rows])
+            else:
+                contributions.append(weight ** 2 * omega)
+        if cluster:
+            nonzero = [c != 0 for c in contributions]
+            for cl, nz, name in zip(codes, nonzero, ("below", "above")):
+                if len(np.unique(cl[nz])) < 2:
+                    raise TooFewClustersError(
+                        f"`cluster` must have at least two clusters with observations inside the window "
+                        f"{name} the cutoff; got {len(np.unique(cl[nz]))}. Use a larger bandwidth or a finer "
+                        "cluster variable.")
+            all_codes = np.concatenate([c[nz] for c, nz in zip(codes, nonzero)])
+            all_u = np.concatenate([u[nz] for u, nz in zip(contributions, nonzero)])
+            uniq, inv = np.unique(all_codes, return_inverse=True)
+            sums = np.bincount(inv, weights=all_u)
+            g = len(uniq)
+            factor = g / (g - 1) * (n_used - 1) / (n_used - k)
+            return float(factor * np.sum(sums ** 2))
+        total = float(sum(np.sum(c) for c in contributions))
+        if variance == "hc1":
+            total *= n_used / (n_used - k)
+        return total
+
+    # ---- covariate adjustment ----------------------------------------------------------------
+    def _adjust(self) -> Adjustment:
+        nm = self.n_main
+        q_mat = np.zeros((self.m, self.m))
+        xy = np.zeros((self.m, nm))
+        for wa in self.arrays():
+            zt = wa.resid_h[:, nm:] * wa.kw_h[:, None]
+            q_mat += zt.T @ wa.resid_h[:, nm:]
+            xy += zt.T @ wa.resid_h[:, :nm]
+        self._check_collinear(q_mat)
+        q_inv = np.linalg.inv(q_mat)
+        gamma = q_inv @ xy
+        lim = [f.estimate[nm:] for f in self.fits]
+        lim_bc = [f.estimate_bc[nm:] for f in self.fits]
+        delta = self.sign * (lim[1] - lim[0])
+        delta_bc = self.sign * (lim_bc[1] - lim_bc[0])
+        return Adjustment(gamma, q_inv, delta, delta_bc)
+
+    def _check_collinear(self, q_mat: np.ndarray) -> None:
+        """Name the covariates that are collinear (with each other or the local polynomial)."""
+        scale = np.sqrt(np.clip(np.diag(q_mat), 0, None))
+        tol = 1e-10
+        kept: list[int] = []
+        for j in range(self.m):
+            if scale[j] <= tol * max(1.0, scale.max()):
+                raise CollinearCovariatesError(
+                    f"`covariates` must vary within the window after removing the local polynomial; got "
+                    f"{self.covariate_names[j]!r} constant (or a polynomial in the score) there. Drop it.")
+            trial = kept + [j]
+            sub = q_mat[np.ix_(trial, trial)] / np.outer(scale[trial], scale[trial])
+            if np.linalg.eigvalsh(sub)[0] <= tol:
+                names = [self.covariate_names[i] for i in trial]
+                raise CollinearCovariatesError(
+                    f"`covariates` must not be collinear inside the window; got {names!r} linearly dependent "
+                    f"({self.covariate_names[j]!r} is a combination of the others). Drop one of them.")
+            kept.append(j)

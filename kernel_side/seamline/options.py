@@ -1,0 +1,41 @@
+"""Option vocabularies and the one helper that checks them.
+
+Every option string a user can pass is listed here as a ``typing.Literal`` alias, so the allowed
+values live in one place and error messages can list them.
+"""
+from __future__ import annotations
+
+from typing import Literal, get_args
+
+from .errors import InvalidOptionError
+
+Kernel = Literal["triangular", "uniform", "epanechnikov"]
+BandwidthRule = Literal["mse", "mse-split", "coverage", "ik"]
+Variance = Literal["neighbors", "hc0", "hc1", "hc2", "hc3"]
+Side = Literal["above", "below"]
+DensityMethod = Literal["local-cdf", "binned"]
+BinMethod = Literal["equal-width", "equal-count"]
+BinRule = Literal["imse", "mimic-variance"]
+
+KERNELS: tuple[str, ...] = get_args(Kernel)
+BANDWIDTH_RULES: tuple[str, ...] = get_args(BandwidthRule)
+VARIANCES: tuple[str, ...] = get_args(Variance)
+SIDES: tuple[str, ...] = get_args(Side)
+DENSITY_METHODS: tuple[str, ...] = get_args(DensityMethod)
+BIN_METHODS: tuple[str, ...] = get_args(BinMethod)
+BIN_RULES: tuple[str, ...] = get_args(BinRule)
+
+
+def check_option(argument: str, value: object, allowed: tuple[str, ...]) -> str:
+    """Return ``value`` if it is one of ``allowed``; otherwise raise InvalidOptionError.
+
+    Matching is case-insensitive and ignores surrounding spaces; the canonical spelling is returned.
+    """
+    if isinstance(value, str):
+        key = value.strip().lower()
+        if key in allowed:
+            return key
+    choices = ", ".join(f'"{a}"' for a in allowed)
+    raise InvalidOptionError(
+        f"`{argument}` must be one of {choices}; got {value!r}. Pick one of the listed values."
+    )
