@@ -45,12 +45,19 @@ def _floor(side: Side, h: float, needed: int, kernel: str) -> float:
     return max(h, need_h) if np.isfinite(need_h) else h
 
 
+# (convention) The curvature pilot is a polynomial fitted to the half of each side nearest the cutoff,
+# echoing Imbens-Kalyanaraman's median trimming: a fit over the whole side averages away curvature
+# that changes quickly near the cutoff (Lee design, METHODS 14.1) and then over-smooths badly.
+PILOT_SHARE = 0.5
+
+
 def _global_derivative(side: Side, order: int, lam: np.ndarray, degree: int) -> float:
-    """order-th derivative at the cutoff of a global polynomial of ``degree`` on the side (pilot)."""
-    degree = min(degree, side.distinct_within(side.n) - 1)
+    """order-th derivative at the cutoff of a polynomial of ``degree`` fitted to the nearer part of the side."""
+    rows = max(int(np.ceil(PILOT_SHARE * side.n)), 1)
+    degree = min(degree, side.distinct_within(rows) - 1)
     if degree < order:
         return 0.0  # (convention) too few distinct values for the pilot: treat the curvature as unknown-zero
-    top = float(side.distance[-1])
+    top = float(side.distance[rows - 1])
     fit = fit_side(side, top, top, degree, degree, order, "uniform")
     return float(fit.derivative(order) @ lam)
 
@@ -61,7 +68,7 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
     """MSE-optimal bandwidths for the nu-th derivative jump with an order-p fit (METHODS 4.6).
 
     Steps: (1) variance pilot c = C_NR(K) * min(sd, IQR/1.349) * n^(-1/5) (convention);
-    (2) pilot for mu^(q+1) from a global order-(q+1) polynomial on each side; (3) bias bandwidth b,
+    (2) pilot for mu^(q+1) from an order-(q+1) polynomial on the nearer half of each side; (3) bias bandwidth b,
     MSE-optimal for the (p+1)-th derivative with an order-q fit; (4) mu^(p+1)(b); (5) h from
     h = [(1+2nu) V / (2(p+1-nu)(B^2 + R))]^(1/(2p+3)) n^(-1/(2p+3)), with one refinement step
     that re-evaluates V and the bias constants at the new h.
@@ -74,7 +81,7 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
     c = min(max(c, *(_floor(s, 0.0, q + 2, kernel) for s in sides)), top)
 
     # (1)-(3): bias bandwidth b for the (p+1)-th derivative, order q
-    curv_q = [_global_derivative(s, q + 1, lam, q + 2) for s in sides]
+    curv_q = [_global_derivative(s, q + 1, lam, q + 1) for s in sides]
     fits_b = [fit_side(s, c, c, q, q + 1, p + 1, kernel) for s in sides]
     v_b = [n * c ** (1 + 2 * (p + 1)) * variance_fn(f, lam) for f in fits_b]
     bias_b = [factorial(p + 1) / factorial(q + 1) * _lead(f) * m for f, m in zip(fits_b, curv_q)]
@@ -173,14 +180,20 @@ def ik_bandwidth(below: Side, above: Side, *, kernel: str, lam: np.ndarray, scor
         ts.append(np.full(rows, 1.0 if s.sign > 0 else 0.0))
         ws.append(s.w(slice(0, rows)))
     x, y, t, w = (np.concatenate(v) for v in (xs, ys, ts, ws))
-    design = np.column_stack([np.ones_like(x), t, x, x ** 2, x ** 3])
+    xs = x / score_sd  # standardized score keeps the cubic well conditioned in any units
+    design = np.column_stack([np.ones_like(xs), t, xs, xs ** 2, xs ** 3])
     sw = np.sqrt(w)
     coef = np.linalg.lstsq(design * sw[:, None], y * sw, rcond=None)[0]
-    m3 = 6.0 * coef[4]
+    m3 = 6.0 * coef[4] / score_sd ** 3
+    # (convention) IK floor the squared third derivative at 0.01; we apply it in standardized units
+    # (score and outcome divided by their standard deviations) so the rule does not depend on units.
+    y_sd = float(np.sqrt(np.cov(y, aweights=w))) if len(y) > 1 else 1.0
+    to_std = score_sd ** 3 / y_sd if y_sd > 0 else 1.0
+    m3_floor_sq = max((m3 * to_std) ** 2, 0.01) / to_std ** 2
 
     m2, reg = [], []
     for s, s2 in zip(sides, sigma2):
-        h2 = 3.56 * (s2 / (f_hat * max(m3 ** 2, 0.01))) ** (1 / 7) * s.n ** (-1 / 7)
+        h2 = 3.56 * (s2 / (f_hat * m3_floor_sq)) ** (1 / 7) * s.n ** (-1 / 7)
         h2 = _floor(s, min(h2, float(s.distance[-1])), 3, "uniform")
         fit = fit_side(s, h2, h2, 2, 2, 2, "uniform", direct=True)
         m2.append(float(fit.derivative(2) @ lam))
