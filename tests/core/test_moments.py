@@ -63,5 +63,6 @@ def test_fast_equals_direct(kernel, p, sign):
                                        (True, arrays.abc, arrays.resid_b @ lam)):
             assert variance_fast(fast, lam, "neighbors", robust) == pytest.approx(
                 np.sum(weights ** 2 * nn ** 2), rel=RTOL)
-            assert variance_fast(fast, lam, "hc0", robust) == pytest.approx(
-                np.sum(weights ** 2 * resid ** 2), rel=RTOL)
+            if p <= 2:  # the engine sends HC variances with bias degree >= 4 to the direct path
+                assert variance_fast(fast, lam, "hc0", robust) == pytest.approx(
+                    np.sum(weights ** 2 * resid ** 2), rel=RTOL)

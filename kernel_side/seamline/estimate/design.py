@@ -14,7 +14,7 @@ from ..data import DesignData, Prepared
 from ..errors import InvalidOptionError
 from ..options import SIDES, check_option
 from ..results.fit import Fit
-from .engine import FAST_VARIANCES, JumpEngine, check_support
+from .engine import JumpEngine, check_support, use_fast_variance
 from .options import FitSpec, resolve
 
 FEW_OBSERVATIONS = 20   # common practice: flag windows with fewer effective observations per side
@@ -120,7 +120,7 @@ class Design:
     def _variance_fn(self, spec: FitSpec):
         """Per-side conventional variance for the bandwidth selectors."""
         clustered = self.cluster is not None
-        if spec.variance in FAST_VARIANCES and not clustered:
+        if use_fast_variance(spec.variance, spec.bias_degree) and not clustered:
             kind = "neighbors" if spec.variance == "neighbors" else "hc0"
             return lambda sf, lam: variance_fast(sf, lam, kind, False)
 

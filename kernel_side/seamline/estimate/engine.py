@@ -16,6 +16,13 @@ from ..data import Prepared
 from ..errors import CollinearCovariatesError, TooFewClustersError, TooFewDistinctValuesError
 
 FAST_VARIANCES = ("neighbors", "hc0", "hc1")
+# Residual-based (HC) variances expand squared residuals into moments of degree up to 4q + 2k; from a
+# bias degree of 4 the cancellation costs more than the 1e-8 agreement we promise, so those go direct.
+FAST_HC_MAX_BIAS_DEGREE = 3
+
+
+def use_fast_variance(variance: str, bias_degree: int) -> bool:
+    return variance == "neighbors" or (variance in FAST_VARIANCES and bias_degree <= FAST_HC_MAX_BIAS_DEGREE)
 
 
 def check_support(prep: Prepared, h: tuple[float, float], b: tuple[float, float], p: int, q: int,
@@ -95,7 +102,7 @@ class JumpEngine:
     def variance(self, lam: np.ndarray, variance: str, robust: bool = False,
                  cluster: bool = False) -> float:
         """Variance of jump(lam) (conventional, or of the bias-corrected estimate when robust)."""
-        if not self.direct and not cluster and variance in FAST_VARIANCES:
+        if not self.direct and not cluster and use_fast_variance(variance, self.q):
             kind = "neighbors" if variance == "neighbors" else "hc0"
             total = sum(variance_fast(f, lam, kind, robust) for f in self.fits)
             if variance == "hc1":
