@@ -18,6 +18,7 @@ import numpy as np
 from .kernels import ik_constant, normal_reference_constant
 from .locpoly import SideFit, fit_side
 from .side import Side
+from ..errors import TooFewDistinctValuesError
 
 # variance_fn(side_fit, lam) -> conventional variance of side_fit's estimate for variable lam
 VarianceFn = Callable[[SideFit, np.ndarray], float]
@@ -74,32 +75,39 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
     that re-evaluates V and the bias constants at the new h.
     """
     sides = (below, above)
+    for side, name in zip(sides, ("below", "above")):
+        have = side.distinct_within(side.n)
+        if have < q + 1:
+            raise TooFewDistinctValuesError(
+                f"the score must take at least {q + 1} distinct values {name} the cutoff for a data-driven "
+                f"bandwidth with a degree-{q} bias fit; got {have}. Lower `degree`/`bias_degree` or pass a "
+                "manual bandwidth and pilot_bandwidth.")
     warnings: list[str] = []
     n = float(n_total)
     top = max(below.distance[-1], above.distance[-1])
     c = normal_reference_constant(kernel) * score_scale * n ** (-0.2)
-    c = min(max(c, *(_floor(s, 0.0, q + 2, kernel) for s in sides)), top)
+    c = min(max(c, *(_floor(s, 0.0, q + 1, kernel) for s in sides)), top)
 
     # (1)-(3): bias bandwidth b for the (p+1)-th derivative, order q
     curv_q = [_global_derivative(s, q + 1, lam, q + 1) for s in sides]
-    fits_b = [fit_side(s, c, c, q, q + 1, p + 1, kernel) for s in sides]
+    fits_b = [fit_side(s, c, c, q, q, p + 1, kernel) for s in sides]
     v_b = [n * c ** (1 + 2 * (p + 1)) * variance_fn(f, lam) for f in fits_b]
     bias_b = [factorial(p + 1) / factorial(q + 1) * _lead(f) * m for f, m in zip(fits_b, curv_q)]
     expo_b = 1.0 / (2 * q + 3)
 
     def b_rule(v: float, bias2: float) -> float:
-        if bias2 <= 0:
+        if not (bias2 > 0 and v > 0):  # no curvature signal (or a degenerate pilot window): widest window
             return top
         return float(((3 + 2 * p) * v / (2 * (q - p) * bias2)) ** expo_b * n ** -expo_b)
 
     b_common = min(b_rule(sum(v_b), (bias_b[1] - bias_b[0]) ** 2), top)
     b_split = tuple(min(b_rule(v, bb ** 2), s.distance[-1]) for v, bb, s in zip(v_b, bias_b, sides))
-    b_common = max(b_common, *(_floor(s, 0.0, q + 2, kernel) for s in sides))
-    b_split = tuple(_floor(s, bb, q + 2, kernel) for s, bb in zip(sides, b_split))
+    b_common = max(b_common, *(_floor(s, 0.0, q + 1, kernel) for s in sides))
+    b_split = tuple(_floor(s, bb, q + 1, kernel) for s, bb in zip(sides, b_split))
 
     # (4) curvature mu^(p+1) at b and its variance (the regulariser R)
     def curvature(side: Side, b: float) -> tuple[float, float]:
-        f = fit_side(side, b, b, q, q + 1, p + 1, kernel)
+        f = fit_side(side, b, b, q, q, p + 1, kernel)
         return float(f.estimate @ lam), variance_fn(f, lam)
 
     curv_common = [curvature(s, b_common) for s in sides]
@@ -110,13 +118,13 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
     scale_b = factorial(nu) / factorial(p + 1)
 
     def pieces(side: Side, h: float, curv: tuple[float, float]) -> tuple[float, float, float]:
-        f = fit_side(side, h, h, p, p + 1, nu, kernel)
+        f = fit_side(side, h, h, p, p, nu, kernel)
         lead = scale_b * _lead(f)
         return n * h ** (1 + 2 * nu) * variance_fn(f, lam), lead * curv[0], lead ** 2 * curv[1]
 
     def h_rule(v: float, bias2: float, reg: float, cap: float) -> float:
         denom = bias2 + reg
-        if denom <= 0:
+        if not (denom > 0 and v > 0):
             return cap
         return float(min((const * v / denom) ** expo * n ** -expo, cap))
 
@@ -125,13 +133,13 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
         parts = [pieces(s, h_common, cv) for s, cv in zip(sides, curv_common)]
         h_common = h_rule(parts[0][0] + parts[1][0], (parts[1][1] - parts[0][1]) ** 2,
                           parts[0][2] + parts[1][2], top)
-        h_common = max(h_common, *(_floor(s, 0.0, p + 2, kernel) for s in sides))
+        h_common = max(h_common, *(_floor(s, 0.0, p + 1, kernel) for s in sides))
     h_split = []
     for s, cv in zip(sides, curv_split):
         h_s = c
         for _ in range(2):
             v, bias, reg = pieces(s, h_s, cv)
-            h_s = _floor(s, h_rule(v, bias ** 2, reg, float(s.distance[-1])), p + 2, kernel)
+            h_s = _floor(s, h_rule(v, bias ** 2, reg, float(s.distance[-1])), p + 1, kernel)
         h_split.append(h_s)
     if h_common >= top * 0.999:
         warnings.append("The MSE-optimal bandwidth reached the range of the data: the estimated "

@@ -79,6 +79,7 @@ class Design:
                                 covariates=self.covariates, cluster=cluster, weights=weights)
         self._selections: dict[tuple, Selection] = {}
         self._fits: dict[FitSpec, Fit] = {}
+        self._engines: dict[FitSpec, JumpEngine] = {}
 
     @property
     def treated_sign(self) -> int:
@@ -232,16 +233,27 @@ class Design:
             self._fits[spec] = self._fit(spec)
         return self._fits[spec]
 
-    def _fit(self, spec: FitSpec) -> Fit:
+    def _engine(self, spec: FitSpec) -> tuple[JumpEngine, bool, str, list[str]]:
+        """The fitted engine of a specification (cached), whether it is fuzzy, the rule and warnings."""
         fuzzy = self._is_fuzzy(spec.outcome, spec.donut)
         variables, n_main = self._variables(spec, fuzzy)
         prep = self._data.prepare(variables, spec.donut)
         self._warm(prep, spec)
         h, b, rule, warnings = self._bandwidths_for(spec, prep, fuzzy, n_main)
-        check_support(prep, h, b, spec.degree, spec.bias_degree, spec.kernel)
-        engine = JumpEngine(prep, h=h, b=b, p=spec.degree, q=spec.bias_degree, nu=spec.derivative,
-                            kernel=spec.kernel, treated_sign=self.treated_sign, n_main=n_main,
-                            covariate_names=variables[n_main:])
+        if spec not in self._engines:
+            check_support(prep, h, b, spec.degree, spec.bias_degree, spec.kernel)
+            self._engines[spec] = JumpEngine(
+                prep, h=h, b=b, p=spec.degree, q=spec.bias_degree, nu=spec.derivative, kernel=spec.kernel,
+                treated_sign=self.treated_sign, n_main=n_main, covariate_names=variables[n_main:])
+        return self._engines[spec], fuzzy, rule, warnings
+
+    def _fit(self, spec: FitSpec) -> Fit:
+        engine, fuzzy, rule, warnings = self._engine(spec)
+        prep = engine.prep
+        n_main = engine.n_main
+        variables = prep.variables
+        h = tuple(f.h for f in engine.fits)
+        b = tuple(f.b for f in engine.fits)
         clustered = self.cluster is not None
         variance_name = "cluster" if clustered else spec.variance
 
@@ -321,3 +333,51 @@ class Design:
             rows.append((rule, h[0], h[1], b[0], b[1]))
         return pd.DataFrame(rows, columns=["rule", "bandwidth_below", "bandwidth_above", "pilot_below",
                                            "pilot_above"])
+
+    # ---- diagnostics (implemented in seamline.estimate.diagnostics) ------------------------------
+    def density_test(self, method: str = "local-cdf", **options):
+        """Manipulation test of the score's density at the cutoff.
+
+        method "local-cdf": local polynomial density estimator on the empirical CDF with robust
+        bias-corrected inference (Cattaneo, Jansson & Ma 2020); "binned": McCrary (2008).
+        Options: level, and for "local-cdf" degree, kernel, bandwidth; for "binned" bin_width, bandwidth.
+        """
+        from . import diagnostics
+        return diagnostics.density_test(self, method, **options)
+
+    def balance(self, covariates=None, *, bandwidth="own", **fit_options):
+        """Covariates as placebo outcomes: robust CIs, Holm-adjusted p-values and a joint Wald test."""
+        from . import diagnostics
+        return diagnostics.balance(self, covariates, bandwidth=bandwidth, **fit_options)
+
+    def sensitivity(self, bandwidths=None, kernels=None, degrees=None, **fit_options):
+        """A grid of fits: the selected bandwidth x 0.5 ... x 2 and each selector (default)."""
+        from . import diagnostics
+        return diagnostics.sensitivity(self, bandwidths, kernels, degrees, **fit_options)
+
+    def placebo_cutoffs(self, cutoffs=None, **fit_options):
+        """Estimates at fake cutoffs, each using only one side's observations."""
+        from . import diagnostics
+        return diagnostics.placebo_cutoffs(self, cutoffs, **fit_options)
+
+    def donut(self, radii=None, **fit_options):
+        """Estimates excluding observations within each radius of the cutoff."""
+        from . import diagnostics
+        return diagnostics.donut(self, radii, **fit_options)
+
+    def bins(self, outcome=None, method: str = "equal-width", number=None, **options):
+        """Binned means (data-driven number of bins per side, Calonico-Cattaneo-Titiunik 2015) and the
+        fitted local polynomial curves with CI bands, for an RD plot."""
+        from . import diagnostics
+        return diagnostics.bins(self, outcome, method, number, **options)
+
+    def score_profile(self, **fit_options):
+        """Distinct values and mass points of the score per side, overall and inside the bandwidth."""
+        from . import diagnostics
+        return diagnostics.score_profile(self, **fit_options)
+
+    def checks(self, **fit_options):
+        """Design-level summary of flags: manipulation, balance, weak first stage, few observations,
+        discrete score, heaping."""
+        from . import diagnostics
+        return diagnostics.checks(self, **fit_options)

@@ -11,7 +11,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..core.locpoly import SideFit, WindowArrays, fit_side, variance_fast, window_arrays
+from ..core.kernels import kernel_poly
+from ..core.locpoly import SideFit, WindowArrays, _omega_terms, fit_side, variance_fast, window_arrays
+from ..core.moments import window_gram
 from ..data import Prepared
 from ..errors import CollinearCovariatesError, TooFewClustersError, TooFewDistinctValuesError
 
@@ -158,6 +160,50 @@ class JumpEngine:
         if variance == "hc1":
             total *= n_used / (n_used - k)
         return total
+
+    # ---- fitted curves -------------------------------------------------------------------------
+    def coefficient_covariance(self, index: int, lam: np.ndarray, variance: str, cluster: bool) -> np.ndarray:
+        """Sandwich covariance of the order-p coefficients (u = x/h units) on side ``index``."""
+        sf, side = self.fits[index], self.sides[index]
+        p = self.p
+        if not self.direct and not cluster and use_fast_variance(variance, self.q):
+            kind = "neighbors" if variance == "neighbors" else "hc0"
+            kp = kernel_poly(self.kernel)
+            terms = _omega_terms(side, lam, kind, sf.beta_h, sf.h, sf.h)
+            meat = window_gram(side.moments, sf.h, terms, p + 1, p + 1, kp, kp, 1.0, 1.0, float(side.sign))
+        else:
+            wa = self.arrays()[index]
+            kw, r = wa.kw_h, wa.rp
+            resid = wa.resid_h[:, : len(lam)] @ lam
+            if cluster:
+                _, inv = np.unique(side.clusters[: wa.rows], return_inverse=True)
+                scores = np.zeros((inv.max() + 1, p + 1))
+                np.add.at(scores, inv, (kw * resid)[:, None] * r)
+                meat = scores.T @ scores
+            else:
+                if variance == "neighbors":
+                    omega = (side.nn_residuals()[: wa.rows, : len(lam)] @ lam) ** 2
+                else:
+                    power = {"hc2": 1, "hc3": 2}.get(variance, 0)
+                    omega = resid ** 2 / (1.0 - np.minimum(wa.lev_h, 1 - 1e-12)) ** power
+                meat = (r * (kw ** 2 * omega)[:, None]).T @ r
+        bread = np.linalg.inv(sf.gamma_p)
+        return bread @ meat @ bread
+
+    def curve(self, lam: np.ndarray, variance: str, cluster: bool, points: int = 40):
+        """Fitted order-p polynomial on each side inside the bandwidth, with pointwise standard errors.
+
+        Yields (side sign, x relative to the cutoff, fitted value, standard error) per side.
+        """
+        for index, (side, sf) in enumerate(zip(self.sides, self.fits)):
+            d = np.linspace(0.0, min(sf.h, float(side.distance[-1])), points)
+            u = side.sign * d / sf.h
+            r = np.vander(u, self.p + 1, increasing=True)
+            coef = sf.beta_h[:, : len(lam)] @ lam
+            fitted = r @ coef + side.offsets[: len(lam)] @ lam
+            cov = self.coefficient_covariance(index, lam, variance, cluster)
+            se = np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", r, cov, r), 0.0))
+            yield side.sign, side.sign * d, fitted, se
 
     # ---- covariate adjustment ----------------------------------------------------------------
     def _adjust(self) -> Adjustment:

@@ -7,8 +7,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-CAUTION = ("An RD estimate is local to the cutoff; it rests on continuity of the potential outcomes "
-           "and no manipulation of the score, and does not replace judgement about the design.")
+from .base import CAUTION, Reported
 
 
 def normal_interval(estimate: float, se: float, level: float) -> tuple[float, float]:
@@ -23,7 +22,7 @@ def normal_p_value(estimate: float, se: float) -> float:
 
 
 @dataclass(frozen=True, eq=False)
-class Fit:
+class Fit(Reported):
     """Local polynomial estimate of the jump at the cutoff, with conventional and robust inference.
 
     ``estimate`` is the conventional local polynomial estimate (limit on the treated side minus the
@@ -143,22 +142,6 @@ class Fit:
             notes.append(f"First-stage F statistic: {self.first_stage_f:.1f}.")
         notes.append(CAUTION)
         return notes
-
-    def _table_model(self):
-        from ..export.table_model import from_dataframe
-        return from_dataframe(self.table(), title=self.title(), notes=self.notes() + list(self.warnings))
-
-    def to_markdown(self) -> str:
-        from ..export.render import to_markdown
-        return to_markdown(self._table_model())
-
-    def to_latex(self) -> str:
-        from ..export.render import to_latex
-        return to_latex(self._table_model())
-
-    def _repr_html_(self) -> str:
-        from ..export.render import to_html
-        return to_html(self._table_model())
 
     def __repr__(self) -> str:
         lo, hi = self.robust_conf_int

@@ -1,0 +1,480 @@
+"""Validity diagnostics of a cutoff design: manipulation, balance, sensitivity, placebos, donut,
+binned scatter, score profile, and a design-level checks summary (METHODS sections 8, 9, 13).
+
+Each function takes a Design and returns a frozen result from seamline.results.diagnostics. Row-level
+estimates are ordinary ``design.fit`` calls, so every number here equals the fit a user would run.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from ..core.binning import binned_means
+from ..core.density import density_test as core_density_test
+from ..errors import (InvalidOptionError, OneSidedDataError, SeamlineError, TooFewDistinctValuesError)
+from ..options import BIN_METHODS, BIN_RULES, DENSITY_METHODS, check_option
+from ..results.diagnostics import (Balance, Bins, Checks, DensityTest, Donut, Placebo, ScoreProfile,
+                                   Sensitivity, fit_row, holm)
+from .engine import JumpEngine
+
+SCALE_GRID = (0.5, 0.75, 1.0, 1.25, 1.5, 2.0)          # common practice (METHODS 13.4)
+PLACEBO_QUANTILES = (0.2, 0.4, 0.6, 0.8)                # convention (METHODS 13.2)
+DONUT_FRACTIONS = (0.0, 0.05, 0.1, 0.15, 0.2, 0.25)     # convention: radii as shares of the bandwidth
+MIN_PLACEBO_SIDE = 20                                   # convention: observations needed on each side
+ALPHA = 0.05
+
+
+def _clean_score(design) -> np.ndarray:
+    x = design._data.arrays[design.score]
+    return x[~np.isnan(x)]
+
+
+# ---------------------------------------------------------------------------------------------
+def density_test(design, method: str = "local-cdf", *, level: float = 0.95, **options) -> DensityTest:
+    """Manipulation test of the score's density at the cutoff (see DensityTest)."""
+    method = check_option("method", method, DENSITY_METHODS)
+    x = _clean_score(design)
+    est = core_density_test(x, design.cutoff, method=method, level=level, **options)
+    warnings = []
+    if est.p_value < ALPHA:
+        warnings.append(f"The density of {design.score!r} jumps at the cutoff (p = {est.p_value:.3f}): evidence of "
+                        "sorting around the cutoff, which threatens the design. Investigate how the score is set.")
+    if est.tie_share > 0.5:
+        warnings.append(f"{est.tie_share:.0%} of score values are tied (a discrete score): density tests assume a "
+                        "continuous score; read the test with care and inspect the histogram.")
+    if method == "binned":
+        warnings.append("The binned test uses a rule-of-thumb bandwidth; check the histogram and try other "
+                        "bandwidths (the rule can over-reject with heavy-tailed scores).")
+    return DensityTest(method=method, score=design.score, cutoff=design.cutoff, statistic=float(est.statistic),
+                       p_value=float(est.p_value), density_below=float(est.density_below),
+                       density_above=float(est.density_above), ci_below=tuple(est.ci_below),
+                       ci_above=tuple(est.ci_above), bandwidth=tuple(est.bandwidth), n_used=tuple(est.n_used),
+                       n_total=(int(est.n_below), int(est.n_above)), level=level, tie_share=float(est.tie_share),
+                       estimate=est, warnings=tuple(warnings))
+
+
+# ---------------------------------------------------------------------------------------------
+def _window_mean(design, column: str, h: tuple[float, float]) -> tuple[float, float]:
+    x = design._data.arrays[design.score] - design.cutoff
+    v = design._data.arrays[column]
+    w = design._data.weights
+    out = []
+    for inside in ((x < 0) & (x >= -h[0]), (x >= 0) & (x <= h[1])):
+        ok = inside & ~np.isnan(v)
+        if w is not None:
+            ok &= ~np.isnan(w) & (w > 0)
+        out.append(float(np.average(v[ok], weights=None if w is None else w[ok])) if ok.any() else float("nan"))
+    return out[0], out[1]
+
+
+def balance(design, covariates=None, *, bandwidth="own", **fit_options) -> Balance:
+    """Each pre-treatment covariate as the outcome of the same design (placebo outcomes).
+
+    bandwidth : "own" (each covariate's own data-driven bandwidth, using ``fit_options['rule']`` or
+        "mse"), "main" (the main outcome's bandwidth), or a number / pair in score units.
+    """
+    names = design.covariates if covariates is None else tuple([covariates] if isinstance(covariates, str)
+                                                                else covariates)
+    if not names:
+        raise InvalidOptionError("`covariates` must name pre-treatment columns; got none. Declare them with "
+                                 "Design(..., covariates=[...]).")
+    unknown = [c for c in names if c not in design.covariates]
+    if unknown:
+        raise InvalidOptionError(f"`covariates` must be declared in the design; got {unknown!r}. Add them to "
+                                 "Design(..., covariates=[...]) so they are validated once.")
+    fit_options = {k: v for k, v in fit_options.items() if k not in ("adjust", "outcome")}
+    rule = fit_options.pop("rule", "mse")
+    if isinstance(bandwidth, str) and bandwidth == "main":
+        h = design.fit(**fit_options, bandwidth=rule).bandwidth
+        source, bw = "the main outcome's", h
+    elif isinstance(bandwidth, str) and bandwidth == "own":
+        source, bw = f"each covariate's own ({rule})", rule
+    elif isinstance(bandwidth, str):
+        raise InvalidOptionError(f'`bandwidth` must be "own", "main", a number or a pair; got {bandwidth!r}. '
+                                 'Use bandwidth="own".')
+    else:
+        source, bw = "fixed by the user", bandwidth
+    fits = [design.fit(c, bandwidth=bw, **fit_options) for c in names]
+    p_robust = np.array([f.robust_p_value for f in fits])
+    p_holm = holm(p_robust)
+    rows = []
+    for name, f, ph in zip(names, fits, p_holm):
+        lo, hi = f.robust_conf_int
+        mb, ma = _window_mean(design, name, f.bandwidth)
+        rows.append({"covariate": name, "estimate": f.estimate, "std_error": f.std_error,
+                     "robust_estimate": f.bias_corrected_estimate, "robust_std_error": f.robust_std_error,
+                     "ci_low": lo, "ci_high": hi, "p_value": f.robust_p_value, "p_value_holm": ph,
+                     "bandwidth_below": f.bandwidth[0], "bandwidth_above": f.bandwidth[1],
+                     "mean_below": mb, "mean_above": ma, "n_below": f.n_used[0], "n_above": f.n_used[1]})
+    stat, df, p_joint, n_joint = _joint_test(design, names, fits)
+    warnings = []
+    flagged = [r["covariate"] for r in rows if r["p_value_holm"] < ALPHA]
+    if flagged:
+        warnings.append(f"Covariates jump at the cutoff (Holm-adjusted p < {ALPHA}): {flagged}. Pre-treatment "
+                        "imbalance suggests sorting or a compound treatment; covariate adjustment cannot "
+                        "repair an invalid design.")
+    if np.isfinite(p_joint) and p_joint < ALPHA:
+        warnings.append(f"The joint test rejects balance of all covariates (p = {p_joint:.3f}).")
+    return Balance(rows=tuple(rows), joint_statistic=stat, joint_df=df, joint_p_value=p_joint, joint_n=n_joint,
+                   bandwidth_source=source, level=fits[0].level, fits=tuple(fits), warnings=tuple(warnings))
+
+
+def _joint_test(design, names, fits) -> tuple[float, int, float, int]:
+    """Wald test of no jump in any covariate, with the covariance of the stacked robust estimates.
+
+    Each covariate keeps its own bandwidths; the estimates are linear smoothers on the same
+    observations (complete cases in all covariates), so their covariance is the sum over
+    observations of the products of their influence terms: sum_i a_ki a_li omega_kli (neighbour
+    residual products, or residual products for HC variances), or sums within clusters.
+    """
+    k = len(names)
+    spec0 = design._spec(names[0], bandwidth=fits[0].bandwidth, kernel=fits[0].kernel, degree=fits[0].degree,
+                         bias_degree=fits[0].bias_degree, pilot_bandwidth=None, variance=_variance_option(fits[0]),
+                         level=fits[0].level, donut=fits[0].donut, derivative=fits[0].derivative, adjust=False)
+    prep = design._data.prepare(tuple(names), spec0.donut)
+    clustered = design.cluster is not None
+    engines = [JumpEngine(prep, h=f.bandwidth, b=f.pilot_bandwidth, p=f.degree, q=f.bias_degree, nu=f.derivative,
+                          kernel=f.kernel, treated_sign=design.treated_sign, n_main=k, direct=True) for f in fits]
+    tau = np.array([eng.jump(np.eye(k)[j], robust=True) for j, eng in enumerate(engines)])
+    cov = np.zeros((k, k))
+    for s_index, side in enumerate((prep.below, prep.above)):
+        rows = max(eng.arrays()[s_index].rows for eng in engines)
+        a = np.zeros((k, rows))
+        e = np.zeros((k, rows))
+        for j, eng in enumerate(engines):
+            wa = eng.arrays()[s_index]
+            a[j, : wa.rows] = design.treated_sign * side.sign * wa.abc
+            if fits[0].variance == "neighbors" and not clustered:
+                e[j, :rows] = side.nn_residuals()[:rows, j]
+            else:
+                resid = side.values[:rows, j] - np.vander(side.sign * side.distance[:rows] / eng.fits[s_index].b,
+                                                           eng.q + 1, increasing=True) @ eng.fits[s_index].beta_b[:, j]
+                e[j] = resid
+        contrib = a * e
+        if clustered:
+            _, inv = np.unique(side.clusters[:rows], return_inverse=True)
+            sums = np.zeros((k, inv.max() + 1))
+            for j in range(k):
+                sums[j] = np.bincount(inv, weights=contrib[j])
+            if s_index == 0:
+                cluster_codes, cluster_sums = [side.clusters[:rows]], [contrib]
+            else:
+                cluster_codes.append(side.clusters[:rows])
+                cluster_sums.append(contrib)
+        else:
+            cov += contrib @ contrib.T
+    if clustered:
+        codes = np.concatenate(cluster_codes)
+        contrib = np.concatenate(cluster_sums, axis=1)
+        _, inv = np.unique(codes, return_inverse=True)
+        sums = np.stack([np.bincount(inv, weights=contrib[j]) for j in range(k)])
+        g = sums.shape[1]
+        cov = g / (g - 1) * (sums @ sums.T)
+    try:
+        stat = float(tau @ np.linalg.solve(cov, tau))
+    except np.linalg.LinAlgError:
+        return float("nan"), k, float("nan"), prep.n_total
+    return stat, k, float(stats.chi2.sf(stat, k)), prep.n_total
+
+
+def _variance_option(fit) -> str:
+    return "neighbors" if fit.variance in ("neighbors", "cluster") else fit.variance
+
+
+# ---------------------------------------------------------------------------------------------
+def sensitivity(design, bandwidths=None, kernels=None, degrees=None, **fit_options) -> Sensitivity:
+    """Re-estimate over a grid of bandwidths (and kernels, degrees); each row is a ``design.fit`` call."""
+    outcome = fit_options.pop("outcome", None)
+    base_rule = fit_options.pop("bandwidth", "mse")
+    kernels = [fit_options.pop("kernel", "triangular")] if kernels is None else list(kernels)
+    degrees = [fit_options.pop("degree", 1)] if degrees is None else list(degrees)
+    fit_options.pop("kernel", None)
+    fit_options.pop("degree", None)
+    rows, fits, warnings = [], [], []
+    selected = None
+    for kernel in kernels:
+        for degree in degrees:
+            main = design.fit(outcome, bandwidth=base_rule, kernel=kernel, degree=degree, **fit_options)
+            if selected is None:
+                selected = main.bandwidth
+            if bandwidths is None:
+                grid = [(f"x{m:g}", (main.bandwidth[0] * m, main.bandwidth[1] * m)) for m in SCALE_GRID]
+                rules = ["mse", "mse-split", "coverage"]
+                if degree == 1 and fit_options.get("derivative", 0) == 0:
+                    rules.append("ik")
+                grid += [(r, r) for r in rules]
+            else:
+                grid = [(str(b), b) for b in bandwidths]
+            for label, bw in grid:
+                try:
+                    f = design.fit(outcome, bandwidth=bw, kernel=kernel, degree=degree, **fit_options)
+                except TooFewDistinctValuesError as exc:
+                    if bandwidths is not None:
+                        raise
+                    warnings.append(f"Row {label} ({kernel}, degree {degree}) skipped: {exc}")
+                    continue
+                rows.append({"label": label, **fit_row(f)})
+                fits.append(f)
+    return Sensitivity(rows=tuple(rows), outcome=fits[0].outcome, selected=selected, fits=tuple(fits),
+                       warnings=tuple(warnings))
+
+
+# ---------------------------------------------------------------------------------------------
+def _side_frame(design, side: str) -> pd.DataFrame:
+    """The columns a placebo fit needs, restricted to one side of the true cutoff (a new frame)."""
+    data = design._data
+    x = data.arrays[design.score]
+    keep = (x >= design.cutoff) if side == "above" else (x < design.cutoff)
+    frame = {name: arr[keep] for name, arr in data.arrays.items() if name not in (design.takeup,)}
+    if data.weights is not None:
+        frame["__weights__"] = data.weights[keep]
+    if data.cluster_codes is not None:
+        frame["__cluster__"] = data.cluster_codes[keep].astype(float)
+        frame["__cluster__"][frame["__cluster__"] < 0] = np.nan
+    return pd.DataFrame(frame)
+
+
+def placebo_cutoffs(design, cutoffs=None, **fit_options) -> Placebo:
+    """Estimates at fake cutoffs using only the observations on one side of the true cutoff."""
+    from .design import Design
+    outcome = design._outcome(fit_options.pop("outcome", None))
+    fit_options.pop("adjust", None)
+    x = _clean_score(design)
+    if cutoffs is None:
+        requested = []
+        for side, part in (("below", x[x < design.cutoff]), ("above", x[x >= design.cutoff])):
+            requested += [float(np.quantile(part, q)) for q in PLACEBO_QUANTILES] if len(part) else []
+        user = False
+    else:
+        requested = [float(c) for c in np.atleast_1d(cutoffs)]
+        user = True
+    rows, fits, skipped = [], [], []
+    for c in requested:
+        if c == design.cutoff:
+            raise InvalidOptionError(f"`cutoffs` must differ from the true cutoff {design.cutoff:g}; got {c:g}. "
+                                     "Placebo cutoffs lie strictly on one side.")
+        side = "above" if c > design.cutoff else "below"
+        frame = _side_frame(design, side)
+        score = frame[design.score].to_numpy()
+        n_left, n_right = int(np.sum(score < c)), int(np.sum(score >= c))
+        if min(n_left, n_right) < MIN_PLACEBO_SIDE:
+            msg = (f"placebo cutoff {c:g} leaves {n_left} and {n_right} observations on its two sides within the "
+                   f"{side} side (at least {MIN_PLACEBO_SIDE} each are needed)")
+            if user:
+                lo, hi = (score.min(), score.max())
+                raise OneSidedDataError(f"`cutoffs` must leave at least {MIN_PLACEBO_SIDE} observations on each side "
+                                        f"of a placebo; got {msg}. Choose a value well inside [{lo:g}, {hi:g}].")
+            skipped.append(msg)
+            continue
+        sub = Design(frame, score=design.score, cutoff=c, outcome=outcome, treated=design.treated,
+                     cluster="__cluster__" if design.cluster is not None else None,
+                     weights="__weights__" if design.weights is not None else None)
+        try:
+            f = sub.fit(**fit_options)
+        except SeamlineError as exc:
+            if user:
+                raise
+            skipped.append(f"placebo cutoff {c:g}: {exc}")
+            continue
+        rows.append({"cutoff": c, "side": side, **fit_row(f)})
+        fits.append(f)
+    warnings = []
+    rejected = [r["cutoff"] for r in rows if r["robust_p_value"] < ALPHA]
+    if rows and len(rejected) > max(1, ALPHA * len(rows) * 3):
+        warnings.append(f"{len(rejected)} of {len(rows)} placebo cutoffs show a significant jump ({rejected}); "
+                        "the outcome may jump away from the cutoff too, or the specification is too rigid.")
+    return Placebo(rows=tuple(rows), outcome=outcome, skipped=tuple(skipped), fits=tuple(fits),
+                   warnings=tuple(warnings))
+
+
+def donut(design, radii=None, **fit_options) -> Donut:
+    """Re-estimate excluding observations within each radius of the cutoff (bandwidth re-selected)."""
+    outcome = fit_options.pop("outcome", None)
+    fit_options.pop("donut", None)
+    if radii is None:
+        h = design.fit(outcome, **fit_options).bandwidth
+        radii = [m * min(h) for m in DONUT_FRACTIONS]
+    rows, fits = [], []
+    for r in np.atleast_1d(radii):
+        r = float(r)
+        if not np.isfinite(r) or r < 0:
+            raise InvalidOptionError(f"`radii` must be non-negative numbers; got {r!r}. Use e.g. radii=[0, 0.5, 1].")
+        try:
+            f = design.fit(outcome, donut=r, **fit_options)
+        except OneSidedDataError as exc:
+            raise OneSidedDataError(f"`radii` value {r:g} empties a side of the cutoff: {exc} Use a smaller radius.") from None
+        rows.append({"radius": r, "n_excluded": f.n_donut, **fit_row(f)})
+        fits.append(f)
+    return Donut(rows=tuple(rows), outcome=fits[0].outcome, fits=tuple(fits))
+
+
+# ---------------------------------------------------------------------------------------------
+def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule: str = "imse",
+         scale: float = 1.0, global_degree: int | None = None, **fit_options) -> Bins:
+    """Binned means for an RD plot plus the fitted local polynomial curves with CI bands."""
+    method = check_option("method", method, BIN_METHODS)
+    rule = check_option("rule", rule, BIN_RULES)
+    outcome = design._outcome(outcome)
+    data = design._data
+    x, y = data.arrays[design.score], data.arrays[outcome]
+    ok = ~np.isnan(x) & ~np.isnan(y)
+    w = data.weights
+    if w is not None:
+        ok &= ~np.isnan(w) & (w > 0)
+    level = fit_options.get("level", 0.95)
+    binned = binned_means(x[ok], y[ok], design.cutoff, method=method, number=number, rule=rule, scale=scale,
+                          weights=None if w is None else w[ok], level=level)
+    fit = design.fit(outcome, **fit_options)
+    spec = design._spec(outcome, **_spec_options(fit, fit_options))
+    engine, _, _, _ = design._engine(spec)
+    lam = np.eye(engine.n_main)[0]
+    variance = _variance_option(fit) if fit.variance != "cluster" else "hc0"
+    z = stats.norm.ppf(0.5 + level / 2)
+    parts = []
+    for sign, rel, fitted, se in engine.curve(lam, variance, design.cluster is not None):
+        order = np.argsort(rel)
+        parts.append(pd.DataFrame({"side": "below" if sign < 0 else "above", "x": design.cutoff + rel[order],
+                                   "fit": fitted[order], "ci_low": fitted[order] - z * se[order],
+                                   "ci_high": fitted[order] + z * se[order]}))
+    curve = pd.concat(parts, ignore_index=True)
+    global_frame = None
+    if global_degree is not None:
+        global_frame = _global_polynomial(x[ok], y[ok], design.cutoff, int(global_degree))
+    number_used = tuple(int(v) for v in np.atleast_1d(binned.number)) if np.ndim(binned.number) else (
+        int(binned.number), int(binned.number))
+    return Bins(outcome=outcome, score=design.score, cutoff=design.cutoff, method=method, rule=binned.rule,
+                number=number_used, level=level, binned=binned, curve_frame=curve, global_frame=global_frame,
+                fit=fit, warnings=fit.warnings)
+
+
+def _spec_options(fit, fit_options: dict) -> dict:
+    """The resolve() keywords of a fit made with ``fit_options`` (so its cached engine is found)."""
+    opts = dict(bandwidth="mse", kernel="triangular", degree=1, bias_degree=None, pilot_bandwidth=None,
+                variance="neighbors", level=0.95, donut=0.0, derivative=0, adjust=False)
+    opts.update({k: v for k, v in fit_options.items() if k in opts})
+    return opts
+
+
+def _global_polynomial(x, y, cutoff, degree, points: int = 60) -> pd.DataFrame:
+    """Global polynomial on each side, for display only."""
+    parts = []
+    for side, mask in (("below", x < cutoff), ("above", x >= cutoff)):
+        xs, ys = x[mask] - cutoff, y[mask]
+        if len(np.unique(xs)) <= degree:
+            continue
+        scale = np.max(np.abs(xs)) or 1.0
+        coef = np.polynomial.polynomial.polyfit(xs / scale, ys, degree)
+        grid = np.linspace(xs.min(), xs.max(), points)
+        parts.append(pd.DataFrame({"side": side, "x": cutoff + grid,
+                                   "fit": np.polynomial.polynomial.polyval(grid / scale, coef)}))
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=["side", "x", "fit"])
+
+
+# ---------------------------------------------------------------------------------------------
+def score_profile(design, **fit_options) -> ScoreProfile:
+    """Distinct values and mass points of the score per side, overall and inside the bandwidth."""
+    x = _clean_score(design) - design.cutoff
+    try:
+        h = design.fit(**fit_options).bandwidth
+    except SeamlineError:
+        h = (float("nan"), float("nan"))
+    rows = []
+    for side, part, bw in (("below", -x[x < 0], h[0]), ("above", x[x >= 0], h[1])):
+        for scope, values in (("all", part), ("window", part[part <= bw] if np.isfinite(bw) else part[:0])):
+            vals, counts = np.unique(values, return_counts=True)
+            mass = counts >= 2
+            rows.append({"side": side, "scope": scope, "observations": int(len(values)),
+                         "distinct_values": int(len(vals)), "mass_points": int(mass.sum()),
+                         "share_at_mass_points": float(counts[mass].sum() / len(values)) if len(values) else 0.0,
+                         "largest_mass": int(counts.max()) if len(counts) else 0})
+    score = _clean_score(design)
+    uniq = np.unique(score)
+    gaps = np.diff(uniq)
+    resolution = float(gaps[gaps > 0].min()) if np.any(gaps > 0) else 0.0
+    heaping, warnings = _heaping(score, uniq, resolution)
+    window = [r for r in rows if r["scope"] == "window"]
+    few = [f"{r['side']} ({r['distinct_values']})" for r in window if r["distinct_values"] < 10]
+    if few:
+        warnings.append(f"Few distinct score values inside the bandwidth: {', '.join(few)}. With a discrete score "
+                        "the fit extrapolates between mass points: widen the window if the design allows, report "
+                        "the mass points, and prefer bias-aware inference for discrete scores (planned). Clustering "
+                        "by score value is sometimes used but does not protect coverage (Kolesar & Rothe 2018).")
+    return ScoreProfile(rows=tuple(rows), score=design.score, bandwidth=h, resolution=resolution,
+                        heaping=tuple(heaping), warnings=tuple(warnings))
+
+
+def _heaping(score: np.ndarray, uniq: np.ndarray, resolution: float) -> tuple[list[dict], list[str]]:
+    """Share of observations at round values against what a smooth score would put there."""
+    out, warnings = [], []
+    if len(score) < 200 or len(uniq) < 20:
+        return out, warnings
+    on_grid = resolution > 0 and np.allclose(uniq / resolution, np.round(uniq / resolution), atol=1e-6)
+    steps = [resolution * 5, resolution * 10] if on_grid else [10.0 ** np.floor(np.log10(np.std(score)))]
+    for step in steps:
+        at = np.isclose(score / step, np.round(score / step), atol=1e-9, rtol=0)
+        share = float(at.mean())
+        expected = (resolution / step) if on_grid else 0.0
+        out.append({"step": float(step), "share": share, "expected": expected})
+        if share > max(2.0 * expected, 0.05) and share - expected > 0.02:
+            warnings.append(f"Heaping: {share:.1%} of scores sit at multiples of {step:g} (about {expected:.1%} "
+                            "expected). Heaped values near the cutoff can bias estimates; compare donut estimates "
+                            "and consider excluding the heaps (Barreca, Lindo & Waddell 2016).")
+            break
+    return out, warnings
+
+
+# ---------------------------------------------------------------------------------------------
+def checks(design, **fit_options) -> Checks:
+    """Gather the flags a careful analyst would raise, each with its evidence (or why it is missing)."""
+    rows, warnings = [], []
+
+    def add(check, status, detail):
+        rows.append({"check": check, "status": status, "detail": detail})
+        if status == "flag":
+            warnings.append(f"{check}: {detail}")
+
+    fit = None
+    try:
+        fit = design.fit(**fit_options)
+    except SeamlineError as exc:
+        add("main estimate", "error", str(exc))
+    try:
+        dens = density_test(design)
+        add("manipulation (density test)", "flag" if dens.p_value < ALPHA else "ok",
+            f"p = {dens.p_value:.3f} ({dens.method}); density {dens.density_below:.4g} below, "
+            f"{dens.density_above:.4g} above")
+    except SeamlineError as exc:
+        add("manipulation (density test)", "error", str(exc))
+    if design.covariates:
+        try:
+            bal = balance(design, **{k: v for k, v in fit_options.items() if k != "bandwidth"})
+            worst = min(r["p_value_holm"] for r in bal.rows)
+            status = "flag" if (worst < ALPHA or bal.joint_p_value < ALPHA) else "ok"
+            detail = f"smallest Holm p = {worst:.3f}; joint p = {bal.joint_p_value:.3f}"
+            if status == "flag" and fit_options.get("adjust"):
+                detail += "; covariate adjustment does not repair imbalance"
+            add("covariate balance", status, detail)
+        except SeamlineError as exc:
+            add("covariate balance", "error", str(exc))
+    else:
+        add("covariate balance", "not applicable", "no covariates declared")
+    if fit is not None:
+        if fit.first_stage_f is not None:
+            add("first stage strength", "flag" if fit.first_stage_f < 10 else "ok",
+                f"F = {fit.first_stage_f:.1f} (common practice: F < 10 is weak)")
+        else:
+            add("first stage strength", "not applicable", "sharp design")
+        few = min(fit.n_used)
+        add("observations in the window", "flag" if few < 20 else "ok",
+            f"{fit.n_used[0]} below, {fit.n_used[1]} above")
+    try:
+        prof = score_profile(design, **fit_options)
+        discrete = [w for w in prof.warnings if w.startswith("Few distinct")]
+        heaped = [w for w in prof.warnings if w.startswith("Heaping")]
+        add("discrete score", "flag" if discrete else "ok",
+            discrete[0] if discrete else "enough distinct score values in the window")
+        add("heaping at round values", "flag" if heaped else "ok", heaped[0] if heaped else "no heaping detected")
+    except SeamlineError as exc:
+        add("score profile", "error", str(exc))
+    return Checks(rows=tuple(rows), warnings=tuple(warnings))

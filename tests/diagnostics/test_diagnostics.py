@@ -1,0 +1,249 @@
+"""Design-level diagnostics (issue 3) checked against outside references and published designs.
+
+References: statsmodels (multipletests for Holm; WLS where noted), pandas groupby for bin means,
+scipy.stats for the chi-square/normal laws, and the Lee / Ludwig-Miller simulation designs
+(Calonico, Cattaneo & Titiunik 2014; METHODS 14.1) as data-generating processes with known truth.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from statsmodels.stats.multitest import multipletests
+
+import seamline
+from seamline.errors import InvalidOptionError, OneSidedDataError, SeamlineError
+
+SIGMA = 0.1295
+LEFT = np.array([0.48, 1.27, 7.18, 20.21, 21.54, 7.33])     # METHODS 14.1, Model 1
+RIGHT = np.array([0.52, 0.84, -3.00, 7.99, -9.01, 3.56])
+
+
+def lee(n: int, rng: np.random.Generator, covariate_jump: float = 0.0) -> pd.DataFrame:
+    """The Lee design (METHODS 14.1) plus a smooth pre-treatment covariate z (optionally with a jump)."""
+    x = 2.0 * rng.beta(2.0, 4.0, n) - 1.0
+    powers = np.vander(x, 6, increasing=True)
+    y = np.where(x < 0, powers @ LEFT, powers @ RIGHT) + rng.normal(0.0, SIGMA, n)
+    z = 0.5 + 0.8 * x - 0.6 * x ** 2 + covariate_jump * (x >= 0) + rng.normal(0.0, 0.3, n)
+    z2 = np.sin(2 * x) + rng.normal(0.0, 0.5, n)
+    return pd.DataFrame({"x": x, "y": y, "z": z, "z2": z2})
+
+
+@pytest.fixture(scope="module")
+def design():
+    return seamline.Design(lee(3000, np.random.default_rng(1)), score="x", cutoff=0.0, outcome="y",
+                           covariates=["z", "z2"])
+
+
+# ---- sensitivity -----------------------------------------------------------------------------
+def test_sensitivity_rows_equal_individual_fits(design):
+    sens = design.sensitivity(kernels=["triangular", "uniform"], degrees=[1, 2])
+    table = sens.table()
+    assert len(table) == 2 * 2 * 6 + 2 * (4 + 3)  # scaled rows + selectors (ik only for degree 1)
+    for row, f in zip(table.itertuples(), sens.fits):
+        again = design.fit(bandwidth=(row.bandwidth_below, row.bandwidth_above) if row.label.startswith("x")
+                           else row.label, kernel=row.kernel, degree=row.degree)
+        assert (again.estimate, again.std_error, again.robust_conf_int) == (
+            row.estimate, row.std_error, (row.robust_ci_low, row.robust_ci_high))
+        assert (again.n_used) == (row.n_below, row.n_above)
+    main = design.fit()
+    x1 = table[(table.label == "x1") & (table.kernel == "triangular") & (table.degree == 1)].iloc[0]
+    assert x1.bandwidth_below == main.bandwidth[0] and x1.estimate == main.estimate
+
+
+def test_sensitivity_user_grid_and_columns(design):
+    table = design.sensitivity(bandwidths=[0.2, (0.15, 0.3), "ik"]).table()
+    assert list(table.label) == ["0.2", "(0.15, 0.3)", "ik"]
+    for col in ("bandwidth_below", "bandwidth_above", "kernel", "degree", "estimate", "std_error",
+                "robust_ci_low", "robust_ci_high", "robust_p_value", "n_below", "n_above"):
+        assert col in table.columns
+    assert table.bandwidth_below.iloc[1] == 0.15 and table.bandwidth_above.iloc[1] == 0.3
+
+
+# ---- balance ---------------------------------------------------------------------------------
+def test_balance_holm_equals_statsmodels(design):
+    bal = design.balance()
+    table = bal.table()
+    want = multipletests(table.p_value.to_numpy(), method="holm")[1]  # statsmodels reference
+    np.testing.assert_allclose(table.p_value_holm.to_numpy(), want, rtol=1e-12)
+    for row, f in zip(table.itertuples(), bal.fits):
+        assert row.estimate == design.fit(row.covariate).estimate
+    assert {"covariate", "estimate", "std_error", "p_value", "p_value_holm"} <= set(table.columns)
+    assert 0.0 <= bal.joint_p_value <= 1.0
+
+
+def test_balance_window_means_equal_pandas(design):
+    bal = design.balance(bandwidth=0.3)
+    data = lee(3000, np.random.default_rng(1))
+    row = bal.table().iloc[0]
+    below = data[(data.x < 0) & (data.x >= -0.3)].z.mean()
+    above = data[(data.x >= 0) & (data.x <= 0.3)].z.mean()
+    assert row.mean_below == pytest.approx(below) and row.mean_above == pytest.approx(above)
+
+
+@pytest.mark.slow
+def test_balance_rejection_rates():
+    """No jump: rejection near 5% for each covariate and for the joint test; a jump is detected.
+
+    n = 3000 (at n = 600 robust intervals with estimated bandwidths still over-reject a little, about 7%
+    per covariate in a 200-draw run). 150 replications: binomial sd of a 5% rate is 0.018, so
+    [0.01, 0.11] is about -2/+3 sd."""
+    rng = np.random.default_rng(2024)
+    single, joint, power = [], [], []
+    for _ in range(150):
+        d = seamline.Design(lee(3000, rng), score="x", cutoff=0.0, outcome="y", covariates=["z", "z2"])
+        bal = d.balance()
+        single.append(bal.rows[0]["p_value"] < 0.05)
+        joint.append(bal.joint_p_value < 0.05)
+    for _ in range(40):
+        d = seamline.Design(lee(3000, rng, covariate_jump=0.3), score="x", cutoff=0.0, outcome="y", covariates=["z"])
+        power.append(d.balance().rows[0]["p_value"] < 0.05)
+    assert 0.01 <= np.mean(single) <= 0.11, np.mean(single)
+    assert 0.01 <= np.mean(joint) <= 0.11, np.mean(joint)
+    assert np.mean(power) >= 0.8, np.mean(power)
+
+
+def test_balance_bad_input(design):
+    with pytest.raises(InvalidOptionError, match="declared in the design"):
+        design.balance(["income"])
+    plain = seamline.Design(lee(500, np.random.default_rng(3)), score="x", cutoff=0.0, outcome="y")
+    with pytest.raises(InvalidOptionError, match="pre-treatment columns"):
+        plain.balance()
+    frame = lee(500, np.random.default_rng(3)).assign(label="a")
+    with pytest.raises(SeamlineError, match="'label' must be numeric"):
+        seamline.Design(frame, score="x", cutoff=0.0, outcome="y", covariates=["label"])
+
+
+# ---- placebo and donut -----------------------------------------------------------------------
+@pytest.mark.slow
+def test_placebo_cutoffs_cover_zero_at_nominal_rate():
+    """Lee Model 1 has no jump away from 0: placebo robust CIs cover 0 about 95% of the time.
+
+    60 replications x 8 placebos = 480 intervals (correlated within a draw); band [0.88, 0.99]."""
+    rng = np.random.default_rng(77)
+    covered = []
+    for _ in range(60):
+        res = seamline.Design(lee(2000, rng), score="x", cutoff=0.0, outcome="y").placebo_cutoffs()
+        t = res.table()
+        covered += list((t.robust_ci_low <= 0) & (0 <= t.robust_ci_high))
+    assert 0.88 <= np.mean(covered) <= 0.99, np.mean(covered)
+
+
+def test_placebo_uses_one_side_only(design):
+    res = design.placebo_cutoffs(cutoffs=[0.3])
+    data = lee(3000, np.random.default_rng(1))
+    above = data[data.x >= 0]
+    direct = seamline.Design(above, score="x", cutoff=0.3, outcome="y").fit()
+    row = res.table().iloc[0]
+    assert row.side == "above" and row.estimate == pytest.approx(direct.estimate, rel=1e-12)
+    with pytest.raises(OneSidedDataError, match="at least 20 observations"):
+        design.placebo_cutoffs(cutoffs=[0.999])
+    with pytest.raises(InvalidOptionError, match="differ from the true cutoff"):
+        design.placebo_cutoffs(cutoffs=[0.0])
+
+
+def test_donut_rows_equal_fits_and_bad_radius(design):
+    res = design.donut(radii=[0.0, 0.05])
+    for row in res.table().itertuples():
+        f = design.fit(donut=row.radius)
+        assert row.estimate == f.estimate and row.n_excluded == f.n_donut
+    assert res.table().n_excluded.iloc[1] == int(np.sum(np.abs(lee(3000, np.random.default_rng(1)).x) < 0.05))
+    with pytest.raises(OneSidedDataError, match="empties a side"):
+        design.donut(radii=[5.0])
+    with pytest.raises(InvalidOptionError, match="non-negative"):
+        design.donut(radii=[-1.0])
+
+
+# ---- bins ------------------------------------------------------------------------------------
+def test_bins_means_equal_pandas_groupby(design):
+    res = design.bins(method="equal-count", number=(10, 6))
+    table = res.table()
+    data = lee(3000, np.random.default_rng(1))
+    for side, part in (("below", data[data.x < 0]), ("above", data[data.x >= 0])):
+        rows = table[table.side == side]
+        edges = np.r_[rows.left.to_numpy(), rows.right.to_numpy()[-1]]
+        assert len(rows) == (10 if side == "below" else 6)
+        counts = rows["count"].to_numpy()
+        assert counts.max() - counts.min() <= 1
+        assigned = res.binned.assignment[(data.x.to_numpy() < 0) == (side == "below")]
+        means = part.groupby(assigned - assigned.min()).y.mean().to_numpy()
+        np.testing.assert_allclose(rows["mean"].to_numpy(), means, rtol=1e-12)
+        assert edges[0] <= part.x.min() and edges[-1] >= part.x.max()
+
+
+def test_bins_curve_meets_the_fit_at_the_cutoff(design):
+    res = design.bins()
+    fit = design.fit()
+    curve = res.curve()
+    for side, limit in (("below", fit.limits[0]), ("above", fit.limits[1])):
+        at_cutoff = curve[(curve.side == side) & (curve.x == 0.0)]
+        assert at_cutoff.fit.iloc[0] == pytest.approx(limit, rel=1e-9)
+        assert (at_cutoff.ci_low < at_cutoff.fit).all() and (at_cutoff.fit < at_cutoff.ci_high).all()
+    assert set(res.table().columns) >= {"side", "left", "right", "count", "mean", "ci_low", "ci_high"}
+    glob = design.bins(global_degree=4).global_polynomial()
+    assert set(glob.side) == {"below", "above"}
+
+
+def test_bins_bad_counts(design):
+    with pytest.raises(SeamlineError, match="number"):
+        design.bins(number=0)
+    with pytest.raises(SeamlineError, match="number"):
+        design.bins(number=10 ** 6)
+
+
+# ---- density ---------------------------------------------------------------------------------
+@pytest.mark.parametrize("method", ["local-cdf", "binned"])
+def test_density_test_result_and_manipulation(method):
+    rng = np.random.default_rng(5)
+    x = rng.normal(size=4000)
+    smooth = seamline.Design(pd.DataFrame({"x": x, "y": x}), score="x", cutoff=0.3, outcome="y")
+    res = smooth.density_test(method)
+    assert res.method == method and res.p_value > 0.01
+    from scipy.stats import norm  # reference density at the cutoff
+    assert res.ci_below[0] < norm.pdf(0.3) < res.ci_below[1] or res.ci_above[0] < norm.pdf(0.3) < res.ci_above[1]
+    moved = x.copy()
+    shift = (moved < 0.3) & (moved > 0.0) & (rng.uniform(size=len(x)) < 0.5)
+    moved[shift] += 0.3  # sorting: units just below moved just above
+    sorted_design = seamline.Design(pd.DataFrame({"x": moved, "y": moved}), score="x", cutoff=0.3, outcome="y")
+    assert sorted_design.density_test(method).p_value < 0.01
+    assert set(res.table().columns) >= {"side", "density", "ci_low", "ci_high"}
+    assert {"side", "x", "density", "ci_low", "ci_high"} <= set(res.grid().columns)
+    hist = res.histogram()
+    assert ((hist.right <= 0.3) | (hist.left >= 0.3)).all()  # bins never straddle the cutoff
+
+
+# ---- score profile and checks ----------------------------------------------------------------
+def test_score_profile_counts_equal_pandas():
+    rng = np.random.default_rng(9)
+    ages = rng.integers(50, 85, 3000)
+    frame = pd.DataFrame({"age": ages, "y": 0.1 * ages + (ages >= 65) + rng.normal(size=3000)})
+    d = seamline.Design(frame, score="age", cutoff=65, outcome="y")
+    prof = d.score_profile()
+    table = prof.table()
+    below = table[(table.side == "below") & (table.scope == "all")].iloc[0]
+    counts = frame[frame.age < 65].age.value_counts()
+    assert below.distinct_values == len(counts) and below.mass_points == int((counts >= 2).sum())
+    assert below.largest_mass == counts.max()
+    assert prof.resolution == 1.0
+
+
+def test_checks_flag_manipulation_and_weak_first_stage():
+    rng = np.random.default_rng(11)
+    n = 3000
+    x = rng.normal(size=n)
+    x[(x < 0) & (x > -0.4) & (rng.uniform(size=n) < 0.6)] += 0.4
+    takeup = (rng.uniform(size=n) < 0.10 + 0.03 * (x >= 0)).astype(float)  # a tiny first stage
+    frame = pd.DataFrame({"x": x, "y": x + takeup + rng.normal(size=n), "d": takeup})
+    res = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", takeup="d").checks()
+    status = dict(zip(res.table().check, res.table().status))
+    assert status["manipulation (density test)"] == "flag"
+    assert status["first stage strength"] == "flag"
+    assert status["covariate balance"] == "not applicable"
+    assert res.flagged and any("first stage" in w for w in res.warnings)
+
+
+def test_results_render_everywhere(design):
+    for res in (design.density_test(), design.balance(), design.sensitivity(), design.placebo_cutoffs(),
+                design.donut(), design.bins(), design.score_profile(), design.checks()):
+        assert "\\toprule" in res.to_latex() and "|" in res.to_markdown() and "<table" in res._repr_html_()
+        assert isinstance(res.warnings, tuple)
