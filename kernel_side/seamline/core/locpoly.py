@@ -15,7 +15,6 @@ from dataclasses import dataclass
 from math import factorial
 
 import numpy as np
-from numpy.polynomial import polynomial as P
 
 from .kernels import kernel_poly, kernel_weights
 from .moments import window_gram
@@ -137,7 +136,7 @@ def _omega_terms(side: Side, lam: np.ndarray, kind: str, fit_beta: np.ndarray | 
     for a in range(len(lam)):
         if lam[a] != 0.0:
             terms.append((*side.series("w2v", a), -2.0 * lam[a] * q_coef))
-    terms.append((*side.series("w2"), P.polymul(q_coef, q_coef)))
+    terms.append((*side.series("w2"), np.convolve(q_coef, q_coef)))
     return terms
 
 

@@ -11,7 +11,6 @@ from __future__ import annotations
 from typing import Callable, Hashable
 
 import numpy as np
-from numpy.polynomial import polynomial as P
 
 # A series is a function of a row slice returning that slice's values (so a partial block never
 # materialises the whole column).
@@ -30,6 +29,7 @@ class SideMoments:
         # Scale distances into [0, 1] so high powers neither overflow nor underflow for any units.
         self.scale = float(distance[-1]) if self.n and distance[-1] > 0 else 1.0
         self._tables: dict[Hashable, np.ndarray] = {}
+        self._tail: tuple[int, int, int, np.ndarray] | None = None  # powers of the last partial block
 
     def count(self, t: float) -> int:
         """Number of observations with distance <= t."""
@@ -86,7 +86,12 @@ class SideMoments:
         out = table[full, : degree + 1].copy()
         if n_t > full * self.block:
             sl = slice(full * self.block, n_t)
-            out += self._powers(sl, degree) @ series(sl)
+            # several series are usually summed over the same window: reuse the partial block's powers
+            tail = self._tail
+            if tail is None or tail[0] != sl.start or tail[1] != n_t or tail[2] < degree:
+                tail = (sl.start, n_t, degree, self._powers(sl, degree))
+                self._tail = tail
+            out += tail[3][: degree + 1] @ series(sl)
         # from powers of d/scale to powers of d/t
         out *= (self.scale / t) ** np.arange(degree + 1)
         return out
@@ -94,7 +99,7 @@ class SideMoments:
 
 def scaled_poly(coefs: np.ndarray, rho: float) -> np.ndarray:
     """Coefficients of f(rho * v) given those of f(v)."""
-    return np.asarray(coefs, dtype=float) * rho ** np.arange(len(coefs))
+    return coefs * rho ** np.arange(len(coefs)) if rho != 1.0 else coefs
 
 
 def window_gram(moments: SideMoments, t: float, terms, n_row: int, n_col: int,
@@ -106,14 +111,14 @@ def window_gram(moments: SideMoments, t: float, terms, n_row: int, n_col: int,
     bases are the local polynomial bases at bandwidths t/rho_row and t/rho_col (so one call serves the
     point-estimate, bias and cross blocks of the bias-corrected variance).
     """
-    base = P.polymul(scaled_poly(row_kernel, rho_row), scaled_poly(col_kernel, rho_col))
+    # plain convolutions: numpy.polynomial's argument checks cost more than the arithmetic here
+    base = np.convolve(scaled_poly(row_kernel, rho_row), scaled_poly(col_kernel, rho_col))
     size = n_row + n_col - 1
     hankel = np.zeros(size)
     for key, series, poly in terms:
-        coef = P.polymul(base, poly)
+        coef = np.convolve(base, poly)
         m = moments.sums(key, series, t, len(coef) - 1 + size - 1)
-        windows = np.lib.stride_tricks.sliding_window_view(m, len(coef))[:size]
-        hankel += windows @ coef
+        hankel += np.correlate(m, coef, mode="valid")
     j = np.arange(n_row)[:, None]
     k = np.arange(n_col)[None, :]
     return hankel[j + k] * (sign ** (j + k)) * (rho_row ** j) * (rho_col ** k)

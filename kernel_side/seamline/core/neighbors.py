@@ -53,6 +53,7 @@ def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int 
 
     # Group (near-)equal values: a mass point is one group. Distances are measured between groups.
     starts = np.flatnonzero(np.r_[True, gaps > tol])
+    del gaps
     counts = np.diff(np.r_[starts, n])
     g_val = x[starts]
     g_sum = np.add.reduceat(vals, starts, axis=0)
@@ -87,13 +88,19 @@ def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int 
         idx = np.minimum(lo + offset, n_groups - 1)
         range_sum += np.where(inside[:, None], g_sum[idx], 0.0)
 
-    group_of = np.repeat(np.arange(n_groups), counts)
-    m = have[group_of].astype(float)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        neighbor_mean = (range_sum[group_of] - vals) / m[:, None]
-        scale = np.sqrt(m / (m + 1.0))
-    resid = scale[:, None] * (vals - neighbor_mean)
-    return resid, have[group_of]
+    # Per-row residuals in chunks, so the temporaries stay small for large sides.
+    resid = np.empty_like(vals)
+    m_rows = np.empty(n, dtype=int)
+    for start in range(0, n, CHUNK):
+        stop = min(start + CHUNK, n)
+        group = np.searchsorted(starts, np.arange(start, stop), side="right") - 1
+        m = have[group].astype(float)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            neighbor_mean = (range_sum[group] - vals[start:stop]) / m[:, None]
+            scale = np.sqrt(m / (m + 1.0))
+        resid[start:stop] = scale[:, None] * (vals[start:stop] - neighbor_mean)
+        m_rows[start:stop] = have[group]
+    return resid, m_rows
 
 
 def _without_ties(x: np.ndarray, vals: np.ndarray, neighbors: int, tol: float):

@@ -179,9 +179,11 @@ class Design:
             side.warm(spec.variance, degree)
 
     def _bandwidths_for(self, spec: FitSpec, prep: Prepared, fuzzy: bool, n_main: int):
+        rule = spec.bandwidth
+        if isinstance(rule, tuple) and spec.pilot_bandwidth is not None:
+            return rule, spec.pilot_bandwidth, "manual", []  # nothing to select
         sel, lam = self._selection(spec, prep, fuzzy, n_main)
         warnings = list(sel.warnings)
-        rule = spec.bandwidth
         b = (sel.b_common, sel.b_common)
         if rule == "mse":
             h = (sel.h_common, sel.h_common)
