@@ -91,9 +91,10 @@ def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int 
     # Per-row residuals in chunks, so the temporaries stay small for large sides.
     resid = np.empty_like(vals)
     m_rows = np.empty(n, dtype=int)
+    group_of = np.repeat(np.arange(n_groups, dtype=np.int32), counts)
     for start in range(0, n, CHUNK):
         stop = min(start + CHUNK, n)
-        group = np.searchsorted(starts, np.arange(start, stop), side="right") - 1
+        group = group_of[start:stop]
         m = have[group].astype(float)
         with np.errstate(invalid="ignore", divide="ignore"):
             neighbor_mean = (range_sum[group] - vals[start:stop]) / m[:, None]

@@ -174,7 +174,10 @@ class Design:
         kdeg = {"triangular": 1, "uniform": 0, "epanechnikov": 2}[spec.kernel]
         q = spec.bias_degree
         hc = spec.variance != "neighbors"
-        degree = max(2 * (q + 3), 2 * (q + 1) + 2 * kdeg + (2 * (q + 1) if hc else 0)) + kdeg
+        # highest power any step asks for: the curvature pilot (order q+1 with its bias column, uniform
+        # kernel), the order-q pilot fits (with kernel), and the variances (squared kernel, and for
+        # HC the squared residual polynomial); a later, larger request rebuilds the tables
+        degree = max(2 * q + 4, 2 * q + 2 + kdeg, 2 * q + 2 * kdeg + (2 * q if hc else 0))
         for side in (prep.below, prep.above):
             side.warm(spec.variance, degree)
 
