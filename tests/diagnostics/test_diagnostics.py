@@ -109,6 +109,10 @@ def test_balance_bad_input(design):
     plain = seamline.Design(lee(500, np.random.default_rng(3)), score="x", cutoff=0.0, outcome="y")
     with pytest.raises(InvalidOptionError, match="pre-treatment columns"):
         plain.balance()
+    constant = seamline.Design(lee(500, np.random.default_rng(3)).assign(one=1.0), score="x", cutoff=0.0,
+                               outcome="y", covariates=["one"])
+    with pytest.raises(InvalidOptionError, match="'one' constant"):
+        constant.balance()
     frame = lee(500, np.random.default_rng(3)).assign(label="a")
     with pytest.raises(SeamlineError, match="'label' must be numeric"):
         seamline.Design(frame, score="x", cutoff=0.0, outcome="y", covariates=["label"])

@@ -94,10 +94,11 @@ class Design:
     def _outcome(self, outcome) -> str:
         if outcome is None:
             return self.outcomes[0]
-        if outcome in self.outcomes or outcome in self.covariates:
+        allowed = self.outcomes + self.covariates + ((self.takeup,) if self.takeup else ())
+        if outcome in allowed:
             return outcome
-        raise InvalidOptionError(f"`outcome` must be one of the design's outcomes or covariates "
-                                 f"{list(self.outcomes + self.covariates)}; got {outcome!r}. Declare it in Design(...).")
+        raise InvalidOptionError(f"`outcome` must be one of the design's outcomes, covariates or take-up "
+                                 f"{list(allowed)}; got {outcome!r}. Declare it in Design(...).")
 
     def _spec(self, outcome=None, **options) -> FitSpec:
         return resolve(self._outcome(outcome), has_covariates=bool(self.covariates), **options)
@@ -287,7 +288,7 @@ class Design:
             se_r = np.sqrt(var((e_y - est_bc * e_d) / jd_bc, True))
             fs_se = np.sqrt(var(e_d, False))
             first_f = float((jd / fs_se) ** 2)
-            first_stage = Fit(outcome=self.takeup, kind="sharp", estimate=jd, std_error=fs_se,
+            first_stage = Fit(outcome=self.takeup, kind="first stage", estimate=jd, std_error=fs_se,
                               bias_corrected_estimate=jd_bc, robust_std_error=np.sqrt(var(e_d, True)),
                               limits=engine.limits(e_d), warnings=(), **common)
             if first_f < WEAK_F:

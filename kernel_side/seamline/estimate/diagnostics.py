@@ -83,6 +83,11 @@ def balance(design, covariates=None, *, bandwidth="own", **fit_options) -> Balan
     if unknown:
         raise InvalidOptionError(f"`covariates` must be declared in the design; got {unknown!r}. Add them to "
                                  "Design(..., covariates=[...]) so they are validated once.")
+    for name in names:
+        values = design._data.arrays[name]
+        if np.nanstd(values) == 0:
+            raise InvalidOptionError(f"`covariates` must vary; got {name!r} constant "
+                                     f"({np.nanmax(values):g} everywhere). Drop it from the balance checks.")
     fit_options = {k: v for k, v in fit_options.items() if k not in ("adjust", "outcome")}
     rule = fit_options.pop("rule", "mse")
     if isinstance(bandwidth, str) and bandwidth == "main":

@@ -138,11 +138,11 @@ class JumpEngine:
                 omega = resid ** 2
             if cluster:
                 contributions.append(weight * resid)
-                codes.append(side.clusters[: wa.rows])
+                codes.append(np.where(weight != 0, side.clusters[: wa.rows], -1))
             else:
                 contributions.append(weight ** 2 * omega)
         if cluster:
-            nonzero = [c != 0 for c in contributions]
+            nonzero = [c >= 0 for c in codes]  # observations with weight in the window
             for cl, nz, name in zip(codes, nonzero, ("below", "above")):
                 if len(np.unique(cl[nz])) < 2:
                     raise TooFewClustersError(

@@ -25,6 +25,7 @@ def normal_p_value(estimate: float, se: float) -> float:
 class Fit(Reported):
     """Local polynomial estimate of the jump at the cutoff, with conventional and robust inference.
 
+    ``kind`` is "sharp", "fuzzy", or "first stage" (the take-up jump held by a fuzzy fit).
     ``estimate`` is the conventional local polynomial estimate (limit on the treated side minus the
     limit on the untreated side; derivatives when ``derivative`` is 1). ``robust_conf_int`` and
     ``robust_p_value`` are the Calonico-Cattaneo-Titiunik (2014) robust bias-corrected inference, the
@@ -122,9 +123,8 @@ class Fit(Reported):
 
     def title(self) -> str:
         what = "jump in slope" if self.derivative == 1 else "jump"
-        kind = "Fuzzy" if self.kind == "fuzzy" else "Sharp"
-        return (f"{kind} cutoff design: {what} in {self.outcome} at {self.score} = {self.cutoff:g} "
-                f"(treated {self.treated})")
+        kind = {"fuzzy": "Fuzzy cutoff design", "first stage": "First stage"}.get(self.kind, "Sharp cutoff design")
+        return f"{kind}: {what} in {self.outcome} at {self.score} = {self.cutoff:g} (treated {self.treated})"
 
     def notes(self) -> list[str]:
         rule = self.bandwidth_rule
