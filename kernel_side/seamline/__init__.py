@@ -8,4 +8,26 @@ from .estimate.design import Design
 from .results.fit import Fit
 
 __version__ = "0.1.0"
-__all__ = ["Design", "Fit", "__version__"]
+__all__ = ["Design", "Fit", "__version__", "board", "load_ipython_extension"]
+
+
+def load_ipython_extension(ip) -> None:
+    """``%load_ext seamline``: register the ``%%cutoff`` cell magic (widgets and charts load later)."""
+    from .notebook.magic import load_ipython_extension as load
+
+    load(ip)
+
+
+def __getattr__(name: str):
+    # ``seamline.board`` lives in the notebook layer; import it on first use so that
+    # ``import seamline`` stays free of IPython, ipywidgets and Altair.
+    if name == "board":
+        from .notebook.board import board
+
+        return board
+    raise AttributeError(f"module 'seamline' has no attribute {name!r}")
+
+
+def _jupyter_labextension_paths() -> list[dict[str, str]]:
+    """Where the prebuilt JupyterLab extension lives (read by ``jupyter labextension develop``)."""
+    return [{"src": "labextension", "dest": "seamline"}]

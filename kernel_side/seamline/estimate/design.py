@@ -21,6 +21,7 @@ FEW_OBSERVATIONS = 20   # common practice: flag windows with fewer effective obs
 WEAK_F = 10.0           # common practice (Staiger & Stock 1997): F < 10 flags a weak first stage
 FEW_CLUSTERS = 30       # Cameron & Miller (2015): cluster-robust inference is fragile with few clusters
 FEW_DISTINCT = 10       # convention: warn when a side has fewer distinct score values in the window
+REFERENCE_LEVEL = 0.95  # fits are computed and cached at this level and re-reported at any other
 
 
 def _as_names(value, argument: str) -> tuple[str, ...]:
@@ -235,9 +236,12 @@ class Design:
         spec = self._spec(outcome, bandwidth=bandwidth, kernel=kernel, degree=degree,
                           bias_degree=bias_degree, pilot_bandwidth=pilot_bandwidth, variance=variance,
                           level=level, donut=donut, derivative=derivative, adjust=adjust)
-        if spec not in self._fits:
-            self._fits[spec] = self._fit(spec)
-        return self._fits[spec]
+        # The level changes only how a fit is reported: fit once at a reference level, re-report.
+        base = replace(spec, level=REFERENCE_LEVEL)
+        if base not in self._fits:
+            self._fits[base] = self._fit(base)
+        fit = self._fits[base]
+        return fit if spec.level == REFERENCE_LEVEL else fit.with_level(spec.level)
 
     def _engine(self, spec: FitSpec) -> tuple[JumpEngine, bool, str, list[str]]:
         """The fitted engine of a specification (cached), whether it is fuzzy, the rule and warnings."""

@@ -1,0 +1,499 @@
+"""The live view of a board: header, controls and one tab per diagnostic, as ipywidgets.
+
+``BoardView(board)`` is a thin view (STYLE habit 10): every number comes from the board's
+results, every control calls ``board.set_option(name, value)``, and the view re-renders only the
+panels whose results changed, when the board calls back through ``board.on_change``. Charts are
+drawn kernel-side to SVG by vl-convert and shown in ``ipywidgets.HTML`` (no CDN, no JavaScript
+renderer, small saved notebooks); tables come from the result objects' own escaping HTML
+renderers. Nothing a user does in the view can raise into the kernel: failures are shown inside
+the panel (class ``seamline-error``).
+
+This module imports ipywidgets when it is imported; ``%load_ext seamline`` does not import it.
+
+CSS classes (for styling and browser tests): ``seamline-board`` (the whole view),
+``seamline-header-box``, ``seamline-controls``, ``seamline-progress``, ``seamline-tabs``,
+``seamline-panel-<name>`` for name in estimate, bandwidths, balance, density, first-stage,
+placebos; ``seamline-export`` (a panel's export buttons), ``seamline-export-<format>`` (each
+button), ``seamline-export-result`` (what an export produced), ``seamline-error`` (an error box).
+"""
+from __future__ import annotations
+
+import base64
+import html
+import os
+from collections.abc import Iterable
+from typing import Any
+
+import ipywidgets as widgets
+import pandas as pd
+
+from . import static
+from .static import PANEL_EXPORTS, PANEL_RESULTS, PANELS, error_html, header_html, panel_html
+
+__all__ = ["BoardView", "mimebundle"]
+
+_RULES = (("MSE-optimal", "mse"), ("MSE-optimal, each side", "mse-split"),
+          ("coverage-optimal", "coverage"), ("Imbens-Kalyanaraman", "ik"), ("manual", "manual"))
+_KERNELS = ("triangular", "uniform", "epanechnikov")
+_DEGREES = (("0 (local constant)", 0), ("1 (local linear)", 1), ("2 (local quadratic)", 2),
+            ("3 (local cubic)", 3))
+_VARIANCES = (("nearest neighbours", "neighbors"), ("HC0", "hc0"), ("HC1", "hc1"), ("HC2", "hc2"),
+              ("HC3", "hc3"))
+_LEVELS = (("90%", 0.90), ("95%", 0.95), ("99%", 0.99))
+_FORMATS = (("LaTeX", "latex"), ("Markdown", "markdown"), ("CSV", "csv"), ("SVG", "svg"),
+            ("PNG", "png"))
+_EXTENSIONS = {"latex": "tex", "markdown": "md", "csv": "csv", "svg": "svg", "png": "png",
+               "html": "html", "text": "txt"}
+_MIME = {"latex": "text/x-tex", "markdown": "text/markdown", "csv": "text/csv",
+         "svg": "image/svg+xml", "png": "image/png", "html": "text/html", "text": "text/plain"}
+_CONTROL = {"description_width": "70px"}
+_PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
+
+
+def _css(panel: str) -> str:
+    return f"seamline-panel-{panel.replace('_', '-')}"
+
+
+def _safe_name(text: str) -> str:
+    keep = "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in text)
+    return keep.strip("_") or "seamline"
+
+
+def _png_bytes(value: Any) -> bytes:
+    """The PNG an export returned: raw bytes, base64 text, or a path to the written file."""
+    if isinstance(value, (bytes, bytearray)):
+        return bytes(value)
+    text = str(value)
+    if os.path.isfile(text):
+        with open(text, "rb") as handle:
+            return handle.read()
+    data = base64.b64decode(text.split(",", 1)[-1], validate=False)
+    if not data.startswith(_PNG_MAGIC):
+        raise ValueError("the PNG export returned neither PNG bytes, base64 text nor a file path")
+    return data
+
+
+def download_link(data: bytes | str, filename: str, fmt: str) -> str:
+    """An ``<a download>`` link carrying the file in a data URI (works without a server round trip).
+
+    Parameters
+    ----------
+    data : bytes or str
+        File content (text is encoded as UTF-8).
+    filename : str
+        Suggested file name (shown escaped).
+    fmt : str
+        Export format, which sets the MIME type.
+
+    Returns
+    -------
+    str
+    """
+    raw = data.encode("utf-8") if isinstance(data, str) else bytes(data)
+    mime = _MIME.get(fmt, "application/octet-stream")
+    uri = f"data:{mime};base64,{base64.b64encode(raw).decode('ascii')}"
+    name = html.escape(filename, quote=True)
+    return (f'<a class="seamline-download" download="{name}" href="{uri}" '
+            f'style="font-size:12px">download {name}</a> '
+            f'<span style="font-size:11px;color:#777">({len(raw):,} bytes)</span>')
+
+
+def _board_options(board) -> dict[str, Any]:
+    """The options the board currently fits with, completed from the current fit."""
+    options: dict[str, Any] = {}
+    for attr in ("fit_options", "options"):
+        value = getattr(board, attr, None)
+        if isinstance(value, dict):
+            options.update(value)
+            break
+    fit = static._fit(board)
+    if fit is not None:
+        options.setdefault("outcome", fit.outcome)
+        options.setdefault("kernel", fit.kernel)
+        options.setdefault("degree", fit.degree)
+        options.setdefault("level", fit.level)
+        options.setdefault("donut", fit.donut)
+        options.setdefault("variance", fit.variance)
+        options.setdefault("bandwidth", fit.bandwidth_rule if fit.bandwidth_rule != "manual"
+                           else fit.bandwidth[0])
+        options["_resolved_variance"] = fit.variance
+        options["_bandwidth_now"] = float(fit.bandwidth[0])
+    return options
+
+
+def _outcomes(board) -> tuple[str, ...]:
+    design = getattr(board, "design", None)
+    outcomes = getattr(design, "outcomes", None)
+    if outcomes:
+        return tuple(outcomes)
+    fit = static._fit(board)
+    return (fit.outcome,) if fit is not None else ()
+
+
+class BoardView(widgets.VBox):
+    """Header, controls and diagnostic tabs of a seamline board, kept in step with the board.
+
+    Parameters
+    ----------
+    board : seamline Board
+        Needs ``results``, ``errors``, ``status``, ``updated_at``, ``set_option(name, value)``,
+        ``export(what, fmt)`` and ``on_change(callback)``.
+
+    Notes
+    -----
+    The view subscribes with ``board.on_change(self._on_change)``; the callback receives the set
+    of result names that changed and re-renders only the panels showing them (``PANEL_RESULTS``).
+    A control change shows a progress bar until the board has recomputed.
+
+    Examples
+    --------
+    >>> view = BoardView(board)          # doctest: +SKIP
+    >>> view                             # doctest: +SKIP
+    """
+
+    def __init__(self, board, **kwargs):
+        super().__init__(**kwargs)
+        self.board = board
+        self._syncing = False
+        self._unsubscribe: list = []
+        self.add_class("seamline-board")
+        self.layout = widgets.Layout(width="100%", max_width="1100px")
+
+        self._header = widgets.HTML(layout=widgets.Layout(width="100%"))
+        self._header.add_class("seamline-header-box")
+        self._progress = widgets.IntProgress(
+            value=0, min=0, max=len(PANELS) + 1, description="recomputing", bar_style="info",
+            style={"description_width": "90px"},
+            layout=widgets.Layout(width="320px", visibility="hidden", height="20px"))
+        self._progress.add_class("seamline-progress")
+        self._message = widgets.HTML()
+        self._message.add_class("seamline-control-message")
+        self._methods_out = widgets.VBox()
+        methods = widgets.Button(description="Methods paragraph", icon="align-left",
+                                 tooltip="Write the specification and diagnostics as prose",
+                                 layout=widgets.Layout(width="auto"))
+        methods.add_class("seamline-export-methods")
+        methods.on_click(lambda _b: self._export("methods", "text", self._methods_out))
+
+        self._controls = self._build_controls()
+        self._panels: dict[str, widgets.HTML] = {}
+        self._export_rows: dict[str, widgets.HBox] = {}
+        boxes = []
+        for key, _title in PANELS:
+            body = widgets.HTML(layout=widgets.Layout(width="100%"))
+            self._panels[key] = body
+            out = widgets.VBox()
+            out.add_class("seamline-export-result")
+            bar = self._export_bar(key, out)
+            box = widgets.VBox([body, bar, out], layout=widgets.Layout(padding="6px 4px"))
+            box.add_class(_css(key))
+            boxes.append(box)
+        self._tabs = widgets.Tab(children=boxes, titles=[title for _k, title in PANELS])
+        self._tabs.add_class("seamline-tabs")
+
+        top = widgets.HBox([methods, self._progress], layout=widgets.Layout(align_items="center"))
+        self.children = [self._header, top, self._methods_out, self._controls, self._message,
+                         self._tabs]
+        self._sync_controls()
+        self._render_all()
+        self._unsubscribe = []
+        for method, callback in (("on_change", self._on_change), ("on_progress", self._on_progress)):
+            subscribe = getattr(board, method, None)
+            if callable(subscribe):
+                self._unsubscribe.append(subscribe(callback))
+
+    # ---- controls -------------------------------------------------------------------------
+    def _build_controls(self) -> widgets.Box:
+        lay = widgets.Layout(width="235px", margin="2px 10px 2px 0")
+        self._outcome = widgets.Dropdown(options=_outcomes(self.board) or ("",), description="outcome",
+                                         style=_CONTROL, layout=lay)
+        self._rule = widgets.Dropdown(options=_RULES, description="bandwidth", style=_CONTROL, layout=lay)
+        self._manual = widgets.FloatSlider(value=1.0, min=0.01, max=10.0, step=0.01, readout_format=".3g",
+                                           description="manual h", continuous_update=False,
+                                           style=_CONTROL, layout=widgets.Layout(width="300px"))
+        self._kernel = widgets.Dropdown(options=_KERNELS, description="kernel", style=_CONTROL, layout=lay)
+        self._degree = widgets.Dropdown(options=_DEGREES, description="degree", style=_CONTROL, layout=lay)
+        self._variance = widgets.Dropdown(options=_VARIANCES, description="variance", style=_CONTROL,
+                                          layout=lay)
+        self._donut = widgets.BoundedFloatText(value=0.0, min=0.0, max=1e12, step=0.1,
+                                               description="donut", style=_CONTROL, layout=lay,
+                                               continuous_update=False)
+        self._level = widgets.Dropdown(options=_LEVELS, description="CI level", style=_CONTROL, layout=lay)
+        for control, name in ((self._outcome, "outcome"), (self._kernel, "kernel"),
+                              (self._degree, "degree"), (self._variance, "variance"),
+                              (self._donut, "donut"), (self._level, "level")):
+            control.observe(self._changed(name), names="value")
+            control.add_class(f"seamline-control-{name}")
+        self._rule.observe(self._rule_changed, names="value")
+        self._rule.add_class("seamline-control-bandwidth")
+        self._manual.observe(self._manual_changed, names="value")
+        self._manual.add_class("seamline-control-manual-bandwidth")
+        box = widgets.Box(
+            [self._outcome, self._rule, self._manual, self._kernel, self._degree, self._variance,
+             self._donut, self._level],
+            layout=widgets.Layout(display="flex", flex_flow="row wrap",
+                                  border_top="1px solid #e0e0e0", padding="6px 0 4px 0"))
+        box.add_class("seamline-controls")
+        return box
+
+    def _changed(self, name: str):
+        def handler(change):
+            if not self._syncing:
+                self._apply(name, change["new"])
+        return handler
+
+    def _rule_changed(self, change):
+        if self._syncing:
+            return
+        manual = change["new"] == "manual"
+        self._manual.disabled = not manual
+        self._apply("bandwidth", float(self._manual.value) if manual else change["new"])
+
+    def _manual_changed(self, change):
+        if not self._syncing and self._rule.value == "manual":
+            self._apply("bandwidth", float(change["new"]))
+
+    def _apply(self, name: str, value: Any) -> None:
+        """Pass one control change to the board; show a failure beside the controls."""
+        self._busy(True)
+        try:
+            self.board.set_option(name, value)
+            self._message.value = ""
+        except Exception as exc:  # noqa: BLE001 - the user sees it; the kernel lives on
+            self._message.value = error_html(f"{type(exc).__name__}: {exc}",
+                                             title=f"The {name} was not changed")
+            self._sync_controls()
+        finally:
+            self._busy(False)
+            self._render(["header"])
+
+    def _sync_controls(self) -> None:
+        """Show the board's current options in the controls without calling back into the board.
+
+        Each control's options, value and state change under one ``hold_sync``, so the front end
+        receives them as one update (never a value that is not among the options).
+        """
+        opts = _board_options(self.board)
+        self._syncing = True
+        try:
+            outcomes = _outcomes(self.board)
+            with self._outcome.hold_sync():
+                if outcomes and tuple(self._outcome.options) != outcomes:
+                    self._outcome.options = outcomes
+                if opts.get("outcome") in outcomes:
+                    self._outcome.value = opts["outcome"]
+                self._outcome.disabled = len(outcomes) < 2
+            self._sync_bandwidth(opts)
+            if opts.get("kernel") in _KERNELS:
+                self._kernel.value = opts["kernel"]
+            degree = opts.get("degree")
+            if degree is not None:
+                self._set_choice(self._degree, _DEGREES, int(degree), f"{int(degree)}")
+            with self._variance.hold_sync():
+                if opts.get("_resolved_variance") == "cluster":
+                    # a declared cluster column fixes the variance to cluster-robust
+                    self._set_choice(self._variance, (("cluster-robust (design has clusters)", "cluster"),),
+                                     "cluster", "cluster")
+                    self._variance.disabled = True
+                else:
+                    variance = opts.get("variance")
+                    if variance not in [v for _label, v in _VARIANCES]:
+                        variance = "neighbors"
+                    self._set_choice(self._variance, _VARIANCES, variance, variance)
+                    self._variance.disabled = False
+            donut = opts.get("donut")
+            if donut is not None:
+                self._donut.value = float(donut)
+            level = opts.get("level")
+            if level is not None:
+                self._set_choice(self._level, _LEVELS, float(level), f"{100 * float(level):g}%")
+        finally:
+            self._syncing = False
+
+    @staticmethod
+    def _set_choice(control, base, value, label) -> None:
+        options = [tuple(o) for o in base]
+        if value not in [v for _l, v in options]:
+            options.append((label, value))
+        with control.hold_sync():
+            if [tuple(o) for o in control.options] != options:
+                control.options = options
+            control.value = value
+
+    def _sync_bandwidth(self, opts: dict[str, Any]) -> None:
+        rule = opts.get("bandwidth")
+        now = opts.get("_bandwidth_now")
+        selectors = self.board.results.get("bandwidths") if hasattr(self.board, "results") else None
+        values = []
+        if isinstance(selectors, pd.DataFrame) and len(selectors):
+            values = [float(v) for v in selectors[["bandwidth_below", "bandwidth_above"]].to_numpy().ravel()]
+        if now is not None:
+            values.append(float(now))
+        if values:
+            low, high = 0.25 * min(values), 2.5 * max(values)
+            step = max((high - low) / 400.0, 1e-6)
+            with self._manual.hold_sync():
+                # widen before narrowing so the slider never holds min > max on the way
+                self._manual.max = max(high, self._manual.min)
+                self._manual.min = low
+                self._manual.max = high
+                self._manual.step = step
+                if now is not None:
+                    self._manual.value = min(max(float(now), low), high)
+        if isinstance(rule, str) and rule in dict((v, k) for k, v in _RULES):
+            self._rule.value = rule
+            self._manual.disabled = rule != "manual"
+        elif rule is not None:
+            self._rule.value = "manual"
+            self._manual.disabled = False
+
+    # ---- exports --------------------------------------------------------------------------
+    def _export_bar(self, panel: str, out: widgets.VBox) -> widgets.Box:
+        rows = []
+        for what in PANEL_EXPORTS[panel]:
+            label = widgets.HTML(f'<span style="font-size:12px;color:#555">Export {html.escape(what.replace("_", " "))}:</span>')
+            buttons = [label]
+            for title, fmt in _FORMATS:
+                button = widgets.Button(description=title,
+                                        layout=widgets.Layout(width="auto", height="26px", margin="0 2px"),
+                                        tooltip=f"{title} of the {what.replace('_', ' ')} "
+                                                f"{'chart' if fmt in ('svg', 'png') else 'table'}")
+                button.add_class("seamline-export-button")
+                button.add_class(f"seamline-export-{fmt}")
+                button.on_click(lambda _b, w=what, f=fmt: self._export(w, f, out))
+                buttons.append(button)
+            row = widgets.HBox(buttons, layout=widgets.Layout(align_items="center", flex_flow="row wrap"))
+            self._export_rows[what] = row
+            rows.append(row)
+        bar = widgets.VBox(rows, layout=widgets.Layout(border_top="1px solid #eee", padding="4px 0 0 0"))
+        bar.add_class("seamline-export")
+        return bar
+
+    def _export(self, what: str, fmt: str, out: widgets.VBox) -> None:
+        """Run ``board.export(what, fmt)`` and show the text and a download link (or the error)."""
+        name = _safe_name(f"{getattr(self.board, 'name', 'seamline')}_{what}")
+        filename = f"{name}.{_EXTENSIONS.get(fmt, 'txt')}"
+        try:
+            if what == "methods":
+                paragraph = getattr(self.board, "methods_paragraph", None)
+                text = paragraph() if callable(paragraph) else self.board.export("methods", "text")
+            else:
+                text = self.board.export(what, fmt)
+            if fmt == "png":
+                data = _png_bytes(text)
+                shown = [widgets.HTML(download_link(data, filename, fmt))]
+            elif fmt == "svg":
+                shown = [widgets.HTML(download_link(str(text), filename, fmt))]
+            else:
+                area = widgets.Textarea(value=str(text), layout=widgets.Layout(width="100%", height="160px"))
+                area.add_class("seamline-export-text")
+                shown = [area, widgets.HTML(download_link(str(text), filename, fmt))]
+        except Exception as exc:  # noqa: BLE001
+            shown = [widgets.HTML(error_html(f"{type(exc).__name__}: {exc}",
+                                             title=f"Export of {what} as {fmt} failed"))]
+        close = widgets.Button(description="close", layout=widgets.Layout(width="auto", height="24px"))
+        close.on_click(lambda _b: setattr(out, "children", ()))
+        out.children = (*shown, close)
+
+    # ---- rendering ------------------------------------------------------------------------
+    def _busy(self, on: bool) -> None:
+        with self._progress.hold_sync():
+            self._progress.value = 0 if on else self._progress.max
+            self._progress.layout.visibility = "visible" if on else "hidden"
+
+    def panels_for(self, changed: Iterable[str] | None) -> list[str]:
+        """Which parts of the view show any of the ``changed`` results ("header" included)."""
+        changed = set(changed or ())
+        known = set().union(*PANEL_RESULTS.values())
+        if not changed or changed - known - {"status", "checks"}:
+            return ["header", *(k for k, _ in PANELS)]
+        parts = ["header"]
+        parts.extend(key for key, _ in PANELS if changed & set(PANEL_RESULTS[key]))
+        return parts
+
+    def _render_all(self) -> None:
+        self._render(["header", *(k for k, _ in PANELS)])
+
+    def _render(self, parts: Iterable[str]) -> None:
+        for part in parts:
+            try:
+                new = header_html(self.board) if part == "header" else panel_html(self.board, part)
+            except Exception as exc:  # noqa: BLE001
+                new = error_html(f"{type(exc).__name__}: {exc}")
+            target = self._header if part == "header" else self._panels[part]
+            if target.value != new:
+                target.value = new
+            for what in PANEL_EXPORTS.get(part, ()):
+                # Export buttons only where there is something to export (not on a sharp design's
+                # first stage, nor on a panel whose result failed).
+                shown = static.export_available(self.board, what)
+                display = None if shown else "none"
+                if self._export_rows[what].layout.display != display:
+                    self._export_rows[what].layout.display = display
+
+    def _on_change(self, board, changed=None) -> None:
+        """Board callback: re-render what changed; never raises into the board or the kernel."""
+        try:
+            status = str(getattr(board, "status", ""))
+            if status == "recomputing":
+                self._busy(True)
+                self._render(["header"])
+                return
+            parts = self.panels_for(changed)
+            if "fit" in set(changed or ()) or parts[1:] == [k for k, _ in PANELS]:
+                self._sync_controls()
+            self._render(parts)
+            if status != "recomputing":
+                self._progress.layout.visibility = "hidden"
+        except Exception as exc:  # noqa: BLE001
+            self._header.value = error_html(f"{type(exc).__name__}: {exc}", title="The view could not update")
+
+    def _on_progress(self, done: int, total: int, label: str) -> None:
+        """Board callback while results are recomputed: advance the progress bar."""
+        try:
+            with self._progress.hold_sync():
+                if label == "done" or total <= 0:
+                    self._progress.value = self._progress.max
+                    return
+                self._progress.max = max(int(total), 1)
+                self._progress.value = min(int(done), self._progress.max)
+                self._progress.description = "recomputing"
+                self._progress.tooltip = f"computing the {label}"
+                self._progress.layout.visibility = "visible"
+        except Exception:  # noqa: BLE001 - a progress display must never fail a recompute
+            pass
+
+    def close(self) -> None:
+        """Unsubscribe from the board and close the widgets."""
+        for unsubscribe in self._unsubscribe:
+            try:
+                if callable(unsubscribe):
+                    unsubscribe()
+            except Exception:  # noqa: BLE001 - closing must not fail
+                pass
+        self._unsubscribe = []
+        super().close()
+
+
+def mimebundle(view: BoardView) -> dict[str, Any]:
+    """The output bundle of a displayed board: the live widget and its static HTML fallback.
+
+    Front ends with the widget manager draw the widget; nbconvert and notebook viewers show the
+    ``text/html`` copy (tables and inline SVG charts).
+
+    Parameters
+    ----------
+    view : BoardView
+
+    Returns
+    -------
+    dict
+        MIME type -> data, ready for ``IPython.display.display(bundle, raw=True)``.
+    """
+    board = view.board
+    return {
+        "application/vnd.jupyter.widget-view+json": {
+            "version_major": 2, "version_minor": 0, "model_id": view.model_id},
+        "text/html": static.static_html(board),
+        "text/plain": f"<seamline board {getattr(board, 'name', '')!s}>",
+    }

@@ -1,0 +1,516 @@
+"""Static HTML of a board: the header, every panel's tables and inline SVG charts, the warnings.
+
+The same fragments feed two places: the live widget view (``panels.BoardView`` puts each panel's
+fragment in an ``ipywidgets.HTML``) and the ``text/html`` fallback that sits next to the widget in
+a cell's output bundle, which nbconvert, notebook viewers and a kernel-less JupyterLab show. The
+HTML is self-contained: inline styles, SVG drawn kernel-side by vl-convert (no script, no CDN),
+every piece of user text escaped.
+
+This module imports neither ipywidgets nor IPython; Altair and vl-convert load on the first chart.
+"""
+from __future__ import annotations
+
+import html
+import math
+from collections import OrderedDict
+from collections.abc import Iterable, Mapping
+from datetime import datetime
+from typing import Any
+
+import pandas as pd
+
+from . import charts
+
+__all__ = [
+    "PANELS",
+    "PANEL_RESULTS",
+    "chart_svg",
+    "error_html",
+    "header_html",
+    "panel_html",
+    "static_html",
+]
+
+#: The view's tabs: (panel key, tab title). The key names the CSS class ``seamline-panel-<key>``
+#: (underscores become hyphens).
+PANELS: tuple[tuple[str, str], ...] = (
+    ("estimate", "Estimate"),
+    ("bandwidths", "Bandwidths"),
+    ("balance", "Balance"),
+    ("density", "Density"),
+    ("first_stage", "First stage"),
+    ("placebos", "Placebos"),
+)
+
+#: Which board results each panel shows (a change to one of them re-renders the panel).
+PANEL_RESULTS: Mapping[str, tuple[str, ...]] = {
+    "header": ("fit", "checks"),
+    "estimate": ("fit", "bins"),
+    "bandwidths": ("fit", "sensitivity", "bandwidths"),
+    "balance": ("balance",),
+    "density": ("fit", "density", "score_profile"),
+    "first_stage": ("fit", "first_stage", "first_stage_bins"),
+    "placebos": ("fit", "placebo", "donut"),
+}
+
+#: The export name behind each panel's table and chart buttons.
+PANEL_EXPORTS: Mapping[str, tuple[str, ...]] = {
+    "estimate": ("estimate",),
+    "bandwidths": ("sensitivity",),
+    "balance": ("balance",),
+    "density": ("density",),
+    "first_stage": ("first_stage",),
+    "placebos": ("placebo", "donut"),
+}
+
+#: The board result behind each export name.
+EXPORT_RESULTS: Mapping[str, str] = {
+    "estimate": "fit", "sensitivity": "sensitivity", "balance": "balance", "density": "density",
+    "first_stage": "first_stage", "placebo": "placebo", "donut": "donut",
+}
+
+_esc = html.escape
+
+_BOX = ("font-family:var(--jp-ui-font-family, Helvetica, Arial, sans-serif);font-size:13px;"
+        "line-height:1.4;color:var(--jp-ui-font-color1, #222)")
+_ROW = "display:flex;flex-wrap:wrap;gap:14px 22px;align-items:flex-start"
+_TABLES = "flex:1 1 380px;min-width:0;max-width:100%;overflow-x:auto"
+_NOTE = "color:var(--jp-ui-font-color2, #555);font-size:12px;margin:2px 0 8px 0;max-width:58em"
+_ERROR = ("border-left:3px solid #b3261e;background:#fbeeed;color:#5c1410;padding:6px 10px;"
+          "margin:4px 0;font-size:12px;white-space:pre-wrap")
+_WARN = ("border-left:3px solid #b07a2a;background:#fbf5ea;color:#4a3410;padding:4px 10px;"
+         "margin:4px 0;font-size:12px")
+_INFO = ("border-left:3px solid #8c8c8c;background:#f4f4f4;color:#333;padding:6px 10px;"
+         "margin:4px 0;font-size:12px")
+
+# A small cache of rendered charts keyed by the identity of the result objects they draw. Each
+# entry keeps those objects alive, so an id cannot be reused by a new object while the entry lives.
+_SVG_CACHE: "OrderedDict[tuple, tuple[tuple, str]]" = OrderedDict()
+_SVG_CACHE_SIZE = 48
+
+
+# ---------------------------------------------------------------------------------------------
+# Reading a board defensively (a failed or missing result must not break the page)
+# ---------------------------------------------------------------------------------------------
+def _results(board) -> Mapping[str, Any]:
+    results = getattr(board, "results", None)
+    return results if isinstance(results, Mapping) else {}
+
+
+def _errors(board) -> Mapping[str, str]:
+    errors = getattr(board, "errors", None)
+    return errors if isinstance(errors, Mapping) else {}
+
+
+def _panel_errors(board, panel: str) -> list[str]:
+    """Error messages that belong to a panel: its own and those of the results it shows."""
+    errors = _errors(board)
+    keys = (panel, *PANEL_RESULTS.get(panel, ()))
+    seen, out = set(), []
+    for key in keys:
+        message = errors.get(key)
+        if message and message not in seen:
+            seen.add(message)
+            out.append(str(message))
+    return out
+
+
+def _fit(board):
+    fit = _results(board).get("fit")
+    return None if charts.not_applicable_reason(fit) is not None else fit
+
+
+def export_available(board, what: str) -> bool:
+    """Whether the board has a current result to export under ``what``."""
+    key = EXPORT_RESULTS.get(what, what)
+    return charts.not_applicable_reason(_results(board).get(key)) is None
+
+
+def error_html(message: str, *, title: str = "This panel could not be computed") -> str:
+    """An error box (class ``seamline-error``) with the message escaped."""
+    return (f'<div class="seamline-error" style="{_ERROR}"><b>{_esc(title)}.</b> '
+            f"{_esc(str(message))}</div>")
+
+
+def _info_html(message: str) -> str:
+    return f'<div class="seamline-info" style="{_INFO}">{_esc(message)}</div>'
+
+
+def _warnings_html(warnings: Iterable[str]) -> str:
+    items = [w for w in dict.fromkeys(str(w) for w in warnings if w)]
+    if not items:
+        return ""
+    body = "".join(f"<li>{_esc(w)}</li>" for w in items)
+    return (f'<div class="seamline-warnings" style="{_WARN}"><b>Check:</b>'
+            f'<ul style="margin:2px 0 0 0;padding-left:18px">{body}</ul></div>')
+
+
+def _table_html(obj) -> str:
+    """HTML of a result table through the result's own (escaping) renderer."""
+    if obj is None:
+        return ""
+    if isinstance(obj, pd.DataFrame):
+        from ..export.render import to_html
+        from ..export.table_model import from_dataframe
+        return to_html(from_dataframe(obj, title=""))
+    render = getattr(obj, "_repr_html_", None)
+    if render is None:
+        return f"<pre>{_esc(str(obj))}</pre>"
+    return render()
+
+
+def _figure(svg: str) -> str:
+    # The SVG keeps its own size on a wide page and shrinks with a narrow one.
+    svg = svg.replace("<svg ", '<svg style="max-width:100%;height:auto" ', 1)
+    return f'<div class="seamline-chart">{svg}</div>'
+
+
+# ---------------------------------------------------------------------------------------------
+# Charts (rendered once per set of result objects)
+# ---------------------------------------------------------------------------------------------
+def _chart_inputs(board, what: str) -> tuple:
+    results = _results(board)
+    keys = {"estimate": ("fit", "bins"), "sensitivity": ("fit", "sensitivity", "bandwidths"),
+            "balance": ("balance",), "density": ("fit", "density"),
+            "first_stage": ("fit", "first_stage", "first_stage_bins"),
+            "placebo": ("fit", "placebo"), "donut": ("fit", "donut")}[what]
+    return tuple(results.get(k) for k in keys)
+
+
+def chart_svg(board, what: str) -> str:
+    """The SVG of one chart of the board's current results (cached by result identity).
+
+    Parameters
+    ----------
+    board : seamline Board
+    what : one of ``charts.CHART_NAMES``
+
+    Returns
+    -------
+    str
+
+    Raises
+    ------
+    ValueError
+        When a needed result is missing or does not apply (see :func:`charts.chart_for`).
+    """
+    inputs = _chart_inputs(board, what)
+    key = (what, *(id(obj) for obj in inputs))
+    hit = _SVG_CACHE.get(key)
+    if hit is not None and all(a is b for a, b in zip(hit[0], inputs)):
+        _SVG_CACHE.move_to_end(key)
+        return hit[1]
+    svg = charts.to_svg(charts.chart_for(board, what))
+    _SVG_CACHE[key] = (inputs, svg)
+    while len(_SVG_CACHE) > _SVG_CACHE_SIZE:
+        _SVG_CACHE.popitem(last=False)
+    return svg
+
+
+def _chart_or_error(board, what: str) -> str:
+    try:
+        return _figure(chart_svg(board, what))
+    except Exception as exc:  # a chart that fails must not take the panel's table with it
+        return error_html(f"{type(exc).__name__}: {exc}", title="The chart could not be drawn")
+
+
+# ---------------------------------------------------------------------------------------------
+# Header
+# ---------------------------------------------------------------------------------------------
+def _number(value) -> str:
+    return charts.number(value)
+
+
+def _count(value) -> str:
+    try:
+        return f"{int(value):,}"
+    except (TypeError, ValueError):
+        return "n/a"
+
+
+def _p_text(value) -> str:
+    try:
+        p = float(value)
+    except (TypeError, ValueError):
+        return "p n/a"
+    if not math.isfinite(p):
+        return "p n/a"
+    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+
+
+def _status_text(board) -> str:
+    status = str(getattr(board, "status", "") or "")
+    updated = getattr(board, "updated_at", None)
+    when = f"updated at {updated:%H:%M:%S}" if isinstance(updated, datetime) else "not computed yet"
+    if status == "recomputing":
+        return "recomputing..."
+    if status == "stale":
+        return f"inputs changed, not recomputed (paused); last {when}"
+    if status == "error":
+        return f"error; last good results {when}" if isinstance(updated, datetime) else "error"
+    return when
+
+
+def _checks_html(board) -> str:
+    """One line of design checks (ok / flag / not applicable), flags first in the warnings."""
+    checks = _results(board).get("checks")
+    if charts.not_applicable_reason(checks) is not None or not hasattr(checks, "table"):
+        return ""
+    marks = {"ok": ("ok", "#1d6470"), "flag": ("flag", "#b3261e")}
+    items = []
+    for row in checks.table().itertuples(index=False):
+        word, color = marks.get(str(row.status), (str(row.status), "#777"))
+        items.append(f'<span title="{_esc(str(row.detail), quote=True)}">{_esc(str(row.check))}: '
+                     f'<b style="color:{color}">{_esc(word)}</b></span>')
+    return ('<div class="seamline-checks" style="font-size:12px;margin:3px 0">Design checks: '
+            + " &middot; ".join(items) + "</div>")
+
+
+def _design_warnings(board, fit) -> list[str]:
+    """Design-level warnings: the checks summary's when available, otherwise the fit's own."""
+    checks = _results(board).get("checks")
+    if charts.not_applicable_reason(checks) is None and hasattr(checks, "warnings"):
+        return list(checks.warnings)
+    return list(getattr(fit, "warnings", ()) or ())
+
+
+def header_html(board) -> str:
+    """The design summary: kind, observations per side, the headline estimate, warnings, status.
+
+    Parameters
+    ----------
+    board : seamline Board
+
+    Returns
+    -------
+    str
+        A ``<div class="seamline-header">`` fragment.
+    """
+    name = str(getattr(board, "name", "") or "board")
+    fit = _fit(board)
+    parts = [f'<div class="seamline-header" style="{_BOX}">']
+    status = _esc(_status_text(board))
+    if fit is None:
+        parts.append(f'<div><b>{_esc(name)}</b> &middot; <span class="seamline-status">{status}</span></div>')
+        reason = charts.not_applicable_reason(_results(board).get("fit"))
+        messages = _panel_errors(board, "header") or [reason or "no estimate yet"]
+        parts.extend(error_html(m, title="No estimate") for m in messages)
+        parts.append("</div>")
+        return "".join(parts)
+    kind = "Fuzzy" if fit.kind == "fuzzy" else "Sharp"
+    untreated = "above" if fit.treated == "below" else "below"
+    parts.append(
+        f'<div style="font-size:14px"><b>{_esc(name)}</b>: {kind} cutoff design &mdash; '
+        f"<code>{_esc(fit.outcome)}</code> at <code>{_esc(fit.score)}</code> = "
+        f"{_esc(charts._short(fit.cutoff))} (treated side: {_esc(fit.treated)}, "
+        f"comparison side: {untreated}) &middot; <span class=\"seamline-status\">{status}</span></div>")
+    lo, hi = fit.robust_conf_int
+    level = f"{100 * fit.level:g}%"
+    parts.append(
+        f'<div class="seamline-headline" style="font-size:15px;margin:4px 0">Estimate '
+        f"<b>{_esc(_number(fit.estimate))}</b> (se {_esc(_number(fit.std_error))}); robust {level} CI "
+        f"<b>[{_esc(_number(lo))}, {_esc(_number(hi))}]</b>, {_esc(_p_text(fit.robust_p_value))}</div>")
+    h_below, h_above = fit.bandwidth
+    bw = charts._bandwidth_text(fit.bandwidth)
+    donut = (f"; {_count(fit.n_donut)} inside the donut of radius {_esc(charts._short(fit.donut))}"
+             if getattr(fit, "donut", 0) else "")
+    parts.append(
+        f'<div style="font-size:12px;color:var(--jp-ui-font-color2, #555)">'
+        f"Observations used (inside the bandwidth): {_count(fit.n_used[0])} below, "
+        f"{_count(fit.n_used[1])} above; on each side: {_count(fit.n_total[0])} below, "
+        f"{_count(fit.n_total[1])} above; dropped for missing values: {_count(fit.n_dropped)}{donut}. "
+        f"Bandwidth {_esc(bw)} ({_esc(fit.bandwidth_rule)}), {_esc(fit.kernel)} kernel, degree "
+        f"{fit.degree}, bias correction degree {fit.bias_degree}, variance {_esc(fit.variance)}"
+        + (f" ({fit.n_clusters} clusters)" if getattr(fit, "n_clusters", None) else "") + ".</div>")
+    if fit.kind == "fuzzy" and fit.first_stage is not None:
+        f_stat = getattr(fit, "first_stage_f", None)
+        parts.append(
+            f'<div style="font-size:12px">First stage: take-up jumps by '
+            f"{_esc(_number(fit.first_stage.estimate))}"
+            + (f"; F = {_esc(_number(f_stat))}" if f_stat is not None else "") + ".</div>")
+    parts.append(_checks_html(board))
+    parts.append(_warnings_html(_design_warnings(board, fit)))
+    parts.extend(error_html(m) for m in _panel_errors(board, "header"))
+    parts.append("</div>")
+    return "".join(parts)
+
+
+# ---------------------------------------------------------------------------------------------
+# Panels
+# ---------------------------------------------------------------------------------------------
+_EXPLAIN = {
+    "estimate": ("The cutoff plot shows binned means of the outcome (dots, with intervals) and the "
+                 "local polynomial fitted on each side inside the bandwidth (lines, with bands). "
+                 "The estimate is the gap between the two fitted lines at the cutoff; the robust "
+                 "bias-corrected interval is the one to report."),
+    "bandwidths": ("Each point re-estimates the jump at another bandwidth. A credible estimate moves "
+                   "little as the bandwidth changes; intervals widen as the bandwidth shrinks."),
+    "balance": ("Pre-treatment covariates should not jump at the cutoff. Each row estimates a jump "
+                "in a covariate with the same method; intervals should cover zero."),
+    "density": ("If units could sort themselves across the cutoff, the number of observations "
+                "would jump there. A small p-value is a warning sign, a large one does not prove "
+                "the absence of sorting."),
+    "first_stage": ("In a fuzzy design the cutoff changes the chance of treatment; the estimate "
+                    "is the jump in the outcome divided by the jump in take-up. A weak first stage "
+                    "(F below 10) makes that ratio unreliable."),
+    "placebos": ("Placebo cutoffs, where nothing happens, should show no jump. The donut drops the "
+                 "observations closest to the cutoff: a stable estimate suggests no heaping or "
+                 "sorting right at the cutoff."),
+}
+
+
+def _explain(panel: str) -> str:
+    return f'<div class="seamline-note" style="{_NOTE}">{_esc(_EXPLAIN[panel])}</div>'
+
+
+def _result_block(board, key: str, what: str | None, *, extra_tables: Iterable[Any] = ()) -> str:
+    """A chart (if ``what``) beside the result's table, or the reason the result is missing."""
+    value = _results(board).get(key)
+    reason = charts.not_applicable_reason(value)
+    if reason is not None:
+        errors = [m for m in _panel_errors(board, key)]
+        if errors:
+            return "".join(error_html(m) for m in errors)
+        return _info_html(f"{key.replace('_', ' ').capitalize()}: {reason}.")
+    pieces = [_chart_or_error(board, what)] if what else []
+    tables = "".join(_table_html(t) for t in (value, *extra_tables))
+    pieces.append(f'<div class="seamline-tables" style="{_TABLES}">{tables}</div>')
+    warnings = getattr(value, "warnings", ()) or ()
+    return f'<div style="{_ROW}">{"".join(pieces)}</div>' + _warnings_html(warnings)
+
+
+def _specification(fit) -> pd.DataFrame | None:
+    """The fit's specification table with counts shown as whole numbers."""
+    if not hasattr(fit, "specification"):
+        return None
+    spec = fit.specification().astype(object)
+    for i, item in enumerate(spec["item"]):
+        if str(item).startswith("observations"):
+            spec.iloc[i, 1:] = [int(v) for v in spec.iloc[i, 1:]]
+    return spec
+
+
+def _estimate_panel(board) -> str:
+    fit = _fit(board)
+    if fit is None:
+        return ""
+    specification = _specification(fit)
+    pieces = [_chart_or_error(board, "estimate")]
+    tables = _table_html(fit) + (_table_html(specification) if specification is not None else "")
+    pieces.append(f'<div class="seamline-tables" style="{_TABLES}">{tables}</div>')
+    return f'<div style="{_ROW}">{"".join(pieces)}</div>'
+
+
+def _bandwidths_panel(board) -> str:
+    selectors = _results(board).get("bandwidths")
+    extra = [selectors] if isinstance(selectors, pd.DataFrame) else []
+    return _result_block(board, "sensitivity", "sensitivity", extra_tables=extra)
+
+
+def _first_stage_panel(board) -> str:
+    fit = _fit(board)
+    value = _results(board).get("first_stage")
+    reason = charts.not_applicable_reason(value)
+    if reason is not None or fit is None or fit.kind != "fuzzy":
+        if fit is not None and fit.kind != "fuzzy":
+            reason = ("This is a sharp design: treatment follows the cutoff exactly, so there is no "
+                      "take-up jump to estimate. Declare a `takeup` column for a fuzzy design."
+                      if reason in (None, "not computed") else reason)
+        errors = _panel_errors(board, "first_stage")
+        if errors:
+            return "".join(error_html(m) for m in errors)
+        return _info_html(f"First stage does not apply: {reason}")
+    stage = value if hasattr(value, "estimate") else fit.first_stage
+    f_stat = getattr(fit, "first_stage_f", None)
+    lo, hi = stage.robust_conf_int
+    summary = (f'<div style="font-size:13px;margin:2px 0 6px 0">Take-up jump '
+               f"<b>{_esc(_number(stage.estimate))}</b>, robust {100 * stage.level:g}% CI "
+               f"[{_esc(_number(lo))}, {_esc(_number(hi))}]"
+               + (f"; first-stage F = <b>{_esc(_number(f_stat))}</b>" if f_stat is not None else "")
+               + ".</div>")
+    weak = []
+    if f_stat is not None and math.isfinite(float(f_stat)) and float(f_stat) < 10.0:
+        weak.append(f"Weak first stage: F = {_number(f_stat)} is below 10 (common practice, Staiger "
+                    "and Stock 1997); the ratio estimate and its interval are unreliable.")
+    has_bins = charts.not_applicable_reason(_results(board).get("first_stage_bins")) is None
+    chart = _chart_or_error(board, "first_stage") if has_bins else ""
+    table = f'<div class="seamline-tables" style="{_TABLES}">{_table_html(stage)}</div>'
+    return summary + f'<div style="{_ROW}">{chart}{table}</div>' + _warnings_html(weak)
+
+
+def _density_panel(board) -> str:
+    profile = _results(board).get("score_profile")
+    extra = [profile] if charts.not_applicable_reason(profile) is None else []
+    return _result_block(board, "density", "density", extra_tables=extra)
+
+
+def _placebos_panel(board) -> str:
+    return _result_block(board, "placebo", "placebo") + _result_block(board, "donut", "donut")
+
+
+def panel_html(board, panel: str) -> str:
+    """The HTML of one panel: explanation, charts, tables, warnings, or the panel's error.
+
+    Never raises: an exception while rendering becomes an error box (class ``seamline-error``).
+
+    Parameters
+    ----------
+    board : seamline Board
+    panel : one of the keys of :data:`PANELS`
+
+    Returns
+    -------
+    str
+    """
+    try:
+        if panel not in dict(PANELS):
+            names = ", ".join(f'"{k}"' for k, _ in PANELS)
+            raise ValueError(f"`panel` must be one of {names}; got {panel!r}. Pick a panel name.")
+        if _fit(board) is None:
+            messages = _panel_errors(board, panel) or _panel_errors(board, "header") or [
+                "the main estimate is not available"]
+            return "".join(error_html(m) for m in messages)
+        body = {
+            "estimate": _estimate_panel,
+            "bandwidths": _bandwidths_panel,
+            "balance": lambda b: _result_block(b, "balance", "balance"),
+            "density": _density_panel,
+            "first_stage": _first_stage_panel,
+            "placebos": _placebos_panel,
+        }[panel](board)
+        errors = [m for m in _panel_errors(board, panel)
+                  if _esc(m) not in body]  # result-level errors are already shown in the body
+        return (f'<div class="seamline-panel-body" style="{_BOX}">{_explain(panel)}'
+                + "".join(error_html(m) for m in errors) + body + "</div>")
+    except Exception as exc:  # noqa: BLE001 - shown to the user inside the panel
+        return error_html(f"{type(exc).__name__}: {exc}")
+
+
+def static_html(board) -> str:
+    """A self-contained HTML rendition of the whole board for the ``text/html`` fallback.
+
+    Shows the header, then every panel one after the other (tables and inline SVG charts, no
+    script). Used when widgets are not live: nbconvert's HTML, notebook viewers, a notebook opened
+    without a kernel.
+
+    Parameters
+    ----------
+    board : seamline Board
+
+    Returns
+    -------
+    str
+    """
+    try:
+        header = header_html(board)
+    except Exception as exc:  # noqa: BLE001
+        header = error_html(f"{type(exc).__name__}: {exc}")
+    parts = [f'<div class="seamline-static" style="{_BOX}">', header]
+    for key, title in PANELS:
+        css = key.replace("_", "-")
+        parts.append(f'<section class="seamline-static-{css}" style="margin-top:14px">'
+                     f'<h4 style="margin:6px 0 2px 0;font-size:14px;border-bottom:1px solid #ddd">'
+                     f"{_esc(title)}</h4>{panel_html(board, key)}</section>")
+    parts.append('<div style="font-size:11px;color:#777;margin-top:8px">Static copy of the seamline '
+                 "board; run the notebook for the live panels.</div></div>")
+    return "".join(parts)
