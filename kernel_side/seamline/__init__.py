@@ -7,7 +7,11 @@
 from .estimate.design import Design
 from .results.fit import Fit
 
-__version__ = "0.1.0"
+try:  # the version is written once, in extension/package.json, and reaches us through the package metadata
+    from importlib.metadata import PackageNotFoundError, version as _version
+    __version__ = _version("seamline")
+except PackageNotFoundError:  # pragma: no cover - running from a source tree that was never installed
+    __version__ = "0+unknown"
 __all__ = ["Design", "Fit", "__version__", "board", "load_ipython_extension"]
 
 

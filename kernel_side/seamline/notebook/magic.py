@@ -420,8 +420,8 @@ def cutoff(line: str, cell: str, *, shell=None):
 
 
 def load_ipython_extension(ip) -> None:
-    """Register ``%%cutoff`` (``%load_ext seamline``). Boards install their after-cell check
-    when the first one is made; nothing heavy is imported here."""
+    """Register ``%%cutoff`` and the front-end channel (``%load_ext seamline``). Boards install
+    their after-cell check when the first one is made; nothing heavy is imported here."""
 
     def cutoff_magic(line, cell):
         __tracebackhide__ = True
@@ -429,3 +429,6 @@ def load_ipython_extension(ip) -> None:
 
     cutoff_magic.__doc__ = cutoff.__doc__
     ip.register_magic_function(cutoff_magic, magic_kind="cell", magic_name="cutoff")
+    # the front end's comm channel (standard library only, so loading stays fast)
+    from .channel import register
+    register(ip)
