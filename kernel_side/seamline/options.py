@@ -5,6 +5,7 @@ values live in one place and error messages can list them.
 """
 from __future__ import annotations
 
+from numbers import Real
 from typing import Literal, get_args
 
 from .errors import InvalidOptionError
@@ -39,3 +40,11 @@ def check_option(argument: str, value: object, allowed: tuple[str, ...]) -> str:
     raise InvalidOptionError(
         f"`{argument}` must be one of {choices}; got {value!r}. Pick one of the listed values."
     )
+
+
+def check_level(level: object, argument: str = "level") -> float:
+    """Return a confidence level strictly between 0 and 1 as a float; otherwise raise InvalidOptionError."""
+    if isinstance(level, Real) and not isinstance(level, bool) and 0.0 < float(level) < 1.0:
+        return float(level)
+    raise InvalidOptionError(f"`{argument}` must be a number strictly between 0 and 1; got {level!r}. "
+                             "Use for example 0.95 for 95% intervals.")

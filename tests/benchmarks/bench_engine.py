@@ -20,18 +20,8 @@ import pandas as pd
 import statsmodels.api as sm
 
 import seamline
+from _timing import timed  # tests/benchmarks/ is on sys.path when a script runs
 from seamline.demo_data import sharp_scenario
-
-
-def timed(fn, repeat: int = 5) -> float:
-    """Median wall time of ``repeat`` calls (the machine is noisy; medians of interleaved runs)."""
-    times = []
-    for _ in range(repeat):
-        gc.collect()
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times)
 
 
 def statsmodels_grid(x: np.ndarray, y: np.ndarray, grid: np.ndarray) -> np.ndarray:

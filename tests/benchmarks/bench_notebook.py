@@ -11,26 +11,14 @@ Run: make bench   (or .venv/bin/python tests/benchmarks/bench_notebook.py [n])
 """
 from __future__ import annotations
 
-import gc
 import statistics
 import sys
-import time
 
 import seamline
+from _timing import timed  # tests/benchmarks/ is on sys.path when a script runs
 from seamline.demo_data import sharp_scenario
 from seamline.notebook.board import Board
 from seamline.notebook.reactive import fingerprint_algorithm, fingerprints, use_fingerprint_algorithm
-
-
-def timed(fn, repeat: int = 5) -> float:
-    """Median wall time of ``repeat`` calls."""
-    times = []
-    for _ in range(repeat):
-        gc.collect()
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times)
 
 
 def interleaved(fn_a, fn_b, repeat: int = 9) -> tuple[float, float]:

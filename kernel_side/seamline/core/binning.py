@@ -21,7 +21,7 @@ import numpy as np
 from scipy import stats
 
 from ..errors import InvalidOptionError, InvalidWeightsError, OneSidedDataError
-from ..options import BIN_METHODS, BIN_RULES, check_option
+from ..options import BIN_METHODS, BIN_RULES, check_level, check_option
 
 __all__ = [
     "BinConstants",
@@ -359,16 +359,6 @@ def _number_pair(number, counts: tuple[int, int]) -> tuple[int, int] | None:
     return out[0], out[1]
 
 
-def _check_level(level) -> float:
-    ok = (isinstance(level, (int, float, np.integer, np.floating)) and not isinstance(level, bool)
-          and 0.0 < level < 1.0)
-    if not ok:
-        raise InvalidOptionError(
-            f"`level` must be a number strictly between 0 and 1; got {level!r}. "
-            "Use for example 0.95 for 95% intervals.")
-    return float(level)
-
-
 def _check_scale(scale) -> float:
     ok = (isinstance(scale, (int, float, np.integer, np.floating)) and not isinstance(scale, bool)
           and math.isfinite(scale) and scale > 0)
@@ -510,7 +500,7 @@ def binned_means(score, outcome, cutoff: float, *, method: str = "equal-width",
     """
     x, y, w = _arrays(score, outcome, weights)
     cutoff = float(cutoff)
-    level = _check_level(level)
+    level = check_level(level)
     selection = select_bin_number(x, y, cutoff, method=method, rule=rule, weights=w, scale=scale,
                                   number=number)
     method = selection.method

@@ -31,7 +31,7 @@ from ..errors import (
     OneSidedDataError,
     TooFewDistinctValuesError,
 )
-from ..options import DENSITY_METHODS, KERNELS, check_option
+from ..options import DENSITY_METHODS, KERNELS, check_level, check_option
 from .kernels import kernel_weights, normal_reference_constant
 
 __all__ = [
@@ -201,16 +201,6 @@ def _score_array(score) -> np.ndarray:
             "`score` must hold only finite values; got NaN or infinity. "
             "Drop or fill the missing rows before the density test.")
     return x
-
-
-def _check_level(level) -> float:
-    ok = (isinstance(level, (int, float, np.integer, np.floating)) and not isinstance(level, bool)
-          and 0.0 < level < 1.0)
-    if not ok:
-        raise InvalidOptionError(
-            f"`level` must be a number strictly between 0 and 1; got {level!r}. "
-            "Use for example 0.95 for 95% intervals.")
-    return float(level)
 
 
 def _check_positive(argument: str, value, error=InvalidOptionError) -> float:
@@ -604,7 +594,7 @@ def local_cdf_density_test(score, cutoff: float, *, degree: int = 2, kernel: str
     cutoff = float(cutoff)
     kernel = check_option("kernel", kernel, KERNELS)
     degree = _check_degree(degree)
-    level = _check_level(level)
+    level = check_level(level)
     grid_points = _check_grid_points(grid_points)
     plot_range = _check_plot_range(plot_range, cutoff)
     pair = _bandwidth_pair(bandwidth)
@@ -833,7 +823,7 @@ def binned_density_test(score, cutoff: float, *, bin_width: float | None = None,
     """
     x = _score_array(score)
     cutoff = float(cutoff)
-    level = _check_level(level)
+    level = check_level(level)
     grid_points = _check_grid_points(grid_points)
     plot_range = _check_plot_range(plot_range, cutoff)
     xs = np.sort(x)

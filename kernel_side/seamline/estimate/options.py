@@ -7,7 +7,7 @@ from numbers import Real
 import numpy as np
 
 from ..errors import InvalidBandwidthError, InvalidOptionError
-from ..options import BANDWIDTH_RULES, KERNELS, VARIANCES, check_option
+from ..options import BANDWIDTH_RULES, KERNELS, VARIANCES, check_level, check_option
 
 
 @dataclass(frozen=True)
@@ -67,8 +67,7 @@ def resolve(outcome: str, *, bandwidth, kernel, degree, bias_degree, pilot_bandw
     else:
         bandwidth = _positive_pair("bandwidth", bandwidth)
     pilot = None if pilot_bandwidth is None else _positive_pair("pilot_bandwidth", pilot_bandwidth)
-    if not (isinstance(level, Real) and 0 < float(level) < 1):
-        raise InvalidOptionError(f"`level` must be between 0 and 1; got {level!r}. Use e.g. level=0.95.")
+    level = check_level(level)
     if not (isinstance(donut, Real) and np.isfinite(donut) and donut >= 0):
         raise InvalidOptionError(f"`donut` must be a non-negative radius in score units; got {donut!r}. "
                                  "Use donut=0 for no exclusion.")
