@@ -1,6 +1,7 @@
 """The public entry point: a cutoff design declared once, fitted and diagnosed many times."""
 from __future__ import annotations
 
+from collections import OrderedDict
 from dataclasses import replace
 from math import factorial
 
@@ -21,7 +22,29 @@ FEW_OBSERVATIONS = 20   # common practice: flag windows with fewer effective obs
 WEAK_F = 10.0           # common practice (Staiger & Stock 1997): F < 10 flags a weak first stage
 FEW_CLUSTERS = 30       # Cameron & Miller (2015): cluster-robust inference is fragile with few clusters
 FEW_DISTINCT = 10       # convention: warn when a side has fewer distinct score values in the window
-REFERENCE_LEVEL = 0.95  # fits are computed and cached at this level and re-reported at any other
+REFERENCE_LEVEL = 0.95
+FIT_CACHE = 512         # fits kept per design (small records)
+ENGINE_CACHE = 16       # fitted engines kept per design (they may hold window arrays)
+
+
+class Bounded(OrderedDict):
+    """A dict that forgets its least recently used entries beyond ``size``."""
+
+    def __init__(self, size: int):
+        super().__init__()
+        self.size = size
+
+    def get(self, key, default=None):
+        if key in self:
+            self.move_to_end(key)
+            return self[key]
+        return default
+
+    def __setitem__(self, key, value):
+        super().__setitem__(key, value)
+        self.move_to_end(key)
+        while len(self) > self.size:
+            self.popitem(last=False)  # fits are computed and cached at this level and re-reported at any other
 
 
 def _as_names(value, argument: str) -> tuple[str, ...]:
@@ -79,8 +102,9 @@ class Design:
         self._data = DesignData(data, score=score, cutoff=cutoff, outcomes=self.outcomes, takeup=takeup,
                                 covariates=self.covariates, cluster=cluster, weights=weights)
         self._selections: dict[tuple, Selection] = {}
-        self._fits: dict[FitSpec, Fit] = {}
-        self._engines: dict[FitSpec, JumpEngine] = {}
+        # Bounded: a slider session makes many specifications, and engines hold window arrays.
+        self._fits: Bounded = Bounded(FIT_CACHE)
+        self._engines: Bounded = Bounded(ENGINE_CACHE)
 
     @property
     def treated_sign(self) -> int:
@@ -238,9 +262,9 @@ class Design:
                           level=level, donut=donut, derivative=derivative, adjust=adjust)
         # The level changes only how a fit is reported: fit once at a reference level, re-report.
         base = replace(spec, level=REFERENCE_LEVEL)
-        if base not in self._fits:
-            self._fits[base] = self._fit(base)
-        fit = self._fits[base]
+        fit = self._fits.get(base)
+        if fit is None:
+            fit = self._fits[base] = self._fit(base)
         return fit if spec.level == REFERENCE_LEVEL else fit.with_level(spec.level)
 
     def _engine(self, spec: FitSpec) -> tuple[JumpEngine, bool, str, list[str]]:
@@ -250,12 +274,13 @@ class Design:
         prep = self._data.prepare(variables, spec.donut)
         self._warm(prep, spec)
         h, b, rule, warnings = self._bandwidths_for(spec, prep, fuzzy, n_main)
-        if spec not in self._engines:
+        engine = self._engines.get(spec)
+        if engine is None:
             check_support(prep, h, b, spec.degree, spec.bias_degree, spec.kernel)
-            self._engines[spec] = JumpEngine(
+            engine = self._engines[spec] = JumpEngine(
                 prep, h=h, b=b, p=spec.degree, q=spec.bias_degree, nu=spec.derivative, kernel=spec.kernel,
                 treated_sign=self.treated_sign, n_main=n_main, covariate_names=variables[n_main:])
-        return self._engines[spec], fuzzy, rule, warnings
+        return engine, fuzzy, rule, warnings
 
     def _fit(self, spec: FitSpec) -> Fit:
         engine, fuzzy, rule, warnings = self._engine(spec)
