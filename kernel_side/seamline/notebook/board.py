@@ -852,14 +852,11 @@ class Board:
                     return NotApplicable(_sharp_reason(fit, self._spec["takeup"]))
                 if panel == "first_stage":
                     return fit.first_stage
-                # The take-up jump as its own sharp design, drawn at the main fit's bandwidths so the
-                # plot shows the first stage that the estimate uses.
-                s = self._spec
-                takeup_design = Design(self._data, score=s["score"], cutoff=s["cutoff"], outcome=s["takeup"],
-                                       treated=s["treated"], cluster=s["cluster"], weights=s["weights"])
+                # The take-up jump drawn at the main fit's bandwidths, so the plot shows the first
+                # stage that the estimate uses.
                 kwargs = self._fit_kwargs("outcome", "adjust")
                 kwargs.update(bandwidth=fit.bandwidth, pilot_bandwidth=fit.pilot_bandwidth)
-                return takeup_design.bins(**kwargs)
+                return design.bins(self._spec["takeup"], **kwargs)
             if panel == "bins":
                 return design.bins(**self._fit_kwargs())
             if panel == "bandwidths":
