@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from IPython.testing import globalipapp
 from IPython.utils.capture import capture_output
 
 import seamline
@@ -16,14 +15,6 @@ from seamline.demo_data import fuzzy_scenario, sharp_scenario
 from seamline.notebook.board import boards
 
 TIGHT = dict(rtol=1e-12, atol=1e-12)
-
-
-@pytest.fixture(scope="module")
-def ip():
-    globalipapp.start_ipython()
-    shell = globalipapp.get_ipython()
-    shell.run_cell("%load_ext seamline", store_history=False)
-    return shell
 
 
 @pytest.fixture

@@ -9,7 +9,6 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from IPython.testing import globalipapp
 from IPython.utils.capture import capture_output
 
 import seamline
@@ -152,14 +151,6 @@ def test_board_names():
 
 
 # ---- the magic in an IPython shell ----------------------------------------------------------------
-@pytest.fixture(scope="module")
-def ip():
-    globalipapp.start_ipython()
-    shell = globalipapp.get_ipython()
-    shell.run_cell("%load_ext seamline", store_history=False)
-    return shell
-
-
 @pytest.fixture
 def shell(ip, scenario):
     before = set(ip.user_ns)
