@@ -12,25 +12,57 @@ import numpy as np
 import pandas as pd
 
 from .core.side import Side
+from .time_score import TimeScale, is_time_column, reject_time_cutoff, time_scale
 from .errors import (ColumnNotFoundError, ColumnTypeError, CutoffOutOfRangeError,
                      DuplicateColumnError, EmptyColumnError, InvalidWeightsError,
                      NonFiniteValueError, OneSidedDataError, TakeupRangeError, TooFewClustersError)
 
 
-def as_frame(data) -> pd.DataFrame:
-    """Accept a pandas DataFrame, or anything with ``__dataframe__`` / ``to_pandas`` (Arrow, polars)."""
+def _column_names(data) -> list[str] | None:
+    """Column names of a lazy or columnar input (polars, Arrow), read from its schema: no data is read."""
+    module = type(data).__module__.split(".")[0]
+    if module == "polars":
+        schema = data.collect_schema() if hasattr(data, "collect_schema") else data.schema
+        return [str(c) for c in schema.names()]
+    if module == "pyarrow":
+        if hasattr(data, "column_names"):          # Table, RecordBatch
+            return list(data.column_names)
+        if hasattr(data, "schema") and hasattr(data, "to_table"):    # dataset.Dataset
+            return list(data.schema.names)
+    return None
+
+
+def as_frame(data, columns: list[str] | None = None) -> pd.DataFrame:
+    """The user's data as a pandas DataFrame, reading no more than the design needs.
+
+    A pandas DataFrame is used as it is (never copied or modified). A polars ``LazyFrame`` or
+    ``DataFrame`` and an Arrow ``Table``, ``RecordBatch`` or ``Dataset`` collect only ``columns``
+    (so a lazy frame computes nothing else); anything with ``to_pandas`` or ``__dataframe__`` is
+    converted whole.
+    """
     if isinstance(data, pd.DataFrame):
         return data
+    names = _column_names(data)
+    if names is not None:
+        wanted = names if columns is None else [c for c in dict.fromkeys(columns) if c in names]
+        module = type(data).__module__.split(".")[0]
+        if module == "polars":
+            part = data.select(wanted)
+            part = part.collect() if hasattr(part, "collect") else part
+            return part.to_pandas()
+        if hasattr(data, "select"):
+            return data.select(wanted).to_pandas()
+        return data.to_table(columns=wanted).to_pandas()
     if hasattr(data, "to_pandas"):
         return data.to_pandas()
     if hasattr(data, "__dataframe__"):
         return pd.api.interchange.from_dataframe(data)
-    raise TypeError(f"`data` must be a pandas DataFrame (or Arrow/polars table); got {type(data).__name__}. "
+    raise TypeError(f"`data` must be a pandas DataFrame (or a polars or Arrow table); got {type(data).__name__}. "
                     "Convert it with pandas.DataFrame(...) first.")
 
 
-def _missing_column(frame: pd.DataFrame, name: str, role: str) -> ColumnNotFoundError:
-    close = difflib.get_close_matches(str(name), [str(c) for c in frame.columns], n=3)
+def _missing_column(names, name: str, role: str) -> ColumnNotFoundError:
+    close = difflib.get_close_matches(str(name), [str(c) for c in names], n=3)
     hint = f" Did you mean {', '.join(repr(c) for c in close)}?" if close else \
         " Check the spelling against data.columns."
     return ColumnNotFoundError(f"`{role}` column {name!r} is not in the data.{hint}")
@@ -39,7 +71,7 @@ def _missing_column(frame: pd.DataFrame, name: str, role: str) -> ColumnNotFound
 def numeric_column(frame: pd.DataFrame, name: str, role: str) -> np.ndarray:
     """A column as float64 (NaN for missing); errors name the column and the fix."""
     if name not in frame.columns:
-        raise _missing_column(frame, name, role)
+        raise _missing_column(frame.columns, name, role)
     col = frame[name]
     if isinstance(col, pd.DataFrame):
         raise DuplicateColumnError(f"`{role}` column {name!r} appears more than once in the data; "
@@ -94,10 +126,22 @@ class Prepared:
 class DesignData:
     """Validated columns of one design. Construct once; ``prepare`` builds Sides on demand (cached)."""
 
-    def __init__(self, data, *, score: str, cutoff: float, outcomes: tuple[str, ...],
+    def __init__(self, data, *, score: str, cutoff, outcomes: tuple[str, ...],
                  takeup: str | None, covariates: tuple[str, ...], cluster: str | None,
-                 weights: str | None):
-        frame = as_frame(data)
+                 weights: str | None, score_unit: str | None = None):
+        roles = {score: "score", **{o: "outcome" for o in outcomes}, **({takeup: "takeup"} if takeup else {}),
+                 **{c: "covariates" for c in covariates}, **({cluster: "cluster"} if cluster else {}),
+                 **({weights: "weights"} if weights else {})}
+        names = _column_names(data)
+        if names is not None:        # lazy or columnar input: check names before reading anything
+            dups = sorted({n for n in names if names.count(n) > 1})
+            if dups:
+                raise DuplicateColumnError(f"column names must be unique; got duplicates {dups!r}. "
+                                           "Rename or drop the duplicated columns before declaring the design.")
+            for name, role in roles.items():
+                if name not in names:
+                    raise _missing_column(names, name, role)
+        frame = as_frame(data, list(roles))
         dups = frame.columns[frame.columns.duplicated()].unique().tolist()
         if dups:
             raise DuplicateColumnError(f"column names must be unique; got duplicates {dups!r}. "
@@ -107,7 +151,16 @@ class DesignData:
         self.score_name = score
         self.arrays: dict[str, np.ndarray] = {}
         self.roles: dict[str, str] = {}
-        self.arrays[score] = numeric_column(frame, score, "score")
+        # A date score becomes its distance from the cutoff date; the cutoff is then 0.
+        self.time_scale: TimeScale | None = None
+        if score not in frame.columns:
+            raise _missing_column(frame.columns, score, "score")
+        if not isinstance(frame[score], pd.DataFrame) and is_time_column(frame[score]):
+            self.time_scale, self.arrays[score] = time_scale(frame[score], cutoff, score_unit, score)
+            cutoff = 0.0
+        else:
+            cutoff = reject_time_cutoff(cutoff, score, score_unit)
+            self.arrays[score] = numeric_column(frame, score, "score")
         for name in outcomes:
             self.arrays[name] = numeric_column(frame, name, "outcome")
         if takeup is not None:
@@ -133,13 +186,18 @@ class DesignData:
         self.cluster_codes = None
         if cluster is not None:
             if cluster not in frame.columns:
-                raise _missing_column(frame, cluster, "cluster")
+                raise _missing_column(frame.columns, cluster, "cluster")
             codes, _ = pd.factorize(frame[cluster], use_na_sentinel=True)
             self.cluster_codes = codes.astype(np.int64)
         x = self.arrays[score]
         finite = x[~np.isnan(x)]
         lo, hi = float(finite.min()), float(finite.max())
         if not np.isfinite(cutoff) or cutoff < lo or cutoff > hi:
+            if self.time_scale is not None:
+                ts = self.time_scale
+                raise CutoffOutOfRangeError(f"`cutoff` must lie within the dates of score {score!r} "
+                                            f"[{ts.label(lo)}, {ts.label(hi)}]; got {ts.label(0.0)}. Check the "
+                                            "cutoff date.")
             raise CutoffOutOfRangeError(f"`cutoff` must lie within the range of score {score!r} "
                                         f"[{lo:g}, {hi:g}]; got {cutoff!r}. Check the cutoff and its units.")
         self.cutoff = float(cutoff)

@@ -71,3 +71,8 @@ class InvalidBandwidthError(SeamlineError):
 
 class DesignSpecError(SeamlineError):
     """A design declaration (for example a %%cutoff cell) is malformed."""
+
+
+class CutoffTypeError(SeamlineError, TypeError):
+    """The cutoff's type does not fit the score: a date for a numeric score, a number for a date score,
+    or a time-zone mismatch between a date score and its cutoff."""

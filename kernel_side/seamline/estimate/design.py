@@ -12,8 +12,9 @@ from ..core.bandwidth import Selection, coverage_factor, ik_bandwidth, mse_selec
 from ..core.kernels import normal_reference_constant
 from ..core.locpoly import SideFit, variance_fast, window_arrays
 from ..data import DesignData, Prepared
-from ..errors import InvalidOptionError
+from ..errors import CutoffTypeError, InvalidOptionError
 from ..options import SIDES, check_option
+from ..time_score import TIME_CAUTION, is_time_value
 from ..results.fit import Fit
 from .engine import JumpEngine, check_support, use_fast_variance
 from .options import FitSpec, resolve
@@ -83,8 +84,8 @@ class Design:
     >>> fit = Design(s.data, **s.design_kwargs()).fit()
     """
 
-    def __init__(self, data, score: str, cutoff: float, outcome, treated: str = "above", takeup=None,
-                 covariates=None, cluster=None, weights=None):
+    def __init__(self, data, score: str, cutoff, outcome, treated: str = "above", takeup=None,
+                 covariates=None, cluster=None, weights=None, score_unit=None):
         self.score = score
         self.outcomes = _as_names(outcome, "outcome")
         if not self.outcomes:
@@ -94,13 +95,12 @@ class Design:
         self.covariates = _as_names(covariates, "covariates")
         self.cluster = cluster
         self.weights = weights
-        try:
-            cutoff = float(cutoff)
-        except (TypeError, ValueError):
-            raise InvalidOptionError(f"`cutoff` must be a number; got {cutoff!r}. Pass e.g. cutoff=40.") from None
-        self.cutoff = cutoff
         self._data = DesignData(data, score=score, cutoff=cutoff, outcomes=self.outcomes, takeup=takeup,
-                                covariates=self.covariates, cluster=cluster, weights=weights)
+                                covariates=self.covariates, cluster=cluster, weights=weights,
+                                score_unit=score_unit)
+        # A date score is measured as the distance from the cutoff date: the numeric cutoff is 0.
+        self.cutoff = self._data.cutoff
+        self.time_scale = self._data.time_scale
         self._selections: dict[tuple, Selection] = {}
         # Bounded: a slider session makes many specifications, and engines hold window arrays.
         self._fits: Bounded = Bounded(FIT_CACHE)
@@ -110,9 +110,15 @@ class Design:
     def treated_sign(self) -> int:
         return 1 if self.treated == "above" else -1
 
+    @property
+    def cutoff_label(self) -> str:
+        """The cutoff as a reader writes it: a number, or the date of a date score."""
+        return f"{self.cutoff:g}" if self.time_scale is None else self.time_scale.label()
+
     def __repr__(self) -> str:
         kind = "fuzzy" if self.takeup else "sharp"
-        return (f"<Design {kind}: score {self.score!r} cutoff {self.cutoff:g} treated {self.treated}, "
+        unit = "" if self.time_scale is None else f" (score in {self.time_scale.unit} from the cutoff)"
+        return (f"<Design {kind}: score {self.score!r} cutoff {self.cutoff_label}{unit} treated {self.treated}, "
                 f"outcomes {list(self.outcomes)}>")
 
     # ---- specification helpers ---------------------------------------------------------------
@@ -302,7 +308,7 @@ class Design:
                       kernel=spec.kernel, degree=spec.degree, bias_degree=spec.bias_degree,
                       derivative=spec.derivative, variance=variance_name, n_clusters=prep.n_clusters,
                       donut=spec.donut, treated=self.treated, cutoff=self.cutoff, score=self.score,
-                      adjusted=spec.adjust, covariates=variables[n_main:])
+                      adjusted=spec.adjust, covariates=variables[n_main:], time_scale=self.time_scale)
         gamma = () if engine.adjustment is None else tuple(engine.adjustment.gamma[:, 0])
         if self.takeup and not fuzzy and spec.outcome != self.takeup:
             warnings.append(f"Take-up column {self.takeup!r} equals assignment on every row: the design is "
@@ -328,6 +334,8 @@ class Design:
             est, est_bc = engine.jump(e_y), engine.jump(e_y, True)
             se, se_r = np.sqrt(var(e_y, False)), np.sqrt(var(e_y, True))
         warnings += self._window_warnings(prep, engine, spec)
+        if self.time_scale is not None:
+            warnings.append(TIME_CAUTION)
         return Fit(outcome=spec.outcome, kind="fuzzy" if fuzzy else "sharp", estimate=float(est),
                    std_error=float(se), bias_corrected_estimate=float(est_bc), robust_std_error=float(se_r),
                    limits=engine.limits(e_y), warnings=tuple(warnings), first_stage=first_stage,
@@ -393,7 +401,29 @@ class Design:
     def placebo_cutoffs(self, cutoffs=None, **fit_options):
         """Estimates at fake cutoffs, each using only one side's observations."""
         from . import diagnostics
-        return diagnostics.placebo_cutoffs(self, cutoffs, **fit_options)
+        if self.time_scale is None:
+            return diagnostics.placebo_cutoffs(self, cutoffs, **fit_options)
+        if cutoffs is not None:
+            cutoffs = [self._distance(c, "cutoffs") for c in np.atleast_1d(np.asarray(cutoffs, dtype=object))]
+        result = diagnostics.placebo_cutoffs(self, cutoffs, **fit_options)
+        return replace(result, cutoff_dates=tuple(self.time_scale.label(r["cutoff"]) for r in result.rows))
+
+    def _distance(self, value, argument: str) -> float:
+        """A date (or a number already in score units) as the distance from a date score's cutoff."""
+        if isinstance(value, str) or is_time_value(value):
+            scale, stamp = self.time_scale, pd.Timestamp(value)
+            if stamp.tzinfo is None and scale.cutoff.tzinfo is not None:
+                stamp = stamp.tz_localize(scale.cutoff.tzinfo)
+            try:
+                return float((stamp - scale.cutoff).total_seconds() / scale.seconds)
+            except TypeError:
+                raise CutoffTypeError(f"`{argument}` must match the time zone of score {self.score!r}; got "
+                                      f"{value!r}. Give dates in the score's time zone.") from None
+        try:
+            return float(value)
+        except (TypeError, ValueError):
+            raise CutoffTypeError(f"`{argument}` must be dates (or distances in {self.time_scale.unit}) for the "
+                                  f"date score {self.score!r}; got {value!r}. Pass e.g. [\"2024-03-01\"].") from None
 
     def donut(self, radii=None, **fit_options):
         """Estimates excluding observations within each radius of the cutoff."""

@@ -11,6 +11,7 @@ from collections.abc import Mapping
 from typing import Any
 
 from ..results.fit import CAUTION
+from ..time_score import TIME_CAUTION
 from .table_model import format_number
 
 __all__ = ["methods_paragraph"]
@@ -58,7 +59,8 @@ def _percent(level: float) -> str:
 
 def _bandwidth_sentence(fit) -> str:
     rule, h = fit.bandwidth_rule, fit.bandwidth
-    units = f" (in units of {fit.score})"
+    scale = getattr(fit, "time_scale", None)
+    units = f" (in units of {fit.score})" if scale is None else f" ({scale.unit} from the cutoff date)"
     if rule == "mse":
         return (f"The bandwidth is the common mean-squared-error-optimal bandwidth of Calonico, Cattaneo and "
                 f"Titiunik (2014), {_pair(h)}{units}.")
@@ -77,7 +79,7 @@ def _design_sentence(fit) -> str:
     what = "change in the slope" if fit.derivative == 1 else "jump"
     side = ("at or above the cutoff" if fit.treated == "above" else "below the cutoff")
     # The cutoff is written as the tables' titles write it (``:g``).
-    text = (f"We estimate the {what} in {fit.outcome} at the cutoff {fit.score} = {fit.cutoff:g}, "
+    text = (f"We estimate the {what} in {fit.outcome} at the cutoff {fit.score} = {fit.cutoff_label}, "
             f"where units with a score {side} are assigned to treatment")
     if fit.kind == "fuzzy" and fit.first_stage is not None:
         text += (f". Take-up ({fit.first_stage.outcome}) is partial, so the design is fuzzy: the estimate is the "
@@ -262,4 +264,6 @@ def methods_paragraph(fit, *, diagnostics: Mapping[str, Any] | None = None, weig
             if sentence:
                 sentences.append(sentence)
     sentences.append(CAUTION)
+    if getattr(fit, "time_scale", None) is not None:
+        sentences.append(TIME_CAUTION)
     return " ".join(sentences)

@@ -146,9 +146,13 @@ class Placebo(Reported):
     skipped: tuple[str, ...] = ()
     fits: tuple[Fit, ...] = field(repr=False, default=())
     warnings: tuple[str, ...] = ()
+    cutoff_dates: tuple[str, ...] = ()     # a date score's placebo cutoffs as dates (row order)
 
     def table(self) -> pd.DataFrame:
-        return _frame(list(self.rows), ["cutoff", "side"])
+        frame = _frame(list(self.rows), ["cutoff", "side"])
+        if self.cutoff_dates:
+            frame.insert(1, "cutoff_date", list(self.cutoff_dates))
+        return frame
 
     def title(self) -> str:
         return f"Placebo cutoffs: {self.outcome}"

@@ -64,6 +64,17 @@ class Fit(Reported):
     first_stage: "Fit | None" = None
     first_stage_f: float | None = None
     covariate_coefficients: tuple[float, ...] = ()
+    time_scale: object = None      # a date score's TimeScale: cutoff date and unit (None: numeric score)
+
+    # ---- how the score reads -----------------------------------------------------------------
+    @property
+    def cutoff_label(self) -> str:
+        """The cutoff as a reader writes it: ``40``, or ``2024-07-01`` for a date score."""
+        return f"{self.cutoff:g}" if self.time_scale is None else self.time_scale.label()
+
+    def length(self, value: float) -> str:
+        """A bandwidth or radius as a reader writes it: ``2.5``, or ``41.5 days`` for a date score."""
+        return f"{value:.4g}" if self.time_scale is None else self.time_scale.length(value)
 
     # ---- inference --------------------------------------------------------------------------
     @property
@@ -124,19 +135,20 @@ class Fit(Reported):
     def title(self) -> str:
         what = "jump in slope" if self.derivative == 1 else "jump"
         kind = {"fuzzy": "Fuzzy cutoff design", "first stage": "First stage"}.get(self.kind, "Sharp cutoff design")
-        return f"{kind}: {what} in {self.outcome} at {self.score} = {self.cutoff:g} (treated {self.treated})"
+        return f"{kind}: {what} in {self.outcome} at {self.score} = {self.cutoff_label} (treated {self.treated})"
 
     def notes(self) -> list[str]:
         rule = self.bandwidth_rule
         h = self.bandwidth
-        bw = f"{h[0]:.4g}" if h[0] == h[1] else f"{h[0]:.4g} below, {h[1]:.4g} above"
+        bw = self.length(h[0]) if h[0] == h[1] else f"{self.length(h[0])} below, {self.length(h[1])} above"
         notes = [
             f"Local polynomial of degree {self.degree}, {self.kernel} kernel, bandwidth {bw} ({rule}); "
             f"bias correction with degree {self.bias_degree}; variance: {self.variance}"
             + (f" ({self.n_clusters} clusters)" if self.n_clusters else "") + ".",
             f"Observations used: {self.n_used[0]} below, {self.n_used[1]} above; "
             f"{self.n_dropped} rows dropped for missing values"
-            + (f"; {self.n_donut} inside the donut of radius {self.donut:g}" if self.donut > 0 else "") + ".",
+            + (f"; {self.n_donut} inside the donut of radius {self.length(self.donut)}" if self.donut > 0 else "")
+            + ".",
         ]
         if self.first_stage_f is not None:
             notes.append(f"First-stage F statistic: {self.first_stage_f:.1f}.")
