@@ -18,6 +18,7 @@ DensityMethod = Literal["local-cdf", "binned"]
 BinMethod = Literal["equal-width", "equal-count"]
 BinRule = Literal["imse", "mimic-variance"]
 ScoreUnit = Literal["days", "hours", "weeks", "months", "years"]
+ClusterVariance = Literal["bias-reduced", "classic"]
 
 KERNELS: tuple[str, ...] = get_args(Kernel)
 BANDWIDTH_RULES: tuple[str, ...] = get_args(BandwidthRule)
@@ -27,6 +28,7 @@ DENSITY_METHODS: tuple[str, ...] = get_args(DensityMethod)
 BIN_METHODS: tuple[str, ...] = get_args(BinMethod)
 BIN_RULES: tuple[str, ...] = get_args(BinRule)
 SCORE_UNITS: tuple[str, ...] = get_args(ScoreUnit)
+CLUSTER_VARIANCES: tuple[str, ...] = get_args(ClusterVariance)
 
 
 def check_option(argument: str, value: object, allowed: tuple[str, ...]) -> str:

@@ -213,7 +213,10 @@ def test_estimate_and_hc_and_cluster_se(name, kernel, degree, weights, covariate
 
     # cluster-robust: declared on the design, implied for the fit (contract: cluster= implies it)
     cdesign = _design(frame, cutoff, treated, weights=weights, covariates=covariates, cluster=True)
-    fit = cdesign.fit(bandwidth=bandwidth, kernel=kernel, degree=degree, adjust=covariates)
+    # statsmodels' cluster covariance is CR1 (the "classic" correction; CR2 is checked in
+    # test_cluster_small_sample.py).
+    fit = cdesign.fit(bandwidth=bandwidth, kernel=kernel, degree=degree, adjust=covariates,
+                      cluster_variance="classic")
     ref = _ref(frame, cutoff, bandwidth, treated, kernel=kernel, degree=degree, weights=weights,
                covariates=covariates, cov_type="cluster")
     _check_fit(fit, ref, what=f"{what}/cluster")
@@ -239,7 +242,7 @@ def test_derivative_one(name, kernel, degree, variance):
     bandwidth, treated = SCENARIOS[name]
     cluster = variance == "cluster"
     design = _design(frame, cutoff, treated, weights=True, covariates=False, cluster=cluster)
-    kwargs = {} if cluster else {"variance": variance}
+    kwargs = {"cluster_variance": "classic"} if cluster else {"variance": variance}
     fit = design.fit(bandwidth=bandwidth, kernel=kernel, degree=degree, derivative=1, **kwargs)
     ref = _ref(frame, cutoff, bandwidth, treated, kernel=kernel, degree=degree, weights=True,
                covariates=False, cov_type=variance, derivative=1)
@@ -300,7 +303,7 @@ def test_large_outcome_offset(name, kernel, degree, variance, weights):
     cluster = variance == "cluster"
     design = _design(shifted, cutoff, treated, weights=weights, covariates=False, cluster=cluster)
     fit = design.fit(bandwidth=bandwidth, kernel=kernel, degree=degree,
-                     **({} if cluster else {"variance": variance}))
+                     **({"cluster_variance": "classic"} if cluster else {"variance": variance}))
     ref = _ref(frame, cutoff, bandwidth, treated, kernel=kernel, degree=degree, weights=weights,
                covariates=False, cov_type=variance)
     what = f"y+1e6 {name}/{kernel}/p={degree}/{variance}"
@@ -327,7 +330,7 @@ def test_score_in_large_units(name, kernel, degree, variance, weights, derivativ
     cluster = variance == "cluster"
     design = _design(big, big_cutoff, treated, weights=weights, covariates=False, cluster=cluster)
     fit = design.fit(bandwidth=big_bw, kernel=kernel, degree=degree, derivative=derivative,
-                     **({} if cluster else {"variance": variance}))
+                     **({"cluster_variance": "classic"} if cluster else {"variance": variance}))
     ref = _ref(big, big_cutoff, big_bw, treated, kernel=kernel, degree=degree, weights=weights,
                covariates=False, cov_type=variance, derivative=derivative)
     small = _ref(frame, cutoff, bandwidth, treated, kernel=kernel, degree=degree, weights=weights,

@@ -173,6 +173,8 @@ class WindowArrays:
     resid_b: np.ndarray       # (rows, k) residuals of the order-q fit at b
     lev_h: np.ndarray         # leverage in the order-p weighted fit
     lev_b: np.ndarray         # leverage in the order-q weighted fit
+    kw_b: np.ndarray          # w * K(d/b)
+    rq: np.ndarray            # r_q(s d / b)
 
 
 def window_arrays(sf: SideFit) -> WindowArrays:
@@ -191,4 +193,4 @@ def window_arrays(sf: SideFit) -> WindowArrays:
     resid_b = vals - rq @ sf.beta_b
     lev_h = kw_h * np.einsum("ij,ij->i", rp @ np.linalg.inv(sf.gamma_p), rp)
     lev_b = kw_b * np.einsum("ij,ij->i", rq @ np.linalg.inv(sf.gamma_q), rq)
-    return WindowArrays(rows, a, abc, kw_h, rp, resid_h, resid_b, lev_h, lev_b)
+    return WindowArrays(rows, a, abc, kw_h, rp, resid_h, resid_b, lev_h, lev_b, kw_b, rq)

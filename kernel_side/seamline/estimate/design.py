@@ -241,7 +241,7 @@ class Design:
     # ---- the public API ------------------------------------------------------------------------
     def fit(self, outcome=None, *, bandwidth="mse", kernel="triangular", degree=1, bias_degree=None,
             pilot_bandwidth=None, variance="neighbors", level=0.95, donut=0.0, derivative=0,
-            adjust=False) -> Fit:
+            adjust=False, cluster_variance="bias-reduced") -> Fit:
         """Estimate the jump at the cutoff by local polynomial regression on each side.
 
         Parameters
@@ -258,6 +258,9 @@ class Design:
         level : confidence level; donut : exclude observations closer than this to the cutoff;
         derivative : 1 estimates the jump in slope (kink designs); adjust : covariate adjustment
             (Calonico-Cattaneo-Farrell-Titiunik 2019).
+        cluster_variance : with ``cluster``, "bias-reduced" (default: the CR2 variance with
+            Bell-McCaffrey degrees of freedom and t critical values; Bell and McCaffrey 2002, Imbens
+            and Kolesar 2016) or "classic" (CR1 with normal critical values). Ignored without clusters.
 
         Returns
         -------
@@ -265,7 +268,8 @@ class Design:
         """
         spec = self._spec(outcome, bandwidth=bandwidth, kernel=kernel, degree=degree,
                           bias_degree=bias_degree, pilot_bandwidth=pilot_bandwidth, variance=variance,
-                          level=level, donut=donut, derivative=derivative, adjust=adjust)
+                          level=level, donut=donut, derivative=derivative, adjust=adjust,
+                          cluster_variance=cluster_variance)
         # The level changes only how a fit is reported: fit once at a reference level, re-report.
         base = replace(spec, level=REFERENCE_LEVEL)
         fit = self._fits.get(base)
@@ -298,8 +302,13 @@ class Design:
         clustered = self.cluster is not None
         variance_name = "cluster" if clustered else spec.variance
 
-        def var(lam, robust):
-            return engine.variance(lam, spec.variance, robust=robust, cluster=clustered)
+        dofs: dict[tuple[str, bool], float | None] = {}
+
+        def var(lam, robust, name="main"):
+            if not clustered:
+                return engine.variance(lam, spec.variance, robust=robust)
+            value, dofs[(name, robust)] = engine.cluster_variance(lam, robust, spec.cluster_variance)
+            return value
 
         e_y = np.eye(n_main)[0]
         common = dict(level=spec.level, bandwidth=h, pilot_bandwidth=b, bandwidth_rule=rule,
@@ -308,7 +317,8 @@ class Design:
                       kernel=spec.kernel, degree=spec.degree, bias_degree=spec.bias_degree,
                       derivative=spec.derivative, variance=variance_name, n_clusters=prep.n_clusters,
                       donut=spec.donut, treated=self.treated, cutoff=self.cutoff, score=self.score,
-                      adjusted=spec.adjust, covariates=variables[n_main:], time_scale=self.time_scale)
+                      adjusted=spec.adjust, covariates=variables[n_main:], time_scale=self.time_scale,
+                      cluster_variance=spec.cluster_variance if clustered else None)
         gamma = () if engine.adjustment is None else tuple(engine.adjustment.gamma[:, 0])
         if self.takeup and not fuzzy and spec.outcome != self.takeup:
             warnings.append(f"Take-up column {self.takeup!r} equals assignment on every row: the design is "
@@ -321,11 +331,13 @@ class Design:
             est, est_bc = jy / jd, jy_bc / jd_bc
             se = np.sqrt(var((e_y - est * e_d) / jd, False))
             se_r = np.sqrt(var((e_y - est_bc * e_d) / jd_bc, True))
-            fs_se = np.sqrt(var(e_d, False))
+            fs_se = np.sqrt(var(e_d, False, "first stage"))
+            fs_se_r = np.sqrt(var(e_d, True, "first stage"))
             first_f = float((jd / fs_se) ** 2)
             first_stage = Fit(outcome=self.takeup, kind="first stage", estimate=jd, std_error=fs_se,
-                              bias_corrected_estimate=jd_bc, robust_std_error=np.sqrt(var(e_d, True)),
-                              limits=engine.limits(e_d), warnings=(), **common)
+                              bias_corrected_estimate=jd_bc, robust_std_error=fs_se_r,
+                              limits=engine.limits(e_d), warnings=(),
+                              dof=(dofs.get(("first stage", False)), dofs.get(("first stage", True))), **common)
             if first_f < WEAK_F:
                 warnings.append(f"Weak first stage: F = {first_f:.1f} < {WEAK_F:g} (common practice). The "
                                 "ratio estimate and its t-based intervals are unreliable; report the "
@@ -339,7 +351,8 @@ class Design:
         return Fit(outcome=spec.outcome, kind="fuzzy" if fuzzy else "sharp", estimate=float(est),
                    std_error=float(se), bias_corrected_estimate=float(est_bc), robust_std_error=float(se_r),
                    limits=engine.limits(e_y), warnings=tuple(warnings), first_stage=first_stage,
-                   first_stage_f=first_f, covariate_coefficients=gamma, **common)
+                   first_stage_f=first_f, covariate_coefficients=gamma,
+                   dof=(dofs.get(("main", False)), dofs.get(("main", True))), **common)
 
     def _window_warnings(self, prep: Prepared, engine: JumpEngine, spec: FitSpec) -> list[str]:
         out = []

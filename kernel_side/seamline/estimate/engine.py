@@ -11,6 +11,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..core.cluster_variance import FitRows, bias_reduced_variance
 from ..core.kernels import kernel_poly
 from ..core.locpoly import SideFit, WindowArrays, _omega_terms, fit_side, variance_fast, window_arrays
 from ..core.moments import window_gram
@@ -112,6 +113,41 @@ class JumpEngine:
                 total *= n / (n - k)
             return float(total)
         return self._variance_direct(lam, variance, robust, cluster)
+
+    def cluster_variance(self, lam: np.ndarray, robust: bool, correction: str) -> tuple[float, float | None]:
+        """Cluster-robust variance of jump(lam) and the degrees of freedom of its t critical value.
+
+        "bias-reduced": CR2 with Bell-McCaffrey degrees of freedom (Bell and McCaffrey 2002; Imbens
+        and Kolesar 2016), computed on each side's own weighted fit. With covariate adjustment the
+        fit pools the covariate coefficients across sides, which this computation does not cover:
+        the classic sum is used there, with G - 1 degrees of freedom (Bester, Conley and Hansen
+        2011, J. Econometrics 165(2): 137-151). "classic": the CR1 sum with normal critical values.
+        """
+        if correction == "classic":
+            return self._variance_direct(lam, "hc0", robust, True), None
+        if self.adjustment is not None:
+            value = self._variance_direct(lam, "hc0", robust, True)
+            return value, float(self._clusters_in_window(robust) - 1)
+        self._variance_direct(lam, "hc0", robust, True)   # the same checks (two clusters per side)
+        rows = []
+        for side, wa in zip(self.sides, self.arrays()):
+            weights = self.sign * side.sign * (wa.abc if robust else wa.a)
+            fit_weights = wa.kw_b if robust else wa.kw_h
+            # The rows of this estimator: those it weights and those of the fit behind its residuals.
+            used = (weights != 0) | (fit_weights > 0)
+            rows.append(FitRows(weights=weights[used],
+                                residuals=((wa.resid_b if robust else wa.resid_h) @ lam)[used],
+                                basis=(wa.rq if robust else wa.rp)[used],
+                                fit_weights=fit_weights[used],
+                                clusters=side.clusters[: wa.rows][used]))
+        return bias_reduced_variance(tuple(rows))
+
+    def _clusters_in_window(self, robust: bool) -> int:
+        codes = []
+        for side, wa in zip(self.sides, self.arrays()):
+            weight = wa.abc if robust else wa.a
+            codes.append(side.clusters[: wa.rows][weight != 0])
+        return int(len(np.unique(np.concatenate(codes))))
 
     def _variance_direct(self, lam: np.ndarray, variance: str, robust: bool, cluster: bool) -> float:
         full = self._full(lam)

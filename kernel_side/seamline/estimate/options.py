@@ -7,7 +7,7 @@ from numbers import Real
 import numpy as np
 
 from ..errors import InvalidBandwidthError, InvalidOptionError
-from ..options import BANDWIDTH_RULES, KERNELS, VARIANCES, check_level, check_option
+from ..options import BANDWIDTH_RULES, CLUSTER_VARIANCES, KERNELS, VARIANCES, check_level, check_option
 
 
 @dataclass(frozen=True)
@@ -23,6 +23,7 @@ class FitSpec:
     donut: float
     derivative: int
     adjust: bool
+    cluster_variance: str = "bias-reduced"
 
 
 def _positive_pair(argument: str, value) -> tuple[float, float]:
@@ -48,8 +49,9 @@ def _int_in(argument: str, value, lo: int, hi: int) -> int:
 
 
 def resolve(outcome: str, *, bandwidth, kernel, degree, bias_degree, pilot_bandwidth, variance, level,
-            donut, derivative, adjust, has_covariates: bool) -> FitSpec:
+            donut, derivative, adjust, has_covariates: bool, cluster_variance="bias-reduced") -> FitSpec:
     kernel = check_option("kernel", kernel, KERNELS)
+    cluster_variance = check_option("cluster_variance", cluster_variance, CLUSTER_VARIANCES)
     variance = check_option("variance", variance, VARIANCES)
     degree = _int_in("degree", degree, 0, 3)
     derivative = _int_in("derivative", derivative, 0, 1)
@@ -75,4 +77,4 @@ def resolve(outcome: str, *, bandwidth, kernel, degree, bias_degree, pilot_bandw
         raise InvalidOptionError("`adjust` must be False when the design has no covariates; got adjust=True. "
                                  "Declare covariates=[...] in Design(...) first.")
     return FitSpec(outcome, bandwidth, kernel, degree, bias_degree, pilot, variance, float(level),
-                   float(donut), derivative, bool(adjust))
+                   float(donut), derivative, bool(adjust), cluster_variance)

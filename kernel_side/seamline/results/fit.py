@@ -10,15 +10,24 @@ from scipy import stats
 from .base import CAUTION, Reported
 
 
-def normal_interval(estimate: float, se: float, level: float) -> tuple[float, float]:
-    z = stats.norm.ppf(0.5 + level / 2.0)
+def critical_value(level: float, dof: float | None = None) -> float:
+    """Two-sided critical value: normal, or Student t with ``dof`` degrees of freedom."""
+    if dof is None:
+        return float(stats.norm.ppf(0.5 + level / 2.0))
+    return float(stats.t.ppf(0.5 + level / 2.0, dof))
+
+
+def normal_interval(estimate: float, se: float, level: float, dof: float | None = None) -> tuple[float, float]:
+    z = critical_value(level, dof)
     return (estimate - z * se, estimate + z * se)
 
 
-def normal_p_value(estimate: float, se: float) -> float:
+def normal_p_value(estimate: float, se: float, dof: float | None = None) -> float:
     if not se > 0:
         return float("nan")
-    return float(2.0 * stats.norm.sf(abs(estimate / se)))
+    if dof is None:
+        return float(2.0 * stats.norm.sf(abs(estimate / se)))
+    return float(2.0 * stats.t.sf(abs(estimate / se), dof))
 
 
 @dataclass(frozen=True, eq=False)
@@ -65,6 +74,10 @@ class Fit(Reported):
     first_stage_f: float | None = None
     covariate_coefficients: tuple[float, ...] = ()
     time_scale: object = None      # a date score's TimeScale: cutoff date and unit (None: numeric score)
+    # Clustered fits: "bias-reduced" or "classic", and the t degrees of freedom of the conventional and
+    # robust intervals (None: normal critical values).
+    cluster_variance: str | None = None
+    dof: tuple[float | None, float | None] = (None, None)
 
     # ---- how the score reads -----------------------------------------------------------------
     @property
@@ -80,27 +93,27 @@ class Fit(Reported):
     @property
     def conf_int(self) -> tuple[float, float]:
         """Conventional confidence interval at ``level`` (valid only under undersmoothing)."""
-        return normal_interval(self.estimate, self.std_error, self.level)
+        return normal_interval(self.estimate, self.std_error, self.level, self.dof[0])
 
     @property
     def p_value(self) -> float:
-        return normal_p_value(self.estimate, self.std_error)
+        return normal_p_value(self.estimate, self.std_error, self.dof[0])
 
     @property
     def robust_conf_int(self) -> tuple[float, float]:
         """Robust bias-corrected confidence interval at ``level`` (Calonico-Cattaneo-Titiunik 2014)."""
-        return normal_interval(self.bias_corrected_estimate, self.robust_std_error, self.level)
+        return normal_interval(self.bias_corrected_estimate, self.robust_std_error, self.level, self.dof[1])
 
     @property
     def robust_p_value(self) -> float:
-        return normal_p_value(self.bias_corrected_estimate, self.robust_std_error)
+        return normal_p_value(self.bias_corrected_estimate, self.robust_std_error, self.dof[1])
 
     def confidence_interval(self, level: float | None = None, robust: bool = True) -> tuple[float, float]:
         """Confidence interval at another level without refitting."""
         level = self.level if level is None else level
         if robust:
-            return normal_interval(self.bias_corrected_estimate, self.robust_std_error, level)
-        return normal_interval(self.estimate, self.std_error, level)
+            return normal_interval(self.bias_corrected_estimate, self.robust_std_error, level, self.dof[1])
+        return normal_interval(self.estimate, self.std_error, level, self.dof[0])
 
     def with_level(self, level: float) -> "Fit":
         """The same fit reported at another confidence level."""
@@ -144,7 +157,7 @@ class Fit(Reported):
         notes = [
             f"Local polynomial of degree {self.degree}, {self.kernel} kernel, bandwidth {bw} ({rule}); "
             f"bias correction with degree {self.bias_degree}; variance: {self.variance}"
-            + (f" ({self.n_clusters} clusters)" if self.n_clusters else "") + ".",
+            + (f" ({self.n_clusters} clusters{self._cluster_note()})" if self.n_clusters else "") + ".",
             f"Observations used: {self.n_used[0]} below, {self.n_used[1]} above; "
             f"{self.n_dropped} rows dropped for missing values"
             + (f"; {self.n_donut} inside the donut of radius {self.length(self.donut)}" if self.donut > 0 else "")
@@ -154,6 +167,12 @@ class Fit(Reported):
             notes.append(f"First-stage F statistic: {self.first_stage_f:.1f}.")
         notes.append(CAUTION)
         return notes
+
+    def _cluster_note(self) -> str:
+        if self.cluster_variance == "bias-reduced" and self.dof[1] is not None:
+            return (f"; bias-reduced CR2 variance, t critical values with {self.dof[1]:.1f} degrees of freedom "
+                    "(Bell and McCaffrey 2002)")
+        return "; classic CR1 variance, normal critical values" if self.cluster_variance == "classic" else ""
 
     def __repr__(self) -> str:
         lo, hi = self.robust_conf_int

@@ -1,0 +1,150 @@
+"""Bias-reduced cluster-robust variance (CR2) and Bell-McCaffrey degrees of freedom.
+
+References (computed inside the test, with dense matrices and no seamline code):
+- CR2: Bell and McCaffrey (2002, Survey Methodology 28(2)): V = sum_g (c_g' B_g^(-1/2) e_g)^2 with
+  B_g = [(I - H)(I - H)']_gg, for the weighted regression of the fully interacted window design
+  (Pustejovsky and Tipton 2018, JBES 36(4), for the weighted form with working model Phi = I).
+- Degrees of freedom: Bell and McCaffrey (2002) / Imbens and Kolesar (2016, REStat 98(4)):
+  df = (sum lambda)^2 / sum lambda^2, lambda the eigenvalues of G'G with
+  G_g = (I - H)'_{., g} B_g^(-1/2) c_g.
+- The robust (bias-corrected) interval at pilot b = h with bias degree p + 1 is the degree-(p+1)
+  fit at h (Calonico, Cattaneo and Titiunik 2014, common practice), so its CR2 variance is the
+  dense CR2 of that fit.
+- t critical values: scipy.stats.t.ppf.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+
+import seamline
+
+from _references import build_window, contrast
+
+RTOL = 1e-9
+
+
+def clustered_data(n=900, groups=25, seed=5, big=False):
+    """Test data generated here: cluster shocks shared across the cutoff, some one-sided clusters."""
+    rng = np.random.default_rng(seed)
+    x = rng.uniform(-1, 1, n)
+    g = rng.integers(0, groups, n)
+    if big:       # two large clusters (dozens of rows inside the window: the low-rank path)
+        g[: n // 3] = groups
+        g[n // 3: n // 2] = groups + 1
+    g[x > 0.8] = groups + 2                          # a cluster only above the cutoff
+    shock = rng.normal(0, 0.6, groups + 3)[g]
+    y = 0.4 * (x >= 0) + 0.7 * x - 0.3 * x ** 2 + shock + rng.normal(0, 0.6, n)
+    w = rng.uniform(0.5, 2.0, n)
+    return pd.DataFrame({"x": x, "y": y, "g": g, "w": w})
+
+
+def dense_cr2(frame, bandwidth, kernel, degree, weights):
+    """CR2 variance of the jump and its Bell-McCaffrey degrees of freedom, by dense linear algebra."""
+    win = build_window(frame["x"].to_numpy(), 0.0, bandwidth, kernel, degree,
+                       frame["w"].to_numpy() if weights else None)
+    x_mat, w = win.design, win.weight
+    y = frame["y"].to_numpy()[win.keep]
+    cl = frame["g"].to_numpy()[win.keep]
+    xtwx_inv = np.linalg.inv((x_mat * w[:, None]).T @ x_mat)
+    c = contrast(win, 0, "above")[2] @ xtwx_inv @ (x_mat * w[:, None]).T      # estimator weights
+    hat = x_mat @ xtwx_inv @ (x_mat * w[:, None]).T
+    resid_maker = np.eye(len(y)) - hat
+    e = resid_maker @ y
+    omega = resid_maker @ resid_maker.T
+    variance, columns = 0.0, []
+    for g in np.unique(cl):
+        idx = np.flatnonzero(cl == g)
+        lam, vec = np.linalg.eigh(omega[np.ix_(idx, idx)])
+        inv_sqrt = vec @ np.diag(np.where(lam > 1e-10, 1 / np.sqrt(np.maximum(lam, 1e-10)), 0.0)) @ vec.T
+        v = inv_sqrt @ c[idx]
+        variance += float(v @ e[idx]) ** 2
+        columns.append(resid_maker[idx, :].T @ v)
+    gram = np.array(columns) @ np.array(columns).T
+    dof = np.trace(gram) ** 2 / np.sum(gram * gram)
+    return variance, dof
+
+
+@pytest.mark.parametrize("big", [False, True], ids=["small-clusters", "large-clusters"])
+@pytest.mark.parametrize("kernel,degree,bandwidth,weights", [
+    ("triangular", 1, 0.5, False),
+    ("uniform", 0, 0.3, True),
+    ("epanechnikov", 2, (0.45, 0.7), True),
+])
+def test_conventional_cr2_and_degrees_of_freedom(kernel, degree, bandwidth, weights, big):
+    frame = clustered_data(big=big)
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="g",
+                             weights="w" if weights else None)
+    fit = design.fit(bandwidth=bandwidth, kernel=kernel, degree=degree)
+    variance, dof = dense_cr2(frame, bandwidth, kernel, degree, weights)
+    assert fit.std_error == pytest.approx(np.sqrt(variance), rel=RTOL)
+    assert fit.dof[0] == pytest.approx(dof, rel=RTOL)
+    assert fit.cluster_variance == "bias-reduced"
+    # Reference: scipy.stats.t.ppf for the interval, scipy.stats.t.sf for the p-value
+    t = stats.t.ppf(0.975, dof)
+    assert fit.conf_int == pytest.approx((fit.estimate - t * fit.std_error, fit.estimate + t * fit.std_error),
+                                         rel=1e-12)
+    assert fit.p_value == pytest.approx(2 * stats.t.sf(abs(fit.estimate / fit.std_error), dof), rel=1e-10)
+
+
+@pytest.mark.parametrize("kernel", ["triangular", "uniform"])
+def test_robust_cr2_at_equal_pilot_is_the_cr2_of_the_higher_degree_fit(kernel):
+    frame = clustered_data(seed=9)
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="g")
+    fit = design.fit(bandwidth=0.6, pilot_bandwidth=0.6, kernel=kernel, degree=1)
+    variance, dof = dense_cr2(frame, 0.6, kernel, 2, False)
+    assert fit.robust_std_error == pytest.approx(np.sqrt(variance), rel=RTOL)
+    assert fit.dof[1] == pytest.approx(dof, rel=RTOL)
+    t = stats.t.ppf(0.975, dof)
+    lo, hi = fit.robust_conf_int
+    assert (hi - lo) / 2 == pytest.approx(t * fit.robust_std_error, rel=1e-12)
+
+
+def test_degrees_of_freedom_lie_below_the_number_of_clusters_and_grow_with_it():
+    # Bell-McCaffrey degrees of freedom never exceed G - 1 for a contrast (Imbens and Kolesar 2016).
+    dofs = []
+    for groups in (8, 30, 120):
+        frame = clustered_data(n=1500, groups=groups, seed=3)
+        fit = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="g").fit(bandwidth=0.5)
+        assert 1.0 < fit.dof[1] <= fit.n_clusters - 1
+        dofs.append(fit.dof[1])
+    assert dofs[0] < dofs[1] < dofs[2]
+
+
+def test_classic_keeps_cr1_with_normal_critical_values():
+    frame = clustered_data()
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="g")
+    fit = design.fit(bandwidth=0.5, cluster_variance="classic")
+    assert fit.dof == (None, None)
+    z = stats.norm.ppf(0.975)
+    lo, hi = fit.robust_conf_int
+    assert (hi - lo) / 2 == pytest.approx(z * fit.robust_std_error, rel=1e-12)
+    assert "classic CR1" in fit.notes()[0]
+
+
+def test_a_fuzzy_design_uses_cr2_for_the_ratio_and_the_first_stage():
+    frame = clustered_data(seed=12)
+    rng = np.random.default_rng(1)
+    frame["d"] = (rng.uniform(size=len(frame)) < np.where(frame["x"] >= 0, 0.8, 0.2)).astype(float)
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", takeup="d", cluster="g")
+    fit = design.fit(bandwidth=0.5)
+    assert fit.dof[0] is not None and fit.dof[1] is not None
+    assert fit.first_stage.dof[0] is not None
+    # The first stage is the sharp jump in take-up: the same CR2 as a sharp design on "d".
+    sharp = seamline.Design(frame, score="x", cutoff=0.0, outcome="d", cluster="g").fit(bandwidth=0.5)
+    assert fit.first_stage.std_error == pytest.approx(sharp.std_error, rel=1e-10)
+    assert fit.first_stage.dof[0] == pytest.approx(sharp.dof[0], rel=1e-10)
+
+
+def test_unclustered_fits_are_untouched():
+    frame = clustered_data()
+    fit = seamline.Design(frame, score="x", cutoff=0.0, outcome="y").fit(bandwidth=0.5)
+    assert fit.dof == (None, None) and fit.cluster_variance is None
+
+
+def test_unknown_cluster_variance_is_refused():
+    design = seamline.Design(clustered_data(), score="x", cutoff=0.0, outcome="y", cluster="g")
+    with pytest.raises(seamline.errors.InvalidOptionError, match='`cluster_variance` must be one of "bias-reduced"'):
+        design.fit(cluster_variance="cr3")
