@@ -71,3 +71,23 @@ class InvalidBandwidthError(SeamlineError):
 
 class DesignSpecError(SeamlineError):
     """A design declaration (for example a %%cutoff cell) is malformed."""
+
+
+class SingleCutoffError(SeamlineError):
+    """A multiple-cutoff request on a design with only one cutoff (or a cutoff column with one value)."""
+
+
+class CutoffOrderError(SeamlineError):
+    """Cumulative cutoffs on one score are not strictly increasing numbers."""
+
+
+class TooFewUnitsError(SeamlineError):
+    """Too few observations between two cumulative cutoffs (or beyond the outer ones)."""
+
+
+class CutoffChoiceError(SeamlineError):
+    """A call that needs one cutoff was made on a design with cumulative cutoffs; pick one first."""
+
+
+class InvalidEffectError(SeamlineError):
+    """An effect size for power or sample-size calculations is zero, missing or not a number."""
