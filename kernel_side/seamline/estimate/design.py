@@ -11,11 +11,12 @@ import pandas as pd
 from ..core.bandwidth import Selection, coverage_factor, ik_bandwidth, mse_selection
 from ..core.kernels import normal_reference_constant
 from ..core.locpoly import SideFit, variance_fast, window_arrays
-from ..data import DesignData, Prepared
+from ..data import DesignData, Prepared, as_frame
 from ..errors import InvalidOptionError
 from ..options import SIDES, check_option
 from ..results.fit import Fit
 from .engine import JumpEngine, check_support, use_fast_variance
+from .multiple_cutoffs import CutoffNotChosen, plan_cutoffs
 from .options import FitSpec, resolve
 
 FEW_OBSERVATIONS = 20   # common practice: flag windows with fewer effective observations per side
@@ -68,7 +69,10 @@ class Design:
     ----------
     data : pandas.DataFrame (or an Arrow/polars table). Never modified.
     score : name of the running variable.
-    cutoff : the threshold; observations with score >= cutoff are "above".
+    cutoff : the threshold; observations with score >= cutoff are "above". Also: the name of a column
+        holding each unit's own cutoff (the design is then the pooled design on the normalised score
+        ``score - cutoff``, cutoff 0; see ``by_cutoff``), or a list of increasing numbers, cumulative
+        cutoffs on one score (pick one with ``at(cutoff)``; ``by_cutoff`` fits them all).
     outcome : an outcome column or a list of them (``fit`` uses the first unless told otherwise).
     treated : "above" or "below", the side assigned the treatment.
     takeup : optional column of treatment actually received (0/1 or a probability) -> fuzzy design.
@@ -94,13 +98,20 @@ class Design:
         self.covariates = _as_names(covariates, "covariates")
         self.cluster = cluster
         self.weights = weights
-        try:
-            cutoff = float(cutoff)
-        except (TypeError, ValueError):
-            raise InvalidOptionError(f"`cutoff` must be a number; got {cutoff!r}. Pass e.g. cutoff=40.") from None
-        self.cutoff = cutoff
-        self._data = DesignData(data, score=score, cutoff=cutoff, outcomes=self.outcomes, takeup=takeup,
-                                covariates=self.covariates, cluster=cluster, weights=weights)
+        # several cutoffs (a column, or cumulative numbers) are read in seamline.estimate.multiple_cutoffs
+        self._frame = as_frame(data)
+        self._declared = dict(score=score, cutoff=cutoff, outcome=self.outcomes, treated=self.treated,
+                              takeup=takeup, covariates=self.covariates, cluster=cluster, weights=weights)
+        columns = (*self.outcomes, *(c for c in (takeup, cluster, weights) if c), *self.covariates)
+        self._plan = plan = plan_cutoffs(self._frame, score, cutoff, columns)
+        self.cutoff_layout, self.cutoffs, self.cutoff_column = plan.layout, plan.cutoffs, plan.column
+        self.score, self.cutoff = plan.score, plan.cutoff   # a cutoff column: score - cutoff, at 0
+        self._subsets: dict = {}
+        if plan.layout == "cumulative":
+            self._data = CutoffNotChosen(plan.cutoffs)
+        else:
+            self._data = DesignData(plan.frame, score=plan.score, cutoff=plan.cutoff, outcomes=self.outcomes,
+                                    takeup=takeup, covariates=self.covariates, cluster=cluster, weights=weights)
         self._selections: dict[tuple, Selection] = {}
         # Bounded: a slider session makes many specifications, and engines hold window arrays.
         self._fits: Bounded = Bounded(FIT_CACHE)
@@ -112,8 +123,11 @@ class Design:
 
     def __repr__(self) -> str:
         kind = "fuzzy" if self.takeup else "sharp"
-        return (f"<Design {kind}: score {self.score!r} cutoff {self.cutoff:g} treated {self.treated}, "
-                f"outcomes {list(self.outcomes)}>")
+        where = f"score {self.score!r} cutoff {self.cutoff:g}" if self.cutoff is not None else \
+            f"score {self.score!r} cumulative cutoffs {list(self.cutoffs)}"
+        if self.cutoff_layout == "column":
+            where += f" (cutoffs {list(self.cutoffs)} from {self.cutoff_column!r})"
+        return f"<Design {kind}: {where} treated {self.treated}, outcomes {list(self.outcomes)}>"
 
     # ---- specification helpers ---------------------------------------------------------------
     def _outcome(self, outcome) -> str:
@@ -416,3 +430,57 @@ class Design:
         discrete score, heaping."""
         from . import diagnostics
         return diagnostics.checks(self, **fit_options)
+
+    # ---- several cutoffs, subgroups, power (seamline.estimate.multiple_cutoffs, subgroups, power) ----
+    def at(self, cutoff: float) -> "Design":
+        """The single-cutoff design at one of several cutoffs.
+
+        A cutoff column: the units with that cutoff. Cumulative cutoffs: the observations strictly
+        between the neighbouring cutoffs. The same declaration (outcomes, take-up, covariates,
+        cluster, weights) applies; the result is cached.
+        """
+        from .multiple_cutoffs import rows_of
+        value = float(cutoff) if isinstance(cutoff, (int, float, np.number)) and not isinstance(cutoff, bool) else None
+        if self.cutoff_layout == "single" or value not in self.cutoffs:
+            raise InvalidOptionError(f"`cutoff` must be one of the design's cutoffs {list(self.cutoffs)}; got "
+                                     f"{cutoff!r}. Pick one of the listed values.")
+        if ("at", value) not in self._subsets:
+            self._subsets[("at", value)] = self._subset(rows_of(self, value), value)
+        return self._subsets[("at", value)]
+
+    def _subset(self, rows: np.ndarray, cutoff) -> "Design":
+        """The same declaration on some of the user's rows (a new frame), with the given cutoff."""
+        declared = dict(self._declared, cutoff=cutoff)
+        return Design(self._frame[np.asarray(rows, dtype=bool)], **declared)
+
+    def by_cutoff(self, **fit_options):
+        """Cutoff-specific effects, one default fit per cutoff, with a test of equal effects.
+
+        For a cutoff column the result also holds the pooled fit on the normalised score
+        (``pooled``, equal to ``fit()``) and its decomposition as a weighted average of the
+        cutoff-specific effects (``decomposition``). ``fit_options`` are passed to every fit.
+        """
+        from . import multiple_cutoffs
+        return multiple_cutoffs.by_cutoff(self, **fit_options)
+
+    def by_group(self, column: str, **fit_options):
+        """Subgroup effects: the default fit on each group's rows and the chi-square test of equal effects."""
+        from . import subgroups
+        return subgroups.by_group(self, column, **fit_options)
+
+    def power(self, effect, level: float = 0.95, n=None, *, scaling: str = "reselected-bandwidth", **fit_options):
+        """Power of the robust test against ``effect``, with this design as pilot data (at total size ``n``)."""
+        from . import power
+        return power.power(self, effect, level=level, n=n, scaling=scaling, **fit_options)
+
+    def power_curve(self, effects=None, level: float = 0.95, n=None, *, scaling: str = "reselected-bandwidth",
+                    **fit_options):
+        """Power of the robust test over a grid of effects (default: from 0 to about 99% power)."""
+        from . import power
+        return power.power_curve(self, effects, level=level, n=n, scaling=scaling, **fit_options)
+
+    def sample_size(self, effect, power: float = 0.8, level: float = 0.95, *,
+                    scaling: str = "reselected-bandwidth", **fit_options):
+        """Total sample size (and window counts) for the robust test to reach ``power`` against ``effect``."""
+        from . import power as power_module
+        return power_module.sample_size(self, effect, power=power, level=level, scaling=scaling, **fit_options)

@@ -1,0 +1,251 @@
+"""Designs with several cutoffs: a cutoff that differs by unit (a column), or cumulative cutoffs on one score.
+
+Column of cutoffs (Cattaneo, Keele, Titiunik & Vazquez-Bare 2016): unit i is treated when its score
+reaches its own cutoff C_i. The design itself is the pooled design on the normalised score
+``score - cutoff`` with cutoff 0, built here as an ordinary single-cutoff frame, so ``fit`` and every
+diagnostic run unchanged on it. Each cutoff-specific effect is the default fit of the units with that
+cutoff. Cumulative cutoffs c_1 < ... < c_K on one score: the effect at c_k is the default fit on the
+observations strictly between c_{k-1} and c_{k+1}, so that no other cutoff's jump enters its windows.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from numbers import Real
+
+import numpy as np
+import pandas as pd
+
+from ..core.heterogeneity import equal_effects_test
+from ..core.kernels import kernel_weights
+from ..data import numeric_column
+from ..errors import (CutoffChoiceError, CutoffOrderError, InvalidOptionError, SeamlineError, SingleCutoffError,
+                      TooFewUnitsError)
+from ..results.designs import CutoffEffects, Decomposition, EffectRow, EqualityTest
+
+MIN_UNITS_PER_SIDE = 20     # convention: observations needed on each side before a row is fitted
+INDEPENDENT = ("The cutoff groups are disjoint samples, so their estimates are treated as independent.")
+
+
+@dataclass(frozen=True, eq=False)
+class CutoffPlan:
+    """How a Design's ``cutoff`` argument was read.
+
+    ``layout`` is "single", "column" or "cumulative"; ``cutoffs`` the distinct cutoffs in increasing
+    order; ``score`` and ``cutoff`` what the design's own fits use (the normalised score and 0 for a
+    column; None for cumulative cutoffs, which have no single design); ``frame`` the data those fits
+    read; ``per_row`` each row's cutoff (column layout only).
+    """
+    layout: str
+    cutoffs: tuple[float, ...]
+    column: str | None
+    score: str
+    cutoff: float | None
+    frame: pd.DataFrame | None
+    per_row: np.ndarray | None = None
+
+
+def plan_cutoffs(frame: pd.DataFrame, score: str, cutoff, columns: tuple[str, ...]) -> CutoffPlan:
+    """Read ``cutoff``: a number, the name of a column of per-unit cutoffs, or increasing numbers."""
+    if isinstance(cutoff, str):
+        return _column_plan(frame, score, cutoff, columns)
+    if isinstance(cutoff, (list, tuple, np.ndarray, pd.Series)) and len(cutoff) != 1:
+        return _cumulative_plan(frame, score, list(cutoff))
+    if isinstance(cutoff, (list, tuple, np.ndarray, pd.Series)):
+        cutoff = list(cutoff)[0]
+    try:
+        value = float(cutoff)
+    except (TypeError, ValueError):
+        raise InvalidOptionError(f"`cutoff` must be a number, a column name or a list of increasing numbers; got "
+                                 f"{cutoff!r}. Pass e.g. cutoff=40, cutoff=\"threshold\" or cutoff=[30, 60].") from None
+    return CutoffPlan("single", (value,), None, score, value, frame)
+
+
+def _column_plan(frame: pd.DataFrame, score: str, column: str, columns: tuple[str, ...]) -> CutoffPlan:
+    per_row = numeric_column(frame, column, "cutoff")
+    distinct = np.unique(per_row[~np.isnan(per_row)])
+    if len(distinct) < 2:
+        raise SingleCutoffError(f"`cutoff` column {column!r} must hold at least two distinct cutoffs; got only "
+                                f"{distinct[0]:g}. Pass cutoff={distinct[0]:g} for a single-cutoff design.")
+    x = numeric_column(frame, score, "score")
+    label = f"{score} - {column}"
+    while label in columns or label == column:
+        label += " (normalised)"
+    parts = {label: x - per_row}
+    for name in dict.fromkeys(columns):         # a new frame: the user's data is never modified
+        parts[name] = frame[name].to_numpy()
+    normalised = pd.DataFrame(parts, index=frame.index)
+    return CutoffPlan("column", tuple(float(c) for c in distinct), column, label, 0.0, normalised, per_row)
+
+
+def _cumulative_plan(frame: pd.DataFrame, score: str, values: list) -> CutoffPlan:
+    if len(values) == 0 or not all(isinstance(v, Real) and not isinstance(v, bool) and np.isfinite(v)
+                                   for v in values):
+        raise CutoffOrderError(f"`cutoff` must be a list of finite numbers; got {values!r}. Pass e.g. cutoff=[30, 60].")
+    cutoffs = [float(v) for v in values]
+    if any(b <= a for a, b in zip(cutoffs, cutoffs[1:])):
+        raise CutoffOrderError(f"`cutoff` must be strictly increasing cumulative cutoffs; got {values!r}. "
+                               f"Sort them and drop repeats: cutoff={sorted(set(cutoffs))!r}.")
+    x = numeric_column(frame, score, "score")
+    x = x[~np.isnan(x)]
+    lo, hi = float(x.min()), float(x.max())
+    outside = [c for c in cutoffs if not lo < c <= hi]
+    if outside:
+        raise InvalidOptionError(f"`cutoff` values must lie inside the range of score {score!r} ({lo:g}, {hi:g}]; "
+                                 f"got {outside!r}. Check the cutoffs and their units.")
+    edges = [-np.inf, *cutoffs, np.inf]
+    for a, b in zip(edges, edges[1:]):
+        n = int(np.sum((x > a) & (x < b)))
+        if n < MIN_UNITS_PER_SIDE:
+            where = (f"below {b:g}" if a == -np.inf else f"above {a:g}" if b == np.inf
+                     else f"strictly between {a:g} and {b:g}")
+            raise TooFewUnitsError(f"`cutoff` must leave at least {MIN_UNITS_PER_SIDE} observations between "
+                                   f"neighbouring cutoffs; got {n} with {score!r} {where}. Drop or move one of "
+                                   "the cutoffs (or collect more data there).")
+    return CutoffPlan("cumulative", tuple(cutoffs), None, score, None, None)
+
+
+class CutoffNotChosen:
+    """Stands in for the data of a design with cumulative cutoffs: any single-cutoff use names the fix."""
+
+    def __init__(self, cutoffs: tuple[float, ...]):
+        self._cutoffs = cutoffs
+
+    def __getattr__(self, name):
+        c = self._cutoffs
+        raise CutoffChoiceError(f"`cutoff` must be chosen first on a design with cumulative cutoffs "
+                                f"{[float(v) for v in c]}; got a call that needs one cutoff. Use "
+                                f"design.at({c[0]:g}).fit() (each cutoff is a design of its own) or design.by_cutoff().")
+
+
+# ---------------------------------------------------------------------------------------------
+def rows_of(design, cutoff: float) -> np.ndarray:
+    """Boolean mask of the user's rows that make up the design at one of several cutoffs."""
+    plan = design._plan
+    if plan.layout == "column":
+        return plan.per_row == cutoff
+    x = numeric_column(design._frame, design._declared["score"], "score")
+    k = plan.cutoffs.index(cutoff)
+    below = plan.cutoffs[k - 1] if k > 0 else -np.inf
+    above = plan.cutoffs[k + 1] if k + 1 < len(plan.cutoffs) else np.inf
+    return (x > below) & (x < above)
+
+
+def units_per_side(design, outcome: str | None) -> tuple[int, int]:
+    """Usable observations (score and outcome present) on each side of a single-cutoff design."""
+    x = design._data.arrays[design.score]
+    ok = ~np.isnan(x)
+    name = outcome or design.outcomes[0]
+    if name in design._data.arrays:
+        ok &= ~np.isnan(design._data.arrays[name])
+    return int(np.sum(ok & (x < design.cutoff))), int(np.sum(ok & (x >= design.cutoff)))
+
+
+def fit_row(label, make_design, fit_options: dict) -> EffectRow:
+    """The default fit of one cutoff's or group's design, or a not-fitted row saying why."""
+    try:
+        sub = make_design()
+    except SeamlineError as exc:
+        return EffectRow.not_fitted(label, (0, 0), str(exc))
+    units = units_per_side(sub, fit_options.get("outcome"))
+    if min(units) < MIN_UNITS_PER_SIDE:
+        return EffectRow.not_fitted(label, units, f"too few units on one side ({units[0]} below, {units[1]} above; "
+                                                  f"at least {MIN_UNITS_PER_SIDE} each are needed): not fitted. "
+                                                  "Merge it with a neighbouring cutoff or group, or collect more data.")
+    try:
+        return EffectRow.from_fit(label, sub.fit(**fit_options))
+    except SeamlineError as exc:
+        return EffectRow.not_fitted(label, units, f"not fitted: {exc}")
+
+
+def equality_test(rows: tuple[EffectRow, ...], assumption: str) -> EqualityTest:
+    usable = [r for r in rows if r.fitted and np.isfinite(r.robust_estimate) and r.robust_std_error > 0]
+    if len(usable) < 2:
+        nan = float("nan")
+        return EqualityTest(nan, max(len(usable) - 1, 0), nan, nan, nan, tuple(r.label for r in usable), assumption,
+                            reason=f"{len(usable)} row(s) fitted; at least two are needed")
+    res = equal_effects_test(np.array([r.robust_estimate for r in usable]),
+                             np.array([r.robust_std_error for r in usable]))
+    return EqualityTest(res.statistic, res.df, res.p_value, res.common_estimate, res.common_std_error,
+                        tuple(r.label for r in usable), assumption)
+
+
+def row_warnings(rows: tuple[EffectRow, ...], what: str) -> list[str]:
+    return [f"{what} {r.label if isinstance(r.label, str) else format(r.label, 'g')}: {r.note}"
+            for r in rows if r.note]
+
+
+def by_cutoff(design, **fit_options) -> CutoffEffects:
+    """Cutoff-specific effects; for a cutoff column also the pooled fit and its decomposition."""
+    plan = design._plan
+    if plan.layout == "single":
+        raise SingleCutoffError(f"`cutoff` must be a column name or a list of cutoffs for by_cutoff(); got the single "
+                                f"cutoff {plan.cutoff:g}. Declare Design(..., cutoff=\"<column>\") or cutoff=[30, 60].")
+    rows = tuple(fit_row(c, lambda c=c: design.at(c), fit_options) for c in plan.cutoffs)
+    warnings = row_warnings(rows, "cutoff")
+    outcome = rows[0].fit.outcome if any(r.fitted for r in rows) else design._outcome(fit_options.get("outcome"))
+    level = fit_options.get("level", 0.95)
+    pooled = decomposition = None
+    if plan.layout == "column":
+        assumption = INDEPENDENT
+        if design.cluster is not None and shared_clusters(design, plan.per_row):
+            assumption = ("Some clusters hold units with different cutoffs; the test ignores the resulting "
+                          "correlation (conservative when it is positive).")
+            warnings.append(assumption)
+        pooled = design.fit(**fit_options)
+        outcome = pooled.outcome
+        decomposition = decompose(design, pooled, rows)
+        warnings += decomposition.warnings
+    else:
+        assumption = ("Adjacent cumulative cutoffs share the observations between them; the test treats the "
+                      "estimates as independent.")
+        for left, right, gap in zip(rows, rows[1:], np.diff(plan.cutoffs)):
+            if left.fitted and right.fitted:
+                reach = left.fit.pilot_bandwidth[1] + right.fit.pilot_bandwidth[0]
+                if reach > gap:
+                    warnings.append(f"The robust windows of cutoffs {left.label:g} and {right.label:g} overlap "
+                                    f"(reach {reach:.4g} > gap {gap:.4g}): the two estimates share observations "
+                                    "and are correlated; read the test of equal effects with care.")
+    equality = equality_test(rows, assumption)
+    return CutoffEffects(rows=rows, equality=equality, outcome=outcome, level=level, warnings=tuple(warnings),
+                         layout=plan.layout, score=design._declared["score"], cutoff_column=plan.column,
+                         pooled=pooled, decomposition=decomposition)
+
+
+def shared_clusters(design, labels: np.ndarray) -> bool:
+    """Whether some cluster holds rows with different labels (cutoffs or groups)."""
+    codes, _ = pd.factorize(design._frame[design.cluster], use_na_sentinel=True)
+    keep = codes >= 0
+    pairs = pd.DataFrame({"cluster": codes[keep], "label": np.asarray(labels)[keep]}).dropna()
+    return bool((pairs.groupby("cluster")["label"].nunique() > 1).any())
+
+
+def decompose(design, pooled, rows: tuple[EffectRow, ...]) -> Decomposition:
+    """Weights w_k: each cutoff group's share of the pooled fit's kernel weight near the normalised cutoff."""
+    data, plan = design._data, design._plan
+    x = data.arrays[design.score]
+    ok = ~np.isnan(x) & ~np.isnan(data.arrays[pooled.outcome])
+    if design.takeup and pooled.kind == "fuzzy":
+        ok &= ~np.isnan(data.arrays[design.takeup])
+    h_below, h_above = pooled.bandwidth
+    u = np.where(ok, np.where(x < 0, -x / h_below, x / h_above), 2.0)   # 2: outside every window
+    k = kernel_weights(pooled.kernel, u)
+    if data.weights is not None:
+        k = k * np.where(np.isnan(data.weights), 0.0, data.weights)
+    shares = np.array([k[plan.per_row == c].sum() for c in plan.cutoffs]) / k.sum()
+    fitted = np.array([r.fitted for r in rows])
+    warnings = []
+    if not fitted.all():
+        warnings.append(f"The weighted average leaves out cutoffs that were not fitted (share "
+                        f"{shares[~fitted].sum():.1%} of the pooled kernel weight); weights are renormalised.")
+    w = np.where(fitted, shares, 0.0)
+    w = w / w.sum() if w.sum() > 0 else w
+    est = np.array([r.estimate for r in rows])
+    rob = np.array([r.robust_estimate for r in rows])
+    rse = np.array([r.robust_std_error for r in rows])
+    use = fitted & (w > 0)
+    return Decomposition(cutoffs=plan.cutoffs, weights=tuple(float(v) for v in w),
+                         estimates=tuple(est), robust_estimates=tuple(rob), robust_std_errors=tuple(rse),
+                         weighted_estimate=float(np.sum(w[use] * est[use])),
+                         weighted_robust_estimate=float(np.sum(w[use] * rob[use])),
+                         weighted_robust_std_error=float(np.sqrt(np.sum((w[use] * rse[use]) ** 2))),
+                         pooled=pooled, outcome=pooled.outcome, warnings=tuple(warnings))

@@ -1,0 +1,50 @@
+"""Subgroup effects: the design's default fit within each value of a pre-treatment column, and a
+chi-square test of equal effects across groups (precision weights, G - 1 degrees of freedom)."""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from ..errors import ColumnNotFoundError, CutoffChoiceError, InvalidOptionError
+from ..results.designs import GroupEffects
+from .multiple_cutoffs import shared_clusters, equality_test, fit_row, row_warnings
+
+MAX_GROUPS = 50     # convention: more distinct values than this is a continuous column, not groups
+INDEPENDENT = "The groups are disjoint samples, so their estimates are treated as independent."
+SHARED = ("Some clusters hold members of several groups, so the group estimates are correlated; this test "
+          "assumes independence (conservative when the correlation is positive, not otherwise).")
+
+
+def by_group(design, column: str, **fit_options) -> GroupEffects:
+    """One default fit per group of ``column`` (rows with a missing group are left out)."""
+    if design.cutoff_layout == "cumulative":
+        c = design.cutoffs
+        raise CutoffChoiceError(f"`cutoff` must be chosen first on a design with cumulative cutoffs {list(c)}; got "
+                                f"by_group({column!r}). Use design.at({c[0]:g}).by_group({column!r}).")
+    frame = design._frame
+    if not isinstance(column, str) or column not in frame.columns:
+        raise ColumnNotFoundError(f"`column` must name a column of the data; got {column!r}. "
+                                  "Check the spelling against data.columns.")
+    labels = frame[column]
+    groups = pd.unique(labels.dropna())
+    if len(groups) > MAX_GROUPS:
+        raise InvalidOptionError(f"`column` must have at most {MAX_GROUPS} groups; got {len(groups)} distinct values "
+                                 f"in {column!r}. Group a continuous column first, e.g. with pandas.cut.")
+    if len(groups) < 2:
+        raise InvalidOptionError(f"`column` must have at least two groups; got {list(groups)!r} in {column!r}. "
+                                 "Choose a column that splits the units.")
+    try:
+        groups = sorted(groups)
+    except TypeError:       # mixed types: keep the order of first appearance
+        groups = list(groups)
+    values = labels.to_numpy()
+    rows = tuple(fit_row(g, lambda g=g: design._subset(values == g, design._declared["cutoff"]), fit_options)
+                 for g in groups)
+    warnings = row_warnings(rows, "group")
+    assumption = INDEPENDENT
+    if design.cluster is not None and shared_clusters(design, labels.to_numpy(dtype=object)):
+        assumption = SHARED
+        warnings.append(SHARED)
+    outcome = next((r.fit.outcome for r in rows if r.fitted), design._outcome(fit_options.get("outcome")))
+    return GroupEffects(rows=rows, equality=equality_test(rows, assumption), outcome=outcome,
+                        level=fit_options.get("level", 0.95), warnings=tuple(warnings), column=column)
