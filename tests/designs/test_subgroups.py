@@ -1,0 +1,120 @@
+"""Subgroup effects and the test of equal effects across groups.
+
+References: each group row against a direct fit of the group's rows computed in the test; the test
+of equal effects against scipy.stats.chi2 and statsmodels WLS; for two groups, the square of the
+difference z-statistic (common practice).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+from scipy import stats
+
+import seamline
+from seamline.errors import ColumnNotFoundError, InvalidOptionError
+
+TOL = 1e-9
+
+
+def grouped(n: int, rng: np.random.Generator) -> pd.DataFrame:
+    """A score on [-1, 1), three regions with effects 0.3, 0.6, 0.6, and households as clusters."""
+    x = rng.uniform(-1.0, 1.0, n)
+    region = rng.choice(["east", "north", "west"], n, p=[0.4, 0.35, 0.25])
+    effect = np.where(region == "east", 0.3, 0.6)
+    y = 0.4 + 0.5 * x - 0.3 * x ** 2 + effect * (x >= 0) + rng.normal(0.0, 0.4, n)
+    return pd.DataFrame({"x": x, "y": y, "region": region, "household": rng.integers(0, n // 4, n),
+                         "own_cluster": np.arange(n)})
+
+
+@pytest.fixture(scope="module")
+def frame():
+    return grouped(6000, np.random.default_rng(8))
+
+
+@pytest.fixture(scope="module")
+def design(frame):
+    return seamline.Design(frame, score="x", cutoff=0.0, outcome="y")
+
+
+def test_each_group_row_equals_the_fit_of_the_groups_rows(frame, design):
+    result = design.by_group("region")
+    table = result.table()
+    assert list(table.group) == ["east", "north", "west"]
+    for row in table.itertuples():
+        # Reference: a direct fit of the group's rows, computed here
+        direct = seamline.Design(frame[frame.region == row.group], score="x", cutoff=0.0, outcome="y").fit()
+        lo, hi = direct.robust_conf_int
+        np.testing.assert_allclose([row.estimate, row.std_error, row.robust_ci_low, row.robust_ci_high,
+                                    row.bandwidth_below],
+                                   [direct.estimate, direct.std_error, lo, hi, direct.bandwidth[0]], rtol=TOL)
+        assert (row.n_below, row.n_above) == direct.n_used
+    assert "chi-square" in result.to_markdown() and "local to the cutoff" in result.to_markdown()
+
+
+def test_equality_p_value_equals_the_chi_square_from_the_rows(design):
+    result = design.by_group("region")
+    table = result.table()
+    t, v = table.robust_estimate.to_numpy(), table.robust_std_error.to_numpy() ** 2
+    common = np.sum(t / v) / np.sum(1 / v)
+    q = np.sum((t - common) ** 2 / v)
+    # Reference: scipy.stats.chi2.sf(Q, G - 1), Q from the rows' robust estimates and variances (common practice)
+    assert result.equality_p_value == pytest.approx(stats.chi2.sf(q, 2), rel=1e-10)
+    # Reference: statsmodels WLS of the estimates on a constant with weights 1/V: ssr is Q
+    assert sm.WLS(t, np.ones((3, 1)), weights=1 / v).fit().ssr == pytest.approx(result.equality.statistic, rel=1e-10)
+
+
+def test_two_groups_give_the_squared_difference_statistic(frame, design):
+    two = frame.assign(pair=np.where(frame.region == "east", "east", "other"))
+    result = seamline.Design(two, score="x", cutoff=0.0, outcome="y").by_group("pair")
+    a, b = result.rows
+    # (t_a - t_b) / sqrt(V_a + V_b), squared, is the one-df chi-square (common practice)
+    z = (a.robust_estimate - b.robust_estimate) / np.hypot(a.robust_std_error, b.robust_std_error)
+    assert result.equality.statistic == pytest.approx(z ** 2, rel=1e-10)
+    assert result.equality_p_value == pytest.approx(2 * stats.norm.sf(abs(z)), rel=1e-9)
+
+
+def test_a_small_group_is_reported_and_the_others_are_still_shown(frame):
+    small = frame.assign(region=np.where((frame.region == "west") & (frame.x < 0) & (frame.index % 50 != 0),
+                                         "dropped", frame.region))
+    small = small[small.region != "dropped"]
+    result = seamline.Design(small, score="x", cutoff=0.0, outcome="y").by_group("region")
+    table = result.table()
+    west = table[table.group == "west"].iloc[0]
+    assert np.isnan(west.estimate) and west.units_below < 20 and "too few units on one side" in west.note
+    assert table[table.group != "west"].estimate.notna().all()
+    assert result.equality.labels == ("east", "north") and result.equality.df == 1
+    assert any(w.startswith("group west: too few units") for w in result.warnings)
+
+
+def test_groups_sharing_clusters_say_the_test_assumes_independence(frame):
+    shared = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="household").by_group("region")
+    assert "assumes independence" in shared.equality.assumption
+    assert any("members of several groups" in w for w in shared.warnings)
+    apart = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="own_cluster").by_group("region")
+    assert "disjoint samples" in apart.equality.assumption
+
+
+def test_groups_of_a_multiple_cutoff_design_are_pooled_fits_within_the_group():
+    rng = np.random.default_rng(3)
+    n = 6000
+    c = rng.choice([-0.2, 0.3], n)
+    x = c + rng.uniform(-1, 1, n)
+    frame = pd.DataFrame({"x": x, "c": c, "y": 0.5 * (x - c) + 0.4 * (x >= c) + rng.normal(0, 0.3, n),
+                          "sex": rng.choice(["f", "m"], n)})
+    result = seamline.Design(frame, score="x", cutoff="c", outcome="y").by_group("sex")
+    for row in result.table().itertuples():
+        # Reference: the group's rows declared as a cutoff-column design, fitted directly
+        direct = seamline.Design(frame[frame.sex == row.group], score="x", cutoff="c", outcome="y").fit()
+        assert (row.estimate, row.robust_std_error) == (direct.estimate, direct.robust_std_error)
+
+
+def test_bad_group_columns(frame, design):
+    with pytest.raises(ColumnNotFoundError, match=r"`column` must name a column of the data; got 'regoin'"):
+        design.by_group("regoin")
+    with pytest.raises(InvalidOptionError, match=r"`column` must have at most 50 groups; got 6000 distinct values "
+                                                 r"in 'y'\. Group a continuous column first"):
+        design.by_group("y")
+    with pytest.raises(InvalidOptionError, match=r"`column` must have at least two groups"):
+        seamline.Design(frame.assign(one="a"), score="x", cutoff=0.0, outcome="y").by_group("one")
