@@ -258,3 +258,15 @@ def test_cumulative_cutoffs_must_be_numbers_in_range(steps):
         seamline.Design(steps, score="points", cutoff=[30, "sixty"], outcome="y")
     with pytest.raises(InvalidOptionError, match=r"`cutoff` values must lie inside the range of score 'points'"):
         seamline.Design(steps, score="points", cutoff=[30, 160], outcome="y")
+
+
+@pytest.mark.parametrize("form", [np.float64(40.0), np.array(40.0), [40.0], (40,)])
+def test_one_cutoff_in_any_form_is_a_single_design(steps, form):
+    design = seamline.Design(steps, score="points", cutoff=form, outcome="y")
+    assert design.cutoff_layout == "single" and design.cutoff == 40.0
+    assert design.fit().estimate == seamline.Design(steps, score="points", cutoff=40.0, outcome="y").fit().estimate
+
+
+def test_an_array_of_cutoffs_is_cumulative(steps):
+    design = seamline.Design(steps, score="points", cutoff=np.array([30, 60]), outcome="y")
+    assert design.cutoff_layout == "cumulative" and design.cutoffs == (30.0, 60.0) and design.cutoff is None

@@ -118,3 +118,12 @@ def test_bad_group_columns(frame, design):
         design.by_group("y")
     with pytest.raises(InvalidOptionError, match=r"`column` must have at least two groups"):
         seamline.Design(frame.assign(one="a"), score="x", cutoff=0.0, outcome="y").by_group("one")
+
+
+def test_rows_with_a_missing_group_are_left_out_and_counted(frame):
+    holes = frame.assign(region=frame.region.where(frame.index % 10 != 0))
+    result = seamline.Design(holes, score="x", cutoff=0.0, outcome="y").by_group("region")
+    assert "600 rows with a missing 'region' are left out of every group." in result.warnings
+    east = holes[holes.region == "east"]
+    # Reference: a direct fit of the group's rows
+    assert result.rows[0].estimate == seamline.Design(east, score="x", cutoff=0.0, outcome="y").fit().estimate

@@ -48,10 +48,11 @@ def plan_cutoffs(frame: pd.DataFrame, score: str, cutoff, columns: tuple[str, ..
     """Read ``cutoff``: a number, the name of a column of per-unit cutoffs, or increasing numbers."""
     if isinstance(cutoff, str):
         return _column_plan(frame, score, cutoff, columns)
-    if isinstance(cutoff, (list, tuple, np.ndarray, pd.Series)) and len(cutoff) != 1:
-        return _cumulative_plan(frame, score, list(cutoff))
-    if isinstance(cutoff, (list, tuple, np.ndarray, pd.Series)):
-        cutoff = list(cutoff)[0]
+    if isinstance(cutoff, (list, tuple, np.ndarray, pd.Series)) and np.ndim(cutoff) > 0:
+        values = list(np.ravel(np.asarray(cutoff, dtype=object)))
+        if len(values) != 1:
+            return _cumulative_plan(frame, score, values)
+        cutoff = values[0]
     try:
         value = float(cutoff)
     except (TypeError, ValueError):

@@ -41,6 +41,9 @@ def by_group(design, column: str, **fit_options) -> GroupEffects:
     rows = tuple(fit_row(g, lambda g=g: design._subset(values == g, design._declared["cutoff"]), fit_options)
                  for g in groups)
     warnings = row_warnings(rows, "group")
+    missing = int(labels.isna().sum())
+    if missing:
+        warnings.append(f"{missing} rows with a missing {column!r} are left out of every group.")
     assumption = INDEPENDENT
     if design.cluster is not None and shared_clusters(design, labels.to_numpy(dtype=object)):
         assumption = SHARED
