@@ -270,3 +270,58 @@ def test_one_cutoff_in_any_form_is_a_single_design(steps, form):
 def test_an_array_of_cutoffs_is_cumulative(steps):
     design = seamline.Design(steps, score="points", cutoff=np.array([30, 60]), outcome="y")
     assert design.cutoff_layout == "cumulative" and design.cutoffs == (30.0, 60.0) and design.cutoff is None
+
+
+# ---- covariance of adjacent cumulative cutoffs ----------------------------------------------------
+def quadratic_terms(d: np.ndarray, y: np.ndarray, h: float) -> tuple[np.ndarray, np.ndarray]:
+    """Intercept weights and residuals of a triangular-kernel local quadratic fit at bandwidth h.
+
+    Reference: at h = b the robust bias-corrected local linear estimate equals the local quadratic
+    estimate (Calonico, Cattaneo & Titiunik 2014; common practice); the weights are
+    e_0' (X'KX)^{-1} X'K and the residuals come from statsmodels WLS(y, X, weights=K).
+    """
+    k = np.clip(1 - d / h, 0, None)
+    x = np.column_stack([np.ones_like(d), d / h, (d / h) ** 2])
+    weights = np.linalg.solve(x.T @ (k[:, None] * x), (k[:, None] * x).T)[0]
+    inside = k > 0
+    resid = np.zeros_like(d)
+    resid[inside] = sm.WLS(y[inside], x[inside], weights=k[inside]).fit().resid
+    return weights, resid
+
+
+def test_adjacent_cumulative_estimates_get_their_stacked_covariance():
+    rng = np.random.default_rng(9)
+    x = rng.uniform(-1.0, 2.0, 1500)
+    y = 1.0 + 0.5 * x + 0.3 * (x >= 0) + 0.4 * (x >= 1) + rng.normal(0.0, 1.0, 1500)
+    frame = pd.DataFrame({"x": x, "y": y})
+    result = seamline.Design(frame, score="x", cutoff=[0, 1], outcome="y").by_cutoff(
+        bandwidth=1.0, pilot_bandwidth=1.0, variance="hc0")
+    # first principles: design 0 uses (-inf, 1), its treated side is [0, 1); design 1 uses (0, inf), its
+    # untreated side is (0, 1); the shared observations are those in (0, 1)
+    shared = (x > 0) & (x < 1)
+    a0, e0 = quadratic_terms(x[shared], y[shared], 1.0)
+    a1, e1 = quadratic_terms(1.0 - x[shared], y[shared], 1.0)
+    want = np.sum((a0 * e0) * (-a1 * e1))          # treated side enters + in design 0, untreated - in design 1
+    below0 = (x < 0)
+    ab, eb = quadratic_terms(-x[below0], y[below0], 1.0)
+    above1 = (x >= 1)
+    aa, ea = quadratic_terms(x[above1] - 1.0, y[above1], 1.0)
+    v0 = np.sum((a0 * e0) ** 2) + np.sum((ab * eb) ** 2)
+    v1 = np.sum((a1 * e1) ** 2) + np.sum((aa * ea) ** 2)
+    np.testing.assert_allclose(result.covariance, [[v0, want], [want, v1]], rtol=1e-8)
+    t = result.table().robust_estimate.to_numpy()
+    # Reference: Wald test of t_0 = t_1 with the covariance, chi-square with 1 df (common practice)
+    w = (t[0] - t[1]) ** 2 / (v0 + v1 - 2 * want)
+    assert result.equality.statistic == pytest.approx(w, rel=1e-8)
+    assert result.equality_p_value == pytest.approx(stats.chi2.sf(w, 1), rel=1e-8)
+    assert "estimated covariance of adjacent estimates" in result.equality.assumption
+
+
+def test_windows_that_do_not_overlap_have_zero_covariance(steps):
+    result = seamline.Design(steps, score="points", cutoff=[30, 60], outcome="y").by_cutoff(
+        bandwidth=10.0, pilot_bandwidth=12.0)
+    assert result.covariance[0, 1] == 0.0
+    # with a diagonal covariance the Wald test is the precision-weighted chi-square
+    table = result.table()
+    t, v = table.robust_estimate.to_numpy(), table.robust_std_error.to_numpy() ** 2
+    assert result.equality.statistic == pytest.approx((t[0] - t[1]) ** 2 / v.sum(), rel=1e-10)

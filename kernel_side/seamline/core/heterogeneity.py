@@ -35,3 +35,24 @@ def equal_effects_test(estimates: np.ndarray, std_errors: np.ndarray) -> EqualEf
     df = len(t) - 1
     return EqualEffects(statistic=q, df=df, p_value=float(stats.chi2.sf(q, df)), common_estimate=common,
                         common_std_error=float(np.sum(precision) ** -0.5))
+
+
+def wald_equal_effects(estimates: np.ndarray, covariance: np.ndarray) -> EqualEffects:
+    """Wald test of equal effects with a full covariance matrix (correlated estimates).
+
+    W = (R t)' (R V R')^{-1} (R t) with R the K - 1 adjacent contrasts e_k - e_{k+1}; W equals
+    (t - t_g)' V^{-1} (t - t_g) for the generalised-least-squares common effect
+    t_g = 1' V^{-1} t / 1' V^{-1} 1, whose standard error is (1' V^{-1} 1)^(-1/2). With a diagonal V
+    this is ``equal_effects_test``.
+    """
+    t = np.asarray(estimates, dtype=float)
+    v = np.asarray(covariance, dtype=float)
+    k = len(t)
+    contrasts = np.eye(k)[:-1] - np.eye(k, k=1)[:-1]
+    diff = contrasts @ t
+    w = float(diff @ np.linalg.solve(contrasts @ v @ contrasts.T, diff))
+    ones = np.ones(k)
+    precision = np.linalg.solve(v, ones)
+    return EqualEffects(statistic=w, df=k - 1, p_value=float(stats.chi2.sf(w, k - 1)),
+                        common_estimate=float(precision @ t / (precision @ ones)),
+                        common_std_error=float((precision @ ones) ** -0.5))

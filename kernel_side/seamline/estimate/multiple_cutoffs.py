@@ -15,12 +15,13 @@ from numbers import Real
 import numpy as np
 import pandas as pd
 
-from ..core.heterogeneity import equal_effects_test
+from ..core.heterogeneity import equal_effects_test, wald_equal_effects
 from ..core.kernels import kernel_weights
 from ..data import numeric_column
 from ..errors import (CutoffChoiceError, CutoffOrderError, InvalidOptionError, SeamlineError, SingleCutoffError,
                       TooFewUnitsError)
 from ..results.designs import CutoffEffects, Decomposition, EffectRow, EqualityTest
+from .cumulative_covariance import adjacent_covariance
 
 MIN_UNITS_PER_SIDE = 20     # convention: observations needed on each side before a row is fitted
 INDEPENDENT = ("The cutoff groups are disjoint samples, so their estimates are treated as independent.")
@@ -158,14 +159,23 @@ def fit_row(label, make_design, fit_options: dict) -> EffectRow:
         return EffectRow.not_fitted(label, units, f"not fitted: {exc}")
 
 
-def equality_test(rows: tuple[EffectRow, ...], assumption: str) -> EqualityTest:
-    usable = [r for r in rows if r.fitted and np.isfinite(r.robust_estimate) and r.robust_std_error > 0]
+def usable_rows(rows: tuple[EffectRow, ...]) -> list[int]:
+    return [i for i, r in enumerate(rows) if r.fitted and np.isfinite(r.robust_estimate) and r.robust_std_error > 0]
+
+
+def equality_test(rows: tuple[EffectRow, ...], assumption: str, covariance: np.ndarray | None = None) -> EqualityTest:
+    """Chi-square test of equal effects over the fitted rows (with their covariance when given)."""
+    use = usable_rows(rows)
+    usable = [rows[i] for i in use]
     if len(usable) < 2:
         nan = float("nan")
         return EqualityTest(nan, max(len(usable) - 1, 0), nan, nan, nan, tuple(r.label for r in usable), assumption,
                             reason=f"{len(usable)} row(s) fitted; at least two are needed")
-    res = equal_effects_test(np.array([r.robust_estimate for r in usable]),
-                             np.array([r.robust_std_error for r in usable]))
+    estimates = np.array([r.robust_estimate for r in usable])
+    if covariance is None:
+        res = equal_effects_test(estimates, np.array([r.robust_std_error for r in usable]))
+    else:
+        res = wald_equal_effects(estimates, covariance[np.ix_(use, use)])
     return EqualityTest(res.statistic, res.df, res.p_value, res.common_estimate, res.common_std_error,
                         tuple(r.label for r in usable), assumption)
 
@@ -185,7 +195,7 @@ def by_cutoff(design, **fit_options) -> CutoffEffects:
     warnings = row_warnings(rows, "cutoff")
     outcome = rows[0].fit.outcome if any(r.fitted for r in rows) else design._outcome(fit_options.get("outcome"))
     level = fit_options.get("level", 0.95)
-    pooled = decomposition = None
+    pooled = decomposition = covariance = None
     if plan.layout == "column":
         assumption = INDEPENDENT
         if design.cluster is not None and shared_clusters(design, plan.per_row):
@@ -197,19 +207,49 @@ def by_cutoff(design, **fit_options) -> CutoffEffects:
         decomposition = decompose(design, pooled, rows)
         warnings += decomposition.warnings
     else:
-        assumption = ("Adjacent cumulative cutoffs share the observations between them; the test treats the "
-                      "estimates as independent.")
-        for left, right, gap in zip(rows, rows[1:], np.diff(plan.cutoffs)):
-            if left.fitted and right.fitted:
-                reach = left.fit.pilot_bandwidth[1] + right.fit.pilot_bandwidth[0]
-                if reach > gap:
-                    warnings.append(f"The robust windows of cutoffs {left.label:g} and {right.label:g} overlap "
-                                    f"(reach {reach:.4g} > gap {gap:.4g}): the two estimates share observations "
-                                    "and are correlated; read the test of equal effects with care.")
-    equality = equality_test(rows, assumption)
+        covariance = cumulative_covariance(design, rows, fit_options)
+        if covariance is not None:
+            assumption = ("Adjacent cumulative cutoffs share the observations between them; the test uses the "
+                          "estimated covariance of adjacent estimates (stacked sandwich).")
+        else:
+            assumption = ("Adjacent cumulative cutoffs share the observations between them; the test treats the "
+                          "estimates as independent.")
+            warnings += overlap_warnings(rows, plan.cutoffs)
+    equality = equality_test(rows, assumption, covariance)
     return CutoffEffects(rows=rows, equality=equality, outcome=outcome, level=level, warnings=tuple(warnings),
                          layout=plan.layout, score=design._declared["score"], cutoff_column=plan.column,
-                         pooled=pooled, decomposition=decomposition)
+                         pooled=pooled, decomposition=decomposition, covariance=covariance)
+
+
+def cumulative_covariance(design, rows: tuple[EffectRow, ...], fit_options: dict) -> np.ndarray | None:
+    """Covariance of the rows' robust estimates (read-only); None where it is not computed (see
+    seamline.estimate.cumulative_covariance). Rows that were not fitted have NaN entries."""
+    k = len(rows)
+    cov = np.full((k, k), np.nan)
+    for i, r in enumerate(rows):
+        if r.fitted:
+            cov[i, :] = np.where([o.fitted for o in rows], 0.0, np.nan)
+            cov[i, i] = r.robust_std_error ** 2
+    for i in range(k - 1):
+        if rows[i].fitted and rows[i + 1].fitted:
+            c = adjacent_covariance(design.at(rows[i].label), design.at(rows[i + 1].label), fit_options)
+            if c is None:
+                return None
+            cov[i, i + 1] = cov[i + 1, i] = c
+    cov.setflags(write=False)
+    return cov
+
+
+def overlap_warnings(rows: tuple[EffectRow, ...], cutoffs: tuple[float, ...]) -> list[str]:
+    out = []
+    for left, right, gap in zip(rows, rows[1:], np.diff(cutoffs)):
+        if left.fitted and right.fitted:
+            reach = left.fit.pilot_bandwidth[1] + right.fit.pilot_bandwidth[0]
+            if reach > gap:
+                out.append(f"The robust windows of cutoffs {left.label:g} and {right.label:g} overlap "
+                           f"(reach {reach:.4g} > gap {gap:.4g}): the two estimates share observations "
+                           "and are correlated; the test of equal effects ignores that correlation.")
+    return out
 
 
 def shared_clusters(design, labels: np.ndarray) -> bool:

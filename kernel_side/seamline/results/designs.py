@@ -72,8 +72,10 @@ class EqualityTest:
 
     ``statistic`` = sum_k (t_k - t_w)^2 / V_k over the fitted rows' bias-corrected estimates t_k and
     robust variances V_k, t_w = sum(t_k / V_k) / sum(1 / V_k); ``df`` = (number of rows) - 1. The
-    estimates are treated as independent (disjoint samples); ``assumption`` says what that means for
-    this result. When fewer than two rows were fitted, the numbers are NaN and ``reason`` says why.
+    estimates are treated as independent (disjoint samples), except at cumulative cutoffs with an
+    estimated covariance, where the statistic is the Wald test with that covariance and the common
+    effect its generalised-least-squares mean; ``assumption`` says which. When fewer than two rows
+    were fitted, the numbers are NaN and ``reason`` says why.
     """
     statistic: float
     df: int
@@ -185,12 +187,15 @@ class CutoffEffects(EffectsTable):
     weighted average of the rows. ``layout`` "cumulative": one score with increasing cutoffs, each
     row the default fit on the observations strictly between the neighbouring cutoffs (``pooled``
     and ``decomposition`` are None: the effects are increments of different treatment doses).
+    ``covariance`` (cumulative, sharp designs without clusters or covariate adjustment) is the
+    estimated covariance matrix of the rows' robust estimates: adjacent cutoffs share observations.
     """
     layout: str
     score: str
     cutoff_column: str | None = None
     pooled: Fit | None = field(default=None, repr=False)
     decomposition: Decomposition | None = field(default=None, repr=False)
+    covariance: np.ndarray | None = field(default=None, repr=False)
 
     label_column = "cutoff"
 
