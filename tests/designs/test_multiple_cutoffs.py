@@ -169,11 +169,25 @@ def test_a_cutoff_with_too_few_units_is_reported_and_the_others_are_shown(frame)
     assert any("renormalised" in w for w in result.warnings)
 
 
-def test_clusters_shared_across_cutoffs_are_flagged(frame):
+def test_clusters_shared_across_cutoffs_enter_the_covariance(frame):
     design = seamline.Design(frame, score="points", cutoff="threshold", outcome="y", cluster="district")
     result = design.by_cutoff()
-    assert "ignores the resulting correlation" in result.equality.assumption
-    assert any("clusters hold units with different cutoffs" in w for w in result.warnings)
+    assert "stacked cluster-robust covariance" in result.equality.assumption
+    cov = result.covariance
+    table = result.table()
+    np.testing.assert_allclose(np.diag(cov), table.robust_std_error ** 2, rtol=1e-10)
+    np.testing.assert_array_equal(cov, cov.T)
+    t = table.robust_estimate.to_numpy()
+    r = np.array([[1.0, -1.0, 0.0], [0.0, 1.0, -1.0]])
+    # Reference: Wald test with the full covariance, chi-square with K - 1 df (common practice)
+    w = (r @ t) @ np.linalg.solve(r @ cov @ r.T, r @ t)
+    assert result.equality.statistic == pytest.approx(w, rel=1e-10)
+    draws = np.random.default_rng(0).random(len(frame))
+    fuzzy = frame.assign(took=((frame.points >= frame.threshold) & (draws < 0.85)).astype(float))
+    fuzzy_result = seamline.Design(fuzzy, score="points", cutoff="threshold", outcome="y", takeup="took",
+                                   cluster="district").by_cutoff()
+    assert "ignores the resulting correlation" in fuzzy_result.equality.assumption
+    assert any("clusters hold units with different cutoffs" in w for w in fuzzy_result.warnings)
 
 
 def test_the_users_frame_is_not_modified(frame):

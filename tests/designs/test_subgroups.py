@@ -88,12 +88,57 @@ def test_a_small_group_is_reported_and_the_others_are_still_shown(frame):
     assert any(w.startswith("group west: too few units") for w in result.warnings)
 
 
-def test_groups_sharing_clusters_say_the_test_assumes_independence(frame):
-    shared = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="household").by_group("region")
-    assert "assumes independence" in shared.equality.assumption
-    assert any("members of several groups" in w for w in shared.warnings)
+def local_quadratic_scores(d: np.ndarray, y: np.ndarray, clusters: np.ndarray, h: float, sign: float):
+    """Contributions a_i e_i of one side of a local quadratic fit at h (triangular kernel), by cluster.
+
+    Reference: at h = b the robust bias-corrected local linear estimate is the local quadratic
+    estimate (Calonico, Cattaneo & Titiunik 2014; common practice); weights e_0'(X'KX)^{-1}X'K and
+    residuals from statsmodels WLS(y, X, weights=K), summed by cluster as in the cluster-robust sandwich.
+    """
+    k = np.clip(1 - d / h, 0, None)
+    inside = k > 0
+    d, y, k, clusters = d[inside], y[inside], k[inside], clusters[inside]
+    x = np.column_stack([np.ones_like(d), d / h, (d / h) ** 2])
+    a = np.linalg.solve(x.T @ (k[:, None] * x), (k[:, None] * x).T)[0]
+    e = sm.WLS(y, x, weights=k).fit().resid
+    return pd.Series(sign * a * e).groupby(clusters).sum(), len(d)
+
+
+def test_groups_sharing_clusters_get_their_stacked_cluster_covariance(frame):
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="household")
+    result = design.by_group("region", bandwidth=0.5, pilot_bandwidth=0.5)
+    assert "stacked cluster-robust covariance" in result.equality.assumption
+    scores, factors = [], []
+    for g in ("east", "north", "west"):
+        own = frame[frame.region == g]
+        x, y, c = own.x.to_numpy(), own.y.to_numpy(), own.household.to_numpy()
+        below, n_below = local_quadratic_scores(-x[x < 0], y[x < 0], c[x < 0], 0.5, -1.0)
+        above, n_above = local_quadratic_scores(x[x >= 0], y[x >= 0], c[x >= 0], 0.5, 1.0)
+        u = below.add(above, fill_value=0.0)
+        n, k, m = n_below + n_above, 6, len(u)
+        scores.append(u)
+        factors.append(m / (m - 1) * (n - 1) / (n - k))   # the usual cluster small-sample factor (common practice)
+    want = np.array([[np.sqrt(fi * fj) * float(ui.mul(uj, fill_value=0.0).sum()) for uj, fj in zip(scores, factors)]
+                     for ui, fi in zip(scores, factors)])
+    np.testing.assert_allclose(result.covariance, want, rtol=1e-8)
+    np.testing.assert_allclose(np.diag(result.covariance), result.table().robust_std_error ** 2, rtol=1e-10)
+    t = result.table().robust_estimate.to_numpy()
+    r = np.array([[1.0, -1.0, 0.0], [0.0, 1.0, -1.0]])
+    # Reference: Wald test of equal effects with the full covariance, chi-square with G - 1 df (common practice)
+    w = (r @ t) @ np.linalg.solve(r @ want @ r.T, r @ t)
+    assert result.equality.statistic == pytest.approx(w, rel=1e-8)
+    assert result.equality_p_value == pytest.approx(stats.chi2.sf(w, 2), rel=1e-8)
     apart = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="own_cluster").by_group("region")
-    assert "disjoint samples" in apart.equality.assumption
+    assert "disjoint samples" in apart.equality.assumption and apart.covariance is None
+
+
+def test_fuzzy_groups_sharing_clusters_say_the_test_assumes_independence(frame):
+    rng = np.random.default_rng(1)
+    fuzzy = frame.assign(took=((frame.x >= 0) & (rng.random(len(frame)) < 0.8)).astype(float))
+    result = seamline.Design(fuzzy, score="x", cutoff=0.0, outcome="y", takeup="took",
+                             cluster="household").by_group("region")
+    assert "assumes independence" in result.equality.assumption and result.covariance is None
+    assert any("members of several groups" in w for w in result.warnings)
 
 
 def test_groups_of_a_multiple_cutoff_design_are_pooled_fits_within_the_group():

@@ -21,10 +21,12 @@ from ..data import numeric_column
 from ..errors import (CutoffChoiceError, CutoffOrderError, InvalidOptionError, SeamlineError, SingleCutoffError,
                       TooFewUnitsError)
 from ..results.designs import CutoffEffects, Decomposition, EffectRow, EqualityTest
-from .cumulative_covariance import adjacent_covariance
+from .stacked_covariance import adjacent_covariance, cluster_covariance
 
 MIN_UNITS_PER_SIDE = 20     # convention: observations needed on each side before a row is fitted
 INDEPENDENT = ("The cutoff groups are disjoint samples, so their estimates are treated as independent.")
+SHARED_CLUSTERS_ACCOUNTED = ("Some clusters hold units of several rows, so the estimates are correlated; the test "
+                             "uses their stacked cluster-robust covariance.")
 
 
 @dataclass(frozen=True, eq=False)
@@ -199,9 +201,14 @@ def by_cutoff(design, **fit_options) -> CutoffEffects:
     if plan.layout == "column":
         assumption = INDEPENDENT
         if design.cluster is not None and shared_clusters(design, plan.per_row):
-            assumption = ("Some clusters hold units with different cutoffs; the test ignores the resulting "
-                          "correlation (conservative when it is positive).")
-            warnings.append(assumption)
+            covariance = clustered_covariance(rows, [design.at(c) if r.fitted else None
+                                                     for c, r in zip(plan.cutoffs, rows)], fit_options)
+            if covariance is None:
+                assumption = ("Some clusters hold units with different cutoffs; the test ignores the resulting "
+                              "correlation (conservative when it is positive).")
+                warnings.append(assumption)
+            else:
+                assumption = SHARED_CLUSTERS_ACCOUNTED
         pooled = design.fit(**fit_options)
         outcome = pooled.outcome
         decomposition = decompose(design, pooled, rows)
@@ -218,12 +225,12 @@ def by_cutoff(design, **fit_options) -> CutoffEffects:
     equality = equality_test(rows, assumption, covariance)
     return CutoffEffects(rows=rows, equality=equality, outcome=outcome, level=level, warnings=tuple(warnings),
                          layout=plan.layout, score=design._declared["score"], cutoff_column=plan.column,
-                         pooled=pooled, decomposition=decomposition, covariance=covariance)
+                         covariance=covariance, pooled=pooled, decomposition=decomposition)
 
 
 def cumulative_covariance(design, rows: tuple[EffectRow, ...], fit_options: dict) -> np.ndarray | None:
     """Covariance of the rows' robust estimates (read-only); None where it is not computed (see
-    seamline.estimate.cumulative_covariance). Rows that were not fitted have NaN entries."""
+    seamline.estimate.stacked_covariance). Rows that were not fitted have NaN entries."""
     k = len(rows)
     cov = np.full((k, k), np.nan)
     for i, r in enumerate(rows):
@@ -238,6 +245,18 @@ def cumulative_covariance(design, rows: tuple[EffectRow, ...], fit_options: dict
             cov[i, i + 1] = cov[i + 1, i] = c
     cov.setflags(write=False)
     return cov
+
+
+def clustered_covariance(rows: tuple[EffectRow, ...], designs: list, fit_options: dict) -> np.ndarray | None:
+    """Stacked cluster-robust covariance of the fitted rows (NaN for the others), or None."""
+    use = [i for i, r in enumerate(rows) if r.fitted]
+    cov = cluster_covariance([designs[i] for i in use], fit_options) if len(use) > 1 else None
+    if cov is None:
+        return None
+    full = np.full((len(rows), len(rows)), np.nan)
+    full[np.ix_(use, use)] = cov
+    full.setflags(write=False)
+    return full
 
 
 def overlap_warnings(rows: tuple[EffectRow, ...], cutoffs: tuple[float, ...]) -> list[str]:

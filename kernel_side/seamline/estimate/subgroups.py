@@ -7,7 +7,8 @@ import pandas as pd
 
 from ..errors import ColumnNotFoundError, CutoffChoiceError, InvalidOptionError
 from ..results.designs import GroupEffects
-from .multiple_cutoffs import shared_clusters, equality_test, fit_row, row_warnings
+from .multiple_cutoffs import (SHARED_CLUSTERS_ACCOUNTED, clustered_covariance, equality_test, fit_row, row_warnings,
+                               shared_clusters)
 
 MAX_GROUPS = 50     # convention: more distinct values than this is a continuous column, not groups
 INDEPENDENT = "The groups are disjoint samples, so their estimates are treated as independent."
@@ -38,16 +39,28 @@ def by_group(design, column: str, **fit_options) -> GroupEffects:
     except TypeError:       # mixed types: keep the order of first appearance
         groups = list(groups)
     values = labels.to_numpy()
-    rows = tuple(fit_row(g, lambda g=g: design._subset(values == g, design._declared["cutoff"]), fit_options)
-                 for g in groups)
+
+    def group_design(g):
+        key = ("group", column, g)
+        if key not in design._subsets:
+            design._subsets[key] = design._subset(values == g, design._declared["cutoff"])
+        return design._subsets[key]
+
+    rows = tuple(fit_row(g, lambda g=g: group_design(g), fit_options) for g in groups)
     warnings = row_warnings(rows, "group")
     missing = int(labels.isna().sum())
     if missing:
         warnings.append(f"{missing} rows with a missing {column!r} are left out of every group.")
-    assumption = INDEPENDENT
+    assumption, covariance = INDEPENDENT, None
     if design.cluster is not None and shared_clusters(design, labels.to_numpy(dtype=object)):
-        assumption = SHARED
-        warnings.append(SHARED)
+        covariance = clustered_covariance(rows, [group_design(g) if r.fitted else None
+                                                 for g, r in zip(groups, rows)], fit_options)
+        if covariance is None:
+            assumption = SHARED
+            warnings.append(SHARED)
+        else:
+            assumption = SHARED_CLUSTERS_ACCOUNTED
     outcome = next((r.fit.outcome for r in rows if r.fitted), design._outcome(fit_options.get("outcome")))
-    return GroupEffects(rows=rows, equality=equality_test(rows, assumption), outcome=outcome,
-                        level=fit_options.get("level", 0.95), warnings=tuple(warnings), column=column)
+    return GroupEffects(rows=rows, equality=equality_test(rows, assumption, covariance), outcome=outcome,
+                        level=fit_options.get("level", 0.95), warnings=tuple(warnings), covariance=covariance,
+                        column=column)

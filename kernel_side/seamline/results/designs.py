@@ -154,12 +154,18 @@ class Decomposition(Reported):
 
 @dataclass(frozen=True, eq=False)
 class EffectsTable(Reported):
-    """Shared shape of cutoff-specific and subgroup results: rows, a test of equal effects, warnings."""
+    """Shared shape of cutoff-specific and subgroup results: rows, a test of equal effects, warnings.
+
+    ``covariance`` is the estimated covariance matrix of the rows' robust estimates (read-only; NaN
+    for rows not fitted) when the estimates are correlated and it was computed (see
+    seamline.estimate.stacked_covariance); None when the rows are treated as independent.
+    """
     rows: tuple[EffectRow, ...]
     equality: EqualityTest
     outcome: str
     level: float
     warnings: tuple[str, ...]
+    covariance: np.ndarray | None = field(default=None, repr=False)
 
     label_column = "label"
 
@@ -187,15 +193,14 @@ class CutoffEffects(EffectsTable):
     weighted average of the rows. ``layout`` "cumulative": one score with increasing cutoffs, each
     row the default fit on the observations strictly between the neighbouring cutoffs (``pooled``
     and ``decomposition`` are None: the effects are increments of different treatment doses).
-    ``covariance`` (cumulative, sharp designs without clusters or covariate adjustment) is the
-    estimated covariance matrix of the rows' robust estimates: adjacent cutoffs share observations.
+    ``covariance`` holds the estimated covariance matrix of the rows' robust estimates where they
+    are correlated (adjacent cumulative cutoffs share observations; cutoff groups can share clusters).
     """
     layout: str
     score: str
     cutoff_column: str | None = None
     pooled: Fit | None = field(default=None, repr=False)
     decomposition: Decomposition | None = field(default=None, repr=False)
-    covariance: np.ndarray | None = field(default=None, repr=False)
 
     label_column = "cutoff"
 
