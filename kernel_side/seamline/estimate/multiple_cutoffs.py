@@ -15,18 +15,15 @@ from numbers import Real
 import numpy as np
 import pandas as pd
 
-from ..core.heterogeneity import equal_effects_test, wald_equal_effects
 from ..core.kernels import kernel_weights
 from ..data import numeric_column
-from ..errors import (CutoffChoiceError, CutoffOrderError, InvalidOptionError, SeamlineError, SingleCutoffError,
-                      TooFewUnitsError)
-from ..results.designs import CutoffEffects, Decomposition, EffectRow, EqualityTest
-from .stacked_covariance import adjacent_covariance, cluster_covariance
+from ..errors import CutoffChoiceError, CutoffOrderError, InvalidOptionError, SingleCutoffError, TooFewUnitsError
+from ..results.designs import CutoffEffects, Decomposition, EffectRow
+from .effect_rows import (MIN_UNITS_PER_SIDE, SHARED_CLUSTERS_ACCOUNTED, clustered_covariance, equality_test,
+                          fit_row, row_warnings, shared_clusters)
+from .stacked_covariance import adjacent_covariance
 
-MIN_UNITS_PER_SIDE = 20     # convention: observations needed on each side before a row is fitted
 INDEPENDENT = ("The cutoff groups are disjoint samples, so their estimates are treated as independent.")
-SHARED_CLUSTERS_ACCOUNTED = ("Some clusters hold units of several rows, so the estimates are correlated; the test "
-                             "uses their stacked cluster-robust covariance.")
 
 
 @dataclass(frozen=True, eq=False)
@@ -134,59 +131,6 @@ def rows_of(design, cutoff: float) -> np.ndarray:
     return (x > below) & (x < above)
 
 
-def units_per_side(design, outcome: str | None) -> tuple[int, int]:
-    """Usable observations (score and outcome present) on each side of a single-cutoff design."""
-    x = design._data.arrays[design.score]
-    ok = ~np.isnan(x)
-    name = outcome or design.outcomes[0]
-    if name in design._data.arrays:
-        ok &= ~np.isnan(design._data.arrays[name])
-    return int(np.sum(ok & (x < design.cutoff))), int(np.sum(ok & (x >= design.cutoff)))
-
-
-def fit_row(label, make_design, fit_options: dict) -> EffectRow:
-    """The default fit of one cutoff's or group's design, or a not-fitted row saying why."""
-    try:
-        sub = make_design()
-    except SeamlineError as exc:
-        return EffectRow.not_fitted(label, (0, 0), str(exc))
-    units = units_per_side(sub, fit_options.get("outcome"))
-    if min(units) < MIN_UNITS_PER_SIDE:
-        return EffectRow.not_fitted(label, units, f"too few units on one side ({units[0]} below, {units[1]} above; "
-                                                  f"at least {MIN_UNITS_PER_SIDE} each are needed): not fitted. "
-                                                  "Merge it with a neighbouring cutoff or group, or collect more data.")
-    try:
-        return EffectRow.from_fit(label, sub.fit(**fit_options))
-    except SeamlineError as exc:
-        return EffectRow.not_fitted(label, units, f"not fitted: {exc}")
-
-
-def usable_rows(rows: tuple[EffectRow, ...]) -> list[int]:
-    return [i for i, r in enumerate(rows) if r.fitted and np.isfinite(r.robust_estimate) and r.robust_std_error > 0]
-
-
-def equality_test(rows: tuple[EffectRow, ...], assumption: str, covariance: np.ndarray | None = None) -> EqualityTest:
-    """Chi-square test of equal effects over the fitted rows (with their covariance when given)."""
-    use = usable_rows(rows)
-    usable = [rows[i] for i in use]
-    if len(usable) < 2:
-        nan = float("nan")
-        return EqualityTest(nan, max(len(usable) - 1, 0), nan, nan, nan, tuple(r.label for r in usable), assumption,
-                            reason=f"{len(usable)} row(s) fitted; at least two are needed")
-    estimates = np.array([r.robust_estimate for r in usable])
-    if covariance is None:
-        res = equal_effects_test(estimates, np.array([r.robust_std_error for r in usable]))
-    else:
-        res = wald_equal_effects(estimates, covariance[np.ix_(use, use)])
-    return EqualityTest(res.statistic, res.df, res.p_value, res.common_estimate, res.common_std_error,
-                        tuple(r.label for r in usable), assumption)
-
-
-def row_warnings(rows: tuple[EffectRow, ...], what: str) -> list[str]:
-    return [f"{what} {r.label if isinstance(r.label, str) else format(r.label, 'g')}: {r.note}"
-            for r in rows if r.note]
-
-
 def by_cutoff(design, **fit_options) -> CutoffEffects:
     """Cutoff-specific effects; for a cutoff column also the pooled fit and its decomposition."""
     plan = design._plan
@@ -247,18 +191,6 @@ def cumulative_covariance(design, rows: tuple[EffectRow, ...], fit_options: dict
     return cov
 
 
-def clustered_covariance(rows: tuple[EffectRow, ...], designs: list, fit_options: dict) -> np.ndarray | None:
-    """Stacked cluster-robust covariance of the fitted rows (NaN for the others), or None."""
-    use = [i for i, r in enumerate(rows) if r.fitted]
-    cov = cluster_covariance([designs[i] for i in use], fit_options) if len(use) > 1 else None
-    if cov is None:
-        return None
-    full = np.full((len(rows), len(rows)), np.nan)
-    full[np.ix_(use, use)] = cov
-    full.setflags(write=False)
-    return full
-
-
 def overlap_warnings(rows: tuple[EffectRow, ...], cutoffs: tuple[float, ...]) -> list[str]:
     out = []
     for left, right, gap in zip(rows, rows[1:], np.diff(cutoffs)):
@@ -269,14 +201,6 @@ def overlap_warnings(rows: tuple[EffectRow, ...], cutoffs: tuple[float, ...]) ->
                            f"(reach {reach:.4g} > gap {gap:.4g}): the two estimates share observations "
                            "and are correlated; the test of equal effects ignores that correlation.")
     return out
-
-
-def shared_clusters(design, labels: np.ndarray) -> bool:
-    """Whether some cluster holds rows with different labels (cutoffs or groups)."""
-    codes, _ = pd.factorize(design._frame[design.cluster], use_na_sentinel=True)
-    keep = codes >= 0
-    pairs = pd.DataFrame({"cluster": codes[keep], "label": np.asarray(labels)[keep]}).dropna()
-    return bool((pairs.groupby("cluster")["label"].nunique() > 1).any())
 
 
 def decompose(design, pooled, rows: tuple[EffectRow, ...]) -> Decomposition:

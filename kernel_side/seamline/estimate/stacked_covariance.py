@@ -27,10 +27,11 @@ from .options import FitSpec
 HC_POWER = {"hc0": 0, "hc1": 0, "hc2": 1, "hc3": 2}
 
 
-def _spec(design, fit_options: dict) -> FitSpec:
-    """The resolved specification of ``design.fit(**fit_options)``: the key of that fit in the cache."""
+def _spec(design, fit_options: dict) -> FitSpec | None:
+    """The resolved specification of ``design.fit(**fit_options)``: the key of that fit in the cache
+    (None if the cache no longer holds it; callers then fall back to independence)."""
     fit = design.fit(**{k: v for k, v in fit_options.items() if k != "level"})
-    return next(spec for spec, cached in design._fits.items() if cached is fit)
+    return next((spec for spec, cached in design._fits.items() if cached is fit), None)
 
 
 def _terms(design, spec: FitSpec, which: int):
@@ -58,7 +59,7 @@ def adjacent_covariance(left, right, fit_options: dict) -> float | None:
     if left.cluster is not None or left.takeup is not None:
         return None
     spec_l, spec_r = _spec(left, fit_options), _spec(right, fit_options)
-    if spec_l.adjust:
+    if spec_l is None or spec_r is None or spec_l.adjust:
         return None
     x_l, u_l, f_l = _terms(left, spec_l, 1)      # the left design's treated (above) side
     x_r, u_r, f_r = _terms(right, spec_r, 0)     # the right design's untreated (below) side
@@ -90,7 +91,7 @@ def cluster_covariance(designs: list, fit_options: dict) -> np.ndarray | None:
     if any(d.takeup is not None for d in designs):
         return None
     specs = [_spec(d, fit_options) for d in designs]
-    if any(s.adjust for s in specs):
+    if any(s is None or s.adjust for s in specs):
         return None
     scores = [_cluster_scores(d, s) for d, s in zip(designs, specs)]
     k = len(designs)

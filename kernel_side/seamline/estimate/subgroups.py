@@ -2,13 +2,12 @@
 chi-square test of equal effects across groups (precision weights, G - 1 degrees of freedom)."""
 from __future__ import annotations
 
-import numpy as np
 import pandas as pd
 
 from ..errors import ColumnNotFoundError, CutoffChoiceError, InvalidOptionError
 from ..results.designs import GroupEffects
-from .multiple_cutoffs import (SHARED_CLUSTERS_ACCOUNTED, clustered_covariance, equality_test, fit_row, row_warnings,
-                               shared_clusters)
+from .effect_rows import (SHARED_CLUSTERS_ACCOUNTED, clustered_covariance, equality_test, fit_row, row_warnings,
+                          shared_clusters)
 
 MAX_GROUPS = 50     # convention: more distinct values than this is a continuous column, not groups
 INDEPENDENT = "The groups are disjoint samples, so their estimates are treated as independent."
