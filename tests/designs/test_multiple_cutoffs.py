@@ -339,3 +339,11 @@ def test_windows_that_do_not_overlap_have_zero_covariance(steps):
     table = result.table()
     t, v = table.robust_estimate.to_numpy(), table.robust_std_error.to_numpy() ** 2
     assert result.equality.statistic == pytest.approx((t[0] - t[1]) ** 2 / v.sum(), rel=1e-10)
+
+
+def test_a_donut_keeps_the_covariance_of_adjacent_cutoffs(steps):
+    design = seamline.Design(steps, score="points", cutoff=[30, 60], outcome="y")
+    result = design.by_cutoff(bandwidth=25.0, pilot_bandwidth=28.0, donut=1.0, variance="hc3")
+    cov = result.covariance
+    np.testing.assert_allclose(np.diag(cov), result.table().robust_std_error ** 2, rtol=1e-10)
+    assert cov[0, 1] != 0.0 and abs(cov[0, 1]) < np.sqrt(cov[0, 0] * cov[1, 1])

@@ -63,8 +63,12 @@ def adjacent_covariance(left, right, fit_options: dict) -> float | None:
         return None
     x_l, u_l, f_l = _terms(left, spec_l, 1)      # the left design's treated (above) side
     x_r, u_r, f_r = _terms(right, spec_r, 0)     # the right design's untreated (below) side
-    keep = x_l > left.cutoff                     # the right design starts strictly above c_k
-    x_l, u_l = x_l[keep], u_l[keep]
+    # the shared observations: the range both sides cover (strictly above c_k, outside any donut)
+    lo, hi = max(x_l[0], x_r[0]), min(x_l[-1], x_r[-1])
+    if lo > hi:
+        return 0.0
+    keep_l, keep_r = (x_l >= lo) & (x_l <= hi), (x_r >= lo) & (x_r <= hi)
+    x_l, u_l, x_r, u_r = x_l[keep_l], u_l[keep_l], x_r[keep_r], u_r[keep_r]
     if len(x_l) != len(x_r) or not np.array_equal(x_l, x_r):
         return None
     return float(np.sqrt(f_l * f_r) * np.sum(u_l * u_r))
