@@ -172,3 +172,22 @@ def test_rows_with_a_missing_group_are_left_out_and_counted(frame):
     east = holes[holes.region == "east"]
     # Reference: a direct fit of the group's rows
     assert result.rows[0].estimate == seamline.Design(east, score="x", cutoff=0.0, outcome="y").fit().estimate
+
+
+@pytest.mark.slow
+def test_equality_test_has_about_its_nominal_size_under_equal_effects():
+    """R = 200 samples with equal effects in two groups; the 5% test should reject about 5% of the time.
+
+    Band: 0.05 +- 3 binomial standard errors, 3 sqrt(0.05 * 0.95 / 200) = 0.046 (common practice); a few
+    seconds on one core.
+    """
+    rng = np.random.default_rng(77)
+    reps, rejected = 200, 0
+    for _ in range(reps):
+        x = rng.uniform(-1.0, 1.0, 2000)
+        group = rng.choice(["a", "b"], 2000)
+        y = 0.4 + 0.5 * x - 0.3 * x ** 2 + 0.5 * (x >= 0) + rng.normal(0.0, 0.4, 2000)
+        frame = pd.DataFrame({"x": x, "y": y, "group": group})
+        result = seamline.Design(frame, score="x", cutoff=0.0, outcome="y").by_group("group")
+        rejected += result.equality_p_value < 0.05
+    assert abs(rejected / reps - 0.05) < 3 * np.sqrt(0.05 * 0.95 / reps), rejected / reps
