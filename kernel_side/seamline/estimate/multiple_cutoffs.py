@@ -112,6 +112,8 @@ class CutoffNotChosen:
         self._cutoffs = cutoffs
 
     def __getattr__(self, name):
+        if name.startswith("__"):       # copy, pickle and friends probe optional hooks
+            raise AttributeError(name)
         c = self._cutoffs
         raise CutoffChoiceError(f"`cutoff` must be chosen first on a design with cumulative cutoffs "
                                 f"{[float(v) for v in c]}; got a call that needs one cutoff. Use "
@@ -207,7 +209,7 @@ def decompose(design, pooled, rows: tuple[EffectRow, ...]) -> Decomposition:
     """Weights w_k: each cutoff group's share of the pooled fit's kernel weight near the normalised cutoff."""
     data, plan = design._data, design._plan
     x = data.arrays[design.score]
-    ok = ~np.isnan(x) & ~np.isnan(data.arrays[pooled.outcome])
+    ok = ~np.isnan(x) & ~np.isnan(data.arrays[pooled.outcome]) & (np.abs(x) >= pooled.donut)
     if design.takeup and pooled.kind == "fuzzy":
         ok &= ~np.isnan(data.arrays[design.takeup])
     h_below, h_above = pooled.bandwidth
