@@ -112,7 +112,7 @@ class CutoffNotChosen:
         self._cutoffs = cutoffs
 
     def __getattr__(self, name):
-        if name.startswith("__"):       # copy, pickle and friends probe optional hooks
+        if name.startswith("__") or name == "_cutoffs":   # copy and pickle probe hooks before state exists
             raise AttributeError(name)
         c = self._cutoffs
         raise CutoffChoiceError(f"`cutoff` must be chosen first on a design with cumulative cutoffs "
