@@ -230,7 +230,8 @@ def decompose(design, pooled, rows: tuple[EffectRow, ...]) -> Decomposition:
     rse = np.array([r.robust_std_error for r in rows])
     use = fitted & (w > 0)
     return Decomposition(cutoffs=plan.cutoffs, weights=tuple(float(v) for v in w),
-                         estimates=tuple(est), robust_estimates=tuple(rob), robust_std_errors=tuple(rse),
+                         estimates=tuple(map(float, est)), robust_estimates=tuple(map(float, rob)),
+                         robust_std_errors=tuple(map(float, rse)),
                          weighted_estimate=float(np.sum(w[use] * est[use])),
                          weighted_robust_estimate=float(np.sum(w[use] * rob[use])),
                          weighted_robust_std_error=float(np.sqrt(np.sum((w[use] * rse[use]) ** 2))),

@@ -33,10 +33,11 @@ def by_group(design, column: str, **fit_options) -> GroupEffects:
     if len(groups) < 2:
         raise InvalidOptionError(f"`column` must have at least two groups; got {list(groups)!r} in {column!r}. "
                                  "Choose a column that splits the units.")
+    groups = [g.item() if hasattr(g, "item") else g for g in groups]     # plain Python labels
     try:
         groups = sorted(groups)
     except TypeError:       # mixed types: keep the order of first appearance
-        groups = list(groups)
+        pass
     values = labels.to_numpy()
 
     def group_design(g):

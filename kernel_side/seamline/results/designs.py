@@ -53,7 +53,8 @@ class EffectRow:
     @classmethod
     def from_fit(cls, label, fit: Fit) -> "EffectRow":
         lo, hi = fit.robust_conf_int
-        return cls(label, fit.estimate, fit.std_error, fit.bias_corrected_estimate, fit.robust_std_error, lo, hi,
+        return cls(label, fit.estimate, fit.std_error, fit.bias_corrected_estimate, fit.robust_std_error, float(lo),
+                   float(hi),
                    fit.robust_p_value, fit.n_used[0], fit.n_used[1], fit.bandwidth[0], fit.bandwidth[1],
                    fit.n_total[0], fit.n_total[1], "", fit)
 
@@ -182,8 +183,15 @@ class EffectsTable(Reported):
     def fits(self) -> tuple[Fit | None, ...]:
         return tuple(r.fit for r in self.rows)
 
+    def __repr__(self) -> str:
+        fitted = sum(r.fitted for r in self.rows)
+        test = (f"equal effects p = {self.equality.p_value:.3g}" if self.equality.applies
+                else "equal effects: not computed")
+        return (f"<{type(self).__name__} {self.outcome}: {len(self.rows)} rows ({fitted} fitted); {test}; "
+                f"{len(self.warnings)} warnings>")
 
-@dataclass(frozen=True, eq=False, kw_only=True)
+
+@dataclass(frozen=True, eq=False, kw_only=True, repr=False)
 class CutoffEffects(EffectsTable):
     """Cutoff-specific effects of a design with several cutoffs.
 
@@ -222,7 +230,7 @@ class CutoffEffects(EffectsTable):
         return notes
 
 
-@dataclass(frozen=True, eq=False, kw_only=True)
+@dataclass(frozen=True, eq=False, kw_only=True, repr=False)
 class GroupEffects(EffectsTable):
     """Subgroup effects: one default fit per value of ``column`` on that group's rows."""
     column: str

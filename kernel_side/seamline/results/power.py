@@ -80,6 +80,10 @@ class Power(PowerPlan):
     def title(self) -> str:
         return f"Power against an effect of {self.effect:g} on {self.outcome} (n = {self.n_total})"
 
+    def __repr__(self) -> str:
+        return (f"<Power {self.power:.3f} against {self.effect:g} at n = {self.n_total} (size {1 - self.level:.3g}, "
+                f"se {self.std_error:.3g}, {self.scaling})>")
+
 
 @dataclass(frozen=True, eq=False, kw_only=True)
 class PowerCurve(PowerPlan):
@@ -94,6 +98,9 @@ class PowerCurve(PowerPlan):
 
     def title(self) -> str:
         return f"Power curve for {self.outcome} (n = {self.n_total}, size {1 - self.level:.3g})"
+
+    def __repr__(self) -> str:
+        return f"<PowerCurve {len(self.effects)} effects at n = {self.n_total} ({self.scaling})>"
 
 
 @dataclass(frozen=True, eq=False, kw_only=True)
@@ -121,3 +128,7 @@ class SampleSize(PowerPlan):
     def title(self) -> str:
         return (f"Sample size for {self.target_power:.0%} power against an effect of {self.effect:g} "
                 f"on {self.outcome}")
+
+    def __repr__(self) -> str:
+        return (f"<SampleSize n_total = {self.n_total} (window {self.n_window[0]} below, {self.n_window[1]} above) "
+                f"for {self.target_power:.0%} power against {self.effect:g} ({self.scaling})>")
