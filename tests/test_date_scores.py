@@ -139,7 +139,8 @@ def test_a_date_cutoff_for_a_numeric_score_is_refused():
         seamline.Design(df, score="distance", cutoff=CUTOFF, outcome="y")
     with pytest.raises(CutoffTypeError, match="got the date '2024-07-01'.*declare a date column"):
         seamline.Design(df, score="distance", cutoff="2024-07-01", outcome="y")
-    with pytest.raises(InvalidOptionError, match="`cutoff` must be a number; got 'forty'"):
+    # Any other text is read as the name of a column of per-unit cutoffs.
+    with pytest.raises(seamline.errors.ColumnNotFoundError, match="`cutoff` column 'forty' is not in the data"):
         seamline.Design(df, score="distance", cutoff="forty", outcome="y")
 
 
@@ -168,7 +169,7 @@ def test_a_score_mixing_dates_and_other_values_is_refused():
 def test_units_are_checked():
     with pytest.raises(InvalidOptionError, match='`score_unit` must be one of "days", "hours"'):
         seamline.Design(visits(), score="visit_date", cutoff="2024-07-01", outcome="y", score_unit="fortnights")
-    with pytest.raises(InvalidOptionError, match="`score_unit` applies to date or time scores only"):
+    with pytest.raises(InvalidOptionError, match="`score_unit` applies to date or time scores"):
         seamline.Design(distance_frame(visits()), score="distance", cutoff=0.0, outcome="y", score_unit="days")
 
 

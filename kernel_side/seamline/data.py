@@ -61,6 +61,29 @@ def as_frame(data, columns: list[str] | None = None) -> pd.DataFrame:
                     "Convert it with pandas.DataFrame(...) first.")
 
 
+def check_columns(data, roles: dict[str, str]) -> None:
+    """For a lazy or columnar input, check column names against its schema before reading anything.
+
+    ``roles`` maps each needed column to its role in the design (for the message). pandas frames are
+    checked later, column by column, where their values are read.
+    """
+    names = _column_names(data)
+    if names is None:
+        return
+    dups = sorted({n for n in names if names.count(n) > 1})
+    if dups:
+        raise DuplicateColumnError(f"column names must be unique; got duplicates {dups!r}. "
+                                   "Rename or drop the duplicated columns before declaring the design.")
+    for name, role in roles.items():
+        if name not in names:
+            raise _missing_column(names, name, role)
+
+
+def column_names(data) -> list[str] | None:
+    """The column names of a lazy or columnar input from its schema (None for other inputs)."""
+    return _column_names(data)
+
+
 def _missing_column(names, name: str, role: str) -> ColumnNotFoundError:
     close = difflib.get_close_matches(str(name), [str(c) for c in names], n=3)
     hint = f" Did you mean {', '.join(repr(c) for c in close)}?" if close else \
@@ -132,15 +155,7 @@ class DesignData:
         roles = {score: "score", **{o: "outcome" for o in outcomes}, **({takeup: "takeup"} if takeup else {}),
                  **{c: "covariates" for c in covariates}, **({cluster: "cluster"} if cluster else {}),
                  **({weights: "weights"} if weights else {})}
-        names = _column_names(data)
-        if names is not None:        # lazy or columnar input: check names before reading anything
-            dups = sorted({n for n in names if names.count(n) > 1})
-            if dups:
-                raise DuplicateColumnError(f"column names must be unique; got duplicates {dups!r}. "
-                                           "Rename or drop the duplicated columns before declaring the design.")
-            for name, role in roles.items():
-                if name not in names:
-                    raise _missing_column(names, name, role)
+        check_columns(data, roles)
         frame = as_frame(data, list(roles))
         dups = frame.columns[frame.columns.duplicated()].unique().tolist()
         if dups:

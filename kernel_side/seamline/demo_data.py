@@ -22,7 +22,7 @@ Examples
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from types import MappingProxyType
 from typing import Any, Literal
 
@@ -55,8 +55,9 @@ class Scenario:
         The invented observations (a new frame on every call of a generator).
     score : str
         Column holding the running variable.
-    cutoff : float
-        Where treatment assignment changes.
+    cutoff : float, str or tuple of float
+        Where treatment assignment changes: a number, the name of a column holding each unit's own
+        cutoff, or increasing cumulative cutoffs on one score (see ``seamline.demo_cutoffs``).
     treated : {"above", "below"}
         The side of the cutoff assigned to treatment ("above" includes the cutoff itself).
     outcome : tuple of str
@@ -77,11 +78,14 @@ class Scenario:
         The true effect for every outcome column, keyed by column name.
     description : str
         A plain-language account of the invented story, its seed and what is true by construction.
+    cutoff_effects : Mapping[float, float]
+        For scenarios with several cutoffs, the true jump of the primary outcome at each cutoff;
+        empty otherwise.
     """
 
     data: pd.DataFrame
     score: str
-    cutoff: float
+    cutoff: float | str | tuple[float, ...]
     treated: Literal["above", "below"]
     outcome: tuple[str, ...]
     takeup: str | None
@@ -91,6 +95,7 @@ class Scenario:
     true_effect: float
     true_effects: Mapping[str, float]
     description: str
+    cutoff_effects: Mapping[float, float] = field(default_factory=lambda: MappingProxyType({}))
 
     def design_kwargs(self) -> dict[str, Any]:
         """Return the keyword arguments for ``seamline.Design`` (everything but the data).

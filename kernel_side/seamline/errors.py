@@ -76,3 +76,21 @@ class DesignSpecError(SeamlineError):
 class CutoffTypeError(SeamlineError, TypeError):
     """The cutoff's type does not fit the score: a date for a numeric score, a number for a date score,
     or a time-zone mismatch between a date score and its cutoff."""
+class SingleCutoffError(SeamlineError):
+    """A multiple-cutoff request on a design with only one cutoff (or a cutoff column with one value)."""
+
+
+class CutoffOrderError(SeamlineError):
+    """Cumulative cutoffs on one score are not strictly increasing numbers."""
+
+
+class TooFewUnitsError(SeamlineError):
+    """Too few observations between two cumulative cutoffs (or beyond the outer ones)."""
+
+
+class CutoffChoiceError(SeamlineError):
+    """A call that needs one cutoff was made on a design with cumulative cutoffs; pick one first."""
+
+
+class InvalidEffectError(SeamlineError):
+    """An effect size for power or sample-size calculations is zero, missing or not a number."""

@@ -19,6 +19,7 @@ BinMethod = Literal["equal-width", "equal-count"]
 BinRule = Literal["imse", "mimic-variance"]
 ScoreUnit = Literal["days", "hours", "weeks", "months", "years"]
 ClusterVariance = Literal["bias-reduced", "classic"]
+PowerScaling = Literal["reselected-bandwidth", "fixed-bandwidth"]
 
 KERNELS: tuple[str, ...] = get_args(Kernel)
 BANDWIDTH_RULES: tuple[str, ...] = get_args(BandwidthRule)
@@ -29,6 +30,7 @@ BIN_METHODS: tuple[str, ...] = get_args(BinMethod)
 BIN_RULES: tuple[str, ...] = get_args(BinRule)
 SCORE_UNITS: tuple[str, ...] = get_args(ScoreUnit)
 CLUSTER_VARIANCES: tuple[str, ...] = get_args(ClusterVariance)
+POWER_SCALINGS: tuple[str, ...] = get_args(PowerScaling)
 
 
 def check_option(argument: str, value: object, allowed: tuple[str, ...]) -> str:

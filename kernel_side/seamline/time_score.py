@@ -11,6 +11,7 @@ This module belongs to the data layer: it touches pandas and nothing above it.
 from __future__ import annotations
 
 import datetime as _dt
+import re
 from dataclasses import dataclass
 from typing import Any
 
@@ -41,6 +42,14 @@ TIME_CAUTION = ("The score is time, so three more threats apply (Hausman and Rap
 def is_time_value(value: Any) -> bool:
     """A date, datetime, pandas Timestamp or numpy datetime64 (not a string, not a number)."""
     return isinstance(value, (_dt.date, np.datetime64))   # datetime and Timestamp subclass date
+
+
+_ISO_DATE = re.compile(r"^\s*\d{4}-\d{1,2}-\d{1,2}")
+
+
+def looks_like_date(value: Any) -> bool:
+    """A string that starts like an ISO date ("2024-07-01", "2024-07-01 08:00")."""
+    return isinstance(value, str) and bool(_ISO_DATE.match(value))
 
 
 def is_time_column(column: pd.Series) -> bool:
@@ -179,13 +188,7 @@ def reject_time_cutoff(cutoff: Any, score: str, unit: str | None) -> float:
         return float(cutoff)
     except (TypeError, ValueError):
         pass
-    looks_like_date = isinstance(cutoff, str)
-    if looks_like_date:
-        try:
-            pd.Timestamp(cutoff)
-        except ValueError:
-            looks_like_date = False
-    if looks_like_date:
+    if looks_like_date(cutoff):
         raise CutoffTypeError(f"`cutoff` must be a number for the numeric score {score!r}; got the date "
                               f"{cutoff!r}. Give the cutoff in the score's units, or declare a date column as "
                               "the score (convert text dates with pandas.to_datetime).")

@@ -11,12 +11,13 @@ import pandas as pd
 from ..core.bandwidth import Selection, coverage_factor, ik_bandwidth, mse_selection
 from ..core.kernels import normal_reference_constant
 from ..core.locpoly import SideFit, variance_fast, window_arrays
-from ..data import DesignData, Prepared
+from ..data import DesignData, Prepared, as_frame, check_columns, column_names
 from ..errors import CutoffTypeError, InvalidOptionError
 from ..options import SIDES, check_option
 from ..time_score import TIME_CAUTION, is_time_value
 from ..results.fit import Fit
 from .engine import JumpEngine, check_support, use_fast_variance
+from .multiple_cutoffs import CutoffNotChosen, plan_cutoffs
 from .options import FitSpec, resolve
 
 FEW_OBSERVATIONS = 20   # common practice: flag windows with fewer effective observations per side
@@ -69,7 +70,10 @@ class Design:
     ----------
     data : pandas.DataFrame (or an Arrow/polars table). Never modified.
     score : name of the running variable.
-    cutoff : the threshold; observations with score >= cutoff are "above".
+    cutoff : the threshold; observations with score >= cutoff are "above". Also: the name of a column
+        holding each unit's own cutoff (the design is then the pooled design on the normalised score
+        ``score - cutoff``, cutoff 0; see ``by_cutoff``), or a list of increasing numbers, cumulative
+        cutoffs on one score (pick one with ``at(cutoff)``; ``by_cutoff`` fits them all).
     outcome : an outcome column or a list of them (``fit`` uses the first unless told otherwise).
     treated : "above" or "below", the side assigned the treatment.
     takeup : optional column of treatment actually received (0/1 or a probability) -> fuzzy design.
@@ -95,12 +99,36 @@ class Design:
         self.covariates = _as_names(covariates, "covariates")
         self.cluster = cluster
         self.weights = weights
-        self._data = DesignData(data, score=score, cutoff=cutoff, outcomes=self.outcomes, takeup=takeup,
-                                covariates=self.covariates, cluster=cluster, weights=weights,
-                                score_unit=score_unit)
-        # A date score is measured as the distance from the cutoff date: the numeric cutoff is 0.
-        self.cutoff = self._data.cutoff
-        self.time_scale = self._data.time_scale
+        # Only the declared columns are read (a lazy frame computes nothing else); a pandas frame is
+        # used as it is. Several cutoffs (a column, or cumulative numbers) are read in
+        # seamline.estimate.multiple_cutoffs; a date score takes one cutoff date (seamline.time_score).
+        self._source = data
+        columns = (*self.outcomes, *(c for c in (takeup, cluster, weights) if c), *self.covariates)
+        names = column_names(data)
+        cutoff_column = (cutoff,) if isinstance(cutoff, str) and (names is None or cutoff in names) else ()
+        check_columns(data, {score: "score", **dict.fromkeys(cutoff_column, "cutoff"),
+                             **{o: "outcome" for o in self.outcomes}, **({takeup: "takeup"} if takeup else {}),
+                             **{c: "covariates" for c in self.covariates}, **({cluster: "cluster"} if cluster else {}),
+                             **({weights: "weights"} if weights else {})})
+        self._frame = as_frame(data, [score, *cutoff_column, *columns])
+        self._declared = dict(score=score, cutoff=cutoff, outcome=self.outcomes, treated=self.treated,
+                              takeup=takeup, covariates=self.covariates, cluster=cluster, weights=weights,
+                              score_unit=score_unit)
+        self._plan = plan = plan_cutoffs(self._frame, score, cutoff, columns, score_unit)
+        self.cutoff_layout, self.cutoffs, self.cutoff_column = plan.layout, plan.cutoffs, plan.column
+        self.score = plan.score          # a cutoff column: score - cutoff, at 0
+        self._subsets: dict = {}
+        self.time_scale = None
+        if plan.layout == "cumulative":
+            self._data = CutoffNotChosen(plan.cutoffs)
+            self.cutoff = None
+        else:
+            self._data = DesignData(plan.frame, score=plan.score, cutoff=plan.cutoff, outcomes=self.outcomes,
+                                    takeup=takeup, covariates=self.covariates, cluster=cluster, weights=weights,
+                                    score_unit=score_unit if plan.layout == "single" else None)
+            # A date score is measured as the distance from the cutoff date: the numeric cutoff is 0.
+            self.cutoff = self._data.cutoff
+            self.time_scale = self._data.time_scale
         self._selections: dict[tuple, Selection] = {}
         # Bounded: a slider session makes many specifications, and engines hold window arrays.
         self._fits: Bounded = Bounded(FIT_CACHE)
@@ -118,8 +146,11 @@ class Design:
     def __repr__(self) -> str:
         kind = "fuzzy" if self.takeup else "sharp"
         unit = "" if self.time_scale is None else f" (score in {self.time_scale.unit} from the cutoff)"
-        return (f"<Design {kind}: score {self.score!r} cutoff {self.cutoff_label}{unit} treated {self.treated}, "
-                f"outcomes {list(self.outcomes)}>")
+        where = f"score {self.score!r} cutoff {self.cutoff_label}{unit}" if self.cutoff is not None else \
+            f"score {self.score!r} cumulative cutoffs {list(self.cutoffs)}"
+        if self.cutoff_layout == "column":
+            where += f" (cutoffs {list(self.cutoffs)} from {self.cutoff_column!r})"
+        return f"<Design {kind}: {where} treated {self.treated}, outcomes {list(self.outcomes)}>"
 
     # ---- specification helpers ---------------------------------------------------------------
     def _outcome(self, outcome) -> str:
@@ -459,3 +490,63 @@ class Design:
         discrete score, heaping."""
         from . import diagnostics
         return diagnostics.checks(self, **fit_options)
+
+    # ---- several cutoffs, subgroups, power (seamline.estimate.multiple_cutoffs, subgroups, power) ----
+    def at(self, cutoff: float) -> "Design":
+        """The single-cutoff design at one of several cutoffs.
+
+        A cutoff column: the units with that cutoff. Cumulative cutoffs: the observations strictly
+        between the neighbouring cutoffs. The same declaration (outcomes, take-up, covariates,
+        cluster, weights) applies; the result is cached.
+        """
+        from .multiple_cutoffs import rows_of
+        value = float(cutoff) if isinstance(cutoff, (int, float, np.number)) and not isinstance(cutoff, bool) else None
+        if self.cutoff_layout == "single" or value not in self.cutoffs:
+            raise InvalidOptionError(f"`cutoff` must be one of the design's cutoffs {list(self.cutoffs)}; got "
+                                     f"{cutoff!r}. Pick one of the listed values.")
+        if ("at", value) not in self._subsets:
+            self._subsets[("at", value)] = self._subset(rows_of(self, value), value)
+        return self._subsets[("at", value)]
+
+    def _frame_with(self, column: str) -> pd.DataFrame:
+        """The design's frame with one more of the user's columns (read now from a lazy input)."""
+        if column in self._frame.columns or isinstance(self._source, pd.DataFrame):
+            return self._frame
+        return as_frame(self._source, [*self._frame.columns, column])
+
+    def _subset(self, rows: np.ndarray, cutoff) -> "Design":
+        """The same declaration on some of the user's rows (a new frame), with the given cutoff."""
+        declared = dict(self._declared, cutoff=cutoff)
+        return Design(self._frame[np.asarray(rows, dtype=bool)], **declared)
+
+    def by_cutoff(self, **fit_options):
+        """Cutoff-specific effects, one default fit per cutoff, with a test of equal effects.
+
+        For a cutoff column the result also holds the pooled fit on the normalised score
+        (``pooled``, equal to ``fit()``) and its decomposition as a weighted average of the
+        cutoff-specific effects (``decomposition``). ``fit_options`` are passed to every fit.
+        """
+        from . import multiple_cutoffs
+        return multiple_cutoffs.by_cutoff(self, **fit_options)
+
+    def by_group(self, column: str, **fit_options):
+        """Subgroup effects: the default fit on each group's rows and the chi-square test of equal effects."""
+        from . import subgroups
+        return subgroups.by_group(self, column, **fit_options)
+
+    def power(self, effect, level: float = 0.95, n=None, *, scaling: str = "reselected-bandwidth", **fit_options):
+        """Power of the robust test against ``effect``, with this design as pilot data (at total size ``n``)."""
+        from . import power
+        return power.power(self, effect, level=level, n=n, scaling=scaling, **fit_options)
+
+    def power_curve(self, effects=None, level: float = 0.95, n=None, *, scaling: str = "reselected-bandwidth",
+                    **fit_options):
+        """Power of the robust test over a grid of effects (default: from 0 to about 99% power)."""
+        from . import power
+        return power.power_curve(self, effects, level=level, n=n, scaling=scaling, **fit_options)
+
+    def sample_size(self, effect, power: float = 0.8, level: float = 0.95, *,
+                    scaling: str = "reselected-bandwidth", **fit_options):
+        """Total sample size (and window counts) for the robust test to reach ``power`` against ``effect``."""
+        from . import power as power_module
+        return power_module.sample_size(self, effect, power=power, level=level, scaling=scaling, **fit_options)
