@@ -71,3 +71,19 @@ class InvalidBandwidthError(SeamlineError):
 
 class DesignSpecError(SeamlineError):
     """A design declaration (for example a %%cutoff cell) is malformed."""
+
+
+class InvalidSmoothnessError(SeamlineError):
+    """A smoothness bound (the curvature bound M of a bias-aware interval) is not a positive number."""
+
+
+class NotFuzzyError(SeamlineError):
+    """An inference that needs a first stage (a take-up column with a jump) was asked of a sharp design."""
+
+
+class WindowTooSmallError(SeamlineError):
+    """A local randomization window holds fewer than the minimum number of units on a side."""
+
+
+class NoBalancedWindowError(SeamlineError):
+    """Window selection by covariate balance cannot run (no covariates) or no window passes."""

@@ -369,6 +369,32 @@ class Design:
         return pd.DataFrame(rows, columns=["rule", "bandwidth_below", "bandwidth_above", "pilot_below",
                                            "pilot_above"])
 
+    # ---- inference beyond the robust interval (seamline.estimate.bias_aware, .local_randomization) --
+    def bias_aware(self, outcome=None, *, smoothness=None, bandwidth="optimal", kernel="triangular",
+                   degree=1, level=0.95):
+        """Bias-aware (fixed-length) confidence interval (Armstrong & Kolesar 2018, 2020).
+
+        Parameters
+        ----------
+        outcome : column to analyse (default: the design's first outcome).
+        smoothness : the bound M on curvature (Taylor class: on each side the first-order expansion at
+            the cutoff errs by at most M x^2 / 2), in outcome units per squared score unit. None: the
+            rule of thumb (largest |second derivative| of a global quartic fitted on each side). Fuzzy
+            designs: one number for both columns or a pair (outcome, take-up).
+        bandwidth : "optimal" (minimises the interval's length), a number, or a pair (below, above).
+        kernel, degree : of the local polynomial (degree 1-3); level : confidence level.
+
+        Returns
+        -------
+        BiasAwareInterval
+            With ``estimate``, ``std_error``, ``max_bias``, ``critical_value``, ``conf_int`` and a
+            ``sensitivity`` table over multiples of the bound. Fuzzy designs invert the bias-aware test
+            on outcome - tau0 x take-up (``intervals`` may be unbounded).
+        """
+        from . import bias_aware
+        return bias_aware.bias_aware(self, outcome, smoothness=smoothness, bandwidth=bandwidth,
+                                     kernel=kernel, degree=degree, level=level)
+
     # ---- diagnostics (implemented in seamline.estimate.diagnostics) ------------------------------
     def density_test(self, method: str = "local-cdf", **options):
         """Manipulation test of the score's density at the cutoff.

@@ -1,0 +1,133 @@
+"""Frozen results of the inference a referee may ask for beyond the robust bias-corrected interval:
+bias-aware intervals, weak-instrument-robust confidence sets and local randomization inference."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from functools import cached_property
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from .base import CAUTION, Reported
+
+
+def _fmt_set(intervals: tuple[tuple[float, float], ...]) -> str:
+    def end(v: float) -> str:
+        return "-inf" if v == -np.inf else "+inf" if v == np.inf else f"{v:.4g}"
+    return " U ".join(f"[{end(lo)}, {end(hi)}]" for lo, hi in intervals)
+
+
+def set_shape(intervals: tuple[tuple[float, float], ...]) -> str:
+    """"interval", "two rays", "half-line", "whole line" or "union of intervals"."""
+    if len(intervals) == 1:
+        lo, hi = intervals[0]
+        if np.isfinite(lo) and np.isfinite(hi):
+            return "interval"
+        return "whole line" if not np.isfinite(lo) and not np.isfinite(hi) else "half-line"
+    if len(intervals) == 2 and intervals[0][0] == -np.inf and intervals[1][1] == np.inf:
+        return "two rays"
+    return "union of intervals"
+
+
+SHAPE_WORDS = {
+    "interval": "one bounded interval: the first stage is strong enough to bound the effect.",
+    "two rays": ("two rays that exclude a band of values: the first stage is weak, so very large effects of "
+                 "either sign cannot be ruled out, but values near the excluded band can."),
+    "half-line": "a half-line: the data bound the effect on one side only (a borderline first stage).",
+    "whole line": ("the whole real line: the data cannot rule out any effect, because the jump in take-up is "
+                   "not distinguishable from zero."),
+    "union of intervals": "several disjoint pieces; read each one.",
+}
+
+
+@dataclass(frozen=True, eq=False)
+class BiasAwareInterval(Reported):
+    """Bias-aware (fixed-length) confidence interval (Armstrong & Kolesar 2018, 2020).
+
+    Valid for every regression function whose first-order expansion at the cutoff errs by at most
+    ``smoothness`` x^2 / 2 on each side (the Taylor class), given that bound. ``estimate`` is the
+    conventional local polynomial jump at ``bandwidth``; ``max_bias`` is the worst-case bias of that
+    linear estimator over the class; ``critical_value`` is the ``level`` quantile of
+    |N(max_bias / std_error, 1)|; ``conf_int`` = estimate +- critical_value x std_error.
+
+    Fuzzy designs: the set of tau0 at which the bias-aware test of no jump in outcome - tau0 x take-up
+    does not reject (``intervals``; ``conf_int`` is its hull), with bound ``smoothness`` on the outcome
+    and ``takeup_smoothness`` on take-up. There ``estimate`` is the ratio of jumps, ``std_error`` its
+    delta-method standard error and ``max_bias`` the worst-case bias of the linearised ratio.
+    ``sensitivity`` holds the interval at multiples of the bound (bandwidth re-optimised, and fixed).
+    """
+    outcome: str
+    kind: str
+    estimate: float
+    std_error: float
+    max_bias: float
+    smoothness: float
+    takeup_smoothness: float | None
+    smoothness_rule: str
+    smoothness_class: str
+    critical_value: float
+    intervals: tuple[tuple[float, float], ...]
+    level: float
+    bandwidth: tuple[float, float]
+    bandwidth_rule: str
+    n_used: tuple[int, int]
+    kernel: str
+    degree: int
+    variance: str
+    score: str
+    cutoff: float
+    treated: str
+    warnings: tuple[str, ...] = ()
+    sensitivity_fn: Callable[[], pd.DataFrame] | None = field(default=None, repr=False)
+
+    @cached_property
+    def sensitivity(self) -> pd.DataFrame:
+        """The interval at multiples 0.5 ... 4 of the bound: with the bandwidth re-optimised for each
+        bound (columns without suffix) and with it fixed at this result's bandwidth (``_fixed_bandwidth``).
+        Computed on first access."""
+        return self.sensitivity_fn() if self.sensitivity_fn is not None else pd.DataFrame()
+
+    @property
+    def conf_int(self) -> tuple[float, float]:
+        """The interval (fuzzy designs: the hull of the confidence set)."""
+        return (self.intervals[0][0], self.intervals[-1][1])
+
+    @property
+    def bounded(self) -> bool:
+        return bool(np.all(np.isfinite(self.conf_int)))
+
+    @property
+    def shape(self) -> str:
+        return set_shape(self.intervals)
+
+    def table(self) -> pd.DataFrame:
+        lo, hi = self.conf_int
+        return pd.DataFrame([{"estimator": "bias-aware", "estimate": self.estimate, "std_error": self.std_error,
+                              "max_bias": self.max_bias, "smoothness": self.smoothness,
+                              "critical_value": self.critical_value, "ci_low": lo, "ci_high": hi,
+                              "bandwidth_below": self.bandwidth[0], "bandwidth_above": self.bandwidth[1],
+                              "n_below": self.n_used[0], "n_above": self.n_used[1]}])
+
+    def title(self) -> str:
+        return (f"Bias-aware {self.level:.0%} interval: jump in {self.outcome} at {self.score} = "
+                f"{self.cutoff:g} ({self.kind}, treated {self.treated})")
+
+    def notes(self) -> list[str]:
+        bound = f"M = {self.smoothness:.4g} ({self.smoothness_rule})"
+        if self.takeup_smoothness is not None:
+            bound += f" on the outcome and {self.takeup_smoothness:.4g} on take-up"
+        notes = [f"Armstrong and Kolesar (2018, 2020) fixed-length interval over the {self.smoothness_class} "
+                 f"class with {bound}: on each side the first-order expansion at the cutoff errs by at most "
+                 "M x^2 / 2. It is valid for that bound only; the sensitivity table shows other bounds.",
+                 f"Local polynomial of degree {self.degree}, {self.kernel} kernel, bandwidth "
+                 f"{self.bandwidth[0]:.4g} ({self.bandwidth_rule}); variance: {self.variance}."]
+        if self.kind == "fuzzy":
+            notes.append(f"Confidence set {_fmt_set(self.intervals)}: {SHAPE_WORDS[self.shape]}")
+        notes.append(CAUTION)
+        return notes
+
+    def __repr__(self) -> str:
+        return (f"<BiasAwareInterval {self.kind} {self.outcome}: estimate {self.estimate:.4g}, max bias "
+                f"{self.max_bias:.3g}, {self.level:.0%} set {_fmt_set(self.intervals)}, M = {self.smoothness:.4g}, "
+                f"h = {self.bandwidth[0]:.4g}>")
