@@ -317,21 +317,25 @@ class Design:
             se_r = np.sqrt(var((e_y - est_bc * e_d) / jd_bc, True))
             fs_se = np.sqrt(var(e_d, False))
             first_f = float((jd / fs_se) ** 2)
+            v_y, v_d = var(e_y, True), var(e_d, True)     # robust covariance by polarisation
+            reduced = dict(robust_jumps=(float(jy_bc), float(jd_bc)), robust_jump_covariance=(
+                float(v_y), float(0.5 * (var(e_y + e_d, True) - v_y - v_d)), float(v_d)))
             first_stage = Fit(outcome=self.takeup, kind="first stage", estimate=jd, std_error=fs_se,
-                              bias_corrected_estimate=jd_bc, robust_std_error=np.sqrt(var(e_d, True)),
+                              bias_corrected_estimate=jd_bc, robust_std_error=np.sqrt(v_d),
                               limits=engine.limits(e_d), warnings=(), **common)
             if first_f < WEAK_F:
                 warnings.append(f"Weak first stage: F = {first_f:.1f} < {WEAK_F:g} (common practice). The "
                                 "ratio estimate and its t-based intervals are unreliable; report the "
                                 "first stage and consider weak-identification-robust inference.")
         else:
+            reduced = {}
             est, est_bc = engine.jump(e_y), engine.jump(e_y, True)
             se, se_r = np.sqrt(var(e_y, False)), np.sqrt(var(e_y, True))
         warnings += self._window_warnings(prep, engine, spec)
         return Fit(outcome=spec.outcome, kind="fuzzy" if fuzzy else "sharp", estimate=float(est),
                    std_error=float(se), bias_corrected_estimate=float(est_bc), robust_std_error=float(se_r),
                    limits=engine.limits(e_y), warnings=tuple(warnings), first_stage=first_stage,
-                   first_stage_f=first_f, covariate_coefficients=gamma, **common)
+                   first_stage_f=first_f, covariate_coefficients=gamma, **reduced, **common)
 
     def _window_warnings(self, prep: Prepared, engine: JumpEngine, spec: FitSpec) -> list[str]:
         out = []

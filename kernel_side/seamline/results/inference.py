@@ -131,3 +131,66 @@ class BiasAwareInterval(Reported):
         return (f"<BiasAwareInterval {self.kind} {self.outcome}: estimate {self.estimate:.4g}, max bias "
                 f"{self.max_bias:.3g}, {self.level:.0%} set {_fmt_set(self.intervals)}, M = {self.smoothness:.4g}, "
                 f"h = {self.bandwidth[0]:.4g}>")
+
+
+@dataclass(frozen=True, eq=False)
+class WeakIVSet(Reported):
+    """Weak-instrument-robust confidence set for a fuzzy design (Feir, Lemieux & Marmer 2016).
+
+    The values tau0 at which the sharp robust bias-corrected test of "no jump in outcome - tau0 x
+    take-up" does not reject at ``level``, with the fit's bandwidths, kernel, degree, pilot and
+    variance. Its coverage does not depend on the size of the first-stage jump, unlike the Wald
+    interval (``wald_conf_int``, the fit's robust interval of the ratio). ``intervals`` holds the
+    pieces as (low, high) pairs with +-inf ends; ``shape`` names the form and ``explanation`` says it
+    in words; ``first_stage_f`` is the squared robust t statistic of the take-up jump.
+    """
+    outcome: str
+    level: float
+    intervals: tuple[tuple[float, float], ...]
+    bounded: bool
+    shape: str
+    estimate: float
+    wald_conf_int: tuple[float, float]
+    first_stage_jump: float
+    first_stage_f: float
+    bandwidth: tuple[float, float]
+    pilot_bandwidth: tuple[float, float]
+    kernel: str
+    degree: int
+    variance: str
+    score: str
+    cutoff: float
+    treated: str
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def explanation(self) -> str:
+        """The shape of the set in words."""
+        return f"The {self.level:.0%} weak-instrument-robust set is {SHAPE_WORDS[self.shape]}"
+
+    def contains(self, tau0: float) -> bool:
+        return any(lo <= tau0 <= hi for lo, hi in self.intervals)
+
+    def table(self) -> pd.DataFrame:
+        rows = [{"set": f"weak-IV-robust (piece {i + 1} of {len(self.intervals)})", "ci_low": lo, "ci_high": hi}
+                for i, (lo, hi) in enumerate(self.intervals)]
+        rows.append({"set": "Wald (robust bias-corrected ratio)", "ci_low": self.wald_conf_int[0],
+                     "ci_high": self.wald_conf_int[1]})
+        return pd.DataFrame(rows)
+
+    def title(self) -> str:
+        return (f"Weak-instrument-robust {self.level:.0%} set: effect on {self.outcome} at {self.score} = "
+                f"{self.cutoff:g} (treated {self.treated})")
+
+    def notes(self) -> list[str]:
+        return [self.explanation,
+                f"Feir, Lemieux and Marmer (2016) inversion of the robust bias-corrected test on outcome - tau0 "
+                f"x take-up; robust first-stage F = {self.first_stage_f:.1f}; ratio estimate "
+                f"{self.estimate:.4g}.",
+                f"Local polynomial of degree {self.degree}, {self.kernel} kernel, bandwidth "
+                f"{self.bandwidth[0]:.4g} (pilot {self.pilot_bandwidth[0]:.4g}); variance: {self.variance}.",
+                CAUTION]
+
+    def __repr__(self) -> str:
+        return (f"<WeakIVSet {self.outcome}: {self.level:.0%} set {_fmt_set(self.intervals)} ({self.shape}), "
+                f"F = {self.first_stage_f:.1f}>")
