@@ -399,6 +399,35 @@ class Design:
         return bias_aware.bias_aware(self, outcome, smoothness=smoothness, bandwidth=bandwidth,
                                      kernel=kernel, degree=degree, level=level)
 
+    def local_randomization(self, outcome=None, *, window=None, statistic="difference in means",
+                            permutations=10_000, seed=None, level=0.95, **options):
+        """Local randomization inference (Cattaneo, Frandsen & Titiunik 2015).
+
+        Parameters
+        ----------
+        outcome : column to analyse (default: the design's first outcome).
+        window : a half-width w (the window [cutoff - w, cutoff + w], both ends included), a pair
+            (low, high) of scores, or None: the largest window of a nested sequence such that it and
+            every smaller window have a minimum covariate balance p-value of at least 0.15.
+        statistic : "difference in means", "Kolmogorov-Smirnov" or "rank sum" (two-sided via |.|).
+        permutations : Monte Carlo draws when the window has more than 100,000 assignments (fewer are
+            enumerated exactly); seed : for the draws (None: one is drawn and recorded).
+        level : of the interval that inverts randomization tests under a constant additive effect.
+        options : covariates (subset used for balance), candidates (half-widths of the nested
+            sequence), balance_threshold (default 0.15).
+
+        Returns
+        -------
+        LocalRandomization
+            With ``window``, ``estimate``, ``p_value``, ``conf_int``, ``n_below``, ``n_above``, the
+            ``windows`` table and a ``sensitivity`` table over windows. Every window needs at least
+            5 units on each side.
+        """
+        from . import local_randomization
+        return local_randomization.local_randomization(self, outcome, window=window, statistic=statistic,
+                                                       permutations=permutations, seed=seed, level=level,
+                                                       **options)
+
     # ---- diagnostics (implemented in seamline.estimate.diagnostics) ------------------------------
     def density_test(self, method: str = "local-cdf", **options):
         """Manipulation test of the score's density at the cutoff.

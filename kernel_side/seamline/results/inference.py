@@ -8,6 +8,7 @@ from typing import Callable
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
 from .base import CAUTION, Reported
 
@@ -194,3 +195,84 @@ class WeakIVSet(Reported):
     def __repr__(self) -> str:
         return (f"<WeakIVSet {self.outcome}: {self.level:.0%} set {_fmt_set(self.intervals)} ({self.shape}), "
                 f"F = {self.first_stage_f:.1f}>")
+
+
+@dataclass(frozen=True, eq=False)
+class LocalRandomization(Reported):
+    """Local randomization inference in a window around the cutoff (Cattaneo, Frandsen & Titiunik 2015).
+
+    Inside ``window`` (both ends included) the units are analysed as a completely randomized
+    experiment. ``p_value`` is the Fisher randomization p-value of the sharp null of no effect for
+    ``statistic`` (two-sided through its absolute value): exact over all assignments when ``exact``,
+    otherwise Monte Carlo over ``assignments`` random ones with simulation standard error
+    ``p_value_std_error``. ``conf_int`` collects the constant additive effects not rejected at
+    ``level``. ``estimate`` is the difference in mean outcomes in the window (the window average
+    effect, not the continuity-based effect at the cutoff), with Neyman's large-sample
+    ``neyman_conf_int`` beside it. ``windows`` is the nested sequence with minimum balance p-values;
+    ``sensitivity`` the outcome results over those windows.
+    """
+    outcome: str
+    statistic: str
+    window: tuple[float, float]
+    window_rule: str
+    estimate: float
+    statistic_value: float
+    p_value: float
+    p_value_std_error: float
+    exact: bool
+    assignments: int
+    conf_int: tuple[float, float]
+    level: float
+    n_below: int
+    n_above: int
+    neyman_std_error: float
+    neyman_conf_int: tuple[float, float]
+    balance_threshold: float
+    windows: pd.DataFrame = field(repr=False)
+    score: str = ""
+    cutoff: float = 0.0
+    treated: str = "above"
+    seed: int | None = None
+    warnings: tuple[str, ...] = ()
+    sensitivity_fn: Callable[[], pd.DataFrame] | None = field(default=None, repr=False)
+
+    @cached_property
+    def sensitivity(self) -> pd.DataFrame:
+        """Estimate, p-value and inverted interval for the windows of the sequence up to a few past the
+        chosen one (computed on first access)."""
+        return self.sensitivity_fn() if self.sensitivity_fn is not None else pd.DataFrame()
+
+    def table(self) -> pd.DataFrame:
+        method = "exact" if self.exact else f"Monte Carlo ({self.assignments:,} draws)"
+        return pd.DataFrame([
+            {"inference": f"randomization, {self.statistic} ({method})", "estimate": self.estimate,
+             "p_value": self.p_value, "ci_low": self.conf_int[0], "ci_high": self.conf_int[1],
+             "n_below": self.n_below, "n_above": self.n_above},
+            {"inference": "Neyman (large sample)", "estimate": self.estimate,
+             "p_value": float(2 * stats.norm.sf(abs(self.estimate / self.neyman_std_error)))
+             if self.neyman_std_error > 0 else float("nan"),
+             "ci_low": self.neyman_conf_int[0], "ci_high": self.neyman_conf_int[1],
+             "n_below": self.n_below, "n_above": self.n_above}])
+
+    def title(self) -> str:
+        lo, hi = self.window
+        return (f"Local randomization: {self.outcome} in the window [{lo:.4g}, {hi:.4g}] of {self.score} "
+                f"around {self.cutoff:g} (treated {self.treated})")
+
+    def notes(self) -> list[str]:
+        rule = ("chosen by covariate balance: the largest window such that it and every smaller one have a "
+                f"minimum balance p-value of at least {self.balance_threshold:g}" if self.window_rule ==
+                "covariate balance" else "given")
+        return [f"Cattaneo, Frandsen and Titiunik (2015) randomization inference: units in the window are "
+                f"treated as completely randomized; window {rule}.",
+                f"The interval inverts randomization tests under a constant additive effect at level "
+                f"{self.level:.0%}; the estimate is the window average effect, not the effect at the cutoff.",
+                "Local randomization assumes that, inside the window, the score does not affect the outcomes "
+                "and assignment is as good as random; it does not replace judgement about the design.",
+                CAUTION]
+
+    def __repr__(self) -> str:
+        lo, hi = self.window
+        return (f"<LocalRandomization {self.outcome}: window [{lo:.4g}, {hi:.4g}] ({self.n_below} below, "
+                f"{self.n_above} above), estimate {self.estimate:.4g}, p = {self.p_value:.3g}, "
+                f"{self.level:.0%} CI [{self.conf_int[0]:.4g}, {self.conf_int[1]:.4g}]>")
