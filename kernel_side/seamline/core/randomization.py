@@ -25,6 +25,7 @@ from scipy import stats
 
 EXACT_LIMIT = 100_000
 CHUNK = 4096                    # assignments per block when computing statistics (memory bound)
+DRAW_CHUNK = 1024               # Monte Carlo draws per block of random keys
 TIE_TOLERANCE = 100 * np.finfo(float).eps
 STATISTICS = ("difference in means", "Kolmogorov-Smirnov", "rank sum")
 
@@ -44,10 +45,11 @@ def draw_assignments(n: int, n_treated: int, permutations: int,
                            count=total * n_treated)
         out[rows, cols] = True
         return out, True
-    keys = rng.random((permutations, n))
-    picked = np.argpartition(keys, n_treated - 1, axis=1)[:, :n_treated] if n_treated else np.empty((permutations, 0), int)
     out = np.zeros((permutations, n), dtype=bool)
-    np.put_along_axis(out, picked, True, axis=1)
+    for start in range(0, permutations, DRAW_CHUNK):   # random keys in blocks bound the memory
+        keys = rng.random((min(DRAW_CHUNK, permutations - start), n))
+        picked = np.argpartition(keys, n_treated - 1, axis=1)[:, :n_treated]
+        np.put_along_axis(out[start: start + len(keys)], picked, True, axis=1)
     return out, False
 
 
@@ -69,9 +71,13 @@ def _kolmogorov_smirnov(assign: np.ndarray, y: np.ndarray) -> np.ndarray:
     last_of_tie = np.r_[np.diff(ys) > 0, True]    # compare the two CDFs only after each tie group
     a = assign[:, order]
     n1 = a.sum(axis=1, keepdims=True)
-    c1 = np.cumsum(a, axis=1) / n1
-    c0 = np.cumsum(~a, axis=1) / (len(y) - n1)
-    return np.max(np.abs(c1 - c0)[:, last_of_tie], axis=1)
+    n0 = len(y) - n1
+    # F_1 - F_0 at the k-th smallest value is c/n1 - (k - c)/n0 with c the treated count so far:
+    # one cumulative sum per assignment instead of two
+    c = np.cumsum(a, axis=1, dtype=np.int32)[:, last_of_tie]
+    k = np.flatnonzero(last_of_tie) + 1
+    gap = c * (1.0 / n1 + 1.0 / n0) - k / n0
+    return np.maximum(gap.max(axis=1), -gap.min(axis=1))
 
 
 _STATISTIC_FUNCTIONS: dict[str, Callable[[np.ndarray, np.ndarray], np.ndarray]] = {
