@@ -17,6 +17,7 @@ Side = Literal["above", "below"]
 DensityMethod = Literal["local-cdf", "binned"]
 BinMethod = Literal["equal-width", "equal-count"]
 BinRule = Literal["imse", "mimic-variance"]
+SmoothnessClass = Literal["taylor", "holder"]   # bias-aware intervals (Armstrong & Kolesar 2018)
 
 KERNELS: tuple[str, ...] = get_args(Kernel)
 BANDWIDTH_RULES: tuple[str, ...] = get_args(BandwidthRule)
@@ -25,6 +26,7 @@ SIDES: tuple[str, ...] = get_args(Side)
 DENSITY_METHODS: tuple[str, ...] = get_args(DensityMethod)
 BIN_METHODS: tuple[str, ...] = get_args(BinMethod)
 BIN_RULES: tuple[str, ...] = get_args(BinRule)
+SMOOTHNESS_CLASSES: tuple[str, ...] = get_args(SmoothnessClass)
 
 
 def check_option(argument: str, value: object, allowed: tuple[str, ...]) -> str:

@@ -235,3 +235,46 @@ def test_coverage_at_the_optimal_bandwidth_with_opposite_parabolas():
                               outcome="y").bias_aware(smoothness=m)
         covered += res.conf_int[0] <= 1.0 <= res.conf_int[1]
     assert covered / reps >= 0.93
+
+
+def test_holder_bias_is_the_exact_integral_and_below_taylor():
+    from scipy import integrate
+    from seamline.core.bias_aware import holder_max_bias
+    frame = sharp_frame(n=300, seed=9)
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y")
+    x = frame["x"].to_numpy()
+    for degree in (1, 2):
+        res = design.bias_aware(smoothness=2.0, bandwidth=0.6, degree=degree, smoothness_class="holder")
+        taylor = design.bias_aware(smoothness=2.0, bandwidth=0.6, degree=degree)
+        assert res.smoothness_class == "Hölder" and res.max_bias < taylor.max_bias
+        # Reference: scipy.integrate.quad of M |g(t)|, g(t) = sum_i w_i (|x_i| - t)_+ on each side, with the
+        # weights of the order-`degree` triangular fit built here from first principles
+        total = 0.0
+        for above in (True, False):
+            d = np.abs(x[(x >= 0) == above])
+            k = np.clip(1 - d / 0.6, 0, None)
+            basis = np.vander(d, degree + 1, increasing=True)
+            w = np.linalg.solve(basis.T @ (basis * k[:, None]), (basis * k[:, None]).T)[0]
+            g = lambda t, w=w, d=d: np.sum(w * np.clip(d - t, 0, None))  # noqa: E731
+            total += 2.0 * integrate.quad(lambda t: abs(g(t)), 0, d.max(), points=sorted(d[d < 0.6]),
+                                          limit=1000)[0]
+            if degree == 1:  # local linear: g keeps one sign, so int |g| = |sum w d^2| / 2 (derived)
+                assert holder_max_bias(w, d, 1.0) == pytest.approx(0.5 * abs(np.sum(w * d ** 2)), rel=1e-10)
+        assert res.max_bias == pytest.approx(total, rel=1e-7)
+
+
+def test_holder_least_favourable_parabolas_attain_the_local_linear_bound():
+    # Opposite parabolas mu_above = -M x^2/2, mu_below = +M x^2/2 have |mu''| = M (first principles)
+    frame = sharp_frame(n=400, seed=10)
+    x = frame["x"].to_numpy()
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y")
+    res = design.bias_aware(smoothness=3.0, bandwidth=0.5, smoothness_class="holder")
+    w = local_linear_weights(x, 0.5, True) - local_linear_weights(x, 0.5, False)
+    bias = max(abs(w @ (np.where(x >= 0, -1, 1) * 1.5 * x ** 2)), abs(w @ (np.where(x >= 0, 1, -1) * 1.5 * x ** 2)))
+    assert res.max_bias == pytest.approx(bias, rel=1e-9)
+
+
+def test_smoothness_class_is_checked():
+    design = seamline.Design(sharp_frame(), score="x", cutoff=0.0, outcome="y")
+    with pytest.raises(InvalidOptionError, match=r"`smoothness_class` must be one of \"taylor\", \"holder\""):
+        design.bias_aware(smoothness=1.0, smoothness_class="lipschitz")

@@ -52,6 +52,33 @@ def taylor_max_bias(weights: np.ndarray, x: np.ndarray, smoothness: float) -> fl
     return float(0.5 * smoothness * np.sum(np.abs(weights) * np.asarray(x) ** 2))
 
 
+def holder_max_bias(weights: np.ndarray, distance: np.ndarray, smoothness: float) -> float:
+    """Worst-case bias of sum_i w_i Y_i on one side when |mu''| <= M there (the Hölder class).
+
+    With r(x) = int_0^|x| (|x| - t) mu''(t) dt the remainder after an intercept and a slope, the bias
+    is int_0^inf g(t) mu''(t) dt with g(t) = sum_i w_i (|x_i| - t)_+, so the worst case is
+    M int |g(t)| dt. g is linear between the sorted distances; each piece is integrated exactly,
+    split at its root. Requires weights that reproduce an intercept and a slope on the side.
+    """
+    order = np.argsort(distance)
+    d = np.asarray(distance, dtype=float)[order]
+    w = np.asarray(weights, dtype=float)[order]
+    # on [d_(k-1), d_(k)] the points k, k+1, ... are beyond t: g(t) = A_k - B_k t
+    a_k = np.cumsum((w * d)[::-1])[::-1]
+    b_k = np.cumsum(w[::-1])[::-1]
+    lo = np.r_[0.0, d[:-1]]
+    hi = d
+    g_lo, g_hi = a_k - b_k * lo, a_k - b_k * hi
+    same_sign = g_lo * g_hi >= 0
+    length = hi - lo
+    whole = 0.5 * length * np.abs(g_lo + g_hi)
+    # a sign change inside the piece: two triangles meeting at the root
+    with np.errstate(divide="ignore", invalid="ignore"):
+        split = 0.5 * length * (g_lo ** 2 + g_hi ** 2) / (np.abs(g_lo) + np.abs(g_hi))
+    area = np.where(same_sign, whole, split)
+    return float(smoothness * np.sum(np.where(length > 0, area, 0.0)))
+
+
 def half_length(max_bias: float, se: float, level: float) -> float:
     """Half-length cv(max_bias / se) * se of the fixed-length interval."""
     if not se > 0:

@@ -16,11 +16,11 @@ from numbers import Real
 import numpy as np
 import pandas as pd
 
-from ..core.bias_aware import (accepted_set, critical_value, half_length, minimise_on_log_grid,
-                               second_derivative_bound, taylor_max_bias)
+from ..core.bias_aware import (accepted_set, critical_value, half_length, holder_max_bias,
+                               minimise_on_log_grid, second_derivative_bound, taylor_max_bias)
 from ..data import Prepared
 from ..errors import InvalidOptionError, InvalidSmoothnessError
-from ..options import KERNELS, check_level, check_option
+from ..options import KERNELS, SMOOTHNESS_CLASSES, check_level, check_option
 from ..results.inference import BiasAwareInterval
 from .engine import JumpEngine, check_support
 from .options import _int_in, _positive_pair
@@ -41,9 +41,11 @@ class _Moments:
 class _Problem:
     """One design, outcome and specification; evaluates the interval at any bandwidth."""
 
-    def __init__(self, design, prep: Prepared, n_main: int, kernel: str, degree: int, level: float):
+    def __init__(self, design, prep: Prepared, n_main: int, kernel: str, degree: int, level: float,
+                 smoothness_class: str):
         self.design, self.prep, self.n_main = design, prep, n_main
         self.kernel, self.degree, self.level = kernel, degree, level
+        self.side_bias = taylor_max_bias if smoothness_class == "taylor" else holder_max_bias
         self._cache: dict[tuple, _Moments] = {}
 
     def moments(self, h: tuple[float, float], cluster: bool = False) -> _Moments:
@@ -58,7 +60,7 @@ class _Problem:
             for i in range(self.n_main):          # polarisation: every variance is a quadratic form
                 for j in range(i):
                     cov[i, j] = cov[j, i] = 0.5 * (var(eye[i] + eye[j]) - cov[i, i] - cov[j, j])
-            unit_bias = sum(taylor_max_bias(wa.a, side.distance[: wa.rows], 1.0)
+            unit_bias = sum(self.side_bias(wa.a, side.distance[: wa.rows], 1.0)
                             for side, wa in zip(engine.sides, engine.arrays()))
             self._cache[key] = _Moments(jumps, cov, unit_bias, engine.counts(False))
         return self._cache[key]
@@ -148,9 +150,12 @@ def rule_of_thumb(prep: Prepared, column: int) -> float:
 
 
 def bias_aware(design, outcome=None, *, smoothness=None, bandwidth="optimal", kernel="triangular",
-               degree=1, level=0.95) -> BiasAwareInterval:
+               degree=1, level=0.95, smoothness_class="taylor") -> BiasAwareInterval:
     """Bias-aware interval for ``Design.bias_aware`` (see its docstring)."""
     outcome = design._outcome(outcome)
+    if isinstance(smoothness_class, str) and smoothness_class.strip().lower() == "hölder":
+        smoothness_class = "holder"
+    smoothness_class = check_option("smoothness_class", smoothness_class, SMOOTHNESS_CLASSES)
     kernel = check_option("kernel", kernel, KERNELS)
     degree = _int_in("degree", degree, 1, 3)
     level = check_level(level)
@@ -158,7 +163,7 @@ def bias_aware(design, outcome=None, *, smoothness=None, bandwidth="optimal", ke
     variables = (outcome, design.takeup) if fuzzy else (outcome,)
     smoothness = _check_smoothness(smoothness, fuzzy)
     prep = design._data.prepare(variables, 0.0)
-    problem = _Problem(design, prep, len(variables), kernel, degree, level)
+    problem = _Problem(design, prep, len(variables), kernel, degree, level, smoothness_class)
     warnings: list[str] = []
     rule = "given"
     if smoothness is None:
@@ -207,7 +212,8 @@ def bias_aware(design, outcome=None, *, smoothness=None, bandwidth="optimal", ke
     return BiasAwareInterval(
         outcome=outcome, kind="fuzzy" if fuzzy else "sharp", estimate=float(est), std_error=float(se),
         max_bias=float(bias), smoothness=smoothness if not fuzzy else smoothness[0],
-        takeup_smoothness=smoothness[1] if fuzzy else None, smoothness_rule=rule, smoothness_class="Taylor",
+        takeup_smoothness=smoothness[1] if fuzzy else None, smoothness_rule=rule,
+        smoothness_class="Taylor" if smoothness_class == "taylor" else "Hölder",
         critical_value=critical_value(t, level) if np.isfinite(t) else float("nan"),
         intervals=tuple((float(a), float(b)) for a, b in pieces), level=level, bandwidth=tuple(map(float, h)),
         bandwidth_rule=bandwidth_rule, n_used=m.n_used, kernel=kernel, degree=degree,

@@ -375,7 +375,7 @@ class Design:
 
     # ---- inference beyond the robust interval (seamline.estimate.bias_aware, .local_randomization) --
     def bias_aware(self, outcome=None, *, smoothness=None, bandwidth="optimal", kernel="triangular",
-                   degree=1, level=0.95):
+                   degree=1, level=0.95, smoothness_class="taylor"):
         """Bias-aware (fixed-length) confidence interval (Armstrong & Kolesar 2018, 2020).
 
         Parameters
@@ -387,6 +387,8 @@ class Design:
             designs: one number for both columns or a pair (outcome, take-up).
         bandwidth : "optimal" (minimises the interval's length), a number, or a pair (below, above).
         kernel, degree : of the local polynomial (degree 1-3); level : confidence level.
+        smoothness_class : "taylor" (the bound above) or "holder" (|second derivative| <= M on each
+            side, a smaller class: shorter intervals, exact worst-case bias by integration).
 
         Returns
         -------
@@ -397,7 +399,8 @@ class Design:
         """
         from . import bias_aware
         return bias_aware.bias_aware(self, outcome, smoothness=smoothness, bandwidth=bandwidth,
-                                     kernel=kernel, degree=degree, level=level)
+                                     kernel=kernel, degree=degree, level=level,
+                                     smoothness_class=smoothness_class)
 
     def local_randomization(self, outcome=None, *, window=None, statistic="difference in means",
                             permutations=10_000, seed=None, level=0.95, **options):

@@ -47,7 +47,8 @@ class BiasAwareInterval(Reported):
     """Bias-aware (fixed-length) confidence interval (Armstrong & Kolesar 2018, 2020).
 
     Valid for every regression function whose first-order expansion at the cutoff errs by at most
-    ``smoothness`` x^2 / 2 on each side (the Taylor class), given that bound. ``estimate`` is the
+    ``smoothness`` x^2 / 2 on each side (the Taylor class), or, with ``smoothness_class`` "Hölder",
+    whose second derivative is at most ``smoothness`` in absolute value on each side, given that bound. ``estimate`` is the
     conventional local polynomial jump at ``bandwidth``; ``max_bias`` is the worst-case bias of that
     linear estimator over the class; ``critical_value`` is the ``level`` quantile of
     |N(max_bias / std_error, 1)|; ``conf_int`` = estimate +- critical_value x std_error.
@@ -118,9 +119,11 @@ class BiasAwareInterval(Reported):
         bound = f"M = {self.smoothness:.4g} ({self.smoothness_rule})"
         if self.takeup_smoothness is not None:
             bound += f" on the outcome and {self.takeup_smoothness:.4g} on take-up"
+        meaning = ("the first-order expansion at the cutoff errs by at most M x^2 / 2" if self.smoothness_class ==
+                   "Taylor" else "the second derivative is at most M in absolute value")
         notes = [f"Armstrong and Kolesar (2018, 2020) fixed-length interval over the {self.smoothness_class} "
-                 f"class with {bound}: on each side the first-order expansion at the cutoff errs by at most "
-                 "M x^2 / 2. It is valid for that bound only; the sensitivity table shows other bounds.",
+                 f"class with {bound}: on each side {meaning}. It is valid for that bound only; the "
+                 "sensitivity table shows other bounds.",
                  f"Local polynomial of degree {self.degree}, {self.kernel} kernel, bandwidth "
                  f"{self.bandwidth[0]:.4g} ({self.bandwidth_rule}); variance: {self.variance}."]
         if self.kind == "fuzzy":
