@@ -84,11 +84,16 @@ class _Problem:
 
     def fuzzy(self, m: _Moments, smoothness: tuple[float, float]):
         jy, jd = float(m.jumps[0]), float(m.jumps[1])
-        ratio = jy / jd
-        lam = np.array([1.0, -ratio])
-        se = float(np.sqrt(max(lam @ m.cov @ lam, 0.0)) / abs(jd))   # delta-method se of the ratio
-        bias = (smoothness[0] + abs(ratio) * smoothness[1]) * m.unit_bias / abs(jd)
-        pieces = accepted_set(self.fuzzy_test(m, smoothness), ratio, se)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = jy / jd
+            lam = np.array([1.0, -ratio])
+            se = float(np.sqrt(max(lam @ m.cov @ lam, 0.0)) / abs(jd))   # delta-method se of the ratio
+            bias = (smoothness[0] + abs(ratio) * smoothness[1]) * m.unit_bias / abs(jd)
+        # the grid is centred on the ratio and scaled by its se; without a first-stage jump any
+        # finite centre and scale reach the whole line just as well
+        centre = ratio if np.isfinite(ratio) else 0.0
+        scale = se if np.isfinite(se) and se > 0 else 1.0
+        pieces = accepted_set(self.fuzzy_test(m, smoothness), centre, scale)
         return ratio, se, bias, pieces
 
     def length(self, h: float, smoothness) -> float:
