@@ -94,3 +94,17 @@ class CutoffChoiceError(SeamlineError):
 
 class InvalidEffectError(SeamlineError):
     """An effect size for power or sample-size calculations is zero, missing or not a number."""
+class InvalidSmoothnessError(SeamlineError):
+    """A smoothness bound (the curvature bound M of a bias-aware interval) is not a positive number."""
+
+
+class NotFuzzyError(SeamlineError):
+    """An inference that needs a first stage (a take-up column with a jump) was asked of a sharp design."""
+
+
+class WindowTooSmallError(SeamlineError):
+    """A local randomization window holds fewer than the minimum number of units on a side."""
+
+
+class NoBalancedWindowError(SeamlineError):
+    """Window selection by covariate balance cannot run (no covariates) or no window passes."""

@@ -20,6 +20,7 @@ BinRule = Literal["imse", "mimic-variance"]
 ScoreUnit = Literal["days", "hours", "weeks", "months", "years"]
 ClusterVariance = Literal["bias-reduced", "classic"]
 PowerScaling = Literal["reselected-bandwidth", "fixed-bandwidth"]
+SmoothnessClass = Literal["taylor", "holder"]   # bias-aware intervals (Armstrong & Kolesar 2018)
 
 KERNELS: tuple[str, ...] = get_args(Kernel)
 BANDWIDTH_RULES: tuple[str, ...] = get_args(BandwidthRule)
@@ -31,6 +32,7 @@ BIN_RULES: tuple[str, ...] = get_args(BinRule)
 SCORE_UNITS: tuple[str, ...] = get_args(ScoreUnit)
 CLUSTER_VARIANCES: tuple[str, ...] = get_args(ClusterVariance)
 POWER_SCALINGS: tuple[str, ...] = get_args(PowerScaling)
+SMOOTHNESS_CLASSES: tuple[str, ...] = get_args(SmoothnessClass)
 
 
 def check_option(argument: str, value: object, allowed: tuple[str, ...]) -> str:

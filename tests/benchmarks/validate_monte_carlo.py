@@ -5,8 +5,8 @@ Calonico, Cattaneo & Titiunik (2014), as in METHODS 14.1 (coefficients confirmed
 independent replication scripts). For each model and n it prints, over R replications of the default
 fit (MSE-optimal bandwidth, triangular kernel, local linear, neighbour variance) and of the
 coverage-error rule: coverage of the conventional and robust bias-corrected 95% intervals, the mean
-bias-corrected estimate against the truth, mean SE / Monte Carlo SD, and the median bandwidth
-against the population MSE-optimal value (METHODS 14.2). Usage:
+bias-corrected estimate against the truth, mean SE / Monte Carlo SD, the mean robust interval length, the median bandwidth
+against the population MSE-optimal value (METHODS 14.2) and the median pilot (bias) bandwidth. Usage:
     .venv/bin/python tests/benchmarks/validate_monte_carlo.py [replications]
 """
 from __future__ import annotations
@@ -38,7 +38,7 @@ def draw(model: int, n: int, rng: np.random.Generator) -> pd.DataFrame:
 
 def main(reps: int = 1000) -> None:
     print(f"{'model':>5} {'n':>5} {'rule':>8} | {'cov conv':>8} {'cov RBC':>8} | {'mean bc - tau':>13} | "
-          f"{'SE/SD':>6} {'RBC SE/SD':>9} | {'median h':>8} {'h / pop':>7}")
+          f"{'SE/SD':>6} {'RBC SE/SD':>9} | {'RBC len':>7} | {'median h':>8} {'h / pop':>7} {'median b':>8}")
     for model in (1, 2, 3):
         tau, h500 = MODELS[model][2], MODELS[model][3]
         for n in (500, 2000):
@@ -49,14 +49,16 @@ def main(reps: int = 1000) -> None:
                 for _ in range(reps):
                     f = seamline.Design(draw(model, n, rng), score="x", cutoff=0.0, outcome="y").fit(bandwidth=rule)
                     rows.append((f.estimate, f.std_error, *f.conf_int, f.bias_corrected_estimate,
-                                 f.robust_std_error, *f.robust_conf_int, f.bandwidth[0]))
+                                 f.robust_std_error, *f.robust_conf_int, f.bandwidth[0], f.pilot_bandwidth[0]))
                 a = np.array(rows)
                 cov_conv = np.mean((a[:, 2] <= tau) & (tau <= a[:, 3]))
                 cov_rbc = np.mean((a[:, 6] <= tau) & (tau <= a[:, 7]))
                 pop = h500 * (500 / n) ** 0.2
                 print(f"{model:>5} {n:>5} {rule:>8} | {cov_conv:8.3f} {cov_rbc:8.3f} | {a[:, 4].mean() - tau:13.4f} | "
                       f"{a[:, 1].mean() / a[:, 0].std():6.2f} {a[:, 5].mean() / a[:, 4].std():9.2f} | "
-                      f"{np.median(a[:, 8]):8.4f} {np.median(a[:, 8]) / pop:7.2f}   ({time.perf_counter() - t0:.0f} s)")
+                      f"{np.mean(a[:, 7] - a[:, 6]):7.4f} | "
+                      f"{np.median(a[:, 8]):8.4f} {np.median(a[:, 8]) / pop:7.2f} {np.median(a[:, 9]):8.4f}"
+                      f"   ({time.perf_counter() - t0:.0f} s)")
     print("Binomial sd of a 95% coverage rate at this many replications:", f"{np.sqrt(0.95 * 0.05 / reps):.4f}")
 
 

@@ -365,6 +365,10 @@ class Design:
             fs_se = np.sqrt(var(e_d, False, "first stage"))
             fs_se_r = np.sqrt(var(e_d, True, "first stage"))
             first_f = float((jd / fs_se) ** 2)
+            # robust covariance of the two jumps by polarisation (for weak-instrument-robust sets)
+            v_y, v_d = var(e_y, True, "reduced form"), fs_se_r ** 2
+            reduced = dict(robust_jumps=(float(jy_bc), float(jd_bc)), robust_jump_covariance=(
+                float(v_y), float(0.5 * (var(e_y + e_d, True, "sum") - v_y - v_d)), float(v_d)))
             first_stage = Fit(outcome=self.takeup, kind="first stage", estimate=jd, std_error=fs_se,
                               bias_corrected_estimate=jd_bc, robust_std_error=fs_se_r,
                               limits=engine.limits(e_d), warnings=(),
@@ -374,6 +378,7 @@ class Design:
                                 "ratio estimate and its t-based intervals are unreliable; report the "
                                 "first stage and consider weak-identification-robust inference.")
         else:
+            reduced = {}
             est, est_bc = engine.jump(e_y), engine.jump(e_y, True)
             se, se_r = np.sqrt(var(e_y, False)), np.sqrt(var(e_y, True))
         warnings += self._window_warnings(prep, engine, spec)
@@ -382,7 +387,7 @@ class Design:
         return Fit(outcome=spec.outcome, kind="fuzzy" if fuzzy else "sharp", estimate=float(est),
                    std_error=float(se), bias_corrected_estimate=float(est_bc), robust_std_error=float(se_r),
                    limits=engine.limits(e_y), warnings=tuple(warnings), first_stage=first_stage,
-                   first_stage_f=first_f, covariate_coefficients=gamma,
+                   first_stage_f=first_f, covariate_coefficients=gamma, **reduced,
                    dof=(dofs.get(("main", False)), dofs.get(("main", True))), **common)
 
     def _window_warnings(self, prep: Prepared, engine: JumpEngine, spec: FitSpec) -> list[str]:
@@ -420,6 +425,64 @@ class Design:
             rows.append((rule, h[0], h[1], b[0], b[1]))
         return pd.DataFrame(rows, columns=["rule", "bandwidth_below", "bandwidth_above", "pilot_below",
                                            "pilot_above"])
+
+    # ---- inference beyond the robust interval (seamline.estimate.bias_aware, .local_randomization) --
+    def bias_aware(self, outcome=None, *, smoothness=None, bandwidth="optimal", kernel="triangular",
+                   degree=1, level=0.95, smoothness_class="taylor"):
+        """Bias-aware (fixed-length) confidence interval (Armstrong & Kolesar 2018, 2020).
+
+        Parameters
+        ----------
+        outcome : column to analyse (default: the design's first outcome).
+        smoothness : the bound M on curvature (Taylor class: on each side the first-order expansion at
+            the cutoff errs by at most M x^2 / 2), in outcome units per squared score unit. None: the
+            rule of thumb (largest |second derivative| of a global quartic fitted on each side). Fuzzy
+            designs: one number for both columns or a pair (outcome, take-up).
+        bandwidth : "optimal" (minimises the interval's length), a number, or a pair (below, above).
+        kernel, degree : of the local polynomial (degree 1-3); level : confidence level.
+        smoothness_class : "taylor" (the bound above) or "holder" (|second derivative| <= M on each
+            side, a smaller class: shorter intervals, exact worst-case bias by integration).
+
+        Returns
+        -------
+        BiasAwareInterval
+            With ``estimate``, ``std_error``, ``max_bias``, ``critical_value``, ``conf_int`` and a
+            ``sensitivity`` table over multiples of the bound. Fuzzy designs invert the bias-aware test
+            on outcome - tau0 x take-up (``intervals`` may be unbounded).
+        """
+        from . import bias_aware
+        return bias_aware.bias_aware(self, outcome, smoothness=smoothness, bandwidth=bandwidth,
+                                     kernel=kernel, degree=degree, level=level,
+                                     smoothness_class=smoothness_class)
+
+    def local_randomization(self, outcome=None, *, window=None, statistic="difference in means",
+                            permutations=10_000, seed=None, level=0.95, **options):
+        """Local randomization inference (Cattaneo, Frandsen & Titiunik 2015).
+
+        Parameters
+        ----------
+        outcome : column to analyse (default: the design's first outcome).
+        window : a half-width w (the window [cutoff - w, cutoff + w], both ends included), a pair
+            (low, high) of scores, or None: the largest window of a nested sequence such that it and
+            every smaller window have a minimum covariate balance p-value of at least 0.15.
+        statistic : "difference in means", "Kolmogorov-Smirnov" or "rank sum" (two-sided via |.|).
+        permutations : Monte Carlo draws when the window has more than 100,000 assignments (fewer are
+            enumerated exactly); seed : for the draws (None: one is drawn and recorded).
+        level : of the interval that inverts randomization tests under a constant additive effect.
+        options : covariates (subset used for balance), candidates (half-widths of the nested
+            sequence), balance_threshold (default 0.15).
+
+        Returns
+        -------
+        LocalRandomization
+            With ``window``, ``estimate``, ``p_value``, ``conf_int``, ``n_below``, ``n_above``, the
+            ``windows`` table and a ``sensitivity`` table over windows. Every window needs at least
+            5 units on each side.
+        """
+        from . import local_randomization
+        return local_randomization.local_randomization(self, outcome, window=window, statistic=statistic,
+                                                       permutations=permutations, seed=seed, level=level,
+                                                       **options)
 
     # ---- diagnostics (implemented in seamline.estimate.diagnostics) ------------------------------
     def density_test(self, method: str = "local-cdf", **options):

@@ -88,6 +88,10 @@ class Fit(Reported):
     def length(self, value: float) -> str:
         """A bandwidth or radius as a reader writes it: ``2.5``, or ``41.5 days`` for a date score."""
         return f"{value:.4g}" if self.time_scale is None else self.time_scale.length(value)
+    robust_jumps: tuple[float, float] | None = None
+    """Fuzzy fits: bias-corrected jumps in (outcome, take-up), for weak-instrument-robust sets."""
+    robust_jump_covariance: tuple[float, float, float] | None = None
+    """Fuzzy fits: robust (variance of outcome jump, covariance, variance of take-up jump)."""
 
     # ---- inference --------------------------------------------------------------------------
     @property
@@ -114,6 +118,26 @@ class Fit(Reported):
         if robust:
             return normal_interval(self.bias_corrected_estimate, self.robust_std_error, level, self.dof[1])
         return normal_interval(self.estimate, self.std_error, level, self.dof[0])
+
+    def weak_iv_conf_set(self, level: float | None = None):
+        """Weak-instrument-robust confidence set of a fuzzy fit (Feir, Lemieux & Marmer 2016).
+
+        The values tau0 at which the sharp robust bias-corrected test of no jump in
+        outcome - tau0 x take-up does not reject, with this fit's bandwidths, kernel, degree, pilot
+        and variance. It may be one interval, two rays or the whole line.
+
+        Returns
+        -------
+        WeakIVSet
+            With ``intervals`` ((low, high) pairs, +-inf allowed), ``bounded``, ``level`` and ``shape``.
+
+        Raises
+        ------
+        NotFuzzyError
+            When the fit is sharp (there is no first stage to be weak).
+        """
+        from ..estimate.weak_iv import weak_iv_conf_set
+        return weak_iv_conf_set(self, self.level if level is None else level)
 
     def with_level(self, level: float) -> "Fit":
         """The same fit reported at another confidence level."""

@@ -1,0 +1,271 @@
+"""Local randomization inference (Cattaneo, Frandsen & Titiunik 2015) for ``Design.local_randomization``.
+
+Units with scores in a small window around the cutoff are analysed as a completely randomized
+experiment: Fisher randomization p-values (``seamline.core.randomization``), a confidence interval
+by inverting randomization tests under a constant additive effect, and Neyman's large-sample
+interval for the window average effect next to them. Without a given window, one is chosen by
+covariate balance in nested windows: the largest window such that it and every smaller window have a
+minimum balance p-value of at least ``balance_threshold`` (Cattaneo, Frandsen & Titiunik 2015;
+Cattaneo, Titiunik & Vazquez-Bare 2016, 2017).
+"""
+from __future__ import annotations
+
+from functools import lru_cache
+from numbers import Real
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from ..core.randomization import STATISTICS, RandomizationTest, draw_assignments, invert
+from ..errors import InvalidOptionError, NoBalancedWindowError, WindowTooSmallError
+from ..options import check_level
+from ..results.inference import LocalRandomization
+
+MIN_UNITS = 5             # every analysed window needs at least this many units on each side
+FIRST_WINDOW_UNITS = 10   # the nested sequence starts at this many units per side (convention)
+WINDOW_STEPS = 20         # nested windows w_j = w_1 (1 + (j - 1) / 2), j = 1..20 (convention)
+BALANCE_THRESHOLD = 0.15  # Cattaneo, Titiunik & Vazquez-Bare (2016); from memory
+SENSITIVITY_EXTRA = 3     # sensitivity rows beyond the chosen window
+WINDOW_TOLERANCE = 1e-10  # relative slack at the window's ends for floating-point scores
+
+
+def _check_statistic(value) -> str:
+    if isinstance(value, str):
+        for name in STATISTICS:
+            if value.strip().lower() == name.lower():
+                return name
+    choices = ", ".join(f'"{s}"' for s in STATISTICS)
+    raise InvalidOptionError(f"`statistic` must be one of {choices}; got {value!r}. Pick one of the listed values.")
+
+
+def _check_count(argument: str, value, low: int) -> int:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
+        raise InvalidOptionError(f"`{argument}` must be an integer of at least {low}; got {value!r}. "
+                                 f"Pass e.g. {argument}=10_000.")
+    return int(value)
+
+
+class _Units:
+    """Distances, treatment and columns of the usable rows (score and outcome present)."""
+
+    def __init__(self, design, outcome: str):
+        data = design._data
+        score = data.arrays[design.score]
+        y = data.arrays[outcome]
+        keep = ~np.isnan(score) & ~np.isnan(y)
+        self.cutoff = design.cutoff
+        self.x = score[keep] - design.cutoff
+        self.y = y[keep]
+        above = self.x >= 0
+        self.treated = above if design.treated == "above" else ~above
+        self.above = above
+        self.covariates = {c: data.arrays[c][keep] for c in design.covariates if c != outcome}
+
+    def in_window(self, low: float, high: float) -> np.ndarray:
+        """Both ends included, up to rounding (a score of 40.3 minus a cutoff of 40 is 0.29999...)."""
+        tol = WINDOW_TOLERANCE * max(abs(self.cutoff), abs(low), abs(high))
+        return (self.x >= low - tol) & (self.x <= high + tol)
+
+    def counts(self, mask: np.ndarray) -> tuple[int, int]:
+        return int(np.sum(mask & ~self.above)), int(np.sum(mask & self.above))
+
+    def half_width_for(self, units: int) -> float:
+        """Smallest symmetric half-width holding ``units`` units on each side (nan if impossible)."""
+        below, above = np.sort(-self.x[~self.above]), np.sort(self.x[self.above])
+        if min(len(below), len(above)) < units:
+            return float("nan")
+        return float(max(below[units - 1], above[units - 1]))
+
+
+@lru_cache(maxsize=4)
+def _assignments(n: int, n_treated: int, permutations: int, seed: int) -> tuple[np.ndarray, bool]:
+    """The draws for a window of this size; the balance checks of several covariates share them."""
+    assign, exact = draw_assignments(n, n_treated, permutations, np.random.default_rng(seed))
+    assign.setflags(write=False)
+    return assign, exact
+
+
+def _window_test(units: _Units, mask: np.ndarray, y: np.ndarray, statistic: str, permutations: int,
+                 seed: int) -> RandomizationTest:
+    treated = units.treated[mask]
+    assign, exact = _assignments(int(mask.sum()), int(treated.sum()), permutations, seed)
+    return RandomizationTest(y, treated, statistic, assign, exact)
+
+
+def _balance(units: _Units, mask: np.ndarray, permutations: int, seed):
+    """(minimum p-value over covariates, the covariate that attains it).
+
+    Balance uses the difference in means whatever the outcome's statistic (convention), so that the
+    chosen window depends on the covariates only."""
+    statistic = "difference in means"
+    best = (np.nan, None)
+    for name, z in units.covariates.items():
+        ok = mask & ~np.isnan(z)
+        if min(units.counts(ok)) < 1:
+            continue
+        p = _window_test(units, ok, z[ok], statistic, permutations, seed).p_value(z[ok])
+        if not p >= best[0]:   # also replaces nan
+            best = (p, name)
+    return best
+
+
+def _outcome_row(units: _Units, mask: np.ndarray, statistic: str, permutations: int, seed,
+                 level: float) -> dict:
+    y, treated = units.y[mask], units.treated[mask]
+    test = _window_test(units, mask, y, statistic, permutations, seed)
+    y1, y0 = y[treated], y[~treated]
+    estimate = float(y1.mean() - y0.mean())
+    se = float(np.sqrt(y1.var(ddof=1) / len(y1) + y0.var(ddof=1) / len(y0)))
+    z = stats.norm.ppf(0.5 + level / 2.0)
+    p = test.p_value(y)
+    # the difference in means gets each p(tau0) in O(assignments); other statistics recompute, so
+    # they get a coarser first grid (the ends are refined by bisection either way)
+    points = 81 if statistic == "difference in means" else 33
+    (low, high), contiguous = invert(test.p_value_shifted, estimate, se if se > 0 else 1.0, 1.0 - level,
+                                     points=points, refine=30 if points == 81 else 16)
+    n = len(test.assignments)
+    return {"estimate": estimate, "statistic_value": test.observed(y), "p_value": p,
+            "p_value_std_error": 0.0 if test.exact else float(np.sqrt(p * (1 - p) / n)),
+            "exact": test.exact, "assignments": n, "ci_low": low, "ci_high": high, "contiguous": contiguous,
+            "neyman_std_error": se, "neyman_ci_low": estimate - z * se, "neyman_ci_high": estimate + z * se}
+
+
+def _sequence(units: _Units, candidates) -> list[float]:
+    if candidates is not None:
+        widths = sorted(float(w) for w in candidates)
+        if not widths or not all(np.isfinite(w) and w > 0 for w in widths):
+            raise InvalidOptionError(f"`candidates` must be positive half-widths; got {candidates!r}. "
+                                     "Pass e.g. candidates=[0.5, 1.0, 1.5].")
+        return widths
+    first = units.half_width_for(FIRST_WINDOW_UNITS)
+    if not np.isfinite(first):
+        first = units.half_width_for(MIN_UNITS)
+    if not np.isfinite(first):
+        raise WindowTooSmallError(f"`window` must hold at least {MIN_UNITS} units on each side of the cutoff; "
+                                  "got fewer on one side in all the data. Local randomization needs more "
+                                  "units near the cutoff.")
+    reach = min(-units.x.min(), units.x.max())
+    widths = [first * (1 + 0.5 * j) for j in range(WINDOW_STEPS)]
+    return [w for w in widths if w <= reach] or [first]
+
+
+def _resolve_window(window, cutoff: float) -> tuple[float, float] | None:
+    """None, or (low, high) relative to the cutoff."""
+    if window is None:
+        return None
+    if isinstance(window, Real) and not isinstance(window, bool) and np.isfinite(window) and window > 0:
+        return (-float(window), float(window))
+    if (isinstance(window, (tuple, list)) and len(window) == 2
+            and all(isinstance(v, Real) and not isinstance(v, bool) and np.isfinite(v) for v in window)
+            and window[0] < cutoff <= window[1]):
+        return (float(window[0]) - cutoff, float(window[1]) - cutoff)
+    raise InvalidOptionError(f"`window` must be None, a positive half-width, or a pair (low, high) of scores "
+                             f"with low < cutoff <= high; got {window!r}. Pass e.g. window=0.5 or "
+                             f"window=({cutoff - 0.5:g}, {cutoff + 0.5:g}).")
+
+
+def local_randomization(design, outcome=None, *, window=None, statistic="difference in means",
+                        permutations=10_000, seed=None, level=0.95, covariates=None, candidates=None,
+                        balance_threshold=BALANCE_THRESHOLD) -> LocalRandomization:
+    """Local randomization inference for ``Design.local_randomization`` (see its docstring)."""
+    outcome = design._outcome(outcome)
+    statistic = _check_statistic(statistic)
+    permutations = _check_count("permutations", permutations, 99)
+    level = check_level(level)
+    balance_threshold = check_level(balance_threshold, "balance_threshold")
+    if seed is None:    # draw one and record it, so that the result can be reproduced
+        seed = int(np.random.SeedSequence().entropy % (2 ** 63))
+    seed = _check_count("seed", seed, 0)
+    units = _Units(design, outcome)
+    if covariates is not None:
+        names = (covariates,) if isinstance(covariates, str) else tuple(covariates)
+        unknown = [c for c in names if c not in units.covariates]
+        if unknown:
+            raise InvalidOptionError(f"`covariates` must be covariates declared in Design(...) (other than the "
+                                     f"outcome); got {unknown!r}. Declare them with covariates=[...].")
+        units.covariates = {c: units.covariates[c] for c in names}
+    given = _resolve_window(window, design.cutoff)
+    widths = _sequence(units, candidates)
+    rows = []
+    for w in widths:
+        mask = units.in_window(-w, w)
+        n_below, n_above = units.counts(mask)
+        p_min, worst = (_balance(units, mask, permutations, seed) if units.covariates
+                        else (np.nan, None))
+        rows.append({"half_width": w, "n_below": n_below, "n_above": n_above, "balance_p_value": p_min,
+                     "least_balanced": worst})
+    windows = pd.DataFrame(rows, columns=["half_width", "n_below", "n_above", "balance_p_value",
+                                          "least_balanced"])
+    passes = windows["balance_p_value"] >= balance_threshold
+    windows["passes"] = passes
+    windows["nested_pass"] = passes.cummin()   # it and every smaller window pass
+    warnings = []
+    if given is None:
+        if not units.covariates:
+            raise NoBalancedWindowError("`window` must be given when the design has no covariates; got None. "
+                                        "Declare covariates=[...] in Design(...) for the choice by balance, or "
+                                        "pass window=half-width.")
+        if not windows["nested_pass"].iloc[0]:
+            raise NoBalancedWindowError(
+                f"`window` must be given: the smallest window (half-width {widths[0]:.4g}) already has a minimum "
+                f"balance p-value of {windows['balance_p_value'].iloc[0]:.3g} < {balance_threshold:g}; got no "
+                "balanced window. Inspect the covariates near the cutoff, or pass window=half-width (its result's "
+                "`windows` table lists the balance p-values of the sequence).")
+        chosen = int(np.flatnonzero(windows["nested_pass"])[-1])
+        low, high = -widths[chosen], widths[chosen]
+        rule = "covariate balance"
+        if chosen == len(widths) - 1:
+            warnings.append("Every window in the sequence passed the balance check: the chosen window is the "
+                            "largest one tried, not a data-determined limit. Pass candidates=[...] to go further.")
+    else:
+        low, high = given
+        rule = "given"
+        chosen = int(np.searchsorted(widths, max(-low, high), side="right")) - 1
+    windows["chosen"] = np.arange(len(widths)) == chosen if given is None else False
+    mask = units.in_window(low, high)
+    n_below, n_above = units.counts(mask)
+    if min(n_below, n_above) < MIN_UNITS:
+        need = units.half_width_for(MIN_UNITS)
+        fix = (f"Use a window of half-width at least {need:.4g}" if np.isfinite(need)
+               else "There are too few units near the cutoff for this analysis")
+        raise WindowTooSmallError(f"`window` must hold at least {MIN_UNITS} units on each side of the cutoff; "
+                                  f"got {n_below} below and {n_above} above. {fix}.")
+    main = _outcome_row(units, mask, statistic, permutations, seed, level)
+    if not main["contiguous"]:
+        warnings.append("The values not rejected by the randomization test are not contiguous; the interval "
+                        "reported is their hull.")
+    if not main["exact"]:
+        warnings.append(f"Monte Carlo p-value from {main['assignments']:,} random assignments (simulation "
+                        f"standard error {main['p_value_std_error']:.2g}); pass seed=... to reproduce it.")
+    if design.takeup:
+        warnings.append(f"The design is fuzzy: this is the effect of being assigned (the side of the cutoff) on "
+                        f"{outcome!r}, not of take-up.")
+    if design.weights is not None:
+        warnings.append("Sampling weights are ignored: every unit in the window counts once.")
+    if design.cluster is not None:
+        warnings.append("Units are randomized one by one; clusters are ignored by this assignment model.")
+
+    def sensitivity() -> pd.DataFrame:
+        out = []
+        last = min(len(widths), max(chosen, 0) + 1 + SENSITIVITY_EXTRA)
+        for w in widths[:last]:
+            m = units.in_window(-w, w)
+            counts = units.counts(m)
+            if min(counts) < MIN_UNITS:
+                continue
+            r = _outcome_row(units, m, statistic, permutations, seed, level)
+            out.append({"half_width": w, "n_below": counts[0], "n_above": counts[1],
+                        **{k: r[k] for k in ("estimate", "p_value", "ci_low", "ci_high", "neyman_ci_low",
+                                             "neyman_ci_high")}})
+        return pd.DataFrame(out)
+
+    return LocalRandomization(
+        outcome=outcome, statistic=statistic, window=(low + design.cutoff, high + design.cutoff),
+        window_rule=rule, estimate=main["estimate"], statistic_value=main["statistic_value"],
+        p_value=main["p_value"], p_value_std_error=main["p_value_std_error"], exact=main["exact"],
+        assignments=main["assignments"], conf_int=(main["ci_low"], main["ci_high"]), level=level,
+        n_below=n_below, n_above=n_above, neyman_std_error=main["neyman_std_error"],
+        neyman_conf_int=(main["neyman_ci_low"], main["neyman_ci_high"]), balance_threshold=balance_threshold,
+        windows=windows, score=design.score, cutoff=design.cutoff, treated=design.treated, seed=seed,
+        warnings=tuple(warnings), sensitivity_fn=sensitivity)
