@@ -18,7 +18,7 @@ dd = pytest.importorskip("dask.dataframe")
 
 import seamline
 from seamline.errors import ColumnNotFoundError, ColumnTypeError, DataSourceError
-from seamline.partitioned import data_identity, gather_frame
+from seamline.partitioned import data_identity, gather_frame, reading_progress
 
 REL = 1e-8          # the agreement the partitioned route promises (issue target)
 KWARGS = dict(score="x", cutoff=0.0, outcome=["y", "z"], covariates=["c"], treated="above")
@@ -128,10 +128,22 @@ def test_two_worker_processes(folder, want):
     distributed = pytest.importorskip("dask.distributed")
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=None) as cluster, distributed.Client(cluster) as client:
-        design = seamline.Design(folder, **KWARGS)
+        seen = []
+        with reading_progress(lambda done, total: seen.append((done, total))):
+            design = seamline.Design(folder, **KWARGS)
         assert len(client.scheduler_info()["workers"]) == 2
     fit = design.fit()
     assert fit.table().equals(want[0]["fit"])
+    assert seen[-1] == (len(SIZES), len(SIZES))     # one report per partition, read through futures
+
+
+def test_progress_on_the_local_scheduler(folder):
+    seen = []
+    with reading_progress(lambda done, total: seen.append((done, total))):
+        seamline.Design(folder, **KWARGS)
+    assert seen == [(k, len(SIZES)) for k in range(1, len(SIZES) + 1)]
+    seamline.Design(folder, **KWARGS)               # outside the block nothing is reported
+    assert len(seen) == len(SIZES)
 
 
 # ---- bad input ----------------------------------------------------------------------------------

@@ -34,7 +34,10 @@ import glob
 import hashlib
 import os
 import re
+from contextlib import contextmanager
+from contextvars import ContextVar
 from pathlib import Path
+from typing import Callable
 
 import numpy as np
 import pandas as pd
@@ -43,6 +46,28 @@ from .errors import ColumnNotFoundError, ColumnTypeError, DataSourceError
 
 PARQUET_SUFFIXES = (".parquet", ".parq", ".pq")
 INSTALL_HINT = "Install the optional extra: pip install 'seamline[dask]'."
+# (done, total) partitions read; set by ``reading_progress`` around a Design(...) call
+Report = Callable[[int, int], None]
+_REPORT: ContextVar[Report | None] = ContextVar("seamline_reading_progress", default=None)
+
+
+@contextmanager
+def reading_progress(report: Report):
+    """Call ``report(done, total)`` as partitions of partitioned inputs are read inside this block.
+
+    Works with dask's local schedulers (through a dask callback) and with a ``dask.distributed``
+    client (through its futures); the partitions are computed exactly as without a report.
+
+    Examples
+    --------
+    >>> with reading_progress(lambda done, total: print(f"{done}/{total}")):   # doctest: +SKIP
+    ...     design = seamline.Design("births/*.parquet", score="x", cutoff=0, outcome="y")
+    """
+    token = _REPORT.set(report)
+    try:
+        yield
+    finally:
+        _REPORT.reset(token)
 
 
 def is_partitioned(data) -> bool:
@@ -212,8 +237,7 @@ def gather_frame(data, columns: list[str] | None = None, roles: dict[str, str] |
     else:
         _check_dask_dtypes(data, roles)
         frame = data[columns]
-    pieces = dask.compute(*[dask.delayed(_partition_arrays)(part, columns) for part in frame.to_delayed()])
-    pieces = list(pieces)
+    pieces = _compute([dask.delayed(_partition_arrays)(part, columns) for part in frame.to_delayed()])
     joined = {}
     for name in columns:
         parts = [p.pop(name) for p in pieces]   # drop each partition's copy as soon as it is joined
@@ -224,6 +248,38 @@ def gather_frame(data, columns: list[str] | None = None, roles: dict[str, str] |
         del parts
     n = len(next(iter(joined.values()))) if joined else 0
     return pd.DataFrame(joined, index=pd.RangeIndex(n), copy=False)
+
+
+def _compute(tasks: list) -> list:
+    """Compute the partition tasks on the active scheduler, reporting progress when asked."""
+    import dask
+    report = _REPORT.get()
+    total = len(tasks)
+    if report is None or total == 0:
+        return list(dask.compute(*tasks))
+    try:
+        from distributed import as_completed, default_client
+        client = default_client()
+    except (ImportError, ValueError):       # no distributed client: a local scheduler is active
+        client = None
+    if client is not None:
+        futures = client.compute(tasks)
+        for done, _ in enumerate(as_completed(futures), 1):
+            report(done, total)
+        return client.gather(futures)
+    from dask.callbacks import Callback
+
+    class Count(Callback):
+        done = 0
+
+        def _posttask(self, key, result, dsk, state, worker_id):
+            name = key[0] if isinstance(key, tuple) else key
+            if str(name).startswith("_partition_arrays"):
+                Count.done += 1
+                report(Count.done, total)
+
+    with Count():
+        return list(dask.compute(*tasks))
 
 
 # ---- identity for change detection --------------------------------------------------------------
