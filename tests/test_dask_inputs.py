@@ -196,3 +196,31 @@ def test_identity_follows_the_files_and_the_collection(tmp_path):
     assert data_identity(lazy) == data_identity(lazy)
     assert data_identity(lazy) != data_identity(lazy.assign(y=lazy["y"] + 1))
     assert data_identity(frame) is None
+
+
+# ---- other column kinds -------------------------------------------------------------------------
+def test_dates_labels_weights_and_take_up_from_parquet(tmp_path):
+    """A date score, text cluster labels, weights, a 0/1 take-up and an integer column with nulls."""
+    rng = np.random.default_rng(21)
+    frames = []
+    for k, size in enumerate((700, 1300, 500)):
+        days = rng.integers(-300, 300, size)
+        takeup = (rng.uniform(size=size) < np.where(days >= 0, 0.8, 0.2))
+        y = 0.01 * days + 0.6 * takeup + rng.normal(0, 0.5, size)
+        count = pd.array(rng.poisson(4, size), dtype="Int64")
+        count[::53] = pd.NA
+        frames.append(pd.DataFrame({
+            "day": pd.Timestamp("2023-03-01") + pd.to_timedelta(days, unit="D"),
+            "y": y, "takeup": takeup, "count": count,
+            "school": [f"school {i}" for i in rng.integers(0, 40, size)],
+            "w": rng.uniform(0.5, 2.0, size)}))
+        pq.write_table(pa.Table.from_pandas(frames[-1], preserve_index=False), tmp_path / f"part-{k}.parquet")
+    memory = pd.concat([pd.read_parquet(tmp_path / f"part-{k}.parquet") for k in range(3)], ignore_index=True)
+    kwargs = dict(score="day", cutoff="2023-03-01", score_unit="days", outcome=["y", "count"], takeup="takeup",
+                  cluster="school", weights="w")
+    got, want = seamline.Design(tmp_path, **kwargs), seamline.Design(memory, **kwargs)
+    for name in ("y", "count"):
+        a, b = got.fit(name).table(), want.fit(name).table()
+        assert a.equals(b), name
+    assert got.fit().n_dropped == want.fit().n_dropped
+    assert got.fit("count").n_dropped == int(memory["count"].isna().sum())   # first principles
