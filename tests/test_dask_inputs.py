@@ -17,7 +17,7 @@ import pytest
 dd = pytest.importorskip("dask.dataframe")
 
 import seamline
-from seamline.errors import ColumnNotFoundError, ColumnTypeError, DataSourceError
+from seamline.errors import ColumnNotFoundError, ColumnTypeError, DataSourceError, DuplicateColumnError
 from seamline.partitioned import data_identity, gather_frame, reading_progress
 
 REL = 1e-8          # the agreement the partitioned route promises (issue target)
@@ -224,3 +224,9 @@ def test_dates_labels_weights_and_take_up_from_parquet(tmp_path):
         assert a.equals(b), name
     assert got.fit().n_dropped == want.fit().n_dropped
     assert got.fit("count").n_dropped == int(memory["count"].isna().sum())   # first principles
+
+
+def test_duplicate_names_in_a_dask_frame():
+    frame = pd.DataFrame(np.ones((6, 3)), columns=["x", "y", "y"])
+    with pytest.raises(DuplicateColumnError, match=r"column names must be unique; got duplicates \['y'\]"):
+        seamline.Design(dd.from_pandas(frame, npartitions=2), score="x", cutoff=0.0, outcome="y")
