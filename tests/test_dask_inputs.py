@@ -129,9 +129,12 @@ def test_two_worker_processes(folder, want):
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=None) as cluster, distributed.Client(cluster) as client:
         seen = []
-        with reading_progress(lambda done, total: seen.append((done, total))):
+        with distributed.get_task_stream(client) as stream, \
+                reading_progress(lambda done, total: seen.append((done, total))):
             design = seamline.Design(folder, **KWARGS)
         assert len(client.scheduler_info()["workers"]) == 2
+        ran = [str(task["key"]) for task in stream.data]
+        assert sum("_partition_arrays" in key for key in ran) == len(SIZES)    # read on the workers
     fit = design.fit()
     assert fit.table().equals(want[0]["fit"])
     assert seen[-1] == (len(SIZES), len(SIZES))     # one report per partition, read through futures
