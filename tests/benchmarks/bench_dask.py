@@ -11,7 +11,7 @@ Prints, with their targets (issue 12):
 The data are invented here (seeded): a continuous score on [-1, 1], a smooth outcome with a jump.
 Step 3 writes about 2 GB of Parquet to a temporary folder, removes it, and runs in child processes
 so that their peak resident memory is their own; it is skipped when the machine has too little
-free memory for the route measured (the gathered route needs about 10 x the two columns).
+free memory for the route measured (the gathered route needs about 12 x the two columns).
 Run: make bench   (or .venv/bin/python tests/benchmarks/bench_dask.py [n_equal n_memory n_large])
 """
 from __future__ import annotations
@@ -125,7 +125,7 @@ def _available_bytes() -> float:
 
 def large(n: int) -> None:
     columns = 16.0 * n
-    need = 10 * columns
+    need = 12 * columns
     if _available_bytes() < need:
         print(f"[3] n = {n:,} skipped: the gathered route needs about {need / GB:.1f} GB and "
               f"{_available_bytes() / GB:.1f} GB are available")
