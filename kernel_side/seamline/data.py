@@ -20,8 +20,10 @@ from .errors import (ColumnNotFoundError, ColumnTypeError, CutoffOutOfRangeError
 
 
 def _column_names(data) -> list[str] | None:
-    """Column names of a lazy or columnar input (polars, Arrow), read from its schema: no data is read."""
+    """Column names of a lazy or columnar input (polars, Arrow, dask), read from its schema: no data is read."""
     module = type(data).__module__.split(".")[0]
+    if module == "dask" and hasattr(data, "columns"):      # a dask DataFrame: its metadata
+        return [str(c) for c in data.columns]
     if module == "polars":
         schema = data.collect_schema() if hasattr(data, "collect_schema") else data.schema
         return [str(c) for c in schema.names()]

@@ -42,7 +42,7 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from .errors import ColumnNotFoundError, ColumnTypeError, DataSourceError, DuplicateColumnError
+from .errors import ColumnNotFoundError, ColumnTypeError, DataSourceError
 
 PARQUET_SUFFIXES = (".parquet", ".parq", ".pq")
 INSTALL_HINT = "Install the optional extra: pip install 'seamline[dask]'."
@@ -175,16 +175,8 @@ def open_parquet(path, roles: dict[str, str]):
 
 # ---- dask DataFrames ----------------------------------------------------------------------------
 def _check_dask_dtypes(frame, roles: dict[str, str]) -> None:
-    """Names and dtypes from the collection's metadata (nothing is computed)."""
-    from .data import _missing_column
-    names = [str(c) for c in frame.columns]
-    dups = sorted({n for n in names if names.count(n) > 1})
-    if dups:
-        raise DuplicateColumnError(f"column names must be unique; got duplicates {dups!r}. "
-                                   "Rename or drop the duplicated columns before declaring the design.")
+    """Dtypes from the collection's metadata (nothing is computed); DesignData checked the names."""
     for name, role in roles.items():
-        if name not in names:
-            raise _missing_column(names, name, role)
         if role == "cluster":
             continue
         dtype = frame.dtypes[name]
