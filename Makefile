@@ -27,7 +27,7 @@ venv: $(STAMP)
 # it where JupyterLab finds it.
 $(STAMP): pyproject.toml $(EXTENSION_SOURCES)
 	test -x $(PY) || $(PYTHON) -m venv $(VENV)
-	$(PY) -m pip install -e ".[notebook,test]"
+	$(PY) -m pip install -e ".[notebook,test,dask]"
 	touch $(STAMP)
 
 # Debian's chromium for the browser tests (never a browser download); needs root or sudo.

@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 
 from .core.side import Side
+from .partitioned import gather_frame, is_partitioned
 from .time_score import TimeScale, is_time_column, reject_time_cutoff, time_scale
 from .errors import (ColumnNotFoundError, ColumnTypeError, CutoffOutOfRangeError,
                      DuplicateColumnError, EmptyColumnError, InvalidWeightsError,
@@ -19,8 +20,10 @@ from .errors import (ColumnNotFoundError, ColumnTypeError, CutoffOutOfRangeError
 
 
 def _column_names(data) -> list[str] | None:
-    """Column names of a lazy or columnar input (polars, Arrow), read from its schema: no data is read."""
+    """Column names of a lazy or columnar input (polars, Arrow, dask), read from its schema: no data is read."""
     module = type(data).__module__.split(".")[0]
+    if module == "dask" and hasattr(data, "columns"):      # a dask DataFrame: its metadata
+        return [str(c) for c in data.columns]
     if module == "polars":
         schema = data.collect_schema() if hasattr(data, "collect_schema") else data.schema
         return [str(c) for c in schema.names()]
@@ -32,16 +35,19 @@ def _column_names(data) -> list[str] | None:
     return None
 
 
-def as_frame(data, columns: list[str] | None = None) -> pd.DataFrame:
+def as_frame(data, columns: list[str] | None = None, roles: dict[str, str] | None = None) -> pd.DataFrame:
     """The user's data as a pandas DataFrame, reading no more than the design needs.
 
     A pandas DataFrame is used as it is (never copied or modified). A polars ``LazyFrame`` or
     ``DataFrame`` and an Arrow ``Table``, ``RecordBatch`` or ``Dataset`` collect only ``columns``
     (so a lazy frame computes nothing else); anything with ``to_pandas`` or ``__dataframe__`` is
-    converted whole.
+    converted whole. A dask DataFrame or a path / glob of Parquet files is read partition by partition
+    on the active dask scheduler, only ``columns`` (seamline.partitioned).
     """
     if isinstance(data, pd.DataFrame):
         return data
+    if is_partitioned(data):
+        return gather_frame(data, columns, roles)
     names = _column_names(data)
     if names is not None:
         wanted = names if columns is None else [c for c in dict.fromkeys(columns) if c in names]
@@ -57,8 +63,8 @@ def as_frame(data, columns: list[str] | None = None) -> pd.DataFrame:
         return data.to_pandas()
     if hasattr(data, "__dataframe__"):
         return pd.api.interchange.from_dataframe(data)
-    raise TypeError(f"`data` must be a pandas DataFrame (or a polars or Arrow table); got {type(data).__name__}. "
-                    "Convert it with pandas.DataFrame(...) first.")
+    raise TypeError(f"`data` must be a pandas DataFrame (or a polars or Arrow table, a dask DataFrame or a path of "
+                    f"Parquet files); got {type(data).__name__}. Convert it with pandas.DataFrame(...) first.")
 
 
 def check_columns(data, roles: dict[str, str]) -> None:
@@ -156,7 +162,7 @@ class DesignData:
                  **{c: "covariates" for c in covariates}, **({cluster: "cluster"} if cluster else {}),
                  **({weights: "weights"} if weights else {})}
         check_columns(data, roles)
-        frame = as_frame(data, list(roles))
+        frame = as_frame(data, list(roles), roles)
         dups = frame.columns[frame.columns.duplicated()].unique().tolist()
         if dups:
             raise DuplicateColumnError(f"column names must be unique; got duplicates {dups!r}. "

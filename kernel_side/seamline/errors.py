@@ -25,6 +25,10 @@ class DuplicateColumnError(SeamlineError):
     """The data holds two columns with the same name, so a name is ambiguous."""
 
 
+class DataSourceError(SeamlineError):
+    """A data source named by path (Parquet files) cannot be found or read."""
+
+
 class ColumnTypeError(SeamlineError, TypeError):
     """A column that must be numeric is not."""
 

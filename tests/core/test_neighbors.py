@@ -58,3 +58,22 @@ def test_chunked_path_equals_whole(monkeypatch):
     monkeypatch.setattr(nb, "CHUNK", 97)
     chunked = nb.neighbor_residuals(x, v, 3)
     assert np.array_equal(whole[0], chunked[0]) and np.array_equal(whole[1], chunked[1])
+
+
+@pytest.mark.parametrize("values", ["mass points", "near ties", "mixed"])
+def test_chunked_groups_of_ties_equal_whole(monkeypatch, values):
+    # Chunks of tied groups with a J-group halo must give exactly the one-chunk result.
+    import seamline.core.neighbors as nb
+    rng = np.random.default_rng(3)
+    if values == "mass points":
+        x = np.sort(rng.integers(0, 40, 3000).astype(float))
+    elif values == "near ties":
+        x = np.sort(np.round(rng.uniform(0, 1, 3000), 3) + rng.uniform(0, 1e-14, 3000))
+    else:
+        x = np.sort(np.r_[rng.uniform(0, 1, 2000), np.full(700, 0.25), np.full(300, 0.75)])
+    v = rng.normal(size=(x.size, 2)) + 1e3
+    whole = nb.neighbor_residuals(x, v, 3)
+    for size in (1, 2, 5, 97):
+        monkeypatch.setattr(nb, "CHUNK", size)
+        chunked = nb.neighbor_residuals(x, v, 3)
+        assert np.array_equal(whole[0], chunked[0], equal_nan=True) and np.array_equal(whole[1], chunked[1])

@@ -37,12 +37,18 @@ def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int 
     if n < 2:
         return np.full_like(vals, np.nan), np.zeros(n, dtype=int)
     tol = rel_tol * max(x[-1] - x[0], np.finfo(float).tiny)
-    gaps = np.diff(x)
-    if gaps.min() > tol:
+    # Where a new group of (near-)equal values starts, found chunk by chunk: no full-length gaps array.
+    new_group = np.empty(n, dtype=bool)
+    new_group[0] = True
+    for start in range(1, n, CHUNK):
+        stop = min(start + CHUNK, n)
+        np.greater(x[start:stop] - x[start - 1:stop - 1], tol, out=new_group[start:stop])
+    resid = np.empty_like(vals)
+    m = np.empty(n, dtype=int)
+    if new_group.all():
         # Without ties every neighbour lies within J positions, so chunks with a J-row halo are
         # exact and keep the temporaries small.
-        resid = np.empty_like(vals)
-        m = np.empty(n, dtype=int)
+        del new_group
         for start in range(0, n, CHUNK):
             stop = min(start + CHUNK, n)
             lo, hi = max(0, start - neighbors), min(n, stop + neighbors)
@@ -50,10 +56,30 @@ def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int 
             resid[start:stop] = r[start - lo: stop - lo]
             m[start:stop] = mm[start - lo: stop - lo]
         return resid, m
+    starts = np.flatnonzero(new_group)
+    del new_group
+    # Every neighbour of a group lies within J groups of it (each expansion step adds a group), so
+    # chunks of groups with a J-group halo on each side give exactly the whole-side result.
+    n_groups = len(starts)
+    for g0 in range(0, n_groups, CHUNK):
+        g1 = min(g0 + CHUNK, n_groups)
+        h0, h1 = max(0, g0 - neighbors), min(n_groups, g1 + neighbors)
+        lo, hi = starts[h0], (starts[h1] if h1 < n_groups else n)
+        first, stop = starts[g0], (starts[g1] if g1 < n_groups else n)
+        _with_ties(x[lo:hi], vals[lo:hi], neighbors, tol, starts[h0:h1] - lo,
+                   (first - lo, stop - lo), resid[first:stop], m[first:stop])
+    return resid, m
 
-    # Group (near-)equal values: a mass point is one group. Distances are measured between groups.
-    starts = np.flatnonzero(np.r_[True, gaps > tol])
-    del gaps
+
+def _with_ties(x: np.ndarray, vals: np.ndarray, neighbors: int, tol: float, starts: np.ndarray,
+               rows: tuple[int, int], resid: np.ndarray, m_rows: np.ndarray) -> None:
+    """Residuals when some values are tied, written into ``resid`` and ``m_rows`` for ``rows``.
+
+    ``starts`` are the first rows of the groups of ties in ``x``; ``rows`` (a range of whole groups,
+    J groups from either end of ``x`` unless the side ends there) are the rows to fill.
+    """
+    n = len(x)
+    # A mass point is one group; distances are measured between groups.
     counts = np.diff(np.r_[starts, n])
     g_val = x[starts]
     g_sum = np.add.reduceat(vals, starts, axis=0)
@@ -88,20 +114,17 @@ def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int 
         idx = np.minimum(lo + offset, n_groups - 1)
         range_sum += np.where(inside[:, None], g_sum[idx], 0.0)
 
-    # Per-row residuals in chunks, so the temporaries stay small for large sides.
-    resid = np.empty_like(vals)
-    m_rows = np.empty(n, dtype=int)
-    group_of = np.repeat(np.arange(n_groups, dtype=np.int32), counts)
-    for start in range(0, n, CHUNK):
-        stop = min(start + CHUNK, n)
-        group = group_of[start:stop]
+    # Per-row residuals in chunks, so the temporaries stay small for large groups.
+    first, last = rows
+    for start in range(first, last, CHUNK):
+        stop = min(start + CHUNK, last)
+        group = np.searchsorted(starts, np.arange(start, stop), side="right") - 1
         m = have[group].astype(float)
         with np.errstate(invalid="ignore", divide="ignore"):
             neighbor_mean = (range_sum[group] - vals[start:stop]) / m[:, None]
             scale = np.sqrt(m / (m + 1.0))
-        resid[start:stop] = scale[:, None] * (vals[start:stop] - neighbor_mean)
-        m_rows[start:stop] = have[group]
-    return resid, m_rows
+        resid[start - first: stop - first] = scale[:, None] * (vals[start:stop] - neighbor_mean)
+        m_rows[start - first: stop - first] = have[group]
 
 
 def _without_ties(x: np.ndarray, vals: np.ndarray, neighbors: int, tol: float):

@@ -14,7 +14,7 @@ from ..core.locpoly import SideFit, variance_fast, window_arrays
 from ..data import DesignData, Prepared, as_frame, check_columns, column_names
 from ..errors import CutoffTypeError, InvalidOptionError
 from ..options import SIDES, check_option
-from ..time_score import TIME_CAUTION, is_time_value
+from ..time_score import TIME_CAUTION, is_time_value, looks_like_date
 from ..results.fit import Fit
 from .engine import JumpEngine, check_support, use_fast_variance
 from .multiple_cutoffs import CutoffNotChosen, plan_cutoffs
@@ -105,12 +105,15 @@ class Design:
         self._source = data
         columns = (*self.outcomes, *(c for c in (takeup, cluster, weights) if c), *self.covariates)
         names = column_names(data)
-        cutoff_column = (cutoff,) if isinstance(cutoff, str) and (names is None or cutoff in names) else ()
-        check_columns(data, {score: "score", **dict.fromkeys(cutoff_column, "cutoff"),
-                             **{o: "outcome" for o in self.outcomes}, **({takeup: "takeup"} if takeup else {}),
-                             **{c: "covariates" for c in self.covariates}, **({cluster: "cluster"} if cluster else {}),
-                             **({weights: "weights"} if weights else {})})
-        self._frame = as_frame(data, [score, *cutoff_column, *columns])
+        # A text cutoff names a column of per-unit cutoffs, unless it is an ISO date (a date score's cutoff).
+        cutoff_column = (cutoff,) if isinstance(cutoff, str) and (
+            cutoff in names if names is not None else not looks_like_date(cutoff)) else ()
+        roles = {score: "score", **dict.fromkeys(cutoff_column, "cutoff"),
+                 **{o: "outcome" for o in self.outcomes}, **({takeup: "takeup"} if takeup else {}),
+                 **{c: "covariates" for c in self.covariates}, **({cluster: "cluster"} if cluster else {}),
+                 **({weights: "weights"} if weights else {})}
+        check_columns(data, roles)
+        self._frame = as_frame(data, list(roles), roles)
         self._declared = dict(score=score, cutoff=cutoff, outcome=self.outcomes, treated=self.treated,
                               takeup=takeup, covariates=self.covariates, cluster=cluster, weights=weights,
                               score_unit=score_unit)

@@ -1,0 +1,235 @@
+"""Dask DataFrames and Parquet paths as design data.
+
+Reference: the in-memory pandas path on the same rows (``pandas.concat`` of the pieces written to
+Parquet). Every result must agree to a relative difference below 1e-8 with identical counts; the
+partitioned route gathers the design's columns exactly, so in practice the numbers are identical.
+"""
+from __future__ import annotations
+
+import os
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+
+dd = pytest.importorskip("dask.dataframe")
+
+import seamline
+from seamline.errors import ColumnNotFoundError, ColumnTypeError, DataSourceError, DuplicateColumnError
+from seamline.partitioned import data_identity, gather_frame, reading_progress
+
+REL = 1e-8          # the agreement the partitioned route promises (issue target)
+KWARGS = dict(score="x", cutoff=0.0, outcome=["y", "z"], covariates=["c"], treated="above")
+SIZES = (1700, 260, 900, 2100)       # uneven partitions; the second holds no rows near the cutoff
+
+
+def pieces(seed=12):
+    """Test data generated here (seeded): missing values in the outcome, the score and a covariate."""
+    rng = np.random.default_rng(seed)
+    out = []
+    for k, size in enumerate(SIZES):
+        x = rng.uniform(-0.99, -0.8, size) if k == 1 else rng.uniform(-1, 1, size)
+        c = rng.normal(size=size)
+        y = 1.0 + 0.8 * x - 0.5 * x ** 2 + 0.25 * (x >= 0) + 0.2 * c + rng.normal(0, 0.3, size)
+        z = rng.poisson(3, size).astype(np.int64)           # an integer outcome, converted like pandas does
+        frame = pd.DataFrame({"x": x, "y": y, "z": z, "c": c, "note": ["text"] * size})
+        frame.loc[frame.index[::89], "y"] = np.nan
+        frame.loc[frame.index[5::211], "x"] = np.nan
+        frame.loc[frame.index[7::301], "c"] = np.nan
+        out.append(frame)
+    return out
+
+
+@pytest.fixture(scope="module")
+def folder(tmp_path_factory):
+    path = tmp_path_factory.mktemp("parquet")
+    for k, frame in enumerate(pieces()):
+        pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), path / f"part-{k}.parquet")
+    return path
+
+
+@pytest.fixture(scope="module")
+def memory():
+    return seamline.Design(pd.concat(pieces(), ignore_index=True), **KWARGS)
+
+
+def results(design):
+    """Every result the issue names, as tables (plus the fits' own fields)."""
+    fit = design.fit()
+    manual = design.fit(bandwidth=(0.3, 0.4), pilot_bandwidth=0.6, variance="hc2")
+    tables = {
+        "fit": fit.table(), "manual": manual.table(),
+        "fit-ik": design.fit(bandwidth="ik").table(),
+        "fit-adjusted": design.fit(adjust=True, variance="hc1").table(),
+        "integer outcome": design.fit("z", bandwidth="coverage").table(),
+        "bandwidths": design.bandwidths(),
+        "density local-cdf": design.density_test().table(),
+        "density binned": design.density_test("binned").table(),
+        "bins": design.bins().table(),
+        "balance": design.balance().table(),
+        "sensitivity": design.sensitivity().table(),
+        "placebo": design.placebo_cutoffs().table(),
+        "donut": design.donut().table(),
+    }
+    counts = {"n_used": fit.n_used, "n_total": fit.n_total, "n_dropped": fit.n_dropped,
+              "manual n_used": manual.n_used, "manual n_dropped": manual.n_dropped}
+    return tables, counts
+
+
+def assert_same(got, want):
+    got_tables, got_counts = got
+    want_tables, want_counts = want
+    assert got_counts == want_counts
+    for name, table in want_tables.items():
+        other = got_tables[name]
+        assert list(other.columns) == list(table.columns), name
+        for column in table.columns:
+            a, b = other[column].to_numpy(), table[column].to_numpy()
+            if pd.api.types.is_integer_dtype(table[column]):
+                np.testing.assert_array_equal(a, b, err_msg=f"{name}: {column}")      # counts identical
+            elif pd.api.types.is_float_dtype(table[column]):
+                np.testing.assert_allclose(a, b, rtol=REL, atol=0, equal_nan=True, err_msg=f"{name}: {column}")
+            else:
+                assert [str(v) for v in a] == [str(v) for v in b], f"{name}: {column}"
+
+
+@pytest.fixture(scope="module")
+def want(memory):
+    return results(memory)
+
+
+def test_parquet_folder_equals_memory(folder, want):
+    assert_same(results(seamline.Design(folder, **KWARGS)), want)
+
+
+def test_parquet_glob_and_dask_frame_equal_memory(folder, want, memory):
+    design = seamline.Design(str(folder / "part-*.parquet"), **KWARGS)
+    assert_same(results(design), want)
+    frame = dd.read_parquet(sorted(str(p) for p in folder.glob("*.parquet")))
+    assert_same(results(seamline.Design(frame, **KWARGS)), want)
+
+
+def test_missing_rows_are_counted_as_in_memory(folder):
+    data = pd.concat(pieces(), ignore_index=True)
+    fit = seamline.Design(folder, **KWARGS).fit()
+    # First principles: rows missing the score or the outcome are dropped and counted.
+    assert fit.n_dropped == int((data["x"].isna() | data["y"].isna()).sum())
+
+
+def test_only_the_design_columns_are_read(folder):
+    frame = gather_frame(folder, ["x", "y"])
+    assert list(frame.columns) == ["x", "y"] and len(frame) == sum(SIZES)
+    assert frame["x"].dtype == np.float64
+
+
+def test_two_worker_processes(folder, want):
+    distributed = pytest.importorskip("dask.distributed")
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None) as cluster, distributed.Client(cluster) as client:
+        seen = []
+        with distributed.get_task_stream(client) as stream, \
+                reading_progress(lambda done, total: seen.append((done, total))):
+            design = seamline.Design(folder, **KWARGS)
+        assert len(client.scheduler_info()["workers"]) == 2
+        ran = [str(task["key"]) for task in stream.data]
+        assert sum("_partition_arrays" in key for key in ran) == len(SIZES)    # read on the workers
+    fit = design.fit()
+    assert fit.table().equals(want[0]["fit"])
+    assert seen[-1] == (len(SIZES), len(SIZES))     # one report per partition, read through futures
+
+
+def test_progress_on_the_local_scheduler(folder):
+    seen = []
+    with reading_progress(lambda done, total: seen.append((done, total))):
+        seamline.Design(folder, **KWARGS)
+    assert seen == [(k, len(SIZES)) for k in range(1, len(SIZES) + 1)]
+    seamline.Design(folder, **KWARGS)               # outside the block nothing is reported
+    assert len(seen) == len(SIZES)
+
+
+# ---- bad input ----------------------------------------------------------------------------------
+def test_a_path_matching_no_file(tmp_path):
+    with pytest.raises(DataSourceError, match=r"`data` path .*nothing-\*\.parquet' must match at least one "
+                                              r"Parquet file; got none\. Check the path"):
+        seamline.Design(str(tmp_path / "nothing-*.parquet"), **KWARGS)
+
+
+def test_a_column_missing_from_some_files(tmp_path):
+    first, second = pieces()[:2]
+    pq.write_table(pa.Table.from_pandas(first, preserve_index=False), tmp_path / "a.parquet")
+    pq.write_table(pa.Table.from_pandas(second.drop(columns="c"), preserve_index=False), tmp_path / "b.parquet")
+    with pytest.raises(ColumnNotFoundError, match=r"`covariates` column 'c' must be in every Parquet file; got "
+                                                  r"it missing from 1 of 2 files \(.*b\.parquet'\)\. Rewrite"):
+        seamline.Design(tmp_path, **KWARGS)
+
+
+def test_a_text_score_in_the_parquet_schema(tmp_path):
+    frame = pieces()[0].assign(x=lambda f: f["x"].astype(str))
+    pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), tmp_path / "a.parquet")
+    with pytest.raises(ColumnTypeError, match=r"`score` column 'x' must be numeric or a date/time; got Parquet "
+                                              r"type (large_)?string in .*a\.parquet'\. Write the column as numbers"):
+        seamline.Design(tmp_path, **KWARGS)
+
+
+def test_a_text_outcome_in_a_dask_frame():
+    frame = dd.from_pandas(pieces()[0].assign(y=lambda f: f["y"].astype(str)), npartitions=2)
+    with pytest.raises(ColumnTypeError, match=r"`outcome` column 'y' must be numeric; got dtype"):
+        seamline.Design(frame, **KWARGS)
+
+
+def test_a_misspelt_column_of_a_dask_frame():
+    frame = dd.from_pandas(pieces()[0], npartitions=2)
+    with pytest.raises(ColumnNotFoundError, match=r"`covariates` column 'cc' is not in the data. Did you mean 'c'"):
+        seamline.Design(frame, score="x", cutoff=0.0, outcome="y", covariates=["cc"])
+
+
+# ---- identity for change detection --------------------------------------------------------------
+def test_identity_follows_the_files_and_the_collection(tmp_path):
+    frame = pieces()[0]
+    target = tmp_path / "a.parquet"
+    pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), target)
+    before = data_identity(tmp_path)
+    assert data_identity(tmp_path) == before
+    pq.write_table(pa.Table.from_pandas(frame.iloc[:-1], preserve_index=False), target)
+    os.utime(target, ns=(1, 1))        # a new size and a new modification time
+    assert data_identity(tmp_path) != before
+    lazy = dd.from_pandas(frame, npartitions=2)
+    assert data_identity(lazy) == data_identity(lazy)
+    assert data_identity(lazy) != data_identity(lazy.assign(y=lazy["y"] + 1))
+    assert data_identity(frame) is None
+
+
+# ---- other column kinds -------------------------------------------------------------------------
+def test_dates_labels_weights_and_take_up_from_parquet(tmp_path):
+    """A date score, text cluster labels, weights, a 0/1 take-up and an integer column with nulls."""
+    rng = np.random.default_rng(21)
+    frames = []
+    for k, size in enumerate((700, 1300, 500)):
+        days = rng.integers(-300, 300, size)
+        takeup = (rng.uniform(size=size) < np.where(days >= 0, 0.8, 0.2))
+        y = 0.01 * days + 0.6 * takeup + rng.normal(0, 0.5, size)
+        count = pd.array(rng.poisson(4, size), dtype="Int64")
+        count[::53] = pd.NA
+        frames.append(pd.DataFrame({
+            "day": pd.Timestamp("2023-03-01") + pd.to_timedelta(days, unit="D"),
+            "y": y, "takeup": takeup, "count": count,
+            "school": [f"school {i}" for i in rng.integers(0, 40, size)],
+            "w": rng.uniform(0.5, 2.0, size)}))
+        pq.write_table(pa.Table.from_pandas(frames[-1], preserve_index=False), tmp_path / f"part-{k}.parquet")
+    memory = pd.concat([pd.read_parquet(tmp_path / f"part-{k}.parquet") for k in range(3)], ignore_index=True)
+    kwargs = dict(score="day", cutoff="2023-03-01", score_unit="days", outcome=["y", "count"], takeup="takeup",
+                  cluster="school", weights="w")
+    got, want = seamline.Design(tmp_path, **kwargs), seamline.Design(memory, **kwargs)
+    for name in ("y", "count"):
+        a, b = got.fit(name).table(), want.fit(name).table()
+        assert a.equals(b), name
+    assert got.fit().n_dropped == want.fit().n_dropped
+    assert got.fit("count").n_dropped == int(memory["count"].isna().sum())   # first principles
+
+
+def test_duplicate_names_in_a_dask_frame():
+    frame = pd.DataFrame(np.ones((6, 3)), columns=["x", "y", "y"])
+    with pytest.raises(DuplicateColumnError, match=r"column names must be unique; got duplicates \['y'\]"):
+        seamline.Design(dd.from_pandas(frame, npartitions=2), score="x", cutoff=0.0, outcome="y")
