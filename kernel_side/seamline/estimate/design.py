@@ -12,7 +12,7 @@ from ..core.bandwidth import Selection, coverage_factor, ik_bandwidth, mse_selec
 from ..core.kernels import normal_reference_constant
 from ..core.locpoly import SideFit, variance_fast, window_arrays
 from ..data import DesignData, Prepared
-from ..errors import InvalidOptionError
+from ..errors import InvalidOptionError, shown
 from ..options import SIDES, check_option
 from ..results.fit import Fit
 from .engine import JumpEngine, check_support, use_fast_variance
@@ -55,9 +55,9 @@ def _as_names(value, argument: str) -> tuple[str, ...]:
     try:
         names = tuple(value)
     except TypeError:
-        raise InvalidOptionError(f"`{argument}` must be a column name or a list of names; got {value!r}.") from None
+        raise InvalidOptionError(f"`{argument}` must be a column name or a list of names; got {shown(value)}.") from None
     if not all(isinstance(n, str) for n in names):
-        raise InvalidOptionError(f"`{argument}` must be column names (strings); got {value!r}.")
+        raise InvalidOptionError(f"`{argument}` must be column names (strings); got {shown(value)}.")
     return names
 
 
@@ -97,7 +97,7 @@ class Design:
         try:
             cutoff = float(cutoff)
         except (TypeError, ValueError):
-            raise InvalidOptionError(f"`cutoff` must be a number; got {cutoff!r}. Pass e.g. cutoff=40.") from None
+            raise InvalidOptionError(f"`cutoff` must be a number; got {shown(cutoff)}. Pass e.g. cutoff=40.") from None
         self.cutoff = cutoff
         self._data = DesignData(data, score=score, cutoff=cutoff, outcomes=self.outcomes, takeup=takeup,
                                 covariates=self.covariates, cluster=cluster, weights=weights)
@@ -123,7 +123,7 @@ class Design:
         if outcome in allowed:
             return outcome
         raise InvalidOptionError(f"`outcome` must be one of the design's outcomes, covariates or take-up "
-                                 f"{list(allowed)}; got {outcome!r}. Declare it in Design(...).")
+                                 f"{list(allowed)}; got {shown(outcome)}. Declare it in Design(...).")
 
     def _spec(self, outcome=None, **options) -> FitSpec:
         return resolve(self._outcome(outcome), has_covariates=bool(self.covariates), **options)
