@@ -170,7 +170,7 @@ def value_label(value: Any) -> Any:
             factor = float(value[1:])
         except ValueError:
             return value
-        return f"{factor:g} x selected bandwidth"
+        return f"{factor:g} x selected"
     return value
 
 

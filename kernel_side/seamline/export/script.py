@@ -215,7 +215,9 @@ def load_data(path):
         sys.exit(f"DATA_PATH must name an existing file; got {{str(path)!r}}. Fix the path or pass --data FILE.")
     suffix = path.suffix.lower()
     if suffix == ".csv":
-        return pd.read_csv(path, float_precision="round_trip")
+        # floats read back bit for bit: pandas 3 does it by default, pandas 2 needs the round-trip parser
+        exact = {{}} if int(pd.__version__.split(".")[0]) >= 3 else {{"float_precision": "round_trip"}}
+        return pd.read_csv(path, **exact)
     if suffix in (".parquet", ".pq"):
         return pd.read_parquet(path)
     sys.exit(f"DATA_PATH must end in .csv or .parquet; got {{str(path)!r}}. Convert the data to one of them.")

@@ -133,8 +133,9 @@ class Sensitivity(Reported):
         return f"Bandwidth sensitivity: {self.outcome}"
 
     def notes(self) -> list[str]:
-        return ["Rows labelled x0.5 ... x2 scale the selected bandwidth; named rows use that selector. Robust "
-                "bias-corrected intervals are valid for bandwidths not much larger than the MSE-optimal one; "
+        return ["Rows \"0.5 x selected\" ... \"2 x selected\" scale the selected bandwidth; named rows use that "
+                "selector. Robust bias-corrected intervals are valid for bandwidths not much larger than the "
+                "MSE-optimal one; "
                 "choosing the bandwidth after looking at this table invalidates nominal coverage."]
 
 
