@@ -22,7 +22,7 @@ import pytest
 import seamline
 from seamline.demo_data import fuzzy_scenario, sharp_scenario
 from seamline.errors import InvalidOptionError
-from seamline.export.script import PANEL_CALLS, replication_script
+from seamline.export.script import PANEL_CALLS, board_script, replication_script
 
 PACKAGE_PARENT = str(Path(seamline.__file__).resolve().parents[1])
 ALL_PANELS = ("fit", *PANEL_CALLS)
@@ -203,8 +203,8 @@ def test_matches_a_board_built_from_the_same_declaration(tmp_path):
     data_path = tmp_path / "invented.csv"
     data.to_csv(data_path, index=False)
     script = tmp_path / "replicate.py"
-    script.write_text(replication_script(board.spec, board.options, board.panels, data_path=data_path,
-                                         name=board.name), encoding="utf-8")
+    text = board_script(board, script, data_path=data_path)    # what Board.export("script", ...) returns
+    assert script.read_text(encoding="utf-8") == text and "'invented'" in text
     out = tmp_path / "numbers.json"
     assert run_script(script, "--json", str(out)).returncode == 0
     numbers = json.loads(out.read_text(encoding="utf-8"))

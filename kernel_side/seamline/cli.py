@@ -244,7 +244,7 @@ def write_report(spec_path: str | Path, out: str | Path, *, progress: Callable[[
         With ``code`` 2 for a bad spec or data file, 1 when the main estimate fails.
     """
     from .notebook.magic import build_board
-    from .export.script import replication_script
+    from .export.script import board_script
 
     spec_path, out = Path(spec_path), Path(out)
     steps = 7
@@ -271,8 +271,8 @@ def write_report(spec_path: str | Path, out: str | Path, *, progress: Callable[[
     files += [f"figures/{name}" for name in _figures(board, figures, progress)]
     progress(f"[6/{steps}] writing {out / 'methods.txt'} and {out / 'replicate.py'}")
     files.append(_write(out / "methods.txt", board.methods_paragraph() + "\n"))
-    files.append(_write(out / "replicate.py", replication_script(board.spec, board.options, board.panels,
-                                                                 data_path=data_path, name=board.name)))
+    board_script(board, out / "replicate.py", data_path=data_path)
+    files.append("replicate.py")
     progress(f"[7/{steps}] writing {out / 'report.html'}")
     _write(out / "report.html", _page(board, spec_path, data_path, files))
     board.close()

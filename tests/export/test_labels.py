@@ -20,7 +20,7 @@ from seamline.export import labels
 from seamline.export.methods import methods_paragraph
 from seamline.results.base import CAUTION
 
-FORMATS = ("latex", "markdown", "html", "csv")
+FORMATS = ("latex", "markdown", "html", "csv", "text")
 
 
 @pytest.fixture(scope="module")
@@ -62,7 +62,7 @@ def machine_names(results: dict) -> set[str]:
 
 def render(result, fmt: str) -> str:
     return {"latex": result.to_latex, "markdown": result.to_markdown, "html": result.to_html,
-            "csv": result.to_csv}[fmt]()
+            "csv": result.to_csv, "text": lambda: labels.export_table(result, "text")}[fmt]()
 
 
 def header_cells(text: str, fmt: str) -> list[str]:
@@ -74,6 +74,8 @@ def header_cells(text: str, fmt: str) -> list[str]:
         return [c.strip().replace("\\", "") for c in line.strip("|").split(" | ")]
     if fmt == "html":
         return [html.unescape(c) for c in re.findall(r"<th[^>]*>(.*?)</th>", text)]
+    if fmt == "text":   # title, then pandas' to_string header line: labels hold spaces, so words
+        return text.splitlines()[1].split()
     lines = text.splitlines()
     header = lines[lines.index(r"\toprule") + 1]
     return [c.strip().replace("\\", "") for c in header.removesuffix(r" \\").split(" & ")]
@@ -142,3 +144,21 @@ def test_labelled_frame_leaves_the_input_alone(results):
     before = table.copy()
     labels.labelled_frame(table, level=0.95)
     pd.testing.assert_frame_equal(table, before)
+
+
+@pytest.mark.parametrize("fmt", FORMATS)
+def test_export_table_renders_results_and_frames_alike(results, fmt):
+    fit = results["sharp fit"]
+    if fmt != "text":
+        assert labels.export_table(fit, fmt) == render(fit, fmt)
+    frame = bandwidth_rules()
+    text = labels.export_table(frame, fmt, title="Bandwidth rules")
+    assert "Pilot bandwidth (below)" in text and "pilot_below" not in text
+
+
+def test_export_table_text_header_has_only_labels(results):
+    text = labels.export_table(results["sensitivity"], "text")
+    header = text.splitlines()[1]
+    assert "Robust 95% CI" in header and "robust_ci_low" not in header
+    with pytest.raises(seamline.errors.InvalidOptionError, match=r"`fmt` must be one of .*got 'pdf'"):
+        labels.export_table(results["sensitivity"], "pdf")

@@ -26,7 +26,9 @@ __all__ = [
     "RESULT_LABELS",
     "ROW_LABELS",
     "VALUE_LABELS",
+    "TABLE_FORMATS",
     "column_label",
+    "export_table",
     "interval_label",
     "labelled_frame",
     "labelled_model",
@@ -265,3 +267,41 @@ def result_model(result: Any, *, join_intervals: bool = True, title: str | None 
     return labelled_model(result.table(), title=result.title() if title is None else title, notes=notes,
                           level=_level_of(result), join_intervals=join_intervals, decimals=decimals,
                           overrides=RESULT_LABELS.get(type(result).__name__))
+
+
+#: Formats of :func:`export_table`.
+TABLE_FORMATS = ("latex", "markdown", "html", "csv", "text")
+
+
+def export_table(result: Any, fmt: str, *, title: str | None = None) -> str:
+    """Any result (or a plain DataFrame such as the bandwidth rules) rendered for a reader.
+
+    The one entry point for a board's table exports and panel tables: reader labels, notes and
+    warnings under the table, full precision in CSV.
+
+    Parameters
+    ----------
+    result : a seamline result or a pandas DataFrame with machine column names
+    fmt : "latex", "markdown", "html", "csv" or "text"
+    title : str, optional
+        The caption (default: the result's own title; required wording for a DataFrame).
+
+    Returns
+    -------
+    str
+    """
+    from ..options import check_option
+    from .render import to_csv, to_html, to_latex, to_markdown
+
+    fmt = check_option("fmt", fmt, TABLE_FORMATS)
+    join = fmt != "csv"
+    if isinstance(result, pd.DataFrame):
+        model = labelled_model(result, title=title or "", join_intervals=join)
+    else:
+        model = result_model(result, join_intervals=join, title=title)
+    if fmt == "text":
+        grid = [[model.display(i, j) for j in range(len(model.columns))] for i in range(len(model.rows))]
+        lines = [model.title] if model.title else []
+        lines += [pd.DataFrame(grid, columns=list(model.columns)).to_string(index=False), *model.notes]
+        return "\n".join(lines) + "\n"
+    return {"latex": to_latex, "markdown": to_markdown, "html": to_html, "csv": to_csv}[fmt](model)

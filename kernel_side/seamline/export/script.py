@@ -18,7 +18,7 @@ from typing import Any
 
 from ..errors import InvalidOptionError, shown
 
-__all__ = ["PANEL_CALLS", "replication_script"]
+__all__ = ["PANEL_CALLS", "board_script", "replication_script"]
 
 #: The call that rebuilds each panel, as a board makes it (``design``, ``fit``, ``OUTCOME``,
 #: ``OPTIONS`` and ``without`` are names of the generated script). "fit" is always rebuilt first.
@@ -169,6 +169,21 @@ def replication_script(spec: Mapping[str, Any], options: Mapping[str, Any], pane
                           "stage." if design["takeup"] is None else
                           "Take-up equals assignment on every usable row, so the design is sharp and has no first "
                           "stage."))
+
+
+def board_script(board: Any, path: str | os.PathLike[str] | None = None, *,
+                 data_path: str | os.PathLike[str] | None = None) -> str:
+    """The replication script of a board (read through ``spec``, ``options``, ``panels``, ``name``).
+
+    What ``Board.export("script", path=None, data_path=None)`` returns; written to ``path`` when
+    given (replaced if it exists).
+    """
+    text = replication_script(board.spec, board.options, board.panels, data_path=data_path,
+                              name=getattr(board, "name", "board"))
+    if path is not None:
+        with open(path, "w", encoding="utf-8", newline="") as handle:
+            handle.write(text)
+    return text
 
 
 _TEMPLATE = '''#!/usr/bin/env python3
