@@ -13,6 +13,13 @@ _LONGEST = 80     # characters of a value shown in a message before it is summar
 _ITEMS = 6        # items of a long sequence shown before "..."
 
 
+def as_python(value):
+    """A numpy scalar (or 0-d array) as the Python value it holds; anything else unchanged."""
+    if type(value).__module__ == "numpy" and hasattr(value, "item") and getattr(value, "ndim", None) == 0:
+        return value.item()
+    return value
+
+
 def shown(value) -> str:
     """A value as a user would have typed it, for the "got <value>" part of a message.
 
@@ -30,10 +37,9 @@ def shown(value) -> str:
         return repr(str(value))
     if isinstance(value, (bool, type(None))):
         return repr(value)
-    if type(value).__module__ == "numpy" and hasattr(value, "item") and getattr(value, "ndim", 0) == 0:
-        value = value.item()       # numpy scalar (or 0-d array) -> the Python number it holds
-        if isinstance(value, (str, bool)):
-            return repr(value)
+    value = as_python(value)
+    if isinstance(value, (str, bool)):
+        return repr(value)
     if isinstance(value, numbers.Integral):
         return str(int(value))
     if isinstance(value, numbers.Real):

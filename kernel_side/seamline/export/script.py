@@ -16,7 +16,7 @@ import os
 from collections.abc import Iterable, Mapping
 from typing import Any
 
-from ..errors import InvalidOptionError, shown
+from ..errors import InvalidOptionError, as_python, shown
 
 __all__ = ["PANEL_CALLS", "board_script", "replication_script"]
 
@@ -50,12 +50,9 @@ _PLACEHOLDER = "REPLACE/WITH/the_data_file.csv"
 
 def _literal(value: Any, where: str) -> str:
     """Python source for a plain value (numbers, text, None, booleans, tuples and lists of them)."""
+    value = as_python(value)
     if value is None or isinstance(value, (bool, str)):
         return repr(value)
-    if hasattr(value, "item") and getattr(value, "ndim", None) == 0:
-        value = value.item()       # a numpy scalar -> the Python value it holds
-        if isinstance(value, (bool, str)):
-            return repr(value)
     if isinstance(value, numbers.Integral):
         return str(int(value))
     if isinstance(value, numbers.Real):
