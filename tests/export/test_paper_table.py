@@ -206,3 +206,14 @@ def test_latex_compiles(fits, tmp_path):
     result = subprocess.run(["pdflatex", "-interaction=nonstopmode", "-halt-on-error", "t.tex"], cwd=tmp_path,
                             capture_output=True, text=True, timeout=120)
     assert result.returncode == 0, result.stdout[-2000:]
+
+
+def test_a_live_board_is_an_item():
+    # seamline.board (read-only use of the notebook layer): the board stands for its headline fit.
+    s = sharp_scenario(n=1500, seed=8)
+    board = seamline.board(s.data, score=s.score, cutoff=s.cutoff, treated=s.treated, outcome="math_gain",
+                           panels=["fit"], name="invented")
+    try:
+        assert paper_table([board], labels=["Board"]).cells() == paper_table([board.fit]).cells()
+    finally:
+        board.close()
