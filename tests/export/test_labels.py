@@ -9,6 +9,8 @@ from __future__ import annotations
 import html
 import io
 import re
+import shutil
+import subprocess
 
 import numpy as np
 import pandas as pd
@@ -169,3 +171,16 @@ def test_export_table_text_header_has_only_labels(results):
     assert "Robust 95% CI" in header and "robust_ci_low" not in header
     with pytest.raises(seamline.errors.InvalidOptionError, match=r"`fmt` must be one of .*got 'pdf'"):
         labels.export_table(results["sensitivity"], "pdf")
+
+
+@pytest.mark.skipif(shutil.which("pdflatex") is None, reason="no TeX installation (pdflatex) on this machine; "
+                    "the LaTeX text is still checked above")
+def test_every_latex_export_compiles(results, tmp_path):
+    tables = "\n\\clearpage\n".join(result.to_latex() for result in results.values())
+    source = ("\\documentclass{article}\n\\usepackage{booktabs}\n\\usepackage[margin=1cm,landscape]{geometry}\n"
+              "\\begin{document}\n\\tiny\n" + tables + "\\end{document}\n")
+    (tmp_path / "t.tex").write_text(source, encoding="utf-8")
+    # Reference: pdflatex (a TeX installation) typesets the file without an error
+    result = subprocess.run(["pdflatex", "-interaction=nonstopmode", "-halt-on-error", "t.tex"], cwd=tmp_path,
+                            capture_output=True, text=True, timeout=300)
+    assert result.returncode == 0, result.stdout[-3000:]
