@@ -5,6 +5,7 @@
 >>> design.fit()                                                                  # doctest: +SKIP
 """
 from .estimate.design import Design
+from .export.paper import paper_table
 from .results.fit import Fit
 
 try:  # the version is written once, in extension/package.json, and reaches us through the package metadata
@@ -12,7 +13,7 @@ try:  # the version is written once, in extension/package.json, and reaches us t
     __version__ = _version("seamline")
 except PackageNotFoundError:  # pragma: no cover - running from a source tree that was never installed
     __version__ = "0+unknown"
-__all__ = ["Design", "Fit", "__version__", "board", "load_ipython_extension"]
+__all__ = ["Design", "Fit", "__version__", "board", "load_ipython_extension", "paper_table"]
 
 
 def load_ipython_extension(ip) -> None:

@@ -16,7 +16,8 @@ from .partitioned import gather_frame, is_partitioned
 from .time_score import TimeScale, is_time_column, reject_time_cutoff, time_scale
 from .errors import (ColumnNotFoundError, ColumnTypeError, CutoffOutOfRangeError,
                      DuplicateColumnError, EmptyColumnError, InvalidWeightsError,
-                     NonFiniteValueError, OneSidedDataError, TakeupRangeError, TooFewClustersError)
+                     NonFiniteValueError, OneSidedDataError, TakeupRangeError, TooFewClustersError,
+                     shown)
 
 
 def _column_names(data) -> list[str] | None:
@@ -120,7 +121,7 @@ def numeric_column(frame: pd.DataFrame, name: str, role: str) -> np.ndarray:
     if np.isinf(values).any():
         row = col.index[np.flatnonzero(np.isinf(values))[0]]
         raise NonFiniteValueError(f"`{role}` column {name!r} must be finite; got infinite values "
-                                  f"(first at row {row!r}). Replace them with NaN (dropped) or a finite value.")
+                                  f"(first at row {shown(row)}). Replace them with NaN (dropped) or a finite value.")
     if np.isnan(values).all():
         raise EmptyColumnError(f"`{role}` column {name!r} must have non-missing values; got only "
                                "missing values. Choose a column with data.")
@@ -165,7 +166,7 @@ class DesignData:
         frame = as_frame(data, list(roles), roles)
         dups = frame.columns[frame.columns.duplicated()].unique().tolist()
         if dups:
-            raise DuplicateColumnError(f"column names must be unique; got duplicates {dups!r}. "
+            raise DuplicateColumnError(f"column names must be unique; got duplicates {shown(dups)}. "
                                        "Rename or drop the duplicated columns before declaring the design.")
         self.index = frame.index
         self.n_rows = len(frame)
@@ -189,8 +190,8 @@ class DesignData:
             outside = (t < 0) | (t > 1)
             if outside.any():
                 raise TakeupRangeError(f"`takeup` column {takeup!r} must lie in [0, 1] (treatment received, "
-                                       f"or its probability); got {t[outside][0]!r} at row "
-                                       f"{frame.index[np.flatnonzero(outside)[0]]!r}. Recode it as 0/1.")
+                                       f"or its probability); got {shown(t[outside][0])} at row "
+                                       f"{shown(frame.index[np.flatnonzero(outside)[0]])}. Recode it as 0/1.")
             self.arrays[takeup] = t
         for name in covariates:
             self.arrays[name] = numeric_column(frame, name, "covariates")
@@ -199,7 +200,7 @@ class DesignData:
             w = numeric_column(frame, weights, "weights")
             if (w < 0).any():
                 raise InvalidWeightsError(f"`weights` column {weights!r} must be non-negative; got "
-                                          f"{w[w < 0][0]!r}. Use sampling weights >= 0.")
+                                          f"{shown(w[w < 0][0])}. Use sampling weights >= 0.")
             if not (w > 0).any():
                 raise InvalidWeightsError(f"`weights` column {weights!r} must have a positive value; got "
                                           "all zeros or missing. Choose another weights column.")
@@ -220,7 +221,7 @@ class DesignData:
                                             f"[{ts.label(lo)}, {ts.label(hi)}]; got {ts.label(0.0)}. Check the "
                                             "cutoff date.")
             raise CutoffOutOfRangeError(f"`cutoff` must lie within the range of score {score!r} "
-                                        f"[{lo:g}, {hi:g}]; got {cutoff!r}. Check the cutoff and its units.")
+                                        f"[{lo:g}, {hi:g}]; got {shown(cutoff)}. Check the cutoff and its units.")
         self.cutoff = float(cutoff)
         self._cache: dict[tuple, Prepared] = {}
 

@@ -29,6 +29,8 @@ from typing import Any, Literal
 import numpy as np
 import pandas as pd
 
+from .errors import shown
+
 __all__ = [
     "Scenario",
     "sharp_scenario",
@@ -131,7 +133,7 @@ class Scenario:
 def _check_n(n: object) -> int:
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < _MIN_ROWS:
         raise ValueError(
-            f"`n` must be an integer of at least {_MIN_ROWS}; got {n!r}. "
+            f"`n` must be an integer of at least {_MIN_ROWS}; got {shown(n)}. "
             "Ask for more rows, e.g. n=5000."
         )
     return int(n)
@@ -140,7 +142,7 @@ def _check_n(n: object) -> int:
 def _check_seed(seed: object) -> int:
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
         raise ValueError(
-            f"`seed` must be a non-negative integer; got {seed!r}. "
+            f"`seed` must be a non-negative integer; got {shown(seed)}. "
             "Pass a whole number such as seed=0 so the data can be reproduced."
         )
     return int(seed)
@@ -149,7 +151,7 @@ def _check_seed(seed: object) -> int:
 def _check_unit_interval(name: str, value: object) -> float:
     if not isinstance(value, (int, float, np.floating, np.integer)) or not 0.0 <= value <= 1.0:
         raise ValueError(
-            f"`{name}` must be a number between 0 and 1; got {value!r}. Pass a share such as 0.5."
+            f"`{name}` must be a number between 0 and 1; got {shown(value)}. Pass a share such as 0.5."
         )
     return float(value)
 
@@ -434,7 +436,7 @@ def discrete_scenario(
     relative_effect = float(relative_effect)
     if not relative_effect > -1.0:
         raise ValueError(
-            f"`relative_effect` must be greater than -1; got {relative_effect!r}. "
+            f"`relative_effect` must be greater than -1; got {shown(relative_effect)}. "
             "Pass a proportional change such as 0.25 (a 25% rise)."
         )
     rng = np.random.default_rng(seed)
@@ -554,7 +556,7 @@ def manipulated_scenario(
     share_moved = _check_unit_interval("share_moved", share_moved)
     if not isinstance(reach, (int, float, np.floating, np.integer)) or not 0.0 < reach <= 20.0:
         raise ValueError(
-            f"`reach` must be a number greater than 0 and at most 20; got {reach!r}. "
+            f"`reach` must be a number greater than 0 and at most 20; got {shown(reach)}. "
             "Pass a width in score points such as 2.0."
         )
     reach = float(reach)

@@ -5,6 +5,61 @@ All classes subclass ValueError or TypeError so callers can catch them generical
 """
 from __future__ import annotations
 
+import math
+import numbers
+from collections.abc import Mapping
+
+_LONGEST = 80     # characters of a value shown in a message before it is summarised by its type
+_ITEMS = 6        # items of a long sequence shown before "..."
+
+
+def as_python(value):
+    """A numpy scalar (or 0-d array) as the Python value it holds; anything else unchanged."""
+    if type(value).__module__ == "numpy" and hasattr(value, "item") and getattr(value, "ndim", None) == 0:
+        return value.item()
+    return value
+
+
+def shown(value) -> str:
+    """A value as a user would have typed it, for the "got <value>" part of a message.
+
+    numpy scalars and arrays lose their wrappers (``2.0``, not ``np.float64(2.0)``), containers are
+    shown item by item, text keeps its quotes, and a long or opaque object (a DataFrame, a
+    function) is named by its type so the message stays one readable line.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> shown(np.float64(2.0)), shown((np.int64(1), 2.5)), shown("gaussian")
+    ('2.0', '(1, 2.5)', "'gaussian'")
+    """
+    if isinstance(value, str):
+        return repr(str(value))
+    if isinstance(value, (bool, type(None))):
+        return repr(value)
+    value = as_python(value)
+    if isinstance(value, (str, bool)):
+        return repr(value)
+    if isinstance(value, numbers.Integral):
+        return str(int(value))
+    if isinstance(value, numbers.Real):
+        number = float(value)
+        return repr(number) if math.isfinite(number) else str(number)
+    if isinstance(value, Mapping):
+        items = list(value.items())
+        body = ", ".join(f"{shown(k)}: {shown(v)}" for k, v in items[:_ITEMS])
+        return "{" + body + (", ..." if len(items) > _ITEMS else "") + "}"
+    if isinstance(value, (list, tuple, set, frozenset)) or type(value).__name__ == "ndarray":
+        items = list(value) if not isinstance(value, (set, frozenset)) else sorted(value, key=repr)
+        body = ", ".join(shown(v) for v in items[:_ITEMS]) + (", ..." if len(items) > _ITEMS else "")
+        if isinstance(value, tuple):
+            return f"({body},)" if len(items) == 1 else f"({body})"
+        return "{" + body + "}" if isinstance(value, (set, frozenset)) else f"[{body}]"
+    text = repr(value)
+    if len(text) > _LONGEST or "\n" in text:
+        return f"a {type(value).__name__}"
+    return text
+
 
 class SeamlineError(ValueError):
     """Base class for seamline's input errors."""

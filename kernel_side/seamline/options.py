@@ -8,7 +8,7 @@ from __future__ import annotations
 from numbers import Real
 from typing import Literal, get_args
 
-from .errors import InvalidOptionError
+from .errors import InvalidOptionError, shown
 
 Kernel = Literal["triangular", "uniform", "epanechnikov"]
 BandwidthRule = Literal["mse", "mse-split", "coverage", "ik"]
@@ -46,7 +46,7 @@ def check_option(argument: str, value: object, allowed: tuple[str, ...]) -> str:
             return key
     choices = ", ".join(f'"{a}"' for a in allowed)
     raise InvalidOptionError(
-        f"`{argument}` must be one of {choices}; got {value!r}. Pick one of the listed values."
+        f"`{argument}` must be one of {choices}; got {shown(value)}. Pick one of the listed values."
     )
 
 
@@ -54,5 +54,5 @@ def check_level(level: object, argument: str = "level") -> float:
     """Return a confidence level strictly between 0 and 1 as a float; otherwise raise InvalidOptionError."""
     if isinstance(level, Real) and not isinstance(level, bool) and 0.0 < float(level) < 1.0:
         return float(level)
-    raise InvalidOptionError(f"`{argument}` must be a number strictly between 0 and 1; got {level!r}. "
+    raise InvalidOptionError(f"`{argument}` must be a number strictly between 0 and 1; got {shown(level)}. "
                              "Use for example 0.95 for 95% intervals.")

@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .errors import ColumnTypeError, CutoffTypeError, EmptyColumnError, InvalidOptionError
+from .errors import ColumnTypeError, CutoffTypeError, EmptyColumnError, InvalidOptionError, shown
 from .options import SCORE_UNITS, check_option
 
 # Seconds per unit. Months and years are average lengths (365.25 / 12 = 30.4375 days and 365.25
@@ -90,7 +90,7 @@ def _as_timestamp(cutoff: Any, score: str, zone) -> pd.Timestamp:
         try:
             stamp = pd.Timestamp(cutoff.strip())
         except ValueError:
-            raise CutoffTypeError(f"`cutoff` must be a date for the date score {score!r}; got {cutoff!r}. "
+            raise CutoffTypeError(f"`cutoff` must be a date for the date score {score!r}; got {shown(cutoff)}. "
                                   "Write it as an ISO date, e.g. \"2024-07-01\".") from None
         # A typed date means that date where the data were recorded: take the score's time zone.
         if stamp.tzinfo is None and zone is not None:
@@ -98,7 +98,7 @@ def _as_timestamp(cutoff: Any, score: str, zone) -> pd.Timestamp:
     elif is_time_value(cutoff):
         stamp = pd.Timestamp(cutoff)
     else:
-        raise CutoffTypeError(f"`cutoff` must be a date for the date score {score!r}; got {cutoff!r}. Pass "
+        raise CutoffTypeError(f"`cutoff` must be a date for the date score {score!r}; got {shown(cutoff)}. Pass "
                               "e.g. cutoff=\"2024-07-01\" or pandas.Timestamp(\"2024-07-01\").")
     if pd.isna(stamp):
         raise CutoffTypeError(f"`cutoff` must be a date for the date score {score!r}; got a missing date. "
@@ -179,10 +179,10 @@ def time_scale(column: pd.Series, cutoff: Any, unit: str | None, score: str) -> 
 def reject_time_cutoff(cutoff: Any, score: str, unit: str | None) -> float:
     """The cutoff of a numeric score as a float; dates, date strings and a unit are errors here."""
     if unit is not None:
-        raise InvalidOptionError(f"`score_unit` applies to date or time scores only; got {unit!r} for the "
+        raise InvalidOptionError(f"`score_unit` applies to date or time scores only; got {shown(unit)} for the "
                                  f"numeric score {score!r}. Leave it out.")
     if is_time_value(cutoff):
-        raise CutoffTypeError(f"`cutoff` must be a number for the numeric score {score!r}; got {cutoff!r}. Give "
+        raise CutoffTypeError(f"`cutoff` must be a number for the numeric score {score!r}; got {shown(cutoff)}. Give "
                               "the cutoff in the score's units, or declare a date column as the score.")
     try:
         return float(cutoff)
@@ -192,4 +192,4 @@ def reject_time_cutoff(cutoff: Any, score: str, unit: str | None) -> float:
         raise CutoffTypeError(f"`cutoff` must be a number for the numeric score {score!r}; got the date "
                               f"{cutoff!r}. Give the cutoff in the score's units, or declare a date column as "
                               "the score (convert text dates with pandas.to_datetime).")
-    raise InvalidOptionError(f"`cutoff` must be a number; got {cutoff!r}. Pass e.g. cutoff=40.")
+    raise InvalidOptionError(f"`cutoff` must be a number; got {shown(cutoff)}. Pass e.g. cutoff=40.")

@@ -40,7 +40,9 @@ def _close_boards():
 
 
 def _cells(markdown: str) -> set[str]:
-    return {c.strip() for line in markdown.splitlines() if line.startswith("|") for c in line.strip("|").split("|")}
+    cells = {c.strip() for line in markdown.splitlines() if line.startswith("|") for c in line.strip("|").split("|")}
+    # an interval cell "[low, high]" holds two numbers
+    return cells | {part.strip() for c in cells if c.startswith("[") for part in c.strip("[]").split(",")}
 
 
 def _numbers(text: str) -> list[str]:

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from ..errors import InvalidOptionError, InvalidWeightsError, OneSidedDataError
+from ..errors import InvalidOptionError, InvalidWeightsError, OneSidedDataError, shown
 from ..options import BIN_METHODS, BIN_RULES, check_level, check_option
 
 __all__ = [
@@ -159,15 +159,15 @@ def imse_number(bias_constant: float, variance_constant: float, n: float) -> flo
     b, v, n = float(bias_constant), float(variance_constant), float(n)
     if not (math.isfinite(b) and b >= 0):
         raise InvalidOptionError(
-            f"`bias_constant` must be a finite number >= 0; got {bias_constant!r}. "
+            f"`bias_constant` must be a finite number >= 0; got {shown(bias_constant)}. "
             "Pass the integrated squared slope constant B.")
     if not (math.isfinite(v) and v > 0):
         raise InvalidOptionError(
-            f"`variance_constant` must be a positive finite number; got {variance_constant!r}. "
+            f"`variance_constant` must be a positive finite number; got {shown(variance_constant)}. "
             "Pass the integrated variance constant V.")
     if not (math.isfinite(n) and n > 0):
         raise InvalidOptionError(
-            f"`n` must be a positive number of observations; got {n!r}. Pass the side's count.")
+            f"`n` must be a positive number of observations; got {shown(n)}. Pass the side's count.")
     return (2.0 * b / v) ** (1.0 / 3.0) * n ** (1.0 / 3.0)
 
 
@@ -185,13 +185,13 @@ def mimic_variance_bins(average_variance: float, bin_variance: float, n: float) 
     a, v, n = float(average_variance), float(bin_variance), float(n)
     if not (math.isfinite(n) and n > 0):
         raise InvalidOptionError(
-            f"`n` must be a positive number of observations; got {n!r}. Pass the side's count.")
+            f"`n` must be a positive number of observations; got {shown(n)}. Pass the side's count.")
     if n < 3:
         return 1
     if not (math.isfinite(a) and a >= 0 and math.isfinite(v) and v > 0):
         raise InvalidOptionError(
-            f"`bin_variance` must be positive and `average_variance` >= 0; got {bin_variance!r} "
-            f"and {average_variance!r}. Pass the variance constants of the side.")
+            f"`bin_variance` must be positive and `average_variance` >= 0; got {shown(bin_variance)} "
+            f"and {shown(average_variance)}. Pass the variance constants of the side.")
     return max(1, math.ceil(a / v * n / math.log(n) ** 2))
 
 
@@ -327,7 +327,7 @@ def _arrays(score, outcome, weights):
     if not np.all(np.isfinite(w)) or np.any(w < 0):
         bad = w[~np.isfinite(w) | (w < 0)][0]
         raise InvalidWeightsError(
-            f"`weights` must be finite and non-negative; got {float(bad)!r}. Fix or drop those rows.")
+            f"`weights` must be finite and non-negative; got {shown(float(bad))}. Fix or drop those rows.")
     return x, y, w
 
 
@@ -337,7 +337,7 @@ def _number_pair(number, counts: tuple[int, int]) -> tuple[int, int] | None:
     if isinstance(number, (tuple, list, np.ndarray)):
         if len(number) != 2:
             raise InvalidOptionError(
-                f"`number` must be one whole number or a pair (below, above); got {number!r}. "
+                f"`number` must be one whole number or a pair (below, above); got {shown(number)}. "
                 "Pass e.g. 20 or (20, 15).")
         pair = tuple(number)
     else:
@@ -346,7 +346,7 @@ def _number_pair(number, counts: tuple[int, int]) -> tuple[int, int] | None:
     for value, side, n_side in zip(pair, SIDES, counts):
         if not (isinstance(value, (int, np.integer)) and not isinstance(value, bool)):
             raise InvalidOptionError(
-                f"`number` must be a whole number of bins; got {value!r}. Pass an integer such as 20.")
+                f"`number` must be a whole number of bins; got {shown(value)}. Pass an integer such as 20.")
         if value < 1:
             raise InvalidOptionError(
                 f"`number` must be at least 1 bin per side; got {value} {side} the cutoff. "
@@ -364,7 +364,7 @@ def _check_scale(scale) -> float:
           and math.isfinite(scale) and scale > 0)
     if not ok:
         raise InvalidOptionError(
-            f"`scale` must be a positive finite number; got {scale!r}. "
+            f"`scale` must be a positive finite number; got {shown(scale)}. "
             "Use 1 for the selected number of bins, 2 for twice as many.")
     return float(scale)
 

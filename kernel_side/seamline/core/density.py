@@ -30,6 +30,7 @@ from ..errors import (
     InvalidOptionError,
     OneSidedDataError,
     TooFewDistinctValuesError,
+    shown,
 )
 from ..options import DENSITY_METHODS, KERNELS, check_level, check_option
 from .kernels import kernel_weights, normal_reference_constant
@@ -207,8 +208,7 @@ def _check_positive(argument: str, value, error=InvalidOptionError) -> float:
     ok = (isinstance(value, (int, float, np.floating, np.integer)) and not isinstance(value, bool)
           and math.isfinite(float(value)) and float(value) > 0)
     if not ok:
-        shown = value.item() if isinstance(value, np.generic) else value
-        raise error(f"`{argument}` must be a positive finite number; got {shown!r}. "
+        raise error(f"`{argument}` must be a positive finite number; got {shown(value)}. "
                     f"Pass a value greater than 0 or leave `{argument}` unset to choose it from the data.")
     return float(value)
 
@@ -219,7 +219,7 @@ def _bandwidth_pair(bandwidth) -> tuple[float, float] | None:
     if isinstance(bandwidth, (tuple, list, np.ndarray)):
         if len(bandwidth) != 2:
             raise InvalidBandwidthError(
-                f"`bandwidth` must be one positive number or a pair (below, above); got {bandwidth!r}. "
+                f"`bandwidth` must be one positive number or a pair (below, above); got {shown(bandwidth)}. "
                 "Pass a single number or two numbers.")
         return (_check_positive("bandwidth", bandwidth[0], InvalidBandwidthError),
                 _check_positive("bandwidth", bandwidth[1], InvalidBandwidthError))
@@ -231,7 +231,7 @@ def _check_grid_points(grid_points) -> int:
     if not (isinstance(grid_points, (int, np.integer)) and not isinstance(grid_points, bool)
             and grid_points >= 0):
         raise InvalidOptionError(
-            f"`grid_points` must be a whole number >= 0; got {grid_points!r}. "
+            f"`grid_points` must be a whole number >= 0; got {shown(grid_points)}. "
             "Use 0 to skip the plotting grid or e.g. 20 points per side.")
     return int(grid_points)
 
@@ -243,11 +243,11 @@ def _check_plot_range(plot_range, cutoff: float) -> tuple[float, float] | None:
         low, high = (float(v) for v in plot_range)
     except (TypeError, ValueError):
         raise InvalidOptionError(
-            f"`plot_range` must be a pair (low, high) of numbers; got {plot_range!r}. "
+            f"`plot_range` must be a pair (low, high) of numbers; got {shown(plot_range)}. "
             "Pass two numbers around the cutoff.") from None
     if not (math.isfinite(low) and math.isfinite(high) and low < cutoff < high):
         raise InvalidOptionError(
-            f"`plot_range` must satisfy low < cutoff < high; got {plot_range!r} with cutoff {cutoff:g}. "
+            f"`plot_range` must satisfy low < cutoff < high; got {shown(plot_range)} with cutoff {cutoff:g}. "
             "Pass a range that contains the cutoff.")
     return low, high
 
@@ -492,7 +492,7 @@ def _check_degree(degree) -> int:
     ok = isinstance(degree, (int, np.integer)) and not isinstance(degree, bool)
     if not (ok and 1 <= degree <= 6):
         raise InvalidOptionError(
-            f"`degree` must be a whole number from 1 to 6; got {degree!r}. "
+            f"`degree` must be a whole number from 1 to 6; got {shown(degree)}. "
             "Use 2 (the usual choice for the local-CDF density estimator).")
     return int(degree)
 

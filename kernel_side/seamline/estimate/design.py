@@ -12,7 +12,7 @@ from ..core.bandwidth import Selection, coverage_factor, ik_bandwidth, mse_selec
 from ..core.kernels import normal_reference_constant
 from ..core.locpoly import SideFit, variance_fast, window_arrays
 from ..data import DesignData, Prepared, as_frame, check_columns, column_names
-from ..errors import CutoffTypeError, InvalidOptionError
+from ..errors import CutoffTypeError, InvalidOptionError, shown
 from ..options import SIDES, check_option
 from ..time_score import TIME_CAUTION, is_time_value, looks_like_date
 from ..results.fit import Fit
@@ -57,9 +57,9 @@ def _as_names(value, argument: str) -> tuple[str, ...]:
     try:
         names = tuple(value)
     except TypeError:
-        raise InvalidOptionError(f"`{argument}` must be a column name or a list of names; got {value!r}.") from None
+        raise InvalidOptionError(f"`{argument}` must be a column name or a list of names; got {shown(value)}.") from None
     if not all(isinstance(n, str) for n in names):
-        raise InvalidOptionError(f"`{argument}` must be column names (strings); got {value!r}.")
+        raise InvalidOptionError(f"`{argument}` must be column names (strings); got {shown(value)}.")
     return names
 
 
@@ -163,7 +163,7 @@ class Design:
         if outcome in allowed:
             return outcome
         raise InvalidOptionError(f"`outcome` must be one of the design's outcomes, covariates or take-up "
-                                 f"{list(allowed)}; got {outcome!r}. Declare it in Design(...).")
+                                 f"{list(allowed)}; got {shown(outcome)}. Declare it in Design(...).")
 
     def _spec(self, outcome=None, **options) -> FitSpec:
         return resolve(self._outcome(outcome), has_covariates=bool(self.covariates), **options)

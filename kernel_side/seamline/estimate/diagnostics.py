@@ -12,7 +12,8 @@ from scipy import stats
 
 from ..core.binning import binned_means
 from ..core.density import density_test as core_density_test
-from ..errors import (InvalidOptionError, OneSidedDataError, SeamlineError, TooFewDistinctValuesError)
+from ..errors import (InvalidOptionError, OneSidedDataError, SeamlineError, TooFewDistinctValuesError,
+                      shown)
 from ..options import BIN_METHODS, BIN_RULES, DENSITY_METHODS, check_option
 from ..results.diagnostics import (Balance, Bins, Checks, DensityTest, Donut, Placebo, ScoreProfile,
                                    Sensitivity, fit_row, holm)
@@ -81,12 +82,12 @@ def balance(design, covariates=None, *, bandwidth="own", **fit_options) -> Balan
                                  "Design(..., covariates=[...]).")
     unknown = [c for c in names if c not in design.covariates]
     if unknown:
-        raise InvalidOptionError(f"`covariates` must be declared in the design; got {unknown!r}. Add them to "
+        raise InvalidOptionError(f"`covariates` must be declared in the design; got {shown(unknown)}. Add them to "
                                  "Design(..., covariates=[...]) so they are validated once.")
     for name in names:
         values = design._data.arrays[name]
         if np.nanstd(values) == 0:
-            raise InvalidOptionError(f"`covariates` must vary; got {name!r} constant "
+            raise InvalidOptionError(f"`covariates` must vary; got {shown(name)} constant "
                                      f"({np.nanmax(values):g} everywhere). Drop it from the balance checks.")
     fit_options = {k: v for k, v in fit_options.items() if k not in ("adjust", "outcome")}
     rule = fit_options.pop("rule", "mse")
@@ -96,7 +97,7 @@ def balance(design, covariates=None, *, bandwidth="own", **fit_options) -> Balan
     elif isinstance(bandwidth, str) and bandwidth == "own":
         source, bw = f"each covariate's own ({rule})", rule
     elif isinstance(bandwidth, str):
-        raise InvalidOptionError(f'`bandwidth` must be "own", "main", a number or a pair; got {bandwidth!r}. '
+        raise InvalidOptionError(f'`bandwidth` must be "own", "main", a number or a pair; got {shown(bandwidth)}. '
                                  'Use bandwidth="own".')
     else:
         source, bw = "fixed by the user", bandwidth
@@ -304,7 +305,7 @@ def donut(design, radii=None, **fit_options) -> Donut:
     for r in np.atleast_1d(radii):
         r = float(r)
         if not np.isfinite(r) or r < 0:
-            raise InvalidOptionError(f"`radii` must be non-negative numbers; got {r!r}. Use e.g. radii=[0, 0.5, 1].")
+            raise InvalidOptionError(f"`radii` must be non-negative numbers; got {shown(r)}. Use e.g. radii=[0, 0.5, 1].")
         try:
             f = design.fit(outcome, donut=r, **fit_options)
         except OneSidedDataError as exc:

@@ -16,7 +16,7 @@ from ..core.kernels import kernel_poly
 from ..core.locpoly import SideFit, WindowArrays, _omega_terms, fit_side, variance_fast, window_arrays
 from ..core.moments import window_gram
 from ..data import Prepared
-from ..errors import CollinearCovariatesError, TooFewClustersError, TooFewDistinctValuesError
+from ..errors import CollinearCovariatesError, TooFewClustersError, TooFewDistinctValuesError, shown
 
 FAST_VARIANCES = ("neighbors", "hc0", "hc1")
 # Residual-based (HC) variances expand squared residuals into moments of degree up to 4q + 2k; from a
@@ -274,6 +274,6 @@ class JumpEngine:
             if np.linalg.eigvalsh(sub)[0] <= tol:
                 names = [self.covariate_names[i] for i in trial]
                 raise CollinearCovariatesError(
-                    f"`covariates` must not be collinear inside the window; got {names!r} linearly dependent "
+                    f"`covariates` must not be collinear inside the window; got {shown(names)} linearly dependent "
                     f"({self.covariate_names[j]!r} is a combination of the others). Drop one of them.")
             kept.append(j)

@@ -18,7 +18,7 @@ import pandas as pd
 from ..core.kernels import kernel_weights
 from ..data import numeric_column
 from ..time_score import is_time_column, is_time_value, looks_like_date
-from ..errors import CutoffChoiceError, CutoffOrderError, InvalidOptionError, SingleCutoffError, TooFewUnitsError
+from ..errors import CutoffChoiceError, CutoffOrderError, InvalidOptionError, SingleCutoffError, TooFewUnitsError, shown
 from ..results.designs import CutoffEffects, Decomposition, EffectRow
 from .effect_rows import (MIN_UNITS_PER_SIDE, SHARED_CLUSTERS_ACCOUNTED, clustered_covariance, equality_test,
                           fit_row, row_warnings, shared_clusters)
@@ -93,10 +93,10 @@ def _column_plan(frame: pd.DataFrame, score: str, column: str, columns: tuple[st
 def _cumulative_plan(frame: pd.DataFrame, score: str, values: list) -> CutoffPlan:
     if len(values) == 0 or not all(isinstance(v, Real) and not isinstance(v, bool) and np.isfinite(v)
                                    for v in values):
-        raise CutoffOrderError(f"`cutoff` must be a list of finite numbers; got {values!r}. Pass e.g. cutoff=[30, 60].")
+        raise CutoffOrderError(f"`cutoff` must be a list of finite numbers; got {shown(values)}. Pass e.g. cutoff=[30, 60].")
     cutoffs = [float(v) for v in values]
     if any(b <= a for a, b in zip(cutoffs, cutoffs[1:])):
-        raise CutoffOrderError(f"`cutoff` must be strictly increasing cumulative cutoffs; got {values!r}. "
+        raise CutoffOrderError(f"`cutoff` must be strictly increasing cumulative cutoffs; got {shown(values)}. "
                                f"Sort them and drop repeats: cutoff={sorted(set(cutoffs))!r}.")
     x = numeric_column(frame, score, "score")
     x = x[~np.isnan(x)]

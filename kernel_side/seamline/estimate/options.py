@@ -6,7 +6,7 @@ from numbers import Real
 
 import numpy as np
 
-from ..errors import InvalidBandwidthError, InvalidOptionError
+from ..errors import InvalidBandwidthError, InvalidOptionError, shown
 from ..options import BANDWIDTH_RULES, CLUSTER_VARIANCES, KERNELS, VARIANCES, check_level, check_option
 
 
@@ -34,16 +34,16 @@ def _positive_pair(argument: str, value) -> tuple[float, float]:
         pair = (float(value[0]), float(value[1]))
     else:
         raise InvalidBandwidthError(f"`{argument}` must be a positive number or a pair (below, above); got "
-                                    f"{value!r}. Pass e.g. {argument}=2.5 or {argument}=(2.0, 3.0).")
+                                    f"{shown(value)}. Pass e.g. {argument}=2.5 or {argument}=(2.0, 3.0).")
     if not all(np.isfinite(v) and v > 0 for v in pair):
-        raise InvalidBandwidthError(f"`{argument}` must be positive and finite; got {value!r}. "
+        raise InvalidBandwidthError(f"`{argument}` must be positive and finite; got {shown(value)}. "
                                     "Pass a positive number in the units of the score.")
     return pair
 
 
 def _int_in(argument: str, value, lo: int, hi: int) -> int:
     if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or not lo <= value <= hi:
-        raise InvalidOptionError(f"`{argument}` must be an integer from {lo} to {hi}; got {value!r}. "
+        raise InvalidOptionError(f"`{argument}` must be an integer from {lo} to {hi}; got {shown(value)}. "
                                  f"Pick a value in that range.")
     return int(value)
 
@@ -71,7 +71,7 @@ def resolve(outcome: str, *, bandwidth, kernel, degree, bias_degree, pilot_bandw
     pilot = None if pilot_bandwidth is None else _positive_pair("pilot_bandwidth", pilot_bandwidth)
     level = check_level(level)
     if not (isinstance(donut, Real) and np.isfinite(donut) and donut >= 0):
-        raise InvalidOptionError(f"`donut` must be a non-negative radius in score units; got {donut!r}. "
+        raise InvalidOptionError(f"`donut` must be a non-negative radius in score units; got {shown(donut)}. "
                                  "Use donut=0 for no exclusion.")
     if adjust and not has_covariates:
         raise InvalidOptionError("`adjust` must be False when the design has no covariates; got adjust=True. "

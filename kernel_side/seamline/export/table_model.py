@@ -20,6 +20,8 @@ from typing import Any, Union
 import numpy as np
 import pandas as pd
 
+from ..errors import shown
+
 __all__ = ["Cell", "TableModel", "from_dataframe", "format_number", "is_number"]
 
 #: A cell is text, a whole number, a real number, a tuple of real numbers (an interval), or
@@ -67,7 +69,7 @@ def _check_decimals(argument: str, value: Any) -> int:
         or not 0 <= value <= _MAX_DECIMALS
     ):
         raise ValueError(
-            f"`{argument}` must be a whole number from 0 to {_MAX_DECIMALS}; got {value!r}. "
+            f"`{argument}` must be a whole number from 0 to {_MAX_DECIMALS}; got {shown(value)}. "
             "Pass the number of digits to show after the decimal point, e.g. 3."
         )
     return int(value)
@@ -285,7 +287,7 @@ def from_dataframe(
         unknown = [k for k in decimals if str(k) not in labels]
         if unknown:
             raise ValueError(
-                f"`decimals` must name columns of the table; got {unknown!r}. "
+                f"`decimals` must name columns of the table; got {shown(unknown)}. "
                 f"Use labels among {labels!r}."
             )
         per_column = [

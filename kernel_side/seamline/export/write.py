@@ -9,6 +9,7 @@ import os
 from collections.abc import Callable
 from pathlib import Path
 
+from ..errors import shown
 from .render import to_csv, to_html, to_latex, to_markdown
 from .table_model import TableModel
 
@@ -63,7 +64,7 @@ def write_table(model: TableModel, path: str | os.PathLike[str], *, encoding: st
     if renderer is None:
         allowed = ", ".join(RENDERERS_BY_SUFFIX)
         raise ValueError(
-            f"`path` must end in one of {allowed}; got {str(path)!r}. "
+            f"`path` must end in one of {allowed}; got {shown(str(path))}. "
             "Choose the format by the file suffix, e.g. 'table.tex'."
         )
     text = renderer(model)

@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from .base import CAUTION, Reported
+from .base import Reported
 from .fit import Fit
 
 ESTIMATE_COLUMNS = ["bandwidth_below", "bandwidth_above", "kernel", "degree", "estimate", "std_error",
@@ -85,7 +85,7 @@ class DensityTest(Reported):
         return [f"Test statistic {self.statistic:.3f}, p-value {self.p_value:.3f}; bandwidth "
                 f"{self.bandwidth[0]:.4g} below, {self.bandwidth[1]:.4g} above.",
                 "A small p-value is evidence that units sorted around the cutoff; a large one does not prove "
-                "the absence of manipulation.", CAUTION]
+                "the absence of manipulation."]
 
 
 @dataclass(frozen=True, eq=False)
@@ -114,7 +114,7 @@ class Balance(Reported):
         return [f"Robust bias-corrected {self.level:.0%} intervals and p-values; Holm-adjusted p-values across "
                 f"covariates; bandwidths: {self.bandwidth_source}.",
                 f"Joint Wald test of no jump in any covariate (joint covariance of the estimates): chi2({self.joint_df}) = "
-                f"{self.joint_statistic:.2f}, p = {self.joint_p_value:.3f} on {self.joint_n} complete rows.", CAUTION]
+                f"{self.joint_statistic:.2f}, p = {self.joint_p_value:.3f} on {self.joint_n} complete rows."]
 
 
 @dataclass(frozen=True, eq=False)
@@ -133,9 +133,10 @@ class Sensitivity(Reported):
         return f"Bandwidth sensitivity: {self.outcome}"
 
     def notes(self) -> list[str]:
-        return ["Rows labelled x0.5 ... x2 scale the selected bandwidth; named rows use that selector. Robust "
-                "bias-corrected intervals are valid for bandwidths not much larger than the MSE-optimal one; "
-                "choosing the bandwidth after looking at this table invalidates nominal coverage.", CAUTION]
+        return ["Rows \"0.5 x selected\" ... \"2 x selected\" scale the selected bandwidth; named rows use that "
+                "selector. Robust bias-corrected intervals are valid for bandwidths not much larger than the "
+                "MSE-optimal one; "
+                "choosing the bandwidth after looking at this table invalidates nominal coverage."]
 
 
 @dataclass(frozen=True, eq=False)
@@ -162,7 +163,7 @@ class Placebo(Reported):
                  "leak in; about 5% of placebos should reject at the 5% level by chance."]
         if self.skipped:
             notes.append("Skipped: " + "; ".join(self.skipped))
-        return notes + [CAUTION]
+        return notes
 
 
 @dataclass(frozen=True, eq=False)
@@ -180,8 +181,7 @@ class Donut(Reported):
         return f"Donut estimates: {self.outcome}"
 
     def notes(self) -> list[str]:
-        return ["Estimates extrapolate to the cutoff from outside the donut, so their bias grows with the radius.",
-                CAUTION]
+        return ["Estimates extrapolate to the cutoff from outside the donut, so their bias grows with the radius."]
 
 
 @dataclass(frozen=True, eq=False)
@@ -220,7 +220,7 @@ class Bins(Reported):
     def notes(self) -> list[str]:
         kind = "equal-width" if self.method == "equal-width" else "equal-count"
         return [f"{self.number[0]} {kind} bins below and {self.number[1]} above the cutoff ({self.rule}); "
-                f"{self.level:.0%} intervals of the bin means.", CAUTION]
+                f"{self.level:.0%} intervals of the bin means."]
 
 
 @dataclass(frozen=True, eq=False)
@@ -247,7 +247,7 @@ class ScoreProfile(Reported):
         for h in self.heaping:
             notes.append(f"Share of observations at multiples of {h['step']:g}: {h['share']:.3f} "
                          f"(about {h['expected']:.3f} expected without heaping).")
-        return notes + [CAUTION]
+        return notes
 
 
 @dataclass(frozen=True, eq=False)

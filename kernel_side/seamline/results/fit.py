@@ -7,7 +7,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .base import CAUTION, Reported
+from .base import CAUTION, Reported  # noqa: F401 - CAUTION re-exported for the methods paragraph
 
 
 def critical_value(level: float, dof: float | None = None) -> float:
@@ -189,7 +189,6 @@ class Fit(Reported):
         ]
         if self.first_stage_f is not None:
             notes.append(f"First-stage F statistic: {self.first_stage_f:.1f}.")
-        notes.append(CAUTION)
         return notes
 
     def _cluster_note(self) -> str:
