@@ -238,12 +238,13 @@ def iv_reference(score, y, takeup, cutoff, bandwidth, *, kernel="triangular", de
 
 def bias_corrected_reference(score, y, cutoff, bandwidth, pilot_bandwidth, *, kernel="triangular",
                              degree=1, bias_degree=None, treated="above", derivative=0) -> float:
-    """Two-step bias-corrected estimate of METHODS section 4.2, each step a statsmodels WLS.
+    """Two-step bias-corrected estimate (Calonico, Cattaneo & Titiunik 2014, section 2), each step a
+    statsmodels WLS in the RAW basis of x = score - cutoff, so no bandwidth ratio appears:
 
-    Per side s:  mu_bc = mu(h) - h^(p+1-nu) nu! [Gamma^-1 theta]_nu * beta_q[p+1](b) / b^(p+1) / h^nu,
-    where Gamma^-1 theta is the WLS coefficient vector of u^(p+1) on r_p(u) (u = x/h, weights K(u)),
-    and beta_q[p+1](b) is the coefficient on v^(p+1) of the order-q fit at the pilot bandwidth
-    (v = x/b). (Dividing by h^nu converts the scaled-basis derivative to score units.)
+    per side:  mu_bc = nu! (beta_p[nu](h) - g[nu] * beta_q[p+1](b)),
+    where beta_p(h) is the order-p fit at h (weights K(x/h)), g the WLS coefficients of x^(p+1) on
+    [1, x, ..., x^p] with the same weights, and beta_q[p+1](b) the coefficient on x^(p+1) of the
+    order-q fit at the pilot bandwidth b (weights K(x/b)).
     """
     q = degree + 1 if bias_degree is None else bias_degree
     p = degree
@@ -257,18 +258,15 @@ def bias_corrected_reference(score, y, cutoff, bandwidth, pilot_bandwidth, *, ke
         on_side = (score - cutoff >= 0) if side == "above" else (score - cutoff < 0)
         x = (score - cutoff)[on_side]
         ys = y[on_side]
-        u = x / h
-        wu = kernel_weights(u, kernel)
-        ku = wu > 0
-        r_p = np.vander(u[ku], p + 1, increasing=True)
-        fit_h = sm.WLS(ys[ku], r_p, weights=wu[ku]).fit()
-        proj = sm.WLS(u[ku] ** (p + 1), r_p, weights=wu[ku]).fit()
-        v = x / b
-        wv = kernel_weights(v, kernel)
-        kv = wv > 0
-        fit_b = sm.WLS(ys[kv], np.vander(v[kv], q + 1, increasing=True), weights=wv[kv]).fit()
-        level = fit_h.params[nu] - proj.params[nu] * fit_b.params[p + 1] * (h / b) ** (p + 1)
-        limits.append(math.factorial(nu) * level / h ** nu)
+        wh = kernel_weights(x / h, kernel)
+        kh = wh > 0
+        x_p = np.vander(x[kh], p + 1, increasing=True)
+        fit_h = sm.WLS(ys[kh], x_p, weights=wh[kh]).fit()
+        proj = sm.WLS(x[kh] ** (p + 1), x_p, weights=wh[kh]).fit()
+        wb = kernel_weights(x / b, kernel)
+        kb = wb > 0
+        fit_b = sm.WLS(ys[kb], np.vander(x[kb], q + 1, increasing=True), weights=wb[kb]).fit()
+        limits.append(math.factorial(nu) * (fit_h.params[nu] - proj.params[nu] * fit_b.params[p + 1]))
     below, above = limits
     return above - below if treated == "above" else below - above
 

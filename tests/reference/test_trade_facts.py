@@ -124,6 +124,24 @@ class TestBiasCorrectionReferenceItself:
         nxt = wls_reference(s, y, cutoff, 0.5, kernel=kernel, degree=degree + 1)
         assert bc == pytest.approx(nxt.estimate, rel=1e-10)
 
+    @pytest.mark.parametrize("kernel", KERNELS)
+    @pytest.mark.parametrize("h,b", [(0.3, 0.75), (0.8, 0.45)])
+    @pytest.mark.parametrize("degree", [0, 1, 2])
+    def test_exact_for_a_degree_p_plus_one_curve_at_b_not_h(self, degree, h, b, kernel):
+        """First principles at b != h: on a curve that is exactly a polynomial of degree p + 1 on each
+        side, the order-q fit at any b recovers the x^(p+1) coefficient, so the two-step estimate is
+        the true jump (and the conventional one is not)."""
+        frame, cutoff = make_data("smooth")
+        s = frame["score"].to_numpy()
+        x = s - cutoff
+        above = np.polynomial.polynomial.polyval(x, [1.0, 0.5, -2.0, 1.5][: degree + 2])
+        below = np.polynomial.polynomial.polyval(x, [0.2, -0.3, 3.0, -1.0][: degree + 2])
+        curve = np.where(x >= 0, above, below)
+        bc = bias_corrected_reference(s, curve, cutoff, h, b, kernel=kernel, degree=degree)
+        assert bc == pytest.approx(0.8, abs=1e-9)
+        conventional = wls_reference(s, curve, cutoff, h, kernel=kernel, degree=degree).estimate
+        assert abs(conventional - 0.8) > 1e-4
+
     def test_identity_derivative(self):
         frame, cutoff = make_data("smooth")
         s, y = frame["score"].to_numpy(), frame["y"].to_numpy()
