@@ -2,7 +2,8 @@
 
 References: statsmodels (multipletests for Holm; WLS where noted), pandas groupby for bin means,
 scipy.stats for the chi-square/normal laws, and the Lee / Ludwig-Miller simulation designs
-(Calonico, Cattaneo & Titiunik 2014; METHODS 14.1) as data-generating processes with known truth.
+(Calonico, Cattaneo & Titiunik 2014, Econometrica 82(6), Models 1-2; coefficients from memory) as
+data-generating processes with known truth.
 """
 from __future__ import annotations
 
@@ -15,12 +16,12 @@ import seamline
 from seamline.errors import InvalidOptionError, OneSidedDataError, SeamlineError
 
 SIGMA = 0.1295
-LEFT = np.array([0.48, 1.27, 7.18, 20.21, 21.54, 7.33])     # METHODS 14.1, Model 1
+LEFT = np.array([0.48, 1.27, 7.18, 20.21, 21.54, 7.33])     # CCT 2014 Model 1 (Lee 2008 fit; from memory)
 RIGHT = np.array([0.52, 0.84, -3.00, 7.99, -9.01, 3.56])
 
 
 def lee(n: int, rng: np.random.Generator, covariate_jump: float = 0.0) -> pd.DataFrame:
-    """The Lee design (METHODS 14.1) plus a smooth pre-treatment covariate z (optionally with a jump)."""
+    """The Lee design (CCT 2014 Model 1) plus a smooth pre-treatment covariate z (optionally with a jump)."""
     x = 2.0 * rng.beta(2.0, 4.0, n) - 1.0
     powers = np.vander(x, 6, increasing=True)
     y = np.where(x < 0, powers @ LEFT, powers @ RIGHT) + rng.normal(0.0, SIGMA, n)
@@ -176,13 +177,26 @@ def test_bins_means_equal_pandas_groupby(design):
 
 
 def test_bins_curve_meets_the_fit_at_the_cutoff(design):
-    res = design.bins()
-    fit = design.fit()
+    """The curve at the cutoff is the fit's limit, and its band there is z times the side's HC0 SE of
+    the intercept. Reference: statsmodels WLS(y, [1, x], weights=1 - |x|/h).fit(cov_type="HC0") on
+    the rows of that side inside h; z from scipy.stats.norm.ppf."""
+    import statsmodels.api as sm
+    from scipy import stats
+
+    h = 0.3
+    res = design.bins(bandwidth=h, variance="hc0", level=0.9)
+    fit = design.fit(bandwidth=h, variance="hc0")
     curve = res.curve()
+    data = lee(3000, np.random.default_rng(1))
     for side, limit in (("below", fit.limits[0]), ("above", fit.limits[1])):
         at_cutoff = curve[(curve.side == side) & (curve.x == 0.0)]
         assert at_cutoff.fit.iloc[0] == pytest.approx(limit, rel=1e-9)
-        assert (at_cutoff.ci_low < at_cutoff.fit).all() and (at_cutoff.fit < at_cutoff.ci_high).all()
+        rows = data[((data.x < 0) if side == "below" else (data.x >= 0)) & (data.x.abs() < h)]
+        ref = sm.WLS(rows.y, sm.add_constant(rows.x), weights=1 - rows.x.abs() / h).fit(cov_type="HC0")
+        assert at_cutoff.fit.iloc[0] == pytest.approx(ref.params.iloc[0], rel=1e-9)
+        half = stats.norm.ppf(0.95) * ref.bse.iloc[0]
+        assert at_cutoff.ci_high.iloc[0] - at_cutoff.fit.iloc[0] == pytest.approx(half, rel=1e-8)
+        assert at_cutoff.fit.iloc[0] - at_cutoff.ci_low.iloc[0] == pytest.approx(half, rel=1e-8)
     assert set(res.table().columns) >= {"side", "left", "right", "count", "mean", "ci_low", "ci_high"}
     glob = design.bins(global_degree=4).global_polynomial()
     assert set(glob.side) == {"below", "above"}
@@ -250,4 +264,3 @@ def test_results_render_everywhere(design):
     for res in (design.density_test(), design.balance(), design.sensitivity(), design.placebo_cutoffs(),
                 design.donut(), design.bins(), design.score_profile(), design.checks()):
         assert "\\toprule" in res.to_latex() and "|" in res.to_markdown() and "<table" in res._repr_html_()
-        assert isinstance(res.warnings, tuple)

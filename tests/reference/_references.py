@@ -2,10 +2,10 @@
 
 Nothing here stores a number: every reference value is produced by a general-purpose library
 (statsmodels WLS/OLS, linearmodels IV2SLS) at test time, on the same rows and weights the engine
-is specified to use (see the engine contract and METHODS.md sections 1, 2, 6, 7).
+is specified to use (the engine contract described below).
 
 The local polynomial estimate of a cutoff design is written as ONE fully interacted weighted
-regression (METHODS section 1.2, "single-regression equivalent"):
+regression (common practice: the two side fits are one interacted regression):
 
     Y ~ [ 1{below} r_p(x / h_below),  1{above} r_p(x / h_above) ]  (+ covariates Z, additively)
     x = score - cutoff,  r_p(u) = (1, u, ..., u^p),
@@ -27,6 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import statsmodels.api as sm
+from linearmodels.iv import IV2SLS
 
 # Tolerance for every engine-vs-reference comparison in tests/reference (declared once; any looser
 # tolerance used by a test is justified where it is used).
@@ -198,7 +199,8 @@ def ols_subset_reference(score, y, cutoff, bandwidth, *, degree=1, treated="abov
 
 def iv_reference(score, y, takeup, cutoff, bandwidth, *, kernel="triangular", degree=1,
                  treated="above", weights=None) -> Reference:
-    """linearmodels IV2SLS of the local fuzzy design (METHODS section 6.1).
+    """linearmodels IV2SLS of the local fuzzy design (Hahn, Todd & Van der Klaauw 2001: the fuzzy
+    estimate is a local 2SLS with the treated-side indicator as instrument).
 
     dependent = Y, endogenous = take-up D, excluded instrument T = 1{treated side},
     exogenous = [1, 1{below} u..u^p, 1{above} u..u^p] (u = x / h_side; with a common h this spans
@@ -207,8 +209,6 @@ def iv_reference(score, y, takeup, cutoff, bandwidth, *, kernel="triangular", de
     The coefficient on D is the ratio of the two jumps; it does not depend on which side is called
     treated because numerator and denominator change sign together.
     """
-    from linearmodels.iv import IV2SLS  # imported lazily: only the fuzzy tests need it
-
     win = build_window(score, cutoff, bandwidth, kernel, degree, weights)
     p = degree
     below_cols = win.design[:, 1:p + 1]

@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-seamline = pytest.importorskip("seamline")
+import seamline
 
 pytestmark = pytest.mark.slow
 
