@@ -5,7 +5,8 @@
 #   make test         set up (Debian's chromium included), then the TypeScript unit tests and the
 #                     test suite on two cores, real-browser tests included
 #   make bench        set up, then run the benchmark scripts (not part of make test)
-#   make validate     set up, then the larger Monte Carlo on the published designs (minutes)
+#   make validate     set up, then the Monte Carlo tests over 10 seeds and the larger Monte Carlo
+#                     on the published designs (minutes)
 #   make mutations    set up, then check that each deliberately broken engine variant fails a test
 #   make check-names  scan the repository for names reserved by other software
 
@@ -75,7 +76,8 @@ bench: venv
 	if [ $$found = no ]; then echo "no tests/benchmarks/bench_*.py scripts found" >&2; exit 1; fi
 
 validate: venv
-	$(PY) tests/benchmarks/validate_monte_carlo.py
+	$(PY) tests/benchmarks/validate_monte_carlo.py sweep 10
+	$(PY) tests/benchmarks/validate_monte_carlo.py table
 
 mutations: venv
 	$(PY) tests/benchmarks/mutations.py
