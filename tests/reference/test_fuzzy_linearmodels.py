@@ -1,9 +1,10 @@
 """Fuzzy designs against linearmodels IV2SLS and statsmodels WLS.
 
 References (run live):
-- linearmodels ``IV2SLS`` on the kernel-weighted window (Hahn, Todd & Van der Klaauw 2001: the ratio of jumps is a local
-  2SLS with instrument T = 1{treated side}); its ``cov_type="robust", debiased=False`` SE is the
-  HC0 sandwich of the weighted 2SLS, which equals the linearised variance (checked below with statsmodels).
+- linearmodels ``IV2SLS`` on the kernel-weighted window (Hahn, Todd & Van der Klaauw 2001: the ratio
+  of jumps is a local 2SLS with instrument T = 1{treated side}); its ``cov_type="robust",
+  debiased=False`` SE is the HC0 sandwich of the weighted 2SLS, which equals the linearised variance
+  (checked below with statsmodels).
 - statsmodels ``WLS`` for the first stage (the take-up jump), as in test_statsmodels_wls.py.
 Tolerance: RTOL = 1e-8 relative (declared in _references).
 
@@ -49,7 +50,7 @@ def _fit(frame, cutoff, treated, *, weights, **kwargs):
 
 
 class TestReferenceItself:
-    """linearmodels and statsmodels agree with each other on the fuzzy identities (ratio of jumps; linearised HC0 variance)."""
+    """linearmodels and statsmodels agree on the fuzzy identities (ratio of jumps; linearised HC0 variance)."""
 
     @pytest.mark.parametrize("degree", [0, 1, 2])
     @pytest.mark.parametrize("case", list(CASES))

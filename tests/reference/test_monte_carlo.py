@@ -17,10 +17,10 @@ from the Imbens-Kalyanaraman formula with the true constants (recomputed in
 tests/core/test_kernels.py), shrinking like n^(-1/5).
 
 How the bands are set (before looking at the outcome): a coverage rate from R draws has Monte Carlo
-standard error sqrt(p (1 - p) / R); a mean, sd / sqrt(R); a median, the sample quantiles at 1/2 -+ 3 / (2 sqrt(R))
-(distribution-free); a ratio of SE to SD, about 1 / sqrt(2 R). A check against a nominal value allows
-3 of these. Where the engine does not reach the nominal value, the test says so instead of widening
-the band: the check pins the measured value (from a larger run: `validate_monte_carlo.py measure`)
+standard error sqrt(p (1 - p) / R); a mean, sd / sqrt(R); a ratio of SE to SD, about 1 / sqrt(2 R);
+for a median, the sample quantiles at 1/2 -+ 3 / (2 sqrt(R)) bound it (distribution-free). A check
+against a nominal value allows 3 of these. Where the engine does not reach the nominal value, the
+test says so instead of widening the band: the check pins the measured value (from a larger run: `validate_monte_carlo.py measure`)
 within 3 combined Monte Carlo standard errors, or is a strict xfail where the shortfall is many
 standard errors wide (it fails loudly the day the shortfall disappears). The shortfalls below are
 raised in issue 9 ("Inference a referee accepts").

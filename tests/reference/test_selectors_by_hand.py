@@ -138,7 +138,8 @@ def h_from_pilot(sides, n: int, b: tuple[float, float], c: float, common: bool) 
 
 
 def test_variance_pilot_constant():
-    """Triangular kernel: R(K) = 2/3, mu_2 = 1/6, so C_NR = (8 sqrt(pi) (2/3) 36 / 3)^(1/5) = (64 sqrt(pi))^(1/5) (hand algebra)."""
+    """Hand algebra: triangular R(K) = 2/3, mu_2 = 1/6, so C_NR = (8 sqrt(pi) (2/3) 36 / 3)^(1/5)
+    = (64 sqrt(pi))^(1/5); uniform K = 1/2 gives (12 sqrt(pi))^(1/5)."""
     assert normal_reference_constant("triangular") == pytest.approx((64.0 * sqrt(pi)) ** 0.2, rel=1e-10)
     assert normal_reference_constant("uniform") == pytest.approx((12.0 * sqrt(pi)) ** 0.2, rel=1e-10)
     assert normal_reference_constant("uniform") == pytest.approx(1.84, abs=0.005)  # IK 2012's 1.84
@@ -225,7 +226,8 @@ def test_ik_rule(case):
     """IK steps: h1 = 1.84 sd n^(-1/5); f and sigma^2 from the rows within h1; m3 from a global cubic
     with a jump between the side medians (squared value floored at 0.01 in standardised units);
     h2 = 3.56 (sigma^2 / (f m3^2))^(1/7) n_side^(-1/7); m2 from a quadratic within h2; regulariser
-    720 sigma^2 / (n2 h2^4); h = C_K [(sigma_-^2 + sigma_+^2) / (f ((m2_+ - m2_-)^2 + r_- + r_+))]^(1/5) n^(-1/5)."""
+    720 sigma^2 / (n2 h2^4);
+    h = C_K [(sigma_-^2 + sigma_+^2) / (f ((m2_+ - m2_-)^2 + r_- + r_+))]^(1/5) n^(-1/5)."""
     frame, sides, design = case
     n = len(frame)
     x = frame.x.to_numpy()
