@@ -5,8 +5,9 @@ Kalyanaraman 2012), as written out in tests/reference/test_monte_carlo.py. Three
 
     validate_monte_carlo.py table [replications]   coverage, bias, SE/SD and median bandwidth per
                                                    model, n and rule (default 1000 replications)
-    validate_monte_carlo.py measure                the larger runs whose results
-                                                   tests/reference/test_monte_carlo.py records
+    validate_monte_carlo.py measure                the larger runs whose results the Monte Carlo
+                                                   tests record (tests/reference/test_monte_carlo.py,
+                                                   the placebo test in tests/diagnostics)
     validate_monte_carlo.py sweep [seeds]          runs tests/reference/test_monte_carlo.py once per
                                                    seed shift (SEAMLINE_MC_SEED = 1..seeds, default 10)
                                                    and prints which tests pass for which seed
@@ -59,6 +60,16 @@ def measure() -> None:
     h = MODELS[1][3]
     a = np.vstack([fits(1, 500, 500, 900 + s, bandwidth=h, pilot_bandwidth=h) for s in range(8)])
     print(f"Model 1, n = 500, h = b = {h}:", summary(a, MODELS[1][2]), flush=True)
+    sys.path.insert(0, str(ROOT / "tests" / "diagnostics"))
+    from test_diagnostics import lee
+    shares = []
+    for s in range(6):
+        rng = np.random.default_rng(5000 + s)
+        for _ in range(60):
+            t = seamline.Design(lee(2000, rng), score="x", cutoff=0.0, outcome="y").placebo_cutoffs().table()
+            shares.append(float(((t.robust_ci_low <= 0) & (0 <= t.robust_ci_high)).mean()))
+    print(f"Model 1 placebo cutoffs, n = 2000: robust coverage share {np.mean(shares):.4f} "
+          f"(MC SE {np.std(shares, ddof=1) / np.sqrt(len(shares)):.4f}, {len(shares)} draws)", flush=True)
     for model in (1, 2, 3):
         for n, reps in ((20_000, 200), (50_000, 100)):
             ratio = fits(model, n, reps, 99 + n)[:, 8] / (MODELS[model][3] * (500 / n) ** 0.2)

@@ -87,11 +87,13 @@ def test_balance_rejection_rates():
     """No jump: rejection near 5% for each covariate and for the joint test; a jump is detected.
 
     n = 3000 (at n = 600 robust intervals with estimated bandwidths still over-reject a little, about 7%
-    per covariate in a 200-draw run). 150 replications: binomial sd of a 5% rate is 0.018, so
-    [0.01, 0.11] is about -2/+3 sd."""
+    per covariate in a 200-draw run). 150 replications: the band is 5% +- 3 Monte Carlo SE,
+    sqrt(0.05 * 0.95 / 150) = 0.0178, i.e. at most 0.103. Power: 40 draws with a covariate jump of
+    0.3 (about 4 SE of the jump): at least 0.8 (a lower bound, not a band)."""
+    reps = 150
     rng = np.random.default_rng(2024)
     single, joint, power = [], [], []
-    for _ in range(150):
+    for _ in range(reps):
         d = seamline.Design(lee(3000, rng), score="x", cutoff=0.0, outcome="y", covariates=["z", "z2"])
         bal = d.balance()
         single.append(bal.rows[0]["p_value"] < 0.05)
@@ -99,8 +101,9 @@ def test_balance_rejection_rates():
     for _ in range(40):
         d = seamline.Design(lee(3000, rng, covariate_jump=0.3), score="x", cutoff=0.0, outcome="y", covariates=["z"])
         power.append(d.balance().rows[0]["p_value"] < 0.05)
-    assert 0.01 <= np.mean(single) <= 0.11, np.mean(single)
-    assert 0.01 <= np.mean(joint) <= 0.11, np.mean(joint)
+    mc_se = np.sqrt(0.05 * 0.95 / reps)
+    assert abs(np.mean(single) - 0.05) <= 3 * mc_se, np.mean(single)
+    assert abs(np.mean(joint) - 0.05) <= 3 * mc_se, np.mean(joint)
     assert np.mean(power) >= 0.8, np.mean(power)
 
 
@@ -120,18 +123,29 @@ def test_balance_bad_input(design):
 
 
 # ---- placebo and donut -----------------------------------------------------------------------
-@pytest.mark.slow
-def test_placebo_cutoffs_cover_zero_at_nominal_rate():
-    """Lee Model 1 has no jump away from 0: placebo robust CIs cover 0 about 95% of the time.
+# Measured by `python tests/benchmarks/validate_monte_carlo.py measure` (360 draws, seeds 5000-5005):
+# placebo robust coverage share and its Monte Carlo SE. Below the nominal 0.95 by about 5 MC SE: the
+# same under-coverage of the default robust interval raised in issue 9 ("Inference a referee accepts").
+MEASURED_PLACEBO_COVERAGE = (0.9257, 0.0047)
 
-    60 replications x 8 placebos = 480 intervals (correlated within a draw); band [0.88, 0.99]."""
+
+@pytest.mark.slow
+def test_placebo_cutoffs_cover_zero_at_the_measured_rate():
+    """Lee Model 1 has no jump away from 0: placebo robust CIs should cover 0 95% of the time; they
+    cover about 0.926 (issue 9), and the test records that instead of widening a nominal band.
+
+    60 replications x 8 placebos; the 8 intervals of one draw are correlated, so the Monte Carlo SE
+    is the SD of the per-draw coverage share over sqrt(60); the band is 3 of those, combined with the
+    measured value's own MC SE."""
     rng = np.random.default_rng(77)
-    covered = []
+    shares = []
     for _ in range(60):
         res = seamline.Design(lee(2000, rng), score="x", cutoff=0.0, outcome="y").placebo_cutoffs()
         t = res.table()
-        covered += list((t.robust_ci_low <= 0) & (0 <= t.robust_ci_high))
-    assert 0.88 <= np.mean(covered) <= 0.99, np.mean(covered)
+        shares.append(float(((t.robust_ci_low <= 0) & (0 <= t.robust_ci_high)).mean()))
+    measured, measured_se = MEASURED_PLACEBO_COVERAGE
+    mc_se = np.sqrt(np.var(shares, ddof=1) / len(shares) + measured_se ** 2)
+    assert abs(np.mean(shares) - measured) <= 3 * mc_se, (np.mean(shares), mc_se)
 
 
 def test_placebo_uses_one_side_only(design):
