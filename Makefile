@@ -5,7 +5,9 @@
 #   make test         set up (Debian's chromium included), then the TypeScript unit tests and the
 #                     test suite on two cores, real-browser tests included
 #   make bench        set up, then run the benchmark scripts (not part of make test)
-#   make validate     set up, then the larger Monte Carlo on the published designs (minutes)
+#   make validate     set up, then the Monte Carlo tests over 10 seeds and the larger Monte Carlo
+#                     on the published designs (minutes)
+#   make mutations    set up, then check that each deliberately broken engine variant fails a test
 #   make check-names  scan the repository for names reserved by other software
 
 PYTHON ?= python3
@@ -18,7 +20,7 @@ CHROMIUM := /usr/bin/chromium
 EXTENSION_SOURCES := $(wildcard extension/package.json extension/yarn.lock extension/.yarnrc.yml \
 	extension/tsconfig.json extension/src/*.ts extension/style/*)
 
-.PHONY: venv demo test js-test chromium bench validate check-names
+.PHONY: venv demo test js-test chromium bench validate mutations check-names
 
 venv: $(STAMP)
 
@@ -74,7 +76,11 @@ bench: venv
 	if [ $$found = no ]; then echo "no tests/benchmarks/bench_*.py scripts found" >&2; exit 1; fi
 
 validate: venv
-	$(PY) tests/benchmarks/validate_monte_carlo.py
+	$(PY) tests/benchmarks/validate_monte_carlo.py sweep 10
+	$(PY) tests/benchmarks/validate_monte_carlo.py table
+
+mutations: venv
+	$(PY) tests/benchmarks/mutations.py
 
 check-names:
 	../shared/tools/check-names --repo .

@@ -14,8 +14,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-seamline = pytest.importorskip("seamline")
-from seamline import errors  # noqa: E402
+import seamline
+from seamline import errors
 
 
 def frame(n: int = 400, seed: int = 3) -> pd.DataFrame:

@@ -1,6 +1,7 @@
 """Inputs other than a pandas DataFrame go through pandas conversion and give identical fits."""
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 import pytest
 
 import seamline
@@ -30,7 +31,6 @@ def test_interchange_protocol_input():
 
 
 def test_arrow_table_input():
-    pa = pytest.importorskip("pyarrow")
     df = frame()
     want = seamline.Design(df, score="x", cutoff=0.0, outcome="y").fit()
     got = seamline.Design(pa.Table.from_pandas(df), score="x", cutoff=0.0, outcome="y").fit()

@@ -15,7 +15,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-seamline = pytest.importorskip("seamline")
+import seamline
 
 RTOL_INV = 1e-8
 # Few examples, no deadline (a data-driven bandwidth takes milliseconds, not microseconds),

@@ -1,10 +1,10 @@
-"""Binned means for cutoff plots (Calonico, Cattaneo & Titiunik 2015; METHODS section 9).
+"""Binned means for cutoff plots (Calonico, Cattaneo & Titiunik 2015, JASA 110(512)).
 
 Outside references used here, each named beside its check:
 * pandas groupby / pd.cut / pd.qcut (bin membership and bin means),
 * scipy.stats.sem and statsmodels WLS with HC1 standard errors (bin standard errors),
-* scipy.integrate.quad with the Lee design of METHODS 14.1 (published Monte Carlo design; coefficients
-  confirmed from independent replication scripts) for the population check values of METHODS 9.5.
+* scipy.integrate.quad with the Lee design (CCT 2014 Model 1, a published Monte Carlo design;
+  coefficients from memory) for the population IMSE constants of CCT 2015.
 """
 from __future__ import annotations
 
@@ -18,7 +18,6 @@ import statsmodels.api as sm
 from scipy import integrate, stats
 
 from seamline.core.binning import (
-    BinnedMeans,
     bin_constants,
     binned_means,
     imse_bins,
@@ -28,13 +27,13 @@ from seamline.core.binning import (
 )
 from seamline.errors import InvalidOptionError, InvalidWeightsError, OneSidedDataError
 
-SIGMA = 0.1295   # error sd of the Lee design (METHODS 14.1)
-LEFT = (0.48, 1.27, 7.18, 20.21, 21.54, 7.33)     # Model 1, x < 0 (METHODS 14.1)
+SIGMA = 0.1295   # error sd of the Lee design (CCT 2014 Model 1; from memory)
+LEFT = (0.48, 1.27, 7.18, 20.21, 21.54, 7.33)     # Model 1, x < 0 (CCT 2014; from memory)
 RIGHT = (0.52, 0.84, -3.00, 7.99, -9.01, 3.56)    # Model 1, x >= 0
 
 
 def lee_model1(n, rng):
-    """Lee design, Model 1 (CCT 2014 / IK 2012 via METHODS 14.1): X = 2 Beta(2, 4) - 1, c = 0."""
+    """Lee design, Model 1 (CCT 2014 / IK 2012; from memory): X = 2 Beta(2, 4) - 1, c = 0."""
     x = 2 * rng.beta(2, 4, n) - 1
     mu = np.where(x < 0, np.polynomial.polynomial.polyval(x, LEFT),
                   np.polynomial.polynomial.polyval(x, RIGHT))
@@ -42,7 +41,7 @@ def lee_model1(n, rng):
 
 
 # ---------------------------------------------------------------------------------------------
-# Population check values (METHODS 9.5, derived + num-checked there)
+# Population constants by numerical integration (scipy.integrate.quad), CCT 2015's formulas
 # ---------------------------------------------------------------------------------------------
 def test_population_imse_numbers_lee_model1():
     # B_ES = (L^2/12) int mu'(x)^2 f_s(x) dx with f_s the density of X given the side, L = 1;
@@ -57,17 +56,17 @@ def test_population_imse_numbers_lee_model1():
     b_right = integrate.quad(lambda x: np.polynomial.polynomial.polyval(x, d_right) ** 2 * fx(x)
                              / (1 - p_below), 0, 1)[0] / 12
     v = SIGMA ** 2
-    assert b_left == pytest.approx(0.03263, abs=1e-5)    # METHODS 9.5
+    assert b_left == pytest.approx(0.03263, abs=1e-5)    # the quad value, recorded to pin the integral
     assert b_right == pytest.approx(0.01841, abs=1e-5)
     n_left, n_right = 500 * p_below, 500 * (1 - p_below)
     assert imse_number(b_left, v, n_left) == pytest.approx(11.650, abs=5e-3)
     assert imse_number(b_right, v, n_right) == pytest.approx(5.904, abs=5e-3)
-    assert imse_bins(b_left, v, n_left) == 12      # METHODS A16: 12 left, 6 right
+    assert imse_bins(b_left, v, n_left) == 12      # ceil of 11.650 and 5.904 above: 12 left, 6 right
     assert imse_bins(b_right, v, n_right) == 6
 
 
 def test_imse_number_minimises_the_imse():
-    # J* minimises B/J^2 + J V/n (METHODS 9.2), checked by a fine grid search.
+    # J* minimises B/J^2 + J V/n (CCT 2015), checked by a fine grid search.
     b, v, n = 0.05, 0.02, 800
     grid = np.linspace(0.5, 60, 200001)
     imse = b / grid ** 2 + grid * v / n
@@ -76,7 +75,7 @@ def test_imse_number_minimises_the_imse():
 
 
 def test_mimic_variance_formula():
-    # METHODS 9.3: ceil((Vbar / V_bins) n / log(n)^2); equal-count bins: ceil(n / log(n)^2).
+    # CCT 2015 mimicking-variance rule: ceil((Vbar / V_bins) n / log(n)^2); equal-count bins: ceil(n / log(n)^2).
     assert mimic_variance_bins(1.0, 1.0, 1000) == math.ceil(1000 / math.log(1000) ** 2)
     assert mimic_variance_bins(2.0, 1.0, 1000) == math.ceil(2000 / math.log(1000) ** 2)
     assert mimic_variance_bins(1.0, 1.0, 2) == 1
@@ -91,7 +90,7 @@ def test_mimic_variance_formula():
 # Spacings estimators against known constants
 # ---------------------------------------------------------------------------------------------
 def test_spacings_constants_uniform_design():
-    # METHODS 9.5: X ~ U[-1, 1], mu(x) = x. On each side f_s = 1 on a unit interval, so
+    # Hand computation: X ~ U[-1, 1], mu(x) = x. On each side f_s = 1 on a unit interval, so
     # B_QS = B_ES = 1/12 and V_QS = V_ES = sigma^2. Large n, so +-8 %.
     rng = np.random.default_rng(21)
     n, sigma = 100_000, 0.3
@@ -107,7 +106,7 @@ def test_spacings_constants_uniform_design():
 
 
 def test_spacings_constants_lee_model1_left():
-    # Sample B_ES below the cutoff approaches the population 0.03263 (METHODS 9.5); the quartic
+    # Sample B_ES below the cutoff approaches the population 0.03263 (quad, test above); the quartic
     # pilot cannot fit the quintic exactly, so +-10 %. V_ES -> sigma^2.
     rng = np.random.default_rng(5)
     x, y = lee_model1(200_000, rng)
@@ -254,7 +253,7 @@ def test_selection_is_per_side_and_scale_and_user_numbers():
     assert res.number == (9, 4) and res.rule == "user" and res.count.size == 13
     mv = binned_means(x, y, 0.0, rule="mimic-variance")
     assert mv.number == mv.selection.mimic_variance_number
-    assert mv.number[0] > auto.number[0]              # MV gives many more bins (METHODS 9.3)
+    assert mv.number[0] > auto.number[0]              # MV gives many more bins (CCT 2015)
 
 
 def test_row_order_does_not_matter():
@@ -272,7 +271,7 @@ def test_result_is_frozen_and_read_only():
     rng = np.random.default_rng(11)
     x, y = lee_model1(800, rng)
     res = binned_means(x, y, 0.0)
-    assert isinstance(res, BinnedMeans)
+    assert int(res.count.sum()) == len(x)  # every observation lands in exactly one bin
     with pytest.raises(dataclasses.FrozenInstanceError):
         res.number = (1, 1)
     for arr in (res.mean, res.left, res.count, res.side, res.assignment):

@@ -4,9 +4,9 @@ Outside references used here, each named beside its check:
 * statsmodels WLS (the kernel-weighted polynomial fits),
 * scipy.stats (true densities of the simulated laws, normal quantiles) and scipy.integrate (kernel
   constants),
-* the variance formula of METHODS 8.2 written out as an O(n^2) double sum (Hajek projection),
-* the reference Monte Carlo runs quoted in METHODS 8.1 and 8.2 (tolerance targets, not published
-  numbers).
+* the variance formula of Cattaneo, Jansson & Ma (2020) written out as an O(n^2) double sum (Hajek
+  projection),
+* earlier runs of the same Monte Carlo set-ups (tolerance targets, not published numbers).
 """
 from __future__ import annotations
 
@@ -21,7 +21,6 @@ from scipy import integrate, stats
 from seamline.core.density import (
     MCCRARY_KAPPA,
     MCCRARY_R_STAR,
-    DensityEstimate,
     binned_bandwidth,
     binned_bin_width,
     binned_density_test,
@@ -88,7 +87,7 @@ def test_uniform_draws_density_within_interval():
 @pytest.mark.parametrize("kernel", KERNELS)
 def test_cdf_fit_matches_statsmodels_wls(kernel):
     # The estimator is a weighted least-squares fit of the full-sample empirical CDF on
-    # r_p((X - c)/h) over one side; statsmodels WLS gives the same slope (METHODS 8.2).
+    # r_p((X - c)/h) over one side; statsmodels WLS gives the same slope (Cattaneo, Jansson & Ma 2020).
     rng = np.random.default_rng(3)
     x = rng.standard_normal(1500)
     c, h, p = 0.2, 0.7, 2
@@ -108,7 +107,7 @@ def test_cdf_fit_matches_statsmodels_wls(kernel):
 
 
 def _brute_force_cov(x, c, h_pair, p, kernel):
-    """METHODS 8.2 variance written literally: psi_i for every i by an explicit n x m double sum."""
+    """The Cattaneo-Jansson-Ma (2020) variance written literally: psi_i for every i by an explicit n x m double sum."""
     n = x.size
     f_all = {}
     out = {}
@@ -134,7 +133,7 @@ def _brute_force_cov(x, c, h_pair, p, kernel):
 
 @pytest.mark.parametrize("kernel", KERNELS)
 def test_fast_variance_equals_literal_double_sum(kernel):
-    # Suffix-sum implementation versus the O(n^2) formula of METHODS 8.2, variances and cross term.
+    # Suffix-sum implementation versus the O(n^2) formula (Cattaneo, Jansson & Ma 2020), variances and cross term.
     rng = np.random.default_rng(5)
     x = np.round(rng.standard_normal(600), 2)   # rounding adds ties, which the grouping must handle
     c, h_pair = 0.1, (0.8, 0.6)
@@ -224,13 +223,13 @@ def test_bandwidth_functions_match_the_test():
     assert local_cdf_bandwidth(x, 0.5) == local_cdf_density_test(x, 0.5, grid_points=0).bandwidth
     h = binned_bandwidth(x, 0.5)
     assert binned_density_test(x, 0.5, grid_points=0).bandwidth == (h, h)
-    # McCrary's bin size b = 2 sd n^(-1/2) (METHODS 8.1)
+    # McCrary's bin size b = 2 sd n^(-1/2) (McCrary 2008; from memory)
     assert binned_bin_width(x) == pytest.approx(2 * np.std(x, ddof=1) / math.sqrt(x.size))
 
 
 def test_local_cdf_bandwidth_near_oracle():
     # Sanity check of the plug-in (its pilots are seamline conventions): the oracle MSE-optimal
-    # h = [V / (2p B^2 n)]^(1/(2p+1)) of METHODS 8.2 with the true f''(c) of N(0, 1) from scipy.stats
+    # h = [V / (2p B^2 n)]^(1/(2p+1)) (Cattaneo, Jansson & Ma 2020) with the true f''(c) of N(0, 1) from scipy.stats
     # (d^2/dx^2 phi(x) = (x^2 - 1) phi(x)) and V, e_1'S^-1 theta from a large sample at h = 0.5.
     # The selected bandwidths (mean of 5 draws, n = 3000) must lie within a factor 2 of it.
     import seamline.core.density as core
@@ -250,14 +249,14 @@ def test_local_cdf_bandwidth_near_oracle():
 
 def test_mccrary_constants():
     # 24/5 = int_0^1 K*(u)^2 du for the boundary local linear triangular equivalent kernel
-    # (METHODS A14), recomputed with scipy.integrate.quad from K*(u) = e_0' G^-1 (1, u) K(u).
+    # recomputed with scipy.integrate.quad from K*(u) = e_0' G^-1 (1, u) K(u).
     k = lambda u: 1 - u
     g = np.array([[integrate.quad(lambda u: u ** (i + j) * k(u), 0, 1)[0] for j in range(2)]
                   for i in range(2)])
     e0 = np.linalg.solve(g, [1.0, 0.0])
     r_star = integrate.quad(lambda u: ((e0[0] + e0[1] * u) * k(u)) ** 2, 0, 1)[0]
     assert MCCRARY_R_STAR == pytest.approx(r_star, rel=1e-10)
-    assert MCCRARY_KAPPA == 3.348   # McCrary (2008) rule-of-thumb constant (from memory; METHODS 8.1)
+    assert MCCRARY_KAPPA == 3.348   # McCrary (2008) rule-of-thumb constant (from memory)
 
 
 def test_mccrary_fit_matches_statsmodels_and_published_se():
@@ -286,7 +285,7 @@ def test_mccrary_fit_matches_statsmodels_and_published_se():
 def test_results_are_frozen_and_read_only():
     rng = np.random.default_rng(1)
     res = density_test(rng.standard_normal(1000), 0.0, method="binned")
-    assert isinstance(res, DensityEstimate) and res.method == "binned"
+    assert res.method == "binned"
     with pytest.raises(dataclasses.FrozenInstanceError):
         res.statistic = 0.0
     for arr in (res.grid.x, res.grid.density, res.histogram.count, res.histogram.left):
@@ -361,7 +360,7 @@ def test_monte_carlo_size_power_and_coverage():
     band = 3 * math.sqrt(0.05 * 0.95 / reps)
     rates = {k: float(np.mean([r.p_value < 0.05 for r in v])) for k, v in res.items()}
     assert abs(rates["local"] - 0.05) <= band, rates
-    # the binned test's reference size in METHODS 8.1 is 0.062 (500 reps), so its band spans
+    # an earlier 500-draw run of this set-up measured the binned test's size at 0.062, so its band spans
     # 3 binomial sd around both 0.05 and 0.062: [0.023, 0.089]
     assert 0.05 - band <= rates["binned"] <= 0.062 + band, rates
     truth = stats.norm.pdf(c)
@@ -387,7 +386,7 @@ def test_monte_carlo_size_power_and_coverage():
 
 @pytest.mark.slow
 def test_monte_carlo_local_cdf_reference_run():
-    # METHODS 8.2 reference run (tolerance target): X ~ N(0,1), c = 0.5, n = 2000, h = 0.5, p = 2,
+    # earlier run of this set-up (tolerance target): X ~ N(0,1), c = 0.5, n = 2000, h = 0.5, p = 2,
     # triangular. There: mean se / MC sd = 0.99 (above) and 1.05 (below). Here 400 replications;
     # the MC sd itself has relative sd ~ 1/sqrt(2 * 400) = 3.5 %, so the band is +-15 %.
     reps = 400
@@ -400,14 +399,14 @@ def test_monte_carlo_local_cdf_reference_run():
     est, se = np.array(est), np.array(se)
     ratio = se.mean(axis=0) / est.std(axis=0, ddof=1)
     assert np.all(np.abs(ratio - 1) < 0.15), ratio
-    # mean estimate near the true density 0.352065 (scipy.stats.norm.pdf(0.5)); METHODS run: 0.358
+    # mean estimate near the true density 0.352065 (scipy.stats.norm.pdf(0.5)); earlier run: 0.358
     # below and 0.354 above, so the order-p bias at h = 0.5 is about 1-2 %.
     np.testing.assert_allclose(est.mean(axis=0), stats.norm.pdf(0.5), rtol=0.04)
 
 
 @pytest.mark.slow
 def test_monte_carlo_mccrary_reference_run():
-    # METHODS 8.1 reference run (tolerance target): X ~ N(0,1), n = 5000, c = 0.3, automatic h.
+    # earlier run of this set-up (tolerance target): X ~ N(0,1), n = 5000, c = 0.3, automatic h.
     # There: rejection 0.062 (500 reps), sd(theta) = 0.0791 vs mean se = 0.0778, b ~ 0.0286,
     # h ~ 0.80. Here 500 replications: rejection in nominal +- 3 binomial sd = [0.021, 0.079],
     # se / sd within +-15 %.

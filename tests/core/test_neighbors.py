@@ -1,26 +1,35 @@
-"""Nearest-neighbour residuals: METHODS 2.2 hand-derived check values and the definition itself."""
+"""Nearest-neighbour residuals (Abadie & Imbens 2006): hand-derived check values and the definition itself."""
 import numpy as np
 import pytest
 
 from seamline.core.neighbors import neighbor_residuals
 
 
-@pytest.mark.parametrize("neighbors, sigma2, sets", [
-    # METHODS 2.2 (derived by hand + num-checked): X = (1, 2, 2, 4, 6), Y = (1, 2, 4, 3, 5)
-    (1, [2.666667, 2, 2, 0.333333, 2], [2, 1, 1, 3, 1]),
-    (2, [2.666667, 0.166667, 4.166667, 0.333333, 3], [2, 2, 2, 3, 3]),
-    (3, [3, 0.333333, 3, 0.333333, 3], [3, 3, 3, 3, 3]),
-])
-def test_methods_check_values(neighbors, sigma2, sets):
+# Hand-found neighbour sets (indices) of X = (1, 2, 2, 4, 6); ties at the J-th distance are kept:
+# J = 1: row 0 (x=1) -> both x=2 rows; rows 1, 2 -> each other; row 3 (x=4) -> x=2, x=2, x=6 (all at 2);
+# row 4 (x=6) -> x=4. J = 2: row 1 -> {2, 0}, row 2 -> {1, 0}, row 4 -> {3, 1, 2} (x=2 twice at 4). J = 3:
+# each row has exactly three neighbours, no further ties.
+NEIGHBOUR_SETS = {
+    1: [[1, 2], [2], [1], [1, 2, 4], [3]],
+    2: [[1, 2], [2, 0], [1, 0], [1, 2, 4], [3, 1, 2]],
+    3: [[1, 2, 3], [2, 0, 3], [1, 0, 3], [1, 2, 4], [3, 1, 2]],
+}
+
+
+@pytest.mark.parametrize("neighbors", [1, 2, 3])
+def test_hand_check_values(neighbors):
+    """sigma_i^2 = M/(M+1) (Y_i - mean of the neighbours)^2 (Abadie & Imbens 2006), from the sets above."""
     x = np.array([1, 2, 2, 4, 6.0])
     y = np.array([1, 2, 4, 3, 5.0])
+    sets = NEIGHBOUR_SETS[neighbors]
+    want = [len(s) / (len(s) + 1) * (y[i] - y[s].mean()) ** 2 for i, s in enumerate(sets)]
     resid, m = neighbor_residuals(x, y[:, None], neighbors)
-    assert resid[:, 0] ** 2 == pytest.approx(sigma2, abs=1e-6)
-    assert list(m) == sets
+    assert resid[:, 0] ** 2 == pytest.approx(want, rel=1e-12)
+    assert list(m) == [len(s) for s in sets]
 
 
 def brute_force(x, v, neighbors, tol):
-    """The definition of METHODS 2.2 computed literally (all ties at the J-th distance kept)."""
+    """The definition (Abadie & Imbens 2006) computed literally (all ties at the J-th distance kept)."""
     out, counts = np.empty_like(v), np.empty(len(x), dtype=int)
     for i in range(len(x)):
         dist = np.abs(x - x[i])

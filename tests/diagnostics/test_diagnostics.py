@@ -2,7 +2,8 @@
 
 References: statsmodels (multipletests for Holm; WLS where noted), pandas groupby for bin means,
 scipy.stats for the chi-square/normal laws, and the Lee / Ludwig-Miller simulation designs
-(Calonico, Cattaneo & Titiunik 2014; METHODS 14.1) as data-generating processes with known truth.
+(Calonico, Cattaneo & Titiunik 2014, Econometrica 82(6), Models 1-2; coefficients from memory) as
+data-generating processes with known truth.
 """
 from __future__ import annotations
 
@@ -15,12 +16,12 @@ import seamline
 from seamline.errors import InvalidOptionError, OneSidedDataError, SeamlineError
 
 SIGMA = 0.1295
-LEFT = np.array([0.48, 1.27, 7.18, 20.21, 21.54, 7.33])     # METHODS 14.1, Model 1
+LEFT = np.array([0.48, 1.27, 7.18, 20.21, 21.54, 7.33])     # CCT 2014 Model 1 (Lee 2008 fit; from memory)
 RIGHT = np.array([0.52, 0.84, -3.00, 7.99, -9.01, 3.56])
 
 
 def lee(n: int, rng: np.random.Generator, covariate_jump: float = 0.0) -> pd.DataFrame:
-    """The Lee design (METHODS 14.1) plus a smooth pre-treatment covariate z (optionally with a jump)."""
+    """The Lee design (CCT 2014 Model 1) plus a smooth pre-treatment covariate z (optionally with a jump)."""
     x = 2.0 * rng.beta(2.0, 4.0, n) - 1.0
     powers = np.vander(x, 6, increasing=True)
     y = np.where(x < 0, powers @ LEFT, powers @ RIGHT) + rng.normal(0.0, SIGMA, n)
@@ -86,11 +87,13 @@ def test_balance_rejection_rates():
     """No jump: rejection near 5% for each covariate and for the joint test; a jump is detected.
 
     n = 3000 (at n = 600 robust intervals with estimated bandwidths still over-reject a little, about 7%
-    per covariate in a 200-draw run). 150 replications: binomial sd of a 5% rate is 0.018, so
-    [0.01, 0.11] is about -2/+3 sd."""
+    per covariate in a 200-draw run). 150 replications: the band is 5% +- 3 Monte Carlo SE,
+    sqrt(0.05 * 0.95 / 150) = 0.0178, i.e. at most 0.103. Power: 40 draws with a covariate jump of
+    0.3 (about 4 SE of the jump): at least 0.8 (a lower bound, not a band)."""
+    reps = 150
     rng = np.random.default_rng(2024)
     single, joint, power = [], [], []
-    for _ in range(150):
+    for _ in range(reps):
         d = seamline.Design(lee(3000, rng), score="x", cutoff=0.0, outcome="y", covariates=["z", "z2"])
         bal = d.balance()
         single.append(bal.rows[0]["p_value"] < 0.05)
@@ -98,8 +101,9 @@ def test_balance_rejection_rates():
     for _ in range(40):
         d = seamline.Design(lee(3000, rng, covariate_jump=0.3), score="x", cutoff=0.0, outcome="y", covariates=["z"])
         power.append(d.balance().rows[0]["p_value"] < 0.05)
-    assert 0.01 <= np.mean(single) <= 0.11, np.mean(single)
-    assert 0.01 <= np.mean(joint) <= 0.11, np.mean(joint)
+    mc_se = np.sqrt(0.05 * 0.95 / reps)
+    assert abs(np.mean(single) - 0.05) <= 3 * mc_se, np.mean(single)
+    assert abs(np.mean(joint) - 0.05) <= 3 * mc_se, np.mean(joint)
     assert np.mean(power) >= 0.8, np.mean(power)
 
 
@@ -119,18 +123,29 @@ def test_balance_bad_input(design):
 
 
 # ---- placebo and donut -----------------------------------------------------------------------
-@pytest.mark.slow
-def test_placebo_cutoffs_cover_zero_at_nominal_rate():
-    """Lee Model 1 has no jump away from 0: placebo robust CIs cover 0 about 95% of the time.
+# Measured by `python tests/benchmarks/validate_monte_carlo.py measure` (360 draws, seeds 5000-5005):
+# placebo robust coverage share and its Monte Carlo SE. Below the nominal 0.95 by about 5 MC SE: the
+# same under-coverage of the default robust interval raised in issue 9 ("Inference a referee accepts").
+MEASURED_PLACEBO_COVERAGE = (0.9257, 0.0047)
 
-    60 replications x 8 placebos = 480 intervals (correlated within a draw); band [0.88, 0.99]."""
+
+@pytest.mark.slow
+def test_placebo_cutoffs_cover_zero_at_the_measured_rate():
+    """Lee Model 1 has no jump away from 0: placebo robust CIs should cover 0 95% of the time; they
+    cover about 0.926 (issue 9), and the test records that instead of widening a nominal band.
+
+    60 replications x 8 placebos; the 8 intervals of one draw are correlated, so the Monte Carlo SE
+    is the SD of the per-draw coverage share over sqrt(60); the band is 3 of those, combined with the
+    measured value's own MC SE."""
     rng = np.random.default_rng(77)
-    covered = []
+    shares = []
     for _ in range(60):
         res = seamline.Design(lee(2000, rng), score="x", cutoff=0.0, outcome="y").placebo_cutoffs()
         t = res.table()
-        covered += list((t.robust_ci_low <= 0) & (0 <= t.robust_ci_high))
-    assert 0.88 <= np.mean(covered) <= 0.99, np.mean(covered)
+        shares.append(float(((t.robust_ci_low <= 0) & (0 <= t.robust_ci_high)).mean()))
+    measured, measured_se = MEASURED_PLACEBO_COVERAGE
+    mc_se = np.sqrt(np.var(shares, ddof=1) / len(shares) + measured_se ** 2)
+    assert abs(np.mean(shares) - measured) <= 3 * mc_se, (np.mean(shares), mc_se)
 
 
 def test_placebo_uses_one_side_only(design):
@@ -176,13 +191,26 @@ def test_bins_means_equal_pandas_groupby(design):
 
 
 def test_bins_curve_meets_the_fit_at_the_cutoff(design):
-    res = design.bins()
-    fit = design.fit()
+    """The curve at the cutoff is the fit's limit, and its band there is z times the side's HC0 SE of
+    the intercept. Reference: statsmodels WLS(y, [1, x], weights=1 - |x|/h).fit(cov_type="HC0") on
+    the rows of that side inside h; z from scipy.stats.norm.ppf."""
+    import statsmodels.api as sm
+    from scipy import stats
+
+    h = 0.3
+    res = design.bins(bandwidth=h, variance="hc0", level=0.9)
+    fit = design.fit(bandwidth=h, variance="hc0")
     curve = res.curve()
+    data = lee(3000, np.random.default_rng(1))
     for side, limit in (("below", fit.limits[0]), ("above", fit.limits[1])):
         at_cutoff = curve[(curve.side == side) & (curve.x == 0.0)]
         assert at_cutoff.fit.iloc[0] == pytest.approx(limit, rel=1e-9)
-        assert (at_cutoff.ci_low < at_cutoff.fit).all() and (at_cutoff.fit < at_cutoff.ci_high).all()
+        rows = data[((data.x < 0) if side == "below" else (data.x >= 0)) & (data.x.abs() < h)]
+        ref = sm.WLS(rows.y, sm.add_constant(rows.x), weights=1 - rows.x.abs() / h).fit(cov_type="HC0")
+        assert at_cutoff.fit.iloc[0] == pytest.approx(ref.params.iloc[0], rel=1e-9)
+        half = stats.norm.ppf(0.95) * ref.bse.iloc[0]
+        assert at_cutoff.ci_high.iloc[0] - at_cutoff.fit.iloc[0] == pytest.approx(half, rel=1e-8)
+        assert at_cutoff.fit.iloc[0] - at_cutoff.ci_low.iloc[0] == pytest.approx(half, rel=1e-8)
     assert set(res.table().columns) >= {"side", "left", "right", "count", "mean", "ci_low", "ci_high"}
     glob = design.bins(global_degree=4).global_polynomial()
     assert set(glob.side) == {"below", "above"}
@@ -250,4 +278,3 @@ def test_results_render_everywhere(design):
     for res in (design.density_test(), design.balance(), design.sensitivity(), design.placebo_cutoffs(),
                 design.donut(), design.bins(), design.score_profile(), design.checks()):
         assert "\\toprule" in res.to_latex() and "|" in res.to_markdown() and "<table" in res._repr_html_()
-        assert isinstance(res.warnings, tuple)

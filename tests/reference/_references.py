@@ -2,10 +2,10 @@
 
 Nothing here stores a number: every reference value is produced by a general-purpose library
 (statsmodels WLS/OLS, linearmodels IV2SLS) at test time, on the same rows and weights the engine
-is specified to use (see the engine contract and METHODS.md sections 1, 2, 6, 7).
+is specified to use (the engine contract described below).
 
 The local polynomial estimate of a cutoff design is written as ONE fully interacted weighted
-regression (METHODS section 1.2, "single-regression equivalent"):
+regression (common practice: the two side fits are one interacted regression):
 
     Y ~ [ 1{below} r_p(x / h_below),  1{above} r_p(x / h_above) ]  (+ covariates Z, additively)
     x = score - cutoff,  r_p(u) = (1, u, ..., u^p),
@@ -27,6 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import statsmodels.api as sm
+from linearmodels.iv import IV2SLS
 
 # Tolerance for every engine-vs-reference comparison in tests/reference (declared once; any looser
 # tolerance used by a test is justified where it is used).
@@ -198,7 +199,8 @@ def ols_subset_reference(score, y, cutoff, bandwidth, *, degree=1, treated="abov
 
 def iv_reference(score, y, takeup, cutoff, bandwidth, *, kernel="triangular", degree=1,
                  treated="above", weights=None) -> Reference:
-    """linearmodels IV2SLS of the local fuzzy design (METHODS section 6.1).
+    """linearmodels IV2SLS of the local fuzzy design (Hahn, Todd & Van der Klaauw 2001: the fuzzy
+    estimate is a local 2SLS with the treated-side indicator as instrument).
 
     dependent = Y, endogenous = take-up D, excluded instrument T = 1{treated side},
     exogenous = [1, 1{below} u..u^p, 1{above} u..u^p] (u = x / h_side; with a common h this spans
@@ -207,8 +209,6 @@ def iv_reference(score, y, takeup, cutoff, bandwidth, *, kernel="triangular", de
     The coefficient on D is the ratio of the two jumps; it does not depend on which side is called
     treated because numerator and denominator change sign together.
     """
-    from linearmodels.iv import IV2SLS  # imported lazily: only the fuzzy tests need it
-
     win = build_window(score, cutoff, bandwidth, kernel, degree, weights)
     p = degree
     below_cols = win.design[:, 1:p + 1]
@@ -238,12 +238,13 @@ def iv_reference(score, y, takeup, cutoff, bandwidth, *, kernel="triangular", de
 
 def bias_corrected_reference(score, y, cutoff, bandwidth, pilot_bandwidth, *, kernel="triangular",
                              degree=1, bias_degree=None, treated="above", derivative=0) -> float:
-    """Two-step bias-corrected estimate of METHODS section 4.2, each step a statsmodels WLS.
+    """Two-step bias-corrected estimate (Calonico, Cattaneo & Titiunik 2014, section 2), each step a
+    statsmodels WLS in the RAW basis of x = score - cutoff, so no bandwidth ratio appears:
 
-    Per side s:  mu_bc = mu(h) - h^(p+1-nu) nu! [Gamma^-1 theta]_nu * beta_q[p+1](b) / b^(p+1) / h^nu,
-    where Gamma^-1 theta is the WLS coefficient vector of u^(p+1) on r_p(u) (u = x/h, weights K(u)),
-    and beta_q[p+1](b) is the coefficient on v^(p+1) of the order-q fit at the pilot bandwidth
-    (v = x/b). (Dividing by h^nu converts the scaled-basis derivative to score units.)
+    per side:  mu_bc = nu! (beta_p[nu](h) - g[nu] * beta_q[p+1](b)),
+    where beta_p(h) is the order-p fit at h (weights K(x/h)), g the WLS coefficients of x^(p+1) on
+    [1, x, ..., x^p] with the same weights, and beta_q[p+1](b) the coefficient on x^(p+1) of the
+    order-q fit at the pilot bandwidth b (weights K(x/b)).
     """
     q = degree + 1 if bias_degree is None else bias_degree
     p = degree
@@ -257,18 +258,15 @@ def bias_corrected_reference(score, y, cutoff, bandwidth, pilot_bandwidth, *, ke
         on_side = (score - cutoff >= 0) if side == "above" else (score - cutoff < 0)
         x = (score - cutoff)[on_side]
         ys = y[on_side]
-        u = x / h
-        wu = kernel_weights(u, kernel)
-        ku = wu > 0
-        r_p = np.vander(u[ku], p + 1, increasing=True)
-        fit_h = sm.WLS(ys[ku], r_p, weights=wu[ku]).fit()
-        proj = sm.WLS(u[ku] ** (p + 1), r_p, weights=wu[ku]).fit()
-        v = x / b
-        wv = kernel_weights(v, kernel)
-        kv = wv > 0
-        fit_b = sm.WLS(ys[kv], np.vander(v[kv], q + 1, increasing=True), weights=wv[kv]).fit()
-        level = fit_h.params[nu] - proj.params[nu] * fit_b.params[p + 1] * (h / b) ** (p + 1)
-        limits.append(math.factorial(nu) * level / h ** nu)
+        wh = kernel_weights(x / h, kernel)
+        kh = wh > 0
+        x_p = np.vander(x[kh], p + 1, increasing=True)
+        fit_h = sm.WLS(ys[kh], x_p, weights=wh[kh]).fit()
+        proj = sm.WLS(x[kh] ** (p + 1), x_p, weights=wh[kh]).fit()
+        wb = kernel_weights(x / b, kernel)
+        kb = wb > 0
+        fit_b = sm.WLS(ys[kb], np.vander(x[kb], q + 1, increasing=True), weights=wb[kb]).fit()
+        limits.append(math.factorial(nu) * (fit_h.params[nu] - proj.params[nu] * fit_b.params[p + 1]))
     below, above = limits
     return above - below if treated == "above" else below - above
 

@@ -6,7 +6,7 @@ user weight * K(u), rows with positive weight). With additive covariates the 2SL
 is the ratio of the covariate-adjusted jumps (both partial out the same exogenous columns), and its
 HC0 sandwich is the engine's linearised variance with the covariate-adjusted smoother weights.
 Cluster-robust: linearmodels' clustered covariance with debiased=True scales by
-G (N-1) / ((G-1) (N-k)), the usual CR1 factor the engine uses (METHODS 2.3), with k the number of
+G (N-1) / ((G-1) (N-k)), the usual CR1 factor (Cameron & Miller 2015), with k the number of
 exogenous and endogenous regressors.
 """
 from __future__ import annotations
@@ -17,8 +17,8 @@ import pytest
 
 from _references import RTOL, assert_close, build_window
 
-seamline = pytest.importorskip("seamline")
-linearmodels_iv = pytest.importorskip("linearmodels.iv")
+import seamline
+import linearmodels.iv as linearmodels_iv
 
 
 def make_data(seed: int, n: int = 1800) -> tuple[pd.DataFrame, float]:

@@ -5,9 +5,10 @@
 - A bandwidth covering all the data turns the local fit into the global polynomial regression with
   a jump (common practice; reference: statsmodels formula OLS on all rows).
 - Bias correction with pilot bandwidth b = h and bias degree p + 1 equals the conventional
-  degree-(p + 1) estimate at h (METHODS 4.5, derived + num-checked; Calonico, Cattaneo & Titiunik
-  2014). The general b != h case is checked against the two-step definition of METHODS 4.2, each
-  step a statsmodels WLS.
+  degree-(p + 1) estimate at h (Calonico, Cattaneo & Titiunik 2014, Econometrica 82(6), remark on
+  b = h). The general b != h case is checked against the two-step definition of the same paper
+  (section 2), each step a statsmodels WLS in the raw basis, and against exactness on a degree-(p+1)
+  curve.
 Tolerance: RTOL = 1e-8 relative (declared in _references).
 
 Input data are invented by the seeded generator in test_statsmodels_wls.
@@ -28,7 +29,7 @@ from _references import (
 )
 from test_statsmodels_wls import make_data
 
-seamline = pytest.importorskip("seamline")
+import seamline
 
 
 def _design(frame, cutoff, treated):
@@ -88,7 +89,7 @@ def test_bandwidth_covering_all_data_is_global_polynomial(name, edge, degree, va
 @pytest.mark.parametrize("name,bandwidth,treated", [("smooth", 0.5, "above"),
                                                     ("skewed", (4.0, 7.0), "below")])
 def test_bias_correction_with_equal_pilot_is_next_degree(name, bandwidth, treated, kernel, degree):
-    """METHODS 4.5: tau_bc(h, b = h, q = p + 1) = tau_{p+1}(h); with the same residual-variance
+    """CCT 2014: tau_bc(h, b = h, q = p + 1) = tau_{p+1}(h); with the same residual-variance
     construction the robust SE equals the conventional SE of the degree-(p + 1) fit. That holds for
     HC0 (omega_i = residual^2 of the order-q fit at b, which IS the degree-(p + 1) fit at h) and for
     the neighbour variance (sigma_i^2 does not depend on any fit)."""
@@ -113,7 +114,8 @@ def test_bias_correction_with_equal_pilot_is_next_degree(name, bandwidth, treate
 
 
 class TestBiasCorrectionReferenceItself:
-    """The two-step reference reproduces the METHODS 4.5 identity (b = h) with statsmodels only."""
+    """The two-step reference reproduces the b = h identity (CCT 2014) with statsmodels only, and is
+    exact on degree-(p+1) curves at b != h (first principles)."""
 
     @pytest.mark.parametrize("kernel", KERNELS)
     @pytest.mark.parametrize("degree", [0, 1, 2])
@@ -123,6 +125,24 @@ class TestBiasCorrectionReferenceItself:
         bc = bias_corrected_reference(s, y, cutoff, 0.5, 0.5, kernel=kernel, degree=degree)
         nxt = wls_reference(s, y, cutoff, 0.5, kernel=kernel, degree=degree + 1)
         assert bc == pytest.approx(nxt.estimate, rel=1e-10)
+
+    @pytest.mark.parametrize("kernel", KERNELS)
+    @pytest.mark.parametrize("h,b", [(0.3, 0.75), (0.8, 0.45)])
+    @pytest.mark.parametrize("degree", [0, 1, 2])
+    def test_exact_for_a_degree_p_plus_one_curve_at_b_not_h(self, degree, h, b, kernel):
+        """First principles at b != h: on a curve that is exactly a polynomial of degree p + 1 on each
+        side, the order-q fit at any b recovers the x^(p+1) coefficient, so the two-step estimate is
+        the true jump (and the conventional one is not)."""
+        frame, cutoff = make_data("smooth")
+        s = frame["score"].to_numpy()
+        x = s - cutoff
+        above = np.polynomial.polynomial.polyval(x, [1.0, 0.5, -2.0, 1.5][: degree + 2])
+        below = np.polynomial.polynomial.polyval(x, [0.2, -0.3, 3.0, -1.0][: degree + 2])
+        curve = np.where(x >= 0, above, below)
+        bc = bias_corrected_reference(s, curve, cutoff, h, b, kernel=kernel, degree=degree)
+        assert bc == pytest.approx(0.8, abs=1e-9)
+        conventional = wls_reference(s, curve, cutoff, h, kernel=kernel, degree=degree).estimate
+        assert abs(conventional - 0.8) > 1e-4
 
     def test_identity_derivative(self):
         frame, cutoff = make_data("smooth")
@@ -143,7 +163,7 @@ class TestBiasCorrectionReferenceItself:
     ],
 )
 def test_bias_corrected_estimate_two_step(name, degree, derivative, bandwidth, pilot, treated, kernel):
-    """tau_bc for b != h equals the two-step construction of METHODS 4.2 (CCT 2014)."""
+    """tau_bc for b != h equals the two-step construction of CCT 2014 (section 2), statsmodels WLS."""
     frame, cutoff = make_data(name)
     fit = _design(frame, cutoff, treated).fit(bandwidth=bandwidth, pilot_bandwidth=pilot, kernel=kernel,
                                               degree=degree, derivative=derivative, variance="hc0")
