@@ -6,6 +6,8 @@ estimates are ordinary ``design.fit`` calls, so every number here equals the fit
 """
 from __future__ import annotations
 
+import inspect
+
 import numpy as np
 import pandas as pd
 from scipy import stats
@@ -23,6 +25,61 @@ PLACEBO_QUANTILES = (0.2, 0.4, 0.6, 0.8)                # convention (METHODS 13
 DONUT_FRACTIONS = (0.0, 0.05, 0.1, 0.15, 0.2, 0.25)     # convention: radii as shares of the bandwidth
 MIN_PLACEBO_SIDE = 20                                   # convention: observations needed on each side
 ALPHA = 0.05
+
+
+def _frozen_value(value):
+    """A hashable stand-in for an argument value (lists and arrays become tuples); TypeError if none."""
+    if isinstance(value, np.ndarray):
+        value = value.tolist()
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, (list, tuple)):
+        return tuple(_frozen_value(v) for v in value)
+    if isinstance(value, dict):
+        return tuple(sorted((k, _frozen_value(v)) for k, v in value.items()))
+    hash(value)
+    return value
+
+
+def _fit_defaults() -> dict:
+    from .design import Design
+    return {name: par.default for name, par in inspect.signature(Design.fit).parameters.items()
+            if par.kind is inspect.Parameter.KEYWORD_ONLY}
+
+
+def cache_key(name: str, args: tuple, kwargs: dict):
+    """The key under which a Design caches diagnostic ``name`` called with ``args`` and ``kwargs``.
+
+    Arguments are bound to the function's signature with its defaults filled in, so
+    ``density_test()`` and ``density_test("local-cdf", level=0.95)`` share a key; extra keyword
+    options equal to ``Design.fit``'s defaults are left out for the same reason. None when an
+    argument is not hashable even after turning lists and arrays into tuples (no caching then).
+    """
+    func = globals()[name]
+    try:
+        bound = inspect.signature(func).bind(None, *args, **kwargs)
+    except TypeError:
+        return None       # let the call itself raise its usual error
+    bound.apply_defaults()
+    defaults = _fit_defaults()
+    parts = []
+    params = inspect.signature(func).parameters
+    for arg, value in list(bound.arguments.items())[1:]:
+        if params[arg].kind is inspect.Parameter.VAR_KEYWORD:
+            value = {k: v for k, v in value.items()
+                     if not (k in defaults and _same(v, defaults[k]))}
+        parts.append((arg, value))
+    try:
+        return (name, _frozen_value(parts))
+    except TypeError:
+        return None
+
+
+def _same(a, b) -> bool:
+    try:
+        return type(a) is type(b) and bool(a == b)
+    except (TypeError, ValueError):
+        return False
 
 
 def _clean_score(design) -> np.ndarray:
@@ -445,7 +502,7 @@ def checks(design, **fit_options) -> Checks:
     except SeamlineError as exc:
         add("main estimate", "error", str(exc))
     try:
-        dens = density_test(design)
+        dens = design.density_test()        # cached on the design: a board's Density panel shares it
         add("manipulation (density test)", "flag" if dens.p_value < ALPHA else "ok",
             f"p = {dens.p_value:.3f} ({dens.method}); density {dens.density_below:.4g} below, "
             f"{dens.density_above:.4g} above")
@@ -453,7 +510,7 @@ def checks(design, **fit_options) -> Checks:
         add("manipulation (density test)", "error", str(exc))
     if design.covariates:
         try:
-            bal = balance(design, **{k: v for k, v in fit_options.items() if k != "bandwidth"})
+            bal = design.balance(**{k: v for k, v in fit_options.items() if k != "bandwidth"})
             worst = min(r["p_value_holm"] for r in bal.rows)
             status = "flag" if (worst < ALPHA or bal.joint_p_value < ALPHA) else "ok"
             detail = f"smallest Holm p = {worst:.3f}; joint p = {bal.joint_p_value:.3f}"
@@ -474,7 +531,7 @@ def checks(design, **fit_options) -> Checks:
         add("observations in the window", "flag" if few < 20 else "ok",
             f"{fit.n_used[0]} below, {fit.n_used[1]} above")
     try:
-        prof = score_profile(design, **fit_options)
+        prof = design.score_profile(**fit_options)
         discrete = [w for w in prof.warnings if w.startswith("Few distinct")]
         heaped = [w for w in prof.warnings if w.startswith("Heaping")]
         add("discrete score", "flag" if discrete else "ok",
