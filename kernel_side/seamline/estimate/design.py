@@ -100,8 +100,11 @@ class Design:
         except (TypeError, ValueError):
             raise InvalidOptionError(f"`cutoff` must be a number; got {cutoff!r}. Pass e.g. cutoff=40.") from None
         self.cutoff = cutoff
-        self._data = DesignData(data, score=score, cutoff=cutoff, outcomes=self.outcomes, takeup=takeup,
-                                covariates=self.covariates, cluster=cluster, weights=weights)
+        # A DesignData (already validated, e.g. one side of another design for a placebo cutoff) is
+        # used as it is; anything else goes through the data adapter.
+        self._data = data if isinstance(data, DesignData) else DesignData(
+            data, score=score, cutoff=cutoff, outcomes=self.outcomes, takeup=takeup,
+            covariates=self.covariates, cluster=cluster, weights=weights)
         self._selections: dict[tuple, Selection] = {}
         # Bounded: a slider session makes many specifications, and engines hold window arrays.
         self._fits: Bounded = Bounded(FIT_CACHE)
