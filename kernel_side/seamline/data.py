@@ -146,6 +146,8 @@ class DesignData:
         self.cutoff = float(cutoff)
         self._cache: dict[tuple, Prepared] = {}
         self._sorted: dict[tuple, tuple[np.ndarray, int]] = {}
+        self._order: np.ndarray | None = None     # the one sort of the score (``_score_order``)
+        self._spreads: dict[int, tuple] = {}      # score spread per sorted row set (keyed by identity)
         self._only: np.ndarray | None = None      # row filter of a one-sided copy (``one_side``)
         self._parent: DesignData | None = None    # whose sorted rows a one-sided copy reuses
 
@@ -164,7 +166,7 @@ class DesignData:
         out.cutoff = float(cutoff)
         out.n_rows = int(only.sum())
         out._only, out._parent = only, self
-        out._cache, out._sorted = {}, {}
+        out._cache, out._sorted, out._order, out._spreads = {}, {}, None, {}
         return out
 
     def prepare(self, variables: tuple[str, ...], donut: float = 0.0, neighbors: int = 3) -> Prepared:
@@ -175,15 +177,30 @@ class DesignData:
                                 else self._with_donut(base, float(donut)))
         return self._cache[key]
 
-    def sorted_rows(self, variables: tuple[str, ...]) -> tuple[np.ndarray, int]:
+    def sorted_rows(self, variables: tuple[str, ...] = ()) -> tuple[np.ndarray, int]:
         """Rows usable for ``variables`` in ascending score order, and the rows dropped as missing.
 
-        Sorted once per set of variables; a one-sided copy reads its order off its parent's.
+        The design sorts its score once (``_score_order``) and every set of variables without
+        missing values of its own shares that order. A set that drops rows sorts its own rows (the
+        order of tied scores then matches a design built on those rows alone, so every number is
+        the same as before this sharing). A one-sided copy reads its order off its parent's: a
+        subsequence of a sorted order is sorted (tied scores may come in another order, which
+        changes sums only in the last digits).
         """
-        if variables in self._sorted:
-            return self._sorted[variables]
-        score = self.arrays[self.score_name]
-        keep = ~np.isnan(score)
+        if variables not in self._sorted:
+            keep, n_dropped = self._usable(variables)
+            if self._parent is not None:
+                base = self._parent._score_order()
+                rows = base[keep[base]]
+            else:
+                base = self._score_order()
+                rows = base if int(keep.sum()) == len(base) else self._argsort(keep)
+            self._sorted[variables] = (rows, n_dropped)
+        return self._sorted[variables]
+
+    def _usable(self, variables: tuple[str, ...]) -> tuple[np.ndarray, int]:
+        """Rows with every value a fit on ``variables`` needs, and how many were dropped as missing."""
+        keep = ~np.isnan(self.arrays[self.score_name])
         for v in variables:
             keep &= ~np.isnan(self.arrays[v])
         if self.weights is not None:
@@ -195,16 +212,29 @@ class DesignData:
         n_dropped = int(self.n_rows - keep.sum())
         if self.weights is not None:
             keep &= self.weights > 0  # zero weight: no information, not "dropped"
-        parent = self._parent._sorted.get(variables) if self._parent is not None else None
-        if parent is not None:                  # a subsequence of a sorted order is sorted
-            rows = parent[0][keep[parent[0]]]
-        elif keep.all():
-            rows = np.argsort(score)
-        else:
-            kept = np.flatnonzero(keep)
-            rows = kept[np.argsort(score[kept])]
-        self._sorted[variables] = (rows, n_dropped)
-        return rows, n_dropped
+        return keep, n_dropped
+
+    def _score_order(self) -> np.ndarray:
+        """Rows with a usable score (and weight and cluster), sorted by score: the design's one sort."""
+        if self._order is None:
+            self._order = self._argsort(self._usable(())[0])
+        return self._order
+
+    def _argsort(self, keep: np.ndarray) -> np.ndarray:
+        score = self.arrays[self.score_name]
+        if keep.all():
+            return np.argsort(score)
+        kept = np.flatnonzero(keep)
+        return kept[np.argsort(score[kept])]
+
+    def _spread(self, rows: np.ndarray, x_sorted: np.ndarray) -> tuple[float, float]:
+        """(sd, min(sd, IQR / 1.349)) of the sorted centred scores, computed once per row set."""
+        key = id(rows)
+        if key not in self._spreads:
+            score_sd = float(np.std(x_sorted, ddof=1))
+            q25, q75 = _sorted_quantile(x_sorted, 0.25), _sorted_quantile(x_sorted, 0.75)
+            self._spreads[key] = (rows, score_sd, min(score_sd, (q75 - q25) / 1.349) if q75 > q25 else score_sd)
+        return self._spreads[key][1:]
 
     def _prepare(self, variables: tuple[str, ...], donut: float, neighbors: int) -> Prepared:
         rows, n_dropped = self.sorted_rows(variables)
@@ -215,9 +245,7 @@ class DesignData:
         x_sorted = self.arrays[self.score_name][rows]
         x_sorted -= self.cutoff
         split = int(np.searchsorted(x_sorted, 0.0, side="left"))
-        score_sd = float(np.std(x_sorted, ddof=1))
-        q25, q75 = _sorted_quantile(x_sorted, 0.25), _sorted_quantile(x_sorted, 0.75)
-        score_scale = min(score_sd, (q75 - q25) / 1.349) if q75 > q25 else score_sd
+        score_sd, score_scale = self._spread(rows, x_sorted)
         n_donut = 0
         sides = []
         # below: walk outward from the cutoff, i.e. the sorted order reversed; above: as sorted

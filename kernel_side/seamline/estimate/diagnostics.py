@@ -299,7 +299,6 @@ def placebo_cutoffs(design, cutoffs=None, **fit_options) -> Placebo:
         requested = [float(c) for c in np.atleast_1d(cutoffs)]
         user = True
     rows, fits, skipped = [], [], []
-    design._data.sorted_rows((outcome,))     # sorted once here, read off by every placebo design
     for c in requested:
         if c == design.cutoff:
             raise InvalidOptionError(f"`cutoffs` must differ from the true cutoff {design.cutoff:g}; got {c:g}. "
