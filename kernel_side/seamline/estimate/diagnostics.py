@@ -208,7 +208,7 @@ def _joint_test(design, names, fits) -> tuple[float, int, float, int]:
             wa = eng.arrays()[s_index]
             a[j, : wa.rows] = design.treated_sign * side.sign * wa.abc
             if fits[0].variance == "neighbors" and not clustered:
-                e[j, :rows] = side.nn_residuals()[:rows, j]
+                e[j, :rows] = _neighbor_column(design, prep, names[j], s_index, j, spec0.donut)[:rows]
             else:
                 resid = side.values[:rows, j] - np.vander(side.sign * side.distance[:rows] / eng.fits[s_index].b,
                                                            eng.q + 1, increasing=True) @ eng.fits[s_index].beta_b[:, j]
@@ -238,6 +238,22 @@ def _joint_test(design, names, fits) -> tuple[float, int, float, int]:
     except np.linalg.LinAlgError:
         return float("nan"), k, float("nan"), prep.n_total
     return stat, k, float(stats.chi2.sf(stat, k)), prep.n_total
+
+
+def _neighbor_column(design, prep, name: str, s_index: int, j: int, donut: float) -> np.ndarray:
+    """Neighbour residuals of covariate ``name`` on one side of the joint preparation.
+
+    They depend on the side's distances and that covariate only, so when the covariate's own
+    preparation (made for its balance fit) holds the same rows in the same order, its residuals,
+    already computed, are the joint side's column j; otherwise the joint side computes its own.
+    """
+    side = (prep.below, prep.above)[s_index]
+    own = design._data.prepare((name,), donut)
+    own_side = (own.below, own.above)[s_index]
+    if own_side.rows is not None and side.rows is not None and own_side.n == side.n \
+            and np.array_equal(own_side.rows, side.rows):
+        return own_side.nn_residuals()[:, 0]
+    return side.nn_residuals()[:, j]
 
 
 def _variance_option(fit) -> str:
