@@ -32,6 +32,7 @@ from ..errors import (
     TooFewDistinctValuesError,
 )
 from ..options import DENSITY_METHODS, KERNELS, check_level, check_option
+from .cdf_windows import WindowEngine, WindowSums
 from .kernels import kernel_weights, normal_reference_constant
 
 __all__ = [
@@ -296,95 +297,117 @@ def _two_sided(t: float) -> float:
 # Local-CDF estimator (Cattaneo, Jansson & Ma 2020)
 # ---------------------------------------------------------------------------------------------
 class _Sample:
-    """Sorted scores with the empirical CDF at each of them, prepared once."""
+    """Sorted scores with the empirical CDF at each of them, prepared once.
+
+    ``x`` may already be sorted (the design passes its sorted score): then it is not sorted again.
+    Window sums for the fits come from ``windows`` (seamline.core.cdf_windows), so a fit or a
+    variance costs O(n / block + block) rather than a pass over its window.
+    """
 
     def __init__(self, x: np.ndarray, cutoff: float):
-        self.xs = np.sort(x)
+        self.xs = x if _is_sorted(x) else np.sort(x)
         self.n = self.xs.size
-        # N(<= X_(i)) counts ties, i.e. the right-continuous empirical CDF times n.
-        self.le = np.searchsorted(self.xs, self.xs, side="right")
+        # N(<= X_(i)) counts ties, i.e. the right-continuous empirical CDF times n: the end of the
+        # run of equal values holding i (the same integers as searchsorted(xs, xs, "right")).
+        new_value = np.empty(self.n, dtype=bool)
+        new_value[:1] = True
+        np.not_equal(self.xs[1:], self.xs[:-1], out=new_value[1:])
+        self.group = np.cumsum(new_value) - 1          # index of each score's distinct value
+        ends = np.append(np.flatnonzero(new_value[1:]) + 1, self.n)
+        self.le = ends[self.group]
         self.cutoff = cutoff
         self.n_below = _split(self.xs, cutoff)
+        self.windows = WindowEngine(self.xs, self.le)
 
     def side_range(self, side: str) -> tuple[int, int]:
         return (0, self.n_below) if side == "below" else (self.n_below, self.n)
 
+    def distinct(self, a: int, b: int) -> int:
+        """Number of distinct scores among sorted rows [a, b)."""
+        return int(self.group[b - 1] - self.group[a] + 1) if b > a else 0
+
+
+def _is_sorted(x: np.ndarray) -> bool:
+    return x.size < 2 or bool(np.all(x[1:] >= x[:-1]))
+
 
 @dataclass
 class _CdfFit:
-    """Kernel-weighted polynomial fit of the empirical CDF in one window (unscaled sums)."""
+    """Kernel-weighted polynomial fit of the empirical CDF over sorted rows [a, b) (all weighted)."""
 
-    z: np.ndarray        # window scores with positive weight, sorted
-    wr: np.ndarray       # (m, q) w_j r(u_j)
-    wrf: np.ndarray      # (q,) sum_j w_j r(u_j) F(z_j)
+    a: int
+    b: int
+    sums: WindowSums
     s_inv: np.ndarray    # inverse of S = (1/n) sum_j w_j r r'
     beta: np.ndarray     # coefficients in u = (X - x0)/h
     theta: np.ndarray    # (1/n) sum_j w_j r(u_j) u_j^(p+1)
     h: float
+    degree: int
 
     @property
     def density(self) -> float:
         return float(self.beta[1] / self.h)
 
+    @property
+    def n_used(self) -> int:
+        return self.b - self.a
+
+
+def _window(sample: _Sample, side: str, x0: float, h: float, kernel: str) -> tuple[int, int]:
+    """Sorted rows of ``side`` with positive kernel weight at (x0, h): a contiguous run [a, b).
+
+    |u| falls then rises along the sorted scores, so only the runs of equal scores at the two ends
+    can have zero weight (|u| = 1 up to rounding); they are skipped one run at a time.
+    """
+    xs = sample.xs
+    lo, hi = sample.side_range(side)
+    a = max(lo, int(np.searchsorted(xs, x0 - h, side="left")))
+    b = min(hi, int(np.searchsorted(xs, x0 + h, side="right")))
+
+    def weighted(i: int) -> bool:
+        return bool(kernel_weights(kernel, np.abs((xs[i:i + 1] - x0) / h))[0] / h > 0)
+
+    while a < b and not weighted(a):
+        a = int(np.searchsorted(xs, xs[a], side="right"))
+    while a < b and not weighted(b - 1):
+        b = int(np.searchsorted(xs, xs[b - 1], side="left"))
+    return a, max(a, b)
+
 
 def _cdf_fit(sample: _Sample, side: str, x0: float, h: float, degree: int,
              kernel: str) -> _CdfFit | None:
     """Fit F(X) on r_p((X - x0)/h) over one side's scores within h of x0; None if too few values."""
-    xs, n = sample.xs, sample.n
-    lo, hi = sample.side_range(side)
-    a = max(lo, int(np.searchsorted(xs, x0 - h, side="left")))
-    b = min(hi, int(np.searchsorted(xs, x0 + h, side="right")))
-    z = xs[a:b]
-    u = (z - x0) / h
-    w = kernel_weights(kernel, np.abs(u)) / h
-    keep = w > 0
-    z, u, w = z[keep], u[keep], w[keep]
-    if _n_distinct(z) < degree + 1:
+    a, b = _window(sample, side, x0, h, kernel)
+    if sample.distinct(a, b) < degree + 1:
         return None
-    f = sample.le[a:b][keep] / n
-    r = np.vander(u, degree + 2, increasing=True)   # last column u^(p+1) only feeds the bias term
-    wr = w[:, None] * r[:, : degree + 1]
-    s_mat = wr.T @ r[:, : degree + 1] / n
-    s_inv = np.linalg.inv(s_mat)
-    wrf = wr.T @ f
-    beta = s_inv @ (wrf / n)
-    theta = wr.T @ r[:, degree + 1] / n
-    return _CdfFit(z=z, wr=wr, wrf=wrf, s_inv=s_inv, beta=beta, theta=theta, h=h)
-
-
-def _psi(fit: _CdfFit, partition: np.ndarray, n: int) -> np.ndarray:
-    """Hajek-projection terms psi for every group of the partition (METHODS 8.2).
-
-    psi_i = (1/n) sum_j w_j r_j [1{X_i <= z_j} - F(z_j)] depends on X_i only through k = #{partition
-    points < X_i}; row k of the result is psi for that group (k = 0..len(partition)). The indicator
-    sum is a suffix sum over the sorted window, so this costs O(m log m).
-    """
-    m, q = fit.wr.shape
-    suffix = np.zeros((m + 1, q))
-    suffix[:m] = np.cumsum(fit.wr[::-1], axis=0)[::-1]
-    start = np.append(np.searchsorted(fit.z, partition, side="left"), m)
-    return (suffix[start] - fit.wrf) / n
-
-
-def _group_counts(sample: _Sample, partition: np.ndarray) -> np.ndarray:
-    """How many of the n scores fall in each group (z_{k-1}, z_k] of the sorted partition."""
-    le = np.searchsorted(sample.xs, partition, side="right")
-    return np.diff(np.concatenate(([0], le, [sample.n]))).astype(float)
+    n = sample.n
+    kink = int(np.searchsorted(sample.xs, x0, side="left"))
+    sums = sample.windows.fit_sums(a, b, kink, x0, h, degree, kernel)
+    s_inv = np.linalg.inv(sums.gram / n)
+    # with_counts = sum_j w_j r_j N_j, and F(X_j) = N_j / n
+    beta = s_inv @ (sums.with_counts / n / n)
+    return _CdfFit(a=a, b=b, sums=sums, s_inv=s_inv, beta=beta, theta=sums.bias / n, h=h, degree=degree)
 
 
 def _beta_cov(sample: _Sample, fit_a: _CdfFit, fit_b: _CdfFit | None = None) -> np.ndarray:
-    """Covariance of the coefficient vectors: S_a^-1 [(1/n) sum_i psi_a psi_b'] S_b^-1 / n."""
+    """Covariance of the coefficient vectors: S_a^-1 [(1/n) sum_i psi_a psi_b'] S_b^-1 / n.
+
+    psi_i = (1/n) (A(X_i) - NW/n) with A and NW as in seamline.core.cdf_windows, so
+    sum_i psi_a psi_b' = (sum_i A_a A_b' - NW_a NW_b' / n) / n^2. For one window the first sum comes
+    from the window engine; for two windows with every row of a before every row of b (the two
+    sides of the cutoff) it is NW_a (sum_j w_j r_j over b)', since min(X_j, X_l) = X_j then.
+    """
     n = sample.n
+    sa = sample.windows.add_variance(fit_a.sums, fit_a.degree)
     if fit_b is None:
-        partition = fit_a.z
-        psi_a = psi_b = _psi(fit_a, partition, n)
-        s_b = fit_a.s_inv
+        sb, outer = sa, sa.pairs
     else:
-        partition = np.sort(np.concatenate((fit_a.z, fit_b.z)))
-        psi_a, psi_b = _psi(fit_a, partition, n), _psi(fit_b, partition, n)
-        s_b = fit_b.s_inv
-    counts = _group_counts(sample, partition)
-    omega = (psi_a * counts[:, None]).T @ psi_b / n
+        if fit_a.b > fit_b.a:
+            raise ValueError("the first window must lie below the second")
+        sb = sample.windows.add_variance(fit_b.sums, fit_b.degree)
+        outer = np.outer(sa.with_counts, sb.total)
+    omega = (outer - np.outer(sa.with_counts, sb.with_counts) / n) / n ** 3
+    s_b = fit_a.s_inv if fit_b is None else fit_b.s_inv
     return fit_a.s_inv @ omega @ s_b.T / n
 
 
@@ -502,7 +525,7 @@ def _check_side_values(sample: _Sample, degree: int) -> None:
     need = degree + 2
     for side in ("below", "above"):
         lo, hi = sample.side_range(side)
-        got = _n_distinct(sample.xs[lo:hi])
+        got = sample.distinct(lo, hi)
         if got < need:
             raise TooFewDistinctValuesError(
                 f"`score` must take at least {need} distinct values {side} the cutoff for degree "
@@ -673,7 +696,7 @@ def local_cdf_density_test(score, cutoff: float, *, degree: int = 2, kernel: str
         statistic_conventional=t_conv, p_value_conventional=_two_sided(t_conv),
         cross_covariance=cov_r, bandwidth=(float(pair[0]), float(pair[1])),
         n_below=sample.n_below, n_above=n - sample.n_below,
-        n_used=(int(fits["below"].z.size), int(fits["above"].z.size)), n=n,
+        n_used=(fits["below"].n_used, fits["above"].n_used), n=n,
         degree=degree, kernel=kernel, level=level, bin_width=float(bin_width),
         tie_share=tie_share(x), grid=grid, histogram=hist, reason=reason)
 
