@@ -24,6 +24,7 @@ Sums agree with the row-by-row computation up to rounding (tests/core/test_cdf_w
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -58,16 +59,19 @@ class BlockTables:
             half = 0.5 * (hi - lo)
             half[half == 0] = 1.0
             delta = (z - centre[:, None]) / half[:, None]
-            powers = np.empty((last - first, block, top + 1))
-            powers[:, :, 0] = 1.0
+            # (blocks, power, row): every pass below runs along contiguous rows
+            powers = np.empty((last - first, top + 1, block))
+            powers[:, 0] = 1.0
             for k in range(1, top + 1):
-                np.multiply(powers[:, :, k - 1], delta, out=powers[:, :, k])
+                np.multiply(powers[:, k - 1], delta, out=powers[:, k])
             self.centre[first:last], self.half[first:last] = centre, half
-            self.power[first:last] = powers.sum(axis=1)
-            self.power_n[first:last] = np.einsum("bj,bjk->bk", nj, powers)
-            low = powers[:, :, : order + 1]
-            before = np.cumsum(nj[:, :, None] * low, axis=1) - nj[:, :, None] * low  # rows j < l
-            self.pairs[first:last] = np.matmul(before.transpose(0, 2, 1), low)
+            self.power[first:last] = powers.sum(axis=2)
+            self.power_n[first:last] = np.matmul(powers, nj[:, :, None])[:, :, 0]
+            low = powers[:, : order + 1]
+            weighted = low * nj[:, None, :]
+            before = np.cumsum(weighted, axis=2)
+            before -= weighted                                   # rows j < l only
+            self.pairs[first:last] = np.matmul(before, low.transpose(0, 2, 1))
 
 
 @dataclass
@@ -94,10 +98,15 @@ class WindowEngine:
         self.counts = counts
         self.block = block
         self._tables: BlockTables | None = None
+        self._reserved = 0
+
+    def reserve(self, order: int) -> None:
+        """Build the tables, when first needed, for terms up to this order (one build, not several)."""
+        self._reserved = max(self._reserved, order)
 
     def tables(self, order: int) -> BlockTables:
         if self._tables is None or self._tables.order < order:
-            self._tables = BlockTables(self.xs, self.counts, order, self.block)
+            self._tables = BlockTables(self.xs, self.counts, max(order, self._reserved), self.block)
         return self._tables
 
     # ---- one window -----------------------------------------------------------------------------
@@ -146,17 +155,19 @@ class WindowEngine:
             pieces.append(("rows", start, wr, nj))
         if len(blocks):
             kpoly = kernel_poly(kernel)
-            tables = self.tables(degree + len(kpoly) - 1)    # w u^r has degree d + kernel degree
-            coef_u = _powers_in_delta(tables, blocks, x0, h, 2 * tables.order + 1)   # (nb, K+1, K+1)
-            u_pow = np.einsum("bkm,bm->bk", coef_u, tables.power[blocks])
-            u_pow_n = np.einsum("bkm,bm->bk", coef_u, tables.power_n[blocks])
+            kd = len(kpoly) - 1
+            tables = self.tables(degree + kd)          # w u^r has degree d + kernel degree in u
+            top = 2 * degree + 1 + kd                  # highest power of u any sum here needs
+            coef_u = _powers_in_delta(tables, blocks, x0, h, top)             # (nb, top+1, top+1)
+            u_pow = np.matmul(coef_u, tables.power[blocks, : top + 1, None])[:, :, 0]
+            u_pow_n = np.matmul(coef_u[:, : q + kd, : q + kd],
+                                tables.power_n[blocks, : q + kd, None])[:, :, 0]
+            kern = kpoly[None, :] * sign[:, None] ** np.arange(kd + 1)[None, :] / h   # (nb, t)
             ks = np.arange(2 * degree + 2)
-            kern = kpoly[None, :] * sign[:, None] ** np.arange(len(kpoly))[None, :] / h   # (nb, t)
-            moments = sum(kern[:, t:t + 1] * u_pow[:, ks + t] for t in range(len(kpoly))).sum(axis=0)
+            moments = sum(kern[:, t] @ u_pow[:, ks + t] for t in range(kd + 1))
             gram += moments[np.add.outer(np.arange(q), np.arange(q))]
             bias += moments[np.arange(q) + q]
-            kq = np.arange(q)
-            with_counts += sum(kern[:, t:t + 1] * u_pow_n[:, kq + t] for t in range(len(kpoly))).sum(axis=0)
+            with_counts += sum(kern[:, t] @ u_pow_n[:, t:t + q] for t in range(kd + 1))
             pieces.append(("blocks", tables, blocks, coef_u, kern))
         out = WindowSums(gram=gram, bias=bias, with_counts=with_counts)
         out._pieces = pieces
@@ -179,7 +190,7 @@ class WindowEngine:
                 weighted.append(nwr.sum(axis=0)[None, :])
             else:
                 _, tables, blocks, coef_u, kern = piece
-                m = tables.order + 1
+                m = q + kern.shape[1] - 1                 # powers of delta in w u^r: up to d + kd
                 # c[b, r, :] = coefficients in delta of w u^r on block b
                 c = sum(kern[:, t, None, None] * coef_u[:, t:t + q, :m] for t in range(kern.shape[1]))
                 total_b = np.einsum("brm,bm->br", c, tables.power[blocks, :m])
@@ -202,12 +213,22 @@ class WindowEngine:
 
 
 def _powers_in_delta(tables: BlockTables, blocks: np.ndarray, x0: float, h: float, top: int) -> np.ndarray:
-    """coef[b, k, m]: coefficient of delta^m in u^k on block b, u = (m_b - x0)/h + (s_b/h) delta."""
-    shift = (tables.centre[blocks] - x0) / h
-    scale = tables.half[blocks] / h
-    coef = np.zeros((len(blocks), top + 1, top + 1))
-    coef[:, 0, 0] = 1.0
-    for k in range(1, top + 1):
-        coef[:, k, :] = shift[:, None] * coef[:, k - 1, :]
-        coef[:, k, 1:] += scale[:, None] * coef[:, k - 1, :-1]
-    return coef
+    """coef[b, k, m]: coefficient of delta^m in u^k on block b, u = (m_b - x0)/h + (s_b/h) delta.
+
+    By the binomial theorem, coef = C(k, m) shift^(k-m) scale^m for m <= k (zero above).
+    """
+    k = np.arange(top + 1)
+    binom = _binomials(top)
+    shift = ((tables.centre[blocks] - x0) / h)[:, None] ** k[None, :]
+    scale = (tables.half[blocks] / h)[:, None] ** k[None, :]
+    gap = np.subtract.outer(k, k)                       # k - m
+    lower = gap >= 0
+    return binom[None] * shift[:, np.where(lower, gap, 0)] * scale[:, None, :] * lower[None]
+
+
+def _binomials(top: int) -> np.ndarray:
+    out = np.zeros((top + 1, top + 1))
+    for k in range(top + 1):
+        for m in range(k + 1):
+            out[k, m] = math.comb(k, m)
+    return out

@@ -33,7 +33,7 @@ from ..errors import (
 )
 from ..options import DENSITY_METHODS, KERNELS, check_level, check_option
 from .cdf_windows import WindowEngine, WindowSums
-from .kernels import kernel_weights, normal_reference_constant
+from .kernels import kernel_poly, kernel_weights, normal_reference_constant
 
 __all__ = [
     "DensityEstimate",
@@ -275,7 +275,8 @@ def tie_share(score) -> float:
 
     0 for a continuous score; 1 when every value is repeated (a fully discrete score).
     """
-    xs = np.sort(np.asarray(score, dtype=float))
+    xs = np.asarray(score, dtype=float)
+    xs = xs if _is_sorted(xs) else np.sort(xs)
     if xs.size < 2:
         return 0.0
     eq = xs[1:] == xs[:-1]
@@ -418,7 +419,7 @@ def _density_var(sample: _Sample, fit: _CdfFit) -> float:
 def _robust_scale(x: np.ndarray) -> float:
     """min(sd, IQR/1.349): Silverman's robust scale (common practice)."""
     sd = float(np.std(x, ddof=1)) if x.size > 1 else 0.0
-    q75, q25 = np.percentile(x, [75, 25])
+    q75, q25 = np.percentile(x, [75, 25])   # callers pass the sorted scores: a cheap selection
     iqr = float(q75 - q25) / 1.349
     positive = [s for s in (sd, iqr) if s > 0]
     return min(positive) if positive else 0.0
@@ -625,8 +626,10 @@ def local_cdf_density_test(score, cutoff: float, *, degree: int = 2, kernel: str
         bin_width = _check_positive("bin_width", bin_width)
     sample = _Sample(x, cutoff)
     _check_side_values(sample, degree)
+    # highest fit: the bandwidth's derivative pilot (degree + 2), else the robust fit (degree + 1)
+    sample.windows.reserve(degree + (2 if pair is None else 1) + len(kernel_poly(kernel)) - 1)
     if pair is None:
-        scale = _robust_scale(x)
+        scale = _robust_scale(sample.xs)
         pair = (_side_bandwidth(sample, "below", degree, kernel, scale),
                 _side_bandwidth(sample, "above", degree, kernel, scale))
     n = sample.n
@@ -675,7 +678,7 @@ def local_cdf_density_test(score, cutoff: float, *, degree: int = 2, kernel: str
     grid = _grid_from_rows(rows)
 
     if bin_width is None:
-        q75, q25 = np.percentile(x, [75, 25])
+        q75, q25 = np.percentile(sample.xs, [75, 25])
         iqr = float(q75 - q25)
         bin_width = 2.0 * iqr * n ** (-1.0 / 3.0) if iqr > 0 else (high - low) / 20.0
     hist = _histogram(sample.xs, cutoff, bin_width, low, high, n)
@@ -698,7 +701,7 @@ def local_cdf_density_test(score, cutoff: float, *, degree: int = 2, kernel: str
         n_below=sample.n_below, n_above=n - sample.n_below,
         n_used=(fits["below"].n_used, fits["above"].n_used), n=n,
         degree=degree, kernel=kernel, level=level, bin_width=float(bin_width),
-        tie_share=tie_share(x), grid=grid, histogram=hist, reason=reason)
+        tie_share=tie_share(sample.xs), grid=grid, histogram=hist, reason=reason)
 
 
 def _grid_from_rows(rows) -> DensityGrid:
