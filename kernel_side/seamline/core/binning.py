@@ -244,22 +244,32 @@ def bin_constants(score, outcome, cutoff: float, side: str, *, weights=None,
 
 
 def _side_constants(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: float, side: str,
-                    degree: int) -> BinConstants:
-    order = np.argsort(x, kind="stable")
-    x, y = x[order], y[order]
-    w = None if w is None else w[order]
+                    degree: int, order: np.ndarray | None = None) -> BinConstants:
+    """Spacings constants of one side; ``order`` sorts ``x`` (ties in any order; sorted here if None).
+
+    The sums follow the side's scores in ascending order with ties in input order (a stable sort).
+    Only the trapezoid of sigma^2 depends on the order within ties, through the first and last
+    member of each run of equal scores, so those are found as the least and greatest input
+    position in the run and no stable sort is needed. The pilot is fitted in input order.
+    """
+    if order is None:
+        order = np.argsort(x)
+    xs = x[order]
     n = x.size
-    far = float(x[0]) if side == "below" else float(x[-1])
+    far = float(xs[0]) if side == "below" else float(xs[-1])
     span = abs(far - cutoff)
     support = (far, cutoff) if side == "below" else (cutoff, far)
-    deg = max(0, min(degree, _n_distinct(x) - 1, n - 2))
+    starts = np.flatnonzero(np.r_[True, xs[1:] != xs[:-1]])       # first position of each run
+    deg = max(0, min(degree, len(starts) - 1, n - 2))
     if span == 0.0:
         deg = 0
     scale = span if span > 0 else 1.0
     u = (x - cutoff) / scale
     basis = np.vander(u, deg + 1, increasing=True)
     sw = np.ones(n) if w is None else np.sqrt(w)
-    coef, *_ = np.linalg.lstsq(basis * sw[:, None], y * sw, rcond=None)
+    q, r = np.linalg.qr(basis * sw[:, None])
+    coef = np.linalg.solve(r, q.T @ (y * sw)) if np.all(np.abs(np.diag(r)) > 0) else \
+        np.linalg.lstsq(basis * sw[:, None], y * sw, rcond=None)[0]
     resid = y - basis @ coef
     sigma2 = resid ** 2
     if deg >= 1:
@@ -268,15 +278,21 @@ def _side_constants(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: 
     else:
         slope = np.zeros(n)
     slope2 = slope ** 2
-    gaps = np.diff(x)
+    first = np.minimum.reduceat(order, starts)          # stable order: least input position first
+    last = np.maximum.reduceat(order, starts)
     int_slope2_f = float(np.mean(slope2))
-    int_sigma2 = float(np.sum(0.5 * (sigma2[:-1] + sigma2[1:]) * gaps))
+    gaps = np.diff(xs[starts])
+    int_sigma2 = float(np.sum(0.5 * (sigma2[last[:-1]] + sigma2[first[1:]]) * gaps))
     # the support runs to the cutoff: add the stretch between the nearest observation and c
     if side == "below":
-        int_sigma2 += float(sigma2[-1] * (cutoff - x[-1]))
+        int_sigma2 += float(sigma2[last[-1]] * (cutoff - xs[-1]))
     else:
-        int_sigma2 += float(sigma2[0] * (x[0] - cutoff))
-    int_slope2_over_f = float(n * np.sum(slope2[1:-1] * gaps[:-1] * gaps[1:])) if n >= 3 else 0.0
+        int_sigma2 += float(sigma2[first[0]] * (xs[0] - cutoff))
+    if n >= 3:
+        spacing = np.diff(xs)
+        int_slope2_over_f = float(n * np.sum(slope2[order[1:-1]] * spacing[:-1] * spacing[1:]))
+    else:
+        int_slope2_over_f = 0.0
     average_variance = float(np.mean(sigma2))
     return BinConstants(
         bias_equal_width=span ** 2 / 12.0 * int_slope2_f,
@@ -385,7 +401,8 @@ def _split_sides(x: np.ndarray, cutoff: float) -> tuple[np.ndarray, np.ndarray]:
 # ---------------------------------------------------------------------------------------------
 def select_bin_number(score, outcome, cutoff: float, *, method: str = "equal-width",
                       rule: str = "imse", weights=None, scale: float = 1.0,
-                      number: int | tuple[int, int] | None = None) -> BinSelection:
+                      number: int | tuple[int, int] | None = None,
+                      order: np.ndarray | None = None) -> BinSelection:
     """Number of bins on each side of the cutoff (Calonico, Cattaneo & Titiunik 2015).
 
     Parameters
@@ -399,6 +416,8 @@ def select_bin_number(score, outcome, cutoff: float, *, method: str = "equal-wid
     scale : multiplies the selected (unrounded) numbers before rounding up.
     number : fix the numbers by hand: an int for both sides or a pair (below, above); each must be
         between 1 and the side's number of observations. Overrides ``rule`` and ``scale``.
+    order : optional positions that sort ``score`` ascending (ties in any order), e.g. from a sort
+        the caller already made; the result is the same, without sorting again.
 
     Returns
     -------
@@ -413,7 +432,8 @@ def select_bin_number(score, outcome, cutoff: float, *, method: str = "equal-wid
     masks = _split_sides(x, cutoff)
     counts = (int(np.count_nonzero(masks[0])), int(np.count_nonzero(masks[1])))
     fixed = _number_pair(number, counts)
-    consts = [_side_constants(x[m], y[m], None if w is None else w[m], cutoff, s, PILOT_DEGREE)
+    consts = [_side_constants(x[m], y[m], None if w is None else w[m], cutoff, s, PILOT_DEGREE,
+                              None if order is None else _side_order(order, m))
               for s, m in zip(SIDES, masks)]
     imse, mimic, chosen = [], [], []
     for k in consts:
@@ -427,6 +447,12 @@ def select_bin_number(score, outcome, cutoff: float, *, method: str = "equal-wid
     return BinSelection(method=method, rule=rule, number=(chosen[0], chosen[1]),
                         imse_number=(imse[0], imse[1]), mimic_variance_number=(mimic[0], mimic[1]),
                         scale=scale if fixed is None else 1.0, below=consts[0], above=consts[1])
+
+
+def _side_order(order: np.ndarray, mask: np.ndarray) -> np.ndarray:
+    """Positions within ``x[mask]`` that sort it, from positions that sort all of ``x``."""
+    local = np.cumsum(mask) - 1
+    return local[order[mask[order]]]
 
 
 def _side_bins(x: np.ndarray, cutoff: float, side: str, method: str, j: int):
@@ -461,7 +487,8 @@ def _side_bins(x: np.ndarray, cutoff: float, side: str, method: str, j: int):
 
 def binned_means(score, outcome, cutoff: float, *, method: str = "equal-width",
                  number: int | tuple[int, int] | None = None, rule: str = "imse",
-                 scale: float = 1.0, weights=None, level: float = 0.95) -> BinnedMeans:
+                 scale: float = 1.0, weights=None, level: float = 0.95,
+                 order: np.ndarray | None = None) -> BinnedMeans:
     """Binned means of the outcome with confidence intervals, bins never straddling the cutoff.
 
     Parameters
@@ -476,6 +503,8 @@ def binned_means(score, outcome, cutoff: float, *, method: str = "equal-width",
     scale : factor on the data-driven number of bins.
     weights : optional non-negative weights; means become weighted means.
     level : confidence level of the intervals (normal critical value).
+    order : optional positions that sort ``score`` (ties in any order), passed to
+        :func:`select_bin_number` so that it need not sort.
 
     Returns
     -------
@@ -502,7 +531,7 @@ def binned_means(score, outcome, cutoff: float, *, method: str = "equal-width",
     cutoff = float(cutoff)
     level = check_level(level)
     selection = select_bin_number(x, y, cutoff, method=method, rule=rule, weights=w, scale=scale,
-                                  number=number)
+                                  number=number, order=order)
     method = selection.method
     z = float(stats.norm.ppf(0.5 + level / 2.0))
     masks = _split_sides(x, cutoff)

@@ -394,7 +394,7 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
         ok &= ~np.isnan(w) & (w > 0)
     level = fit_options.get("level", 0.95)
     binned = binned_means(x[ok], y[ok], design.cutoff, method=method, number=number, rule=rule, scale=scale,
-                          weights=None if w is None else w[ok], level=level)
+                          weights=None if w is None else w[ok], level=level, order=_sorted_positions(data, ok))
     fit = design.fit(outcome, **fit_options)
     spec = design._spec(outcome, **_spec_options(fit, fit_options))
     engine, _, _, _ = design._engine(spec)
@@ -416,6 +416,15 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
     return Bins(outcome=outcome, score=design.score, cutoff=design.cutoff, method=method, rule=binned.rule,
                 number=number_used, level=level, binned=binned, curve_frame=curve, global_frame=global_frame,
                 fit=fit, warnings=fit.warnings)
+
+
+def _sorted_positions(data, ok: np.ndarray) -> np.ndarray | None:
+    """Positions that sort the score of the rows ``ok`` selects, read off the design's one sort
+    (None when that sort left out rows ``ok`` keeps: a missing cluster code)."""
+    if data.cluster_codes is not None:
+        return None
+    rows = data.sorted_rows()[0]
+    return (np.cumsum(ok) - 1)[rows[ok[rows]]]
 
 
 def _spec_options(fit, fit_options: dict) -> dict:
