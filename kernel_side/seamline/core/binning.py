@@ -19,6 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import stats
+from scipy.linalg import solve_triangular
 
 from ..errors import InvalidOptionError, InvalidWeightsError, OneSidedDataError
 from ..options import BIN_METHODS, BIN_RULES, check_level, check_option
@@ -267,9 +268,7 @@ def _side_constants(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: 
     u = (x - cutoff) / scale
     basis = np.vander(u, deg + 1, increasing=True)
     sw = np.ones(n) if w is None else np.sqrt(w)
-    q, r = np.linalg.qr(basis * sw[:, None])
-    coef = np.linalg.solve(r, q.T @ (y * sw)) if np.all(np.abs(np.diag(r)) > 0) else \
-        np.linalg.lstsq(basis * sw[:, None], y * sw, rcond=None)[0]
+    coef = _least_squares(basis * sw[:, None], y * sw)
     resid = y - basis @ coef
     sigma2 = resid ** 2
     if deg >= 1:
@@ -301,6 +300,17 @@ def _side_constants(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: 
         variance_equal_count=average_variance,
         average_variance=average_variance,
         support=support, n=int(n), pilot_degree=int(deg))
+
+
+def _least_squares(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Least-squares coefficients from the triangular factor of [a | b] (Householder QR without
+    forming Q: the last column of R holds Q'b); a rank-deficient ``a`` falls back to lstsq."""
+    k = a.shape[1]
+    r = np.linalg.qr(np.column_stack((a, b)), mode="r")
+    diag = np.abs(np.diag(r)[:k])
+    if k and diag.min() > 1e-12 * diag.max():
+        return solve_triangular(r[:k, :k], r[:k, k])
+    return np.linalg.lstsq(a, b, rcond=None)[0]
 
 
 def _rule_numbers(k: BinConstants, method: str) -> tuple[float, int]:
@@ -430,11 +440,27 @@ def select_bin_number(score, outcome, cutoff: float, *, method: str = "equal-wid
     rule = check_option("rule", rule, BIN_RULES)
     scale = _check_scale(scale)
     masks = _split_sides(x, cutoff)
+    return _selection(x, y, w, cutoff, method, rule, scale, number, masks, _side_orders(order, masks))
+
+
+def _side_orders(order: np.ndarray | None, masks) -> list[np.ndarray | None]:
+    """Positions within ``x[mask]`` that sort it, per side, from positions that sort all of ``x``."""
+    if order is None:
+        return [None for _ in masks]
+    out = []
+    for mask in masks:
+        local = np.cumsum(mask) - 1
+        out.append(local[order[mask[order]]])
+    return out
+
+
+def _selection(x, y, w, cutoff: float, method: str, rule: str, scale: float, number, masks,
+               side_orders) -> BinSelection:
+    """select_bin_number on validated arrays and options."""
     counts = (int(np.count_nonzero(masks[0])), int(np.count_nonzero(masks[1])))
     fixed = _number_pair(number, counts)
-    consts = [_side_constants(x[m], y[m], None if w is None else w[m], cutoff, s, PILOT_DEGREE,
-                              None if order is None else _side_order(order, m))
-              for s, m in zip(SIDES, masks)]
+    consts = [_side_constants(x[m], y[m], None if w is None else w[m], cutoff, s, PILOT_DEGREE, o)
+              for s, m, o in zip(SIDES, masks, side_orders)]
     imse, mimic, chosen = [], [], []
     for k in consts:
         j_imse, j_mv = _rule_numbers(k, method)
@@ -449,14 +475,13 @@ def select_bin_number(score, outcome, cutoff: float, *, method: str = "equal-wid
                         scale=scale if fixed is None else 1.0, below=consts[0], above=consts[1])
 
 
-def _side_order(order: np.ndarray, mask: np.ndarray) -> np.ndarray:
-    """Positions within ``x[mask]`` that sort it, from positions that sort all of ``x``."""
-    local = np.cumsum(mask) - 1
-    return local[order[mask[order]]]
+def _side_bins(x: np.ndarray, cutoff: float, side: str, method: str, j: int,
+               order: np.ndarray | None = None):
+    """Bin index (0..j-1) of each observation of one side, and the j+1 edges.
 
-
-def _side_bins(x: np.ndarray, cutoff: float, side: str, method: str, j: int):
-    """Bin index (0..j-1) of each observation of one side, and the j+1 edges."""
+    ``order`` (positions that sort ``x``, ties in any order) lets equal-width bins be assigned by
+    ranges of the sorted scores instead of one search per observation; the indices are the same.
+    """
     n = x.size
     if method == "equal-width":
         if side == "below":
@@ -467,9 +492,16 @@ def _side_bins(x: np.ndarray, cutoff: float, side: str, method: str, j: int):
         edges[0], edges[-1] = lower, upper
         if upper == lower:
             idx = np.zeros(n, dtype=np.int64)
-        else:
+        elif order is None:
             # searchsorted on the reported edges keeps assignment and edges consistent
             idx = np.clip(np.searchsorted(edges, x, side="right") - 1, 0, j - 1)
+        else:
+            # bin k holds the sorted scores in [edges[k], edges[k+1]) (the last bin also takes
+            # the top edge): the same as searching each score among the edges, clipped
+            starts = np.searchsorted(x[order], edges[1:j], side="left")
+            sizes = np.diff(np.concatenate(([0], starts, [n])))
+            idx = np.empty(n, dtype=np.int64)
+            idx[order] = np.repeat(np.arange(j), sizes)
         return idx, edges
     # equal-count: by rank (stable sort, ties broken by input order), so counts differ by <= 1
     order = np.argsort(x, kind="stable")
@@ -530,16 +562,18 @@ def binned_means(score, outcome, cutoff: float, *, method: str = "equal-width",
     x, y, w = _arrays(score, outcome, weights)
     cutoff = float(cutoff)
     level = check_level(level)
-    selection = select_bin_number(x, y, cutoff, method=method, rule=rule, weights=w, scale=scale,
-                                  number=number, order=order)
-    method = selection.method
-    z = float(stats.norm.ppf(0.5 + level / 2.0))
+    method = check_option("method", method, BIN_METHODS)
+    rule = check_option("rule", rule, BIN_RULES)
+    scale = _check_scale(scale)
     masks = _split_sides(x, cutoff)
+    side_orders = _side_orders(order, masks)
+    selection = _selection(x, y, w, cutoff, method, rule, scale, number, masks, side_orders)
+    z = float(stats.norm.ppf(0.5 + level / 2.0))
     assignment = np.empty(x.size, dtype=np.int64)
     sides, lefts, rights = [], [], []
     offset = 0
-    for side, mask, j in zip(SIDES, masks, selection.number):
-        idx, edges = _side_bins(x[mask], cutoff, side, method, j)
+    for side, mask, j, side_order in zip(SIDES, masks, selection.number, side_orders):
+        idx, edges = _side_bins(x[mask], cutoff, side, method, j, side_order)
         assignment[mask] = idx + offset
         sides += [side] * j
         lefts.append(edges[:-1])
