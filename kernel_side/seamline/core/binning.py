@@ -303,25 +303,59 @@ def _pilot_fit(x, y, w, cutoff: float, scale: float, side: str, deg: int) -> tup
     n = x.size
     # u = (x - c)/span lies in [-1, 0] below the cutoff and [0, 1] above; t maps it onto [-1, 1]
     t = 2.0 * (x - cutoff) / scale + (1.0 if side == "below" else -1.0)
-    basis = np.empty((n, deg + 1))
-    basis[:, 0] = 1.0
-    if deg >= 1:
-        basis[:, 1] = t
-    for k in range(1, deg):
-        basis[:, k + 1] = ((2 * k + 1) * t * basis[:, k] - k * basis[:, k - 1]) / (k + 1)
-    weighted = basis if w is None else basis * w[:, None]
-    gram = weighted.T @ basis
+    gram = np.zeros((deg + 1, deg + 1))
+    rhs = np.zeros(deg + 1)
+    for rows, basis, _ in _legendre_chunks(t, deg, slopes=False):      # pass 1: normal equations
+        weighted = basis if w is None else basis * w[rows]
+        gram += weighted @ basis.T
+        rhs += weighted @ y[rows]
     try:
-        coef = np.linalg.solve(gram, weighted.T @ y)
+        coef = np.linalg.solve(gram, rhs)
     except np.linalg.LinAlgError:      # e.g. zero weights leaving too few distinct scores
+        full = np.concatenate([b for _, b, _ in _legendre_chunks(t, deg, slopes=False)], axis=1)
         sw = np.ones(n) if w is None else np.sqrt(w)
-        coef = np.linalg.lstsq(basis * sw[:, None], y * sw, rcond=None)[0]
-    resid = y - basis @ coef
-    if deg == 0:
-        return resid, np.zeros(n)
-    # d/dx = d/dt * dt/dx, with dt/dx = 2 / span
-    slope = np.polynomial.legendre.legval(t, np.polynomial.legendre.legder(coef)) * (2.0 / scale)
+        coef = np.linalg.lstsq((full * sw).T, y * sw, rcond=None)[0]
+    resid = np.empty(n)
+    slope = np.empty(n)
+    for rows, basis, slopes in _legendre_chunks(t, deg, slopes=True):   # pass 2: residuals, slope
+        np.subtract(y[rows], coef @ basis, out=resid[rows])
+        np.multiply(coef @ slopes, 2.0 / scale, out=slope[rows])        # dt/dx = 2 / span
     return resid, slope
+
+
+def _legendre_chunks(t: np.ndarray, deg: int, slopes: bool, chunk: int = 1 << 15):
+    """(rows, P_k(t) for k <= deg, and their derivatives if ``slopes``) chunk by chunk.
+
+    Rows of P are contiguous and chunks small enough to stay in cache; the recurrences are
+    P_(k+1) = ((2k + 1) t P_k - k P_(k-1)) / (k + 1) and P_(k+1)' = P_(k-1)' + (2k + 1) P_k.
+    """
+    n = t.size
+    basis = np.empty((deg + 1, min(chunk, n)))
+    deriv = np.empty((deg + 1, min(chunk, n))) if slopes else None
+    scratch = np.empty(min(chunk, n))
+    for start in range(0, n, chunk):
+        rows = slice(start, min(start + chunk, n))
+        tc = t[rows]
+        m = tc.size
+        b, tmp = basis[:, :m], scratch[:m]
+        b[0] = 1.0
+        if deg >= 1:
+            b[1] = tc
+        for k in range(1, deg):
+            np.multiply(tc, b[k], out=tmp)
+            tmp *= (2 * k + 1) / (k + 1)
+            np.multiply(b[k - 1], k / (k + 1), out=b[k + 1])
+            np.subtract(tmp, b[k + 1], out=b[k + 1])
+        d = None
+        if slopes:
+            d = deriv[:, :m]
+            d[0] = 0.0
+            if deg >= 1:
+                d[1] = 1.0
+            for k in range(1, deg):
+                np.multiply(b[k], 2 * k + 1, out=d[k + 1])
+                d[k + 1] += d[k - 1]
+        yield rows, b, d
 
 
 def _rule_numbers(k: BinConstants, method: str) -> tuple[float, int]:
