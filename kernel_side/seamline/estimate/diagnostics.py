@@ -14,6 +14,7 @@ from scipy import stats
 
 from ..core.binning import binned_means
 from ..core.density import density_test as core_density_test
+from ..core.kernels import kernel_weights
 from ..errors import (InvalidOptionError, OneSidedDataError, SeamlineError, TooFewDistinctValuesError)
 from ..options import BIN_METHODS, BIN_RULES, DENSITY_METHODS, check_option
 from ..results.diagnostics import (Balance, Bins, Checks, DensityTest, Donut, Placebo, ScoreProfile,
@@ -206,12 +207,13 @@ def _joint_test(design, names, fits) -> tuple[float, int, float, int]:
     tau = np.array([eng.jump(np.eye(k)[j], robust=True) for j, eng in enumerate(engines)])
     cov = np.zeros((k, k))
     for s_index, side in enumerate((prep.below, prep.above)):
-        rows = max(eng.arrays()[s_index].rows for eng in engines)
+        weights = [_robust_weights(eng.fits[s_index]) for eng in engines]
+        rows = max(len(abc) for abc in weights)
         a = np.zeros((k, rows))
         e = np.zeros((k, rows))
         for j, eng in enumerate(engines):
-            wa = eng.arrays()[s_index]
-            a[j, : wa.rows] = design.treated_sign * side.sign * wa.abc
+            abc = weights[j]
+            a[j, : len(abc)] = design.treated_sign * side.sign * abc
             if fits[0].variance == "neighbors" and not clustered:
                 e[j, :rows] = _neighbor_column(design, prep, names[j], s_index, j, spec0.donut)[:rows]
             else:
@@ -243,6 +245,18 @@ def _joint_test(design, names, fits) -> tuple[float, int, float, int]:
     except np.linalg.LinAlgError:
         return float("nan"), k, float("nan"), prep.n_total
     return stat, k, float(stats.chi2.sf(stat, k)), prep.n_total
+
+
+def _robust_weights(sf) -> np.ndarray:
+    """Bias-corrected smoother weights of one side's fit over its window (the ``abc`` of
+    seamline.core.locpoly.window_arrays, without the residuals and leverages the joint test
+    does not use)."""
+    side, s = sf.side, float(sf.side.sign)
+    rows = side.count_positive(max(sf.h, sf.b), sf.kernel)
+    d = side.distance[:rows]
+    w = side.w(slice(0, rows))
+    a = w * kernel_weights(sf.kernel, d / sf.h) * (np.vander(s * d / sf.h, sf.p + 1, increasing=True) @ sf.c_h)
+    return a - w * kernel_weights(sf.kernel, d / sf.b) * (np.vander(s * d / sf.b, sf.q + 1, increasing=True) @ sf.c_b)
 
 
 def _neighbor_column(design, prep, name: str, s_index: int, j: int, donut: float) -> np.ndarray:
