@@ -12,6 +12,7 @@ import pytest
 import seamline
 from seamline.estimate import design as design_module
 from seamline.estimate import diagnostics
+from seamline.core.density import density_test as core_density_test
 from seamline.errors import InvalidOptionError
 
 
@@ -64,9 +65,9 @@ def test_resolved_arguments_share_a_key(counted):
     assert d.density_test("local-cdf", level=0.95) is a
     assert d.donut() is d.donut(None, bandwidth="mse", kernel="triangular", level=0.95)
     assert d.placebo_cutoffs(cutoffs=[-0.5, 0.5]) is d.placebo_cutoffs(np.array([-0.5, 0.5]))
-    b = d.density_test(level=0.9)
+    b = d.density_test(level=0.9)           # re-reported from the test at 0.95: no second run
     assert b is not a and b.level == 0.9
-    assert counted["density"] == 2
+    assert counted["density"] == 1
 
 
 def test_cached_results_equal_a_fresh_design():
@@ -103,3 +104,20 @@ def test_unhashable_arguments_are_computed_without_caching():
     assert diagnostics.cache_key("donut", (radii,), {}) is None
     d = make()
     assert len(d.donut(radii=radii).rows) == 2 and len(d._diagnostics) == 0
+
+
+@pytest.mark.parametrize("method", ["local-cdf", "binned"])
+def test_another_level_equals_a_test_run_at_that_level(method):
+    # Reference: the core test run afresh at level 0.8 (its intervals use scipy.stats.norm.ppf)
+    data = frame(4000, seed=9)
+    d = make(data)
+    got = d.density_test(method, level=0.8)
+    want = core_density_test(data["x"].to_numpy(), 0.0, method=method, level=0.8).__dict__
+    est = got.estimate
+    for name in ("ci_below", "ci_above", "statistic", "p_value", "bandwidth", "density_below"):
+        np.testing.assert_allclose(getattr(est, name), want[name], rtol=1e-10)
+    for name in ("ci_low", "ci_high", "density", "std_error"):
+        np.testing.assert_allclose(getattr(est.grid, name), getattr(want["grid"], name), rtol=1e-10)
+    assert got.level == 0.8 and got.ci_below == tuple(est.ci_below)
+    with pytest.raises(InvalidOptionError, match="`level` must be a number strictly between 0 and 1"):
+        d.density_test(level=1.5)

@@ -18,6 +18,7 @@ Results are frozen dataclasses of numbers and read-only arrays; nothing is print
 """
 from __future__ import annotations
 
+import dataclasses
 import inspect
 import math
 from dataclasses import dataclass
@@ -46,6 +47,7 @@ __all__ = [
     "local_cdf_bandwidth",
     "local_cdf_density_test",
     "tie_share",
+    "with_level",
 ]
 
 # McCrary's rule-of-thumb bandwidth constant as published (from memory; METHODS 8.1 flags it).
@@ -924,6 +926,30 @@ def binned_density_test(score, cutoff: float, *, bin_width: float | None = None,
         bandwidth=(float(h), float(h)), n_below=n_below, n_above=n - n_below,
         n_used=(used["below"], used["above"]), n=n, degree=1, kernel="triangular", level=level,
         bin_width=float(width), tie_share=tie_share(x), grid=grid, histogram=hist, reason=reason)
+
+
+def with_level(estimate: DensityEstimate, level: float) -> DensityEstimate:
+    """The same density test reported at another confidence ``level`` (only intervals change).
+
+    Intervals are centre +- z se with the centres and standard errors of the estimate: for
+    "local-cdf" the robust estimates at the cutoff and, on the grid, the robust fit at each point
+    (recovered as the midpoint of its interval); for "binned" the conventional ones.
+    """
+    level = check_level(level)
+    z = _z(level)
+    if estimate.method == "local-cdf":
+        centres = (estimate.density_below_robust, estimate.density_above_robust)
+        ses = (estimate.se_below_robust, estimate.se_above_robust)
+    else:
+        centres = (estimate.density_below, estimate.density_above)
+        ses = (estimate.se_below, estimate.se_above)
+    g = estimate.grid
+    mid = 0.5 * (g.ci_low + g.ci_high) if estimate.method == "local-cdf" else g.density
+    grid = dataclasses.replace(g, ci_low=_frozen(mid - z * g.std_error), ci_high=_frozen(mid + z * g.std_error))
+    return dataclasses.replace(
+        estimate, level=level, grid=grid,
+        ci_below=(centres[0] - z * ses[0], centres[0] + z * ses[0]),
+        ci_above=(centres[1] - z * ses[1], centres[1] + z * ses[1]))
 
 
 def density_test(score, cutoff: float, *, method: str = "local-cdf", **options) -> DensityEstimate:

@@ -14,9 +14,10 @@ from scipy import stats
 
 from ..core.binning import binned_means
 from ..core.density import density_test as core_density_test
+from ..core.density import with_level as density_at_level
 from ..core.kernels import kernel_weights
 from ..errors import (InvalidOptionError, OneSidedDataError, SeamlineError, TooFewDistinctValuesError)
-from ..options import BIN_METHODS, BIN_RULES, DENSITY_METHODS, check_option
+from ..options import BIN_METHODS, BIN_RULES, DENSITY_METHODS, check_level, check_option
 from ..results.diagnostics import (Balance, Bins, Checks, DensityTest, Donut, Placebo, ScoreProfile,
                                    Sensitivity, fit_row, holm)
 from .engine import JumpEngine
@@ -26,6 +27,7 @@ PLACEBO_QUANTILES = (0.2, 0.4, 0.6, 0.8)                # convention (METHODS 13
 DONUT_FRACTIONS = (0.0, 0.05, 0.1, 0.15, 0.2, 0.25)     # convention: radii as shares of the bandwidth
 MIN_PLACEBO_SIDE = 20                                   # convention: observations needed on each side
 ALPHA = 0.05
+REFERENCE_LEVEL = 0.95      # density tests are computed at this level and re-reported at others
 
 
 def _frozen_value(value):
@@ -92,13 +94,19 @@ def _clean_score(design) -> np.ndarray:
 def density_test(design, method: str = "local-cdf", *, level: float = 0.95, **options) -> DensityTest:
     """Manipulation test of the score's density at the cutoff (see DensityTest)."""
     method = check_option("method", method, DENSITY_METHODS)
-    data = design._data
-    if method == "local-cdf" and data.weights is None and data.cluster_codes is None:
-        # every row with a score, already sorted for the fits: the core need not sort again
-        x = data.arrays[design.score][data.sorted_rows()[0]]
+    checked = check_level(level)
+    if checked != REFERENCE_LEVEL:
+        # the level changes only the intervals: re-report the (cached) test at the reference level
+        base = design.density_test(method, level=REFERENCE_LEVEL, **options)
+        est = density_at_level(base.estimate, checked)
     else:
-        x = _clean_score(design)
-    est = core_density_test(x, design.cutoff, method=method, level=level, **options)
+        data = design._data
+        if method == "local-cdf" and data.weights is None and data.cluster_codes is None:
+            # every row with a score, already sorted for the fits: the core need not sort again
+            x = data.arrays[design.score][data.sorted_rows()[0]]
+        else:
+            x = _clean_score(design)
+        est = core_density_test(x, design.cutoff, method=method, level=level, **options)
     warnings = []
     if est.p_value < ALPHA:
         warnings.append(f"The density of {design.score!r} jumps at the cutoff (p = {est.p_value:.3f}): evidence of "
