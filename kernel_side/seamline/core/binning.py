@@ -492,10 +492,13 @@ def _side_orders(order: np.ndarray | None, masks) -> list[np.ndarray | None]:
     """Positions within ``x[mask]`` that sort it, per side, from positions that sort all of ``x``."""
     if order is None:
         return [None for _ in masks]
+    n_below = int(np.count_nonzero(masks[0]))
     out = []
-    for mask in masks:
-        local = np.cumsum(mask) - 1
-        out.append(local[order[mask[order]]])
+    # sorted scores below the cutoff come first: each side's part of ``order`` is a slice
+    for mask, part in zip(masks, (order[:n_below], order[n_below:])):
+        local = np.empty(mask.size, dtype=np.int64)
+        local[mask] = np.arange(np.count_nonzero(mask))
+        out.append(local[part])
     return out
 
 

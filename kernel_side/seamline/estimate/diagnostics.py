@@ -415,6 +415,8 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
     if w is not None:
         ok &= ~np.isnan(w) & (w > 0)
     level = fit_options.get("level", 0.95)
+    if ok.all():
+        ok = slice(None)        # views, not copies (read only: the user's data is never modified)
     binned = binned_means(x[ok], y[ok], design.cutoff, method=method, number=number, rule=rule, scale=scale,
                           weights=None if w is None else w[ok], level=level, order=_sorted_positions(data, ok))
     fit = design.fit(outcome, **fit_options)
@@ -440,13 +442,17 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
                 fit=fit, warnings=fit.warnings)
 
 
-def _sorted_positions(data, ok: np.ndarray) -> np.ndarray | None:
+def _sorted_positions(data, ok) -> np.ndarray | None:
     """Positions that sort the score of the rows ``ok`` selects, read off the design's one sort
     (None when that sort left out rows ``ok`` keeps: a missing cluster code)."""
     if data.cluster_codes is not None:
         return None
     rows = data.sorted_rows()[0]
-    return (np.cumsum(ok) - 1)[rows[ok[rows]]]
+    if isinstance(ok, slice):           # every row: the sorted rows are the positions
+        return rows if len(rows) == data.n_rows else None
+    position = np.empty(ok.size, dtype=np.int64)
+    position[ok] = np.arange(np.count_nonzero(ok))
+    return position[rows[ok[rows]]]
 
 
 def _spec_options(fit, fit_options: dict) -> dict:
