@@ -481,22 +481,25 @@ def _global_polynomial(x, y, cutoff, degree, points: int = 60) -> pd.DataFrame:
 # ---------------------------------------------------------------------------------------------
 def score_profile(design, **fit_options) -> ScoreProfile:
     """Distinct values and mass points of the score per side, overall and inside the bandwidth."""
-    x = _clean_score(design) - design.cutoff
+    xs = _sorted_score(design)
+    x = xs - design.cutoff                       # ascending
     try:
         h = design.fit(**fit_options).bandwidth
     except SeamlineError:
         h = (float("nan"), float("nan"))
     rows = []
-    for side, part, bw in (("below", -x[x < 0], h[0]), ("above", x[x >= 0], h[1])):
+    split = int(np.searchsorted(x, 0.0, side="left"))
+    # distances from the cutoff, each side monotone, so equal values sit next to each other
+    for side, part, bw in (("below", -x[:split], h[0]), ("above", x[split:], h[1])):
         for scope, values in (("all", part), ("window", part[part <= bw] if np.isfinite(bw) else part[:0])):
-            vals, counts = np.unique(values, return_counts=True)
+            counts = _run_lengths(values)
             mass = counts >= 2
             rows.append({"side": side, "scope": scope, "observations": int(len(values)),
-                         "distinct_values": int(len(vals)), "mass_points": int(mass.sum()),
+                         "distinct_values": int(len(counts)), "mass_points": int(mass.sum()),
                          "share_at_mass_points": float(counts[mass].sum() / len(values)) if len(values) else 0.0,
                          "largest_mass": int(counts.max()) if len(counts) else 0})
     score = _clean_score(design)
-    uniq = np.unique(score)
+    uniq = xs[np.r_[True, xs[1:] != xs[:-1]]] if len(xs) else xs    # sorted distinct values
     gaps = np.diff(uniq)
     resolution = float(gaps[gaps > 0].min()) if np.any(gaps > 0) else 0.0
     heaping, warnings = _heaping(score, uniq, resolution)
@@ -509,6 +512,22 @@ def score_profile(design, **fit_options) -> ScoreProfile:
                         "by score value is sometimes used but does not protect coverage (Kolesar & Rothe 2018).")
     return ScoreProfile(rows=tuple(rows), score=design.score, bandwidth=h, resolution=resolution,
                         heaping=tuple(heaping), warnings=tuple(warnings))
+
+
+def _sorted_score(design) -> np.ndarray:
+    """Every non-missing score in ascending order, from the design's one sort when it covers them."""
+    data = design._data
+    if data.weights is None and data.cluster_codes is None:
+        return data.arrays[design.score][data.sorted_rows()[0]]
+    return np.sort(_clean_score(design))
+
+
+def _run_lengths(monotone: np.ndarray) -> np.ndarray:
+    """Sizes of the runs of equal values of a sorted (ascending or descending) array."""
+    if len(monotone) == 0:
+        return np.zeros(0, dtype=np.int64)
+    starts = np.flatnonzero(np.r_[True, monotone[1:] != monotone[:-1]])
+    return np.diff(np.append(starts, len(monotone)))
 
 
 def _heaping(score: np.ndarray, uniq: np.ndarray, resolution: float) -> tuple[list[dict], list[str]]:
