@@ -148,6 +148,8 @@ class DesignData:
         self._sorted: dict[tuple, tuple[np.ndarray, int]] = {}
         self._order: np.ndarray | None = None     # the one sort of the score (``_score_order``)
         self._spreads: dict[int, tuple] = {}      # score spread per sorted row set (keyed by identity)
+        self._ordered: np.ndarray | None = None   # the score in that order (``_ordered_score``)
+        self._spans: dict[tuple, tuple[int, int]] = {}   # a one-sided copy's run of the parent's order
         self._only: np.ndarray | None = None      # row filter of a one-sided copy (``one_side``)
         self._parent: DesignData | None = None    # whose sorted rows a one-sided copy reuses
 
@@ -166,7 +168,7 @@ class DesignData:
         out.cutoff = float(cutoff)
         out.n_rows = int(only.sum())
         out._only, out._parent = only, self
-        out._cache, out._sorted, out._order, out._spreads = {}, {}, None, {}
+        out._cache, out._sorted, out._order, out._spreads, out._ordered, out._spans = {}, {}, None, {}, None, {}
         return out
 
     def prepare(self, variables: tuple[str, ...], donut: float = 0.0, neighbors: int = 3) -> Prepared:
@@ -191,7 +193,10 @@ class DesignData:
             keep, n_dropped = self._usable(variables)
             if self._parent is not None:
                 base = self._parent._score_order()
-                rows = base[keep[base]]
+                kept = np.flatnonzero(keep[base])
+                if len(kept) and kept[-1] - kept[0] + 1 == len(kept):    # a run of the parent's order
+                    self._spans[variables] = (int(kept[0]), int(kept[-1]) + 1)
+                rows = base[kept]
             else:
                 base = self._score_order()
                 rows = base if int(keep.sum()) == len(base) else self._argsort(keep)
@@ -220,6 +225,20 @@ class DesignData:
             self._order = self._argsort(self._usable(())[0])
         return self._order
 
+    def _sorted_score(self, variables: tuple[str, ...], rows: np.ndarray) -> np.ndarray:
+        """score[rows] as a new array. A one-sided copy whose rows are a run of its parent's sorted
+        rows slices the parent's sorted score (the same values) instead of gathering row by row."""
+        span = self._spans.get(variables)
+        if span is not None:
+            return self._parent._ordered_score()[span[0]:span[1]].copy()
+        return self.arrays[self.score_name][rows]
+
+    def _ordered_score(self) -> np.ndarray:
+        """The score in the design's sorted order (built once, for one-sided copies to slice)."""
+        if self._ordered is None:
+            self._ordered = self.arrays[self.score_name][self._score_order()]
+        return self._ordered
+
     def _argsort(self, keep: np.ndarray) -> np.ndarray:
         score = self.arrays[self.score_name]
         if keep.all():
@@ -242,7 +261,7 @@ class DesignData:
             raise OneSidedDataError(f"the design must keep observations on both sides of the cutoff; got "
                                     f"{len(rows)} usable rows after dropping missing values in "
                                     f"{[self.score_name, *variables]}. Check for missing data.")
-        x_sorted = self.arrays[self.score_name][rows]
+        x_sorted = self._sorted_score(variables, rows)
         x_sorted -= self.cutoff
         split = int(np.searchsorted(x_sorted, 0.0, side="left"))
         score_sd, score_scale = self._spread(rows, x_sorted)

@@ -336,7 +336,8 @@ def placebo_cutoffs(design, cutoffs=None, **fit_options) -> Placebo:
     if cutoffs is None:
         requested = []
         for part in side_scores.values():
-            requested += [float(np.quantile(part, q)) for q in PLACEBO_QUANTILES] if len(part) else []
+            # one selection for all quantiles (the same values as one call per quantile)
+            requested += [float(v) for v in np.quantile(part, PLACEBO_QUANTILES)] if len(part) else []
         user = False
     else:
         requested = [float(c) for c in np.atleast_1d(cutoffs)]
