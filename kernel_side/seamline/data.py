@@ -5,6 +5,7 @@ is a new one. Rows with missing values in the columns a fit uses are dropped and
 """
 from __future__ import annotations
 
+import copy
 import difflib
 from dataclasses import dataclass
 
@@ -224,65 +225,174 @@ class DesignData:
                                         f"[{lo:g}, {hi:g}]; got {shown(cutoff)}. Check the cutoff and its units.")
         self.cutoff = float(cutoff)
         self._cache: dict[tuple, Prepared] = {}
+        self._sorted: dict[tuple, tuple[np.ndarray, int]] = {}
+        self._order: np.ndarray | None = None     # the one sort of the score (``_score_order``)
+        self._spreads: dict[int, tuple] = {}      # score spread per sorted row set (keyed by identity)
+        self._ordered: np.ndarray | None = None   # the score in that order (``_ordered_score``)
+        self._spans: dict[tuple, tuple[int, int]] = {}   # a one-sided copy's run of the parent's order
+        self._only: np.ndarray | None = None      # row filter of a one-sided copy (``one_side``)
+        self._parent: DesignData | None = None    # whose sorted rows a one-sided copy reuses
+
+    def one_side(self, side: str, cutoff: float) -> "DesignData":
+        """The same validated columns restricted to one side of this design's cutoff, with a new cutoff.
+
+        Nothing is copied: the copy shares the arrays and filters rows when it prepares, and it takes
+        its sorted order from this design's (a subsequence of a sorted order is sorted), so a placebo
+        cutoff costs no sort. Prepared sides equal those of a design built from the side's rows.
+        """
+        x = self.arrays[self.score_name]
+        only = (x >= self.cutoff) if side == "above" else (x < self.cutoff)   # NaN scores fall out
+        if self._only is not None:
+            only &= self._only
+        out = copy.copy(self)
+        out.cutoff = float(cutoff)
+        out.n_rows = int(only.sum())
+        out._only, out._parent = only, self
+        out._cache, out._sorted, out._order, out._spreads, out._ordered, out._spans = {}, {}, None, {}, None, {}
+        return out
 
     def prepare(self, variables: tuple[str, ...], donut: float = 0.0, neighbors: int = 3) -> Prepared:
         key = (variables, float(donut), neighbors)
         if key not in self._cache:
-            self._cache[key] = self._prepare(variables, float(donut), neighbors)
+            base = self._cache.get((variables, 0.0, neighbors)) if donut > 0 else None
+            self._cache[key] = (self._prepare(variables, float(donut), neighbors) if base is None
+                                else self._with_donut(base, float(donut)))
         return self._cache[key]
 
-    def _prepare(self, variables: tuple[str, ...], donut: float, neighbors: int) -> Prepared:
-        score = self.arrays[self.score_name]
-        keep = ~np.isnan(score)
+    def sorted_rows(self, variables: tuple[str, ...] = ()) -> tuple[np.ndarray, int]:
+        """Rows usable for ``variables`` in ascending score order, and the rows dropped as missing.
+
+        The design sorts its score once (``_score_order``) and every set of variables without
+        missing values of its own shares that order. A set that drops rows sorts its own rows (the
+        order of tied scores then matches a design built on those rows alone, so every number is
+        the same as before this sharing). A one-sided copy reads its order off its parent's: a
+        subsequence of a sorted order is sorted (tied scores may come in another order, which
+        changes sums only in the last digits).
+        """
+        if variables not in self._sorted:
+            keep, n_dropped = self._usable(variables)
+            if self._parent is not None:
+                base = self._parent._score_order()
+                kept = np.flatnonzero(keep[base])
+                if len(kept) and kept[-1] - kept[0] + 1 == len(kept):    # a run of the parent's order
+                    self._spans[variables] = (int(kept[0]), int(kept[-1]) + 1)
+                rows = base[kept]
+            else:
+                base = self._score_order()
+                rows = base if int(keep.sum()) == len(base) else self._argsort(keep)
+            self._sorted[variables] = (rows, n_dropped)
+        return self._sorted[variables]
+
+    def _usable(self, variables: tuple[str, ...]) -> tuple[np.ndarray, int]:
+        """Rows with every value a fit on ``variables`` needs, and how many were dropped as missing."""
+        keep = ~np.isnan(self.arrays[self.score_name])
         for v in variables:
             keep &= ~np.isnan(self.arrays[v])
         if self.weights is not None:
             keep &= ~np.isnan(self.weights)
         if self.cluster_codes is not None:
             keep &= self.cluster_codes >= 0
+        if self._only is not None:
+            keep &= self._only
         n_dropped = int(self.n_rows - keep.sum())
         if self.weights is not None:
             keep &= self.weights > 0  # zero weight: no information, not "dropped"
-        all_rows = bool(keep.all())
-        rows = None if all_rows else np.flatnonzero(keep)
-        xs = score if all_rows else score[rows]
-        if len(xs) < 2:
+        return keep, n_dropped
+
+    def _score_order(self) -> np.ndarray:
+        """Rows with a usable score (and weight and cluster), sorted by score: the design's one sort."""
+        if self._order is None:
+            self._order = self._argsort(self._usable(())[0])
+        return self._order
+
+    def _sorted_score(self, variables: tuple[str, ...], rows: np.ndarray) -> np.ndarray:
+        """score[rows] as a new array. A one-sided copy whose rows are a run of its parent's sorted
+        rows slices the parent's sorted score (the same values) instead of gathering row by row."""
+        span = self._spans.get(variables)
+        if span is not None:
+            return self._parent._ordered_score()[span[0]:span[1]].copy()
+        return self.arrays[self.score_name][rows]
+
+    def _ordered_score(self) -> np.ndarray:
+        """The score in the design's sorted order (built once, for one-sided copies to slice)."""
+        if self._ordered is None:
+            self._ordered = self.arrays[self.score_name][self._score_order()]
+        return self._ordered
+
+    def _argsort(self, keep: np.ndarray) -> np.ndarray:
+        score = self.arrays[self.score_name]
+        if keep.all():
+            return np.argsort(score)
+        kept = np.flatnonzero(keep)
+        return kept[np.argsort(score[kept])]
+
+    def _spread(self, rows: np.ndarray, x_sorted: np.ndarray) -> tuple[float, float]:
+        """(sd, min(sd, IQR / 1.349)) of the sorted centred scores, computed once per row set."""
+        key = id(rows)
+        if key not in self._spreads:
+            score_sd = float(np.std(x_sorted, ddof=1))
+            q25, q75 = _sorted_quantile(x_sorted, 0.25), _sorted_quantile(x_sorted, 0.75)
+            self._spreads[key] = (rows, score_sd, min(score_sd, (q75 - q25) / 1.349) if q75 > q25 else score_sd)
+        return self._spreads[key][1:]
+
+    def _prepare(self, variables: tuple[str, ...], donut: float, neighbors: int) -> Prepared:
+        rows, n_dropped = self.sorted_rows(variables)
+        if len(rows) < 2:
             raise OneSidedDataError(f"the design must keep observations on both sides of the cutoff; got "
-                                    f"{len(xs)} usable rows after dropping missing values in "
+                                    f"{len(rows)} usable rows after dropping missing values in "
                                     f"{[self.score_name, *variables]}. Check for missing data.")
-        order = np.argsort(xs)
-        x_sorted = xs[order]
+        x_sorted = self._sorted_score(variables, rows)
         x_sorted -= self.cutoff
-        del xs
         split = int(np.searchsorted(x_sorted, 0.0, side="left"))
-        score_sd = float(np.std(x_sorted, ddof=1))
-        q25, q75 = _sorted_quantile(x_sorted, 0.25), _sorted_quantile(x_sorted, 0.75)
-        score_scale = min(score_sd, (q75 - q25) / 1.349) if q75 > q25 else score_sd
+        score_sd, score_scale = self._spread(rows, x_sorted)
         n_donut = 0
         sides = []
         # below: walk outward from the cutoff, i.e. the sorted order reversed; above: as sorted
         for sign, part in ((-1, slice(split - 1, None, -1) if split else slice(0, 0)), (1, slice(split, None))):
             # above: a view (already >= 0); below: reversed and negated, a new array
             dist = x_sorted[part] if sign > 0 else -x_sorted[part]
-            idx = order[part]
+            src = rows[part]
             if donut > 0:
                 start = int(np.searchsorted(dist, donut, side="left"))
                 n_donut += start
-                idx, dist = idx[start:], dist[start:]
+                src, dist = src[start:], dist[start:]
+            self._check_side(len(src), sign, donut)
+            sides.append(Side(sign, dist, self._gather(variables, src), *self._row_arrays(src), neighbors,
+                              rows=src))
+        del x_sorted
+        return self._finish(sides, variables, n_dropped, n_donut, score_sd, score_scale)
+
+    def _with_donut(self, base: Prepared, donut: float) -> Prepared:
+        """``base`` (no donut) without the rows closer than ``donut`` to the cutoff: no sort, no search
+        beyond one per side; the score's spread is that of all usable rows, as in ``_prepare``."""
+        sides, n_donut = [], 0
+        for side in (base.below, base.above):
+            start = int(np.searchsorted(side.distance, donut, side="left"))
+            n_donut += start
+            self._check_side(side.n - start, side.sign, donut)
+            src = side.rows[start:]
+            sides.append(side.without_nearest(start, self._gather(base.variables, src)))
+        return self._finish(sides, base.variables, base.n_dropped, n_donut, base.score_sd, base.score_scale)
+
+    def _check_side(self, n_side: int, sign: int, donut: float) -> None:
+        if n_side == 0:
             name = "below" if sign < 0 else "above"
-            if len(idx) == 0:
-                why = f" outside the donut of radius {donut:g}" if donut > 0 else ""
-                raise OneSidedDataError(f"the design must have observations {name} the cutoff{why}; got none "
-                                        f"(score {self.score_name!r}, cutoff {self.cutoff:g}). Check the cutoff, "
-                                        "the treated side, or reduce the donut radius.")
-            src = idx if rows is None else rows[idx]
-            values = np.empty((len(src), len(variables)), order="F")  # columns contiguous
-            for j, v in enumerate(variables):
-                np.take(self.arrays[v], src, out=values[:, j])
-            w = None if self.weights is None else self.weights[src]
-            cl = None if self.cluster_codes is None else self.cluster_codes[src]
-            sides.append(Side(sign, dist, values, w, cl, neighbors))
-        del x_sorted, order
+            why = f" outside the donut of radius {donut:g}" if donut > 0 else ""
+            raise OneSidedDataError(f"the design must have observations {name} the cutoff{why}; got none "
+                                    f"(score {self.score_name!r}, cutoff {self.cutoff:g}). Check the cutoff, "
+                                    "the treated side, or reduce the donut radius.")
+
+    def _gather(self, variables: tuple[str, ...], src: np.ndarray) -> np.ndarray:
+        values = np.empty((len(src), len(variables)), order="F")  # columns contiguous
+        for j, v in enumerate(variables):
+            np.take(self.arrays[v], src, out=values[:, j])
+        return values
+
+    def _row_arrays(self, src: np.ndarray) -> tuple[np.ndarray | None, np.ndarray | None]:
+        return (None if self.weights is None else self.weights[src],
+                None if self.cluster_codes is None else self.cluster_codes[src])
+
+    def _finish(self, sides: list[Side], variables, n_dropped, n_donut, score_sd, score_scale) -> Prepared:
         n_clusters = None
         if self.cluster_codes is not None:
             for side, name in zip(sides, ("below", "above")):

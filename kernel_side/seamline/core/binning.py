@@ -244,39 +244,44 @@ def bin_constants(score, outcome, cutoff: float, side: str, *, weights=None,
 
 
 def _side_constants(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: float, side: str,
-                    degree: int) -> BinConstants:
-    order = np.argsort(x, kind="stable")
-    x, y = x[order], y[order]
-    w = None if w is None else w[order]
+                    degree: int, order: np.ndarray | None = None) -> BinConstants:
+    """Spacings constants of one side; ``order`` sorts ``x`` (ties in any order; sorted here if None).
+
+    The sums follow the side's scores in ascending order with ties in input order (a stable sort).
+    Only the trapezoid of sigma^2 depends on the order within ties, through the first and last
+    member of each run of equal scores, so those are found as the least and greatest input
+    position in the run and no stable sort is needed. The pilot is fitted in input order.
+    """
+    if order is None:
+        order = np.argsort(x)
+    xs = x[order]
     n = x.size
-    far = float(x[0]) if side == "below" else float(x[-1])
+    far = float(xs[0]) if side == "below" else float(xs[-1])
     span = abs(far - cutoff)
     support = (far, cutoff) if side == "below" else (cutoff, far)
-    deg = max(0, min(degree, _n_distinct(x) - 1, n - 2))
+    starts = np.flatnonzero(np.r_[True, xs[1:] != xs[:-1]])       # first position of each run
+    deg = max(0, min(degree, len(starts) - 1, n - 2))
     if span == 0.0:
         deg = 0
     scale = span if span > 0 else 1.0
-    u = (x - cutoff) / scale
-    basis = np.vander(u, deg + 1, increasing=True)
-    sw = np.ones(n) if w is None else np.sqrt(w)
-    coef, *_ = np.linalg.lstsq(basis * sw[:, None], y * sw, rcond=None)
-    resid = y - basis @ coef
+    resid, slope = _pilot_fit(x, y, w, cutoff, scale, side, deg)
     sigma2 = resid ** 2
-    if deg >= 1:
-        dcoef = np.polynomial.polynomial.polyder(coef)
-        slope = np.polynomial.polynomial.polyval(u, dcoef) / scale
-    else:
-        slope = np.zeros(n)
     slope2 = slope ** 2
-    gaps = np.diff(x)
+    first = np.minimum.reduceat(order, starts)          # stable order: least input position first
+    last = np.maximum.reduceat(order, starts)
     int_slope2_f = float(np.mean(slope2))
-    int_sigma2 = float(np.sum(0.5 * (sigma2[:-1] + sigma2[1:]) * gaps))
+    gaps = np.diff(xs[starts])
+    int_sigma2 = float(np.sum(0.5 * (sigma2[last[:-1]] + sigma2[first[1:]]) * gaps))
     # the support runs to the cutoff: add the stretch between the nearest observation and c
     if side == "below":
-        int_sigma2 += float(sigma2[-1] * (cutoff - x[-1]))
+        int_sigma2 += float(sigma2[last[-1]] * (cutoff - xs[-1]))
     else:
-        int_sigma2 += float(sigma2[0] * (x[0] - cutoff))
-    int_slope2_over_f = float(n * np.sum(slope2[1:-1] * gaps[:-1] * gaps[1:])) if n >= 3 else 0.0
+        int_sigma2 += float(sigma2[first[0]] * (xs[0] - cutoff))
+    if n >= 3:
+        spacing = np.diff(xs)
+        int_slope2_over_f = float(n * np.sum(slope2[order[1:-1]] * spacing[:-1] * spacing[1:]))
+    else:
+        int_slope2_over_f = 0.0
     average_variance = float(np.mean(sigma2))
     return BinConstants(
         bias_equal_width=span ** 2 / 12.0 * int_slope2_f,
@@ -285,6 +290,72 @@ def _side_constants(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: 
         variance_equal_count=average_variance,
         average_variance=average_variance,
         support=support, n=int(n), pilot_degree=int(deg))
+
+
+def _pilot_fit(x, y, w, cutoff: float, scale: float, side: str, deg: int) -> tuple[np.ndarray, np.ndarray]:
+    """Residuals and slope of the weighted global polynomial of degree ``deg`` on one side.
+
+    The polynomial is fitted in the Legendre basis of t in [-1, 1] (the side's span mapped onto
+    it), whose Gram matrix is well conditioned, so the normal equations lose no accuracy that
+    matters (the same fit as least squares on powers of the score, up to rounding) and the fit
+    costs a few passes over the data instead of a factorisation of the n x (deg + 1) basis.
+    """
+    n = x.size
+    # u = (x - c)/span lies in [-1, 0] below the cutoff and [0, 1] above; t maps it onto [-1, 1]
+    t = 2.0 * (x - cutoff) / scale + (1.0 if side == "below" else -1.0)
+    gram = np.zeros((deg + 1, deg + 1))
+    rhs = np.zeros(deg + 1)
+    for rows, basis, _ in _legendre_chunks(t, deg, slopes=False):      # pass 1: normal equations
+        weighted = basis if w is None else basis * w[rows]
+        gram += weighted @ basis.T
+        rhs += weighted @ y[rows]
+    try:
+        coef = np.linalg.solve(gram, rhs)
+    except np.linalg.LinAlgError:      # e.g. zero weights leaving too few distinct scores
+        full = np.concatenate([b for _, b, _ in _legendre_chunks(t, deg, slopes=False)], axis=1)
+        sw = np.ones(n) if w is None else np.sqrt(w)
+        coef = np.linalg.lstsq((full * sw).T, y * sw, rcond=None)[0]
+    resid = np.empty(n)
+    slope = np.empty(n)
+    for rows, basis, slopes in _legendre_chunks(t, deg, slopes=True):   # pass 2: residuals, slope
+        np.subtract(y[rows], coef @ basis, out=resid[rows])
+        np.multiply(coef @ slopes, 2.0 / scale, out=slope[rows])        # dt/dx = 2 / span
+    return resid, slope
+
+
+def _legendre_chunks(t: np.ndarray, deg: int, slopes: bool, chunk: int = 1 << 15):
+    """(rows, P_k(t) for k <= deg, and their derivatives if ``slopes``) chunk by chunk.
+
+    Rows of P are contiguous and chunks small enough to stay in cache; the recurrences are
+    P_(k+1) = ((2k + 1) t P_k - k P_(k-1)) / (k + 1) and P_(k+1)' = P_(k-1)' + (2k + 1) P_k.
+    """
+    n = t.size
+    basis = np.empty((deg + 1, min(chunk, n)))
+    deriv = np.empty((deg + 1, min(chunk, n))) if slopes else None
+    scratch = np.empty(min(chunk, n))
+    for start in range(0, n, chunk):
+        rows = slice(start, min(start + chunk, n))
+        tc = t[rows]
+        m = tc.size
+        b, tmp = basis[:, :m], scratch[:m]
+        b[0] = 1.0
+        if deg >= 1:
+            b[1] = tc
+        for k in range(1, deg):
+            np.multiply(tc, b[k], out=tmp)
+            tmp *= (2 * k + 1) / (k + 1)
+            np.multiply(b[k - 1], k / (k + 1), out=b[k + 1])
+            np.subtract(tmp, b[k + 1], out=b[k + 1])
+        d = None
+        if slopes:
+            d = deriv[:, :m]
+            d[0] = 0.0
+            if deg >= 1:
+                d[1] = 1.0
+            for k in range(1, deg):
+                np.multiply(b[k], 2 * k + 1, out=d[k + 1])
+                d[k + 1] += d[k - 1]
+        yield rows, b, d
 
 
 def _rule_numbers(k: BinConstants, method: str) -> tuple[float, int]:
@@ -385,7 +456,8 @@ def _split_sides(x: np.ndarray, cutoff: float) -> tuple[np.ndarray, np.ndarray]:
 # ---------------------------------------------------------------------------------------------
 def select_bin_number(score, outcome, cutoff: float, *, method: str = "equal-width",
                       rule: str = "imse", weights=None, scale: float = 1.0,
-                      number: int | tuple[int, int] | None = None) -> BinSelection:
+                      number: int | tuple[int, int] | None = None,
+                      order: np.ndarray | None = None) -> BinSelection:
     """Number of bins on each side of the cutoff (Calonico, Cattaneo & Titiunik 2015).
 
     Parameters
@@ -399,6 +471,8 @@ def select_bin_number(score, outcome, cutoff: float, *, method: str = "equal-wid
     scale : multiplies the selected (unrounded) numbers before rounding up.
     number : fix the numbers by hand: an int for both sides or a pair (below, above); each must be
         between 1 and the side's number of observations. Overrides ``rule`` and ``scale``.
+    order : optional positions that sort ``score`` ascending (ties in any order), e.g. from a sort
+        the caller already made; the result is the same, without sorting again.
 
     Returns
     -------
@@ -411,10 +485,30 @@ def select_bin_number(score, outcome, cutoff: float, *, method: str = "equal-wid
     rule = check_option("rule", rule, BIN_RULES)
     scale = _check_scale(scale)
     masks = _split_sides(x, cutoff)
+    return _selection(x, y, w, cutoff, method, rule, scale, number, masks, _side_orders(order, masks))
+
+
+def _side_orders(order: np.ndarray | None, masks) -> list[np.ndarray | None]:
+    """Positions within ``x[mask]`` that sort it, per side, from positions that sort all of ``x``."""
+    if order is None:
+        return [None for _ in masks]
+    n_below = int(np.count_nonzero(masks[0]))
+    out = []
+    # sorted scores below the cutoff come first: each side's part of ``order`` is a slice
+    for mask, part in zip(masks, (order[:n_below], order[n_below:])):
+        local = np.empty(mask.size, dtype=np.int64)
+        local[mask] = np.arange(np.count_nonzero(mask))
+        out.append(local[part])
+    return out
+
+
+def _selection(x, y, w, cutoff: float, method: str, rule: str, scale: float, number, masks,
+               side_orders) -> BinSelection:
+    """select_bin_number on validated arrays and options."""
     counts = (int(np.count_nonzero(masks[0])), int(np.count_nonzero(masks[1])))
     fixed = _number_pair(number, counts)
-    consts = [_side_constants(x[m], y[m], None if w is None else w[m], cutoff, s, PILOT_DEGREE)
-              for s, m in zip(SIDES, masks)]
+    consts = [_side_constants(x[m], y[m], None if w is None else w[m], cutoff, s, PILOT_DEGREE, o)
+              for s, m, o in zip(SIDES, masks, side_orders)]
     imse, mimic, chosen = [], [], []
     for k in consts:
         j_imse, j_mv = _rule_numbers(k, method)
@@ -429,8 +523,13 @@ def select_bin_number(score, outcome, cutoff: float, *, method: str = "equal-wid
                         scale=scale if fixed is None else 1.0, below=consts[0], above=consts[1])
 
 
-def _side_bins(x: np.ndarray, cutoff: float, side: str, method: str, j: int):
-    """Bin index (0..j-1) of each observation of one side, and the j+1 edges."""
+def _side_bins(x: np.ndarray, cutoff: float, side: str, method: str, j: int,
+               order: np.ndarray | None = None):
+    """Bin index (0..j-1) of each observation of one side, and the j+1 edges.
+
+    ``order`` (positions that sort ``x``, ties in any order) lets equal-width bins be assigned by
+    ranges of the sorted scores instead of one search per observation; the indices are the same.
+    """
     n = x.size
     if method == "equal-width":
         if side == "below":
@@ -441,9 +540,16 @@ def _side_bins(x: np.ndarray, cutoff: float, side: str, method: str, j: int):
         edges[0], edges[-1] = lower, upper
         if upper == lower:
             idx = np.zeros(n, dtype=np.int64)
-        else:
+        elif order is None:
             # searchsorted on the reported edges keeps assignment and edges consistent
             idx = np.clip(np.searchsorted(edges, x, side="right") - 1, 0, j - 1)
+        else:
+            # bin k holds the sorted scores in [edges[k], edges[k+1]) (the last bin also takes
+            # the top edge): the same as searching each score among the edges, clipped
+            starts = np.searchsorted(x[order], edges[1:j], side="left")
+            sizes = np.diff(np.concatenate(([0], starts, [n])))
+            idx = np.empty(n, dtype=np.int64)
+            idx[order] = np.repeat(np.arange(j), sizes)
         return idx, edges
     # equal-count: by rank (stable sort, ties broken by input order), so counts differ by <= 1
     order = np.argsort(x, kind="stable")
@@ -461,7 +567,8 @@ def _side_bins(x: np.ndarray, cutoff: float, side: str, method: str, j: int):
 
 def binned_means(score, outcome, cutoff: float, *, method: str = "equal-width",
                  number: int | tuple[int, int] | None = None, rule: str = "imse",
-                 scale: float = 1.0, weights=None, level: float = 0.95) -> BinnedMeans:
+                 scale: float = 1.0, weights=None, level: float = 0.95,
+                 order: np.ndarray | None = None) -> BinnedMeans:
     """Binned means of the outcome with confidence intervals, bins never straddling the cutoff.
 
     Parameters
@@ -476,6 +583,8 @@ def binned_means(score, outcome, cutoff: float, *, method: str = "equal-width",
     scale : factor on the data-driven number of bins.
     weights : optional non-negative weights; means become weighted means.
     level : confidence level of the intervals (normal critical value).
+    order : optional positions that sort ``score`` (ties in any order), passed to
+        :func:`select_bin_number` so that it need not sort.
 
     Returns
     -------
@@ -501,16 +610,18 @@ def binned_means(score, outcome, cutoff: float, *, method: str = "equal-width",
     x, y, w = _arrays(score, outcome, weights)
     cutoff = float(cutoff)
     level = check_level(level)
-    selection = select_bin_number(x, y, cutoff, method=method, rule=rule, weights=w, scale=scale,
-                                  number=number)
-    method = selection.method
-    z = float(stats.norm.ppf(0.5 + level / 2.0))
+    method = check_option("method", method, BIN_METHODS)
+    rule = check_option("rule", rule, BIN_RULES)
+    scale = _check_scale(scale)
     masks = _split_sides(x, cutoff)
+    side_orders = _side_orders(order, masks)
+    selection = _selection(x, y, w, cutoff, method, rule, scale, number, masks, side_orders)
+    z = float(stats.norm.ppf(0.5 + level / 2.0))
     assignment = np.empty(x.size, dtype=np.int64)
     sides, lefts, rights = [], [], []
     offset = 0
-    for side, mask, j in zip(SIDES, masks, selection.number):
-        idx, edges = _side_bins(x[mask], cutoff, side, method, j)
+    for side, mask, j, side_order in zip(SIDES, masks, selection.number, side_orders):
+        idx, edges = _side_bins(x[mask], cutoff, side, method, j, side_order)
         assignment[mask] = idx + offset
         sides += [side] * j
         lefts.append(edges[:-1])

@@ -18,6 +18,7 @@ Results are frozen dataclasses of numbers and read-only arrays; nothing is print
 """
 from __future__ import annotations
 
+import dataclasses
 import inspect
 import math
 from dataclasses import dataclass
@@ -33,7 +34,8 @@ from ..errors import (
     shown,
 )
 from ..options import DENSITY_METHODS, KERNELS, check_level, check_option
-from .kernels import kernel_weights, normal_reference_constant
+from .cdf_windows import WindowEngine, WindowSums
+from .kernels import kernel_poly, kernel_weights, normal_reference_constant
 
 __all__ = [
     "DensityEstimate",
@@ -46,6 +48,7 @@ __all__ = [
     "local_cdf_bandwidth",
     "local_cdf_density_test",
     "tie_share",
+    "with_level",
 ]
 
 # McCrary's rule-of-thumb bandwidth constant as published (from memory; METHODS 8.1 flags it).
@@ -274,7 +277,8 @@ def tie_share(score) -> float:
 
     0 for a continuous score; 1 when every value is repeated (a fully discrete score).
     """
-    xs = np.sort(np.asarray(score, dtype=float))
+    xs = np.asarray(score, dtype=float)
+    xs = xs if _is_sorted(xs) else np.sort(xs)
     if xs.size < 2:
         return 0.0
     eq = xs[1:] == xs[:-1]
@@ -296,95 +300,117 @@ def _two_sided(t: float) -> float:
 # Local-CDF estimator (Cattaneo, Jansson & Ma 2020)
 # ---------------------------------------------------------------------------------------------
 class _Sample:
-    """Sorted scores with the empirical CDF at each of them, prepared once."""
+    """Sorted scores with the empirical CDF at each of them, prepared once.
+
+    ``x`` may already be sorted (the design passes its sorted score): then it is not sorted again.
+    Window sums for the fits come from ``windows`` (seamline.core.cdf_windows), so a fit or a
+    variance costs O(n / block + block) rather than a pass over its window.
+    """
 
     def __init__(self, x: np.ndarray, cutoff: float):
-        self.xs = np.sort(x)
+        self.xs = x if _is_sorted(x) else np.sort(x)
         self.n = self.xs.size
-        # N(<= X_(i)) counts ties, i.e. the right-continuous empirical CDF times n.
-        self.le = np.searchsorted(self.xs, self.xs, side="right")
+        # N(<= X_(i)) counts ties, i.e. the right-continuous empirical CDF times n: the end of the
+        # run of equal values holding i (the same integers as searchsorted(xs, xs, "right")).
+        new_value = np.empty(self.n, dtype=bool)
+        new_value[:1] = True
+        np.not_equal(self.xs[1:], self.xs[:-1], out=new_value[1:])
+        self.group = np.cumsum(new_value) - 1          # index of each score's distinct value
+        ends = np.append(np.flatnonzero(new_value[1:]) + 1, self.n)
+        self.le = ends[self.group]
         self.cutoff = cutoff
         self.n_below = _split(self.xs, cutoff)
+        self.windows = WindowEngine(self.xs, self.le)
 
     def side_range(self, side: str) -> tuple[int, int]:
         return (0, self.n_below) if side == "below" else (self.n_below, self.n)
 
+    def distinct(self, a: int, b: int) -> int:
+        """Number of distinct scores among sorted rows [a, b)."""
+        return int(self.group[b - 1] - self.group[a] + 1) if b > a else 0
+
+
+def _is_sorted(x: np.ndarray) -> bool:
+    return x.size < 2 or bool(np.all(x[1:] >= x[:-1]))
+
 
 @dataclass
 class _CdfFit:
-    """Kernel-weighted polynomial fit of the empirical CDF in one window (unscaled sums)."""
+    """Kernel-weighted polynomial fit of the empirical CDF over sorted rows [a, b) (all weighted)."""
 
-    z: np.ndarray        # window scores with positive weight, sorted
-    wr: np.ndarray       # (m, q) w_j r(u_j)
-    wrf: np.ndarray      # (q,) sum_j w_j r(u_j) F(z_j)
+    a: int
+    b: int
+    sums: WindowSums
     s_inv: np.ndarray    # inverse of S = (1/n) sum_j w_j r r'
     beta: np.ndarray     # coefficients in u = (X - x0)/h
     theta: np.ndarray    # (1/n) sum_j w_j r(u_j) u_j^(p+1)
     h: float
+    degree: int
 
     @property
     def density(self) -> float:
         return float(self.beta[1] / self.h)
 
+    @property
+    def n_used(self) -> int:
+        return self.b - self.a
+
+
+def _window(sample: _Sample, side: str, x0: float, h: float, kernel: str) -> tuple[int, int]:
+    """Sorted rows of ``side`` with positive kernel weight at (x0, h): a contiguous run [a, b).
+
+    |u| falls then rises along the sorted scores, so only the runs of equal scores at the two ends
+    can have zero weight (|u| = 1 up to rounding); they are skipped one run at a time.
+    """
+    xs = sample.xs
+    lo, hi = sample.side_range(side)
+    a = max(lo, int(np.searchsorted(xs, x0 - h, side="left")))
+    b = min(hi, int(np.searchsorted(xs, x0 + h, side="right")))
+
+    def weighted(i: int) -> bool:
+        return bool(kernel_weights(kernel, np.abs((xs[i:i + 1] - x0) / h))[0] / h > 0)
+
+    while a < b and not weighted(a):
+        a = int(np.searchsorted(xs, xs[a], side="right"))
+    while a < b and not weighted(b - 1):
+        b = int(np.searchsorted(xs, xs[b - 1], side="left"))
+    return a, max(a, b)
+
 
 def _cdf_fit(sample: _Sample, side: str, x0: float, h: float, degree: int,
              kernel: str) -> _CdfFit | None:
     """Fit F(X) on r_p((X - x0)/h) over one side's scores within h of x0; None if too few values."""
-    xs, n = sample.xs, sample.n
-    lo, hi = sample.side_range(side)
-    a = max(lo, int(np.searchsorted(xs, x0 - h, side="left")))
-    b = min(hi, int(np.searchsorted(xs, x0 + h, side="right")))
-    z = xs[a:b]
-    u = (z - x0) / h
-    w = kernel_weights(kernel, np.abs(u)) / h
-    keep = w > 0
-    z, u, w = z[keep], u[keep], w[keep]
-    if _n_distinct(z) < degree + 1:
+    a, b = _window(sample, side, x0, h, kernel)
+    if sample.distinct(a, b) < degree + 1:
         return None
-    f = sample.le[a:b][keep] / n
-    r = np.vander(u, degree + 2, increasing=True)   # last column u^(p+1) only feeds the bias term
-    wr = w[:, None] * r[:, : degree + 1]
-    s_mat = wr.T @ r[:, : degree + 1] / n
-    s_inv = np.linalg.inv(s_mat)
-    wrf = wr.T @ f
-    beta = s_inv @ (wrf / n)
-    theta = wr.T @ r[:, degree + 1] / n
-    return _CdfFit(z=z, wr=wr, wrf=wrf, s_inv=s_inv, beta=beta, theta=theta, h=h)
-
-
-def _psi(fit: _CdfFit, partition: np.ndarray, n: int) -> np.ndarray:
-    """Hajek-projection terms psi for every group of the partition (METHODS 8.2).
-
-    psi_i = (1/n) sum_j w_j r_j [1{X_i <= z_j} - F(z_j)] depends on X_i only through k = #{partition
-    points < X_i}; row k of the result is psi for that group (k = 0..len(partition)). The indicator
-    sum is a suffix sum over the sorted window, so this costs O(m log m).
-    """
-    m, q = fit.wr.shape
-    suffix = np.zeros((m + 1, q))
-    suffix[:m] = np.cumsum(fit.wr[::-1], axis=0)[::-1]
-    start = np.append(np.searchsorted(fit.z, partition, side="left"), m)
-    return (suffix[start] - fit.wrf) / n
-
-
-def _group_counts(sample: _Sample, partition: np.ndarray) -> np.ndarray:
-    """How many of the n scores fall in each group (z_{k-1}, z_k] of the sorted partition."""
-    le = np.searchsorted(sample.xs, partition, side="right")
-    return np.diff(np.concatenate(([0], le, [sample.n]))).astype(float)
+    n = sample.n
+    kink = int(np.searchsorted(sample.xs, x0, side="left"))
+    sums = sample.windows.fit_sums(a, b, kink, x0, h, degree, kernel)
+    s_inv = np.linalg.inv(sums.gram / n)
+    # with_counts = sum_j w_j r_j N_j, and F(X_j) = N_j / n
+    beta = s_inv @ (sums.with_counts / n / n)
+    return _CdfFit(a=a, b=b, sums=sums, s_inv=s_inv, beta=beta, theta=sums.bias / n, h=h, degree=degree)
 
 
 def _beta_cov(sample: _Sample, fit_a: _CdfFit, fit_b: _CdfFit | None = None) -> np.ndarray:
-    """Covariance of the coefficient vectors: S_a^-1 [(1/n) sum_i psi_a psi_b'] S_b^-1 / n."""
+    """Covariance of the coefficient vectors: S_a^-1 [(1/n) sum_i psi_a psi_b'] S_b^-1 / n.
+
+    psi_i = (1/n) (A(X_i) - NW/n) with A and NW as in seamline.core.cdf_windows, so
+    sum_i psi_a psi_b' = (sum_i A_a A_b' - NW_a NW_b' / n) / n^2. For one window the first sum comes
+    from the window engine; for two windows with every row of a before every row of b (the two
+    sides of the cutoff) it is NW_a (sum_j w_j r_j over b)', since min(X_j, X_l) = X_j then.
+    """
     n = sample.n
+    sa = sample.windows.add_variance(fit_a.sums, fit_a.degree)
     if fit_b is None:
-        partition = fit_a.z
-        psi_a = psi_b = _psi(fit_a, partition, n)
-        s_b = fit_a.s_inv
+        sb, outer = sa, sa.pairs
     else:
-        partition = np.sort(np.concatenate((fit_a.z, fit_b.z)))
-        psi_a, psi_b = _psi(fit_a, partition, n), _psi(fit_b, partition, n)
-        s_b = fit_b.s_inv
-    counts = _group_counts(sample, partition)
-    omega = (psi_a * counts[:, None]).T @ psi_b / n
+        if fit_a.b > fit_b.a:
+            raise ValueError("the first window must lie below the second")
+        sb = sample.windows.add_variance(fit_b.sums, fit_b.degree)
+        outer = np.outer(sa.with_counts, sb.total)
+    omega = (outer - np.outer(sa.with_counts, sb.with_counts) / n) / n ** 3
+    s_b = fit_a.s_inv if fit_b is None else fit_b.s_inv
     return fit_a.s_inv @ omega @ s_b.T / n
 
 
@@ -395,7 +421,7 @@ def _density_var(sample: _Sample, fit: _CdfFit) -> float:
 def _robust_scale(x: np.ndarray) -> float:
     """min(sd, IQR/1.349): Silverman's robust scale (common practice)."""
     sd = float(np.std(x, ddof=1)) if x.size > 1 else 0.0
-    q75, q25 = np.percentile(x, [75, 25])
+    q75, q25 = np.percentile(x, [75, 25])   # callers pass the sorted scores: a cheap selection
     iqr = float(q75 - q25) / 1.349
     positive = [s for s in (sd, iqr) if s > 0]
     return min(positive) if positive else 0.0
@@ -502,7 +528,7 @@ def _check_side_values(sample: _Sample, degree: int) -> None:
     need = degree + 2
     for side in ("below", "above"):
         lo, hi = sample.side_range(side)
-        got = _n_distinct(sample.xs[lo:hi])
+        got = sample.distinct(lo, hi)
         if got < need:
             raise TooFewDistinctValuesError(
                 f"`score` must take at least {need} distinct values {side} the cutoff for degree "
@@ -602,8 +628,10 @@ def local_cdf_density_test(score, cutoff: float, *, degree: int = 2, kernel: str
         bin_width = _check_positive("bin_width", bin_width)
     sample = _Sample(x, cutoff)
     _check_side_values(sample, degree)
+    # highest fit: the bandwidth's derivative pilot (degree + 2), else the robust fit (degree + 1)
+    sample.windows.reserve(degree + (2 if pair is None else 1) + len(kernel_poly(kernel)) - 1)
     if pair is None:
-        scale = _robust_scale(x)
+        scale = _robust_scale(sample.xs)
         pair = (_side_bandwidth(sample, "below", degree, kernel, scale),
                 _side_bandwidth(sample, "above", degree, kernel, scale))
     n = sample.n
@@ -652,7 +680,7 @@ def local_cdf_density_test(score, cutoff: float, *, degree: int = 2, kernel: str
     grid = _grid_from_rows(rows)
 
     if bin_width is None:
-        q75, q25 = np.percentile(x, [75, 25])
+        q75, q25 = np.percentile(sample.xs, [75, 25])
         iqr = float(q75 - q25)
         bin_width = 2.0 * iqr * n ** (-1.0 / 3.0) if iqr > 0 else (high - low) / 20.0
     hist = _histogram(sample.xs, cutoff, bin_width, low, high, n)
@@ -673,9 +701,9 @@ def local_cdf_density_test(score, cutoff: float, *, degree: int = 2, kernel: str
         statistic_conventional=t_conv, p_value_conventional=_two_sided(t_conv),
         cross_covariance=cov_r, bandwidth=(float(pair[0]), float(pair[1])),
         n_below=sample.n_below, n_above=n - sample.n_below,
-        n_used=(int(fits["below"].z.size), int(fits["above"].z.size)), n=n,
+        n_used=(fits["below"].n_used, fits["above"].n_used), n=n,
         degree=degree, kernel=kernel, level=level, bin_width=float(bin_width),
-        tie_share=tie_share(x), grid=grid, histogram=hist, reason=reason)
+        tie_share=tie_share(sample.xs), grid=grid, histogram=hist, reason=reason)
 
 
 def _grid_from_rows(rows) -> DensityGrid:
@@ -898,6 +926,30 @@ def binned_density_test(score, cutoff: float, *, bin_width: float | None = None,
         bandwidth=(float(h), float(h)), n_below=n_below, n_above=n - n_below,
         n_used=(used["below"], used["above"]), n=n, degree=1, kernel="triangular", level=level,
         bin_width=float(width), tie_share=tie_share(x), grid=grid, histogram=hist, reason=reason)
+
+
+def with_level(estimate: DensityEstimate, level: float) -> DensityEstimate:
+    """The same density test reported at another confidence ``level`` (only intervals change).
+
+    Intervals are centre +- z se with the centres and standard errors of the estimate: for
+    "local-cdf" the robust estimates at the cutoff and, on the grid, the robust fit at each point
+    (recovered as the midpoint of its interval); for "binned" the conventional ones.
+    """
+    level = check_level(level)
+    z = _z(level)
+    if estimate.method == "local-cdf":
+        centres = (estimate.density_below_robust, estimate.density_above_robust)
+        ses = (estimate.se_below_robust, estimate.se_above_robust)
+    else:
+        centres = (estimate.density_below, estimate.density_above)
+        ses = (estimate.se_below, estimate.se_above)
+    g = estimate.grid
+    mid = 0.5 * (g.ci_low + g.ci_high) if estimate.method == "local-cdf" else g.density
+    grid = dataclasses.replace(g, ci_low=_frozen(mid - z * g.std_error), ci_high=_frozen(mid + z * g.std_error))
+    return dataclasses.replace(
+        estimate, level=level, grid=grid,
+        ci_below=(centres[0] - z * ses[0], centres[0] + z * ses[0]),
+        ci_above=(centres[1] - z * ses[1], centres[1] + z * ses[1]))
 
 
 def density_test(score, cutoff: float, *, method: str = "local-cdf", **options) -> DensityEstimate:

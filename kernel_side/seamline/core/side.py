@@ -23,12 +23,15 @@ class Side:
     weights : (n,) positive user weights or None (all ones).
     clusters : (n,) integer cluster codes (shared coding across sides) or None.
     neighbors : J for the nearest-neighbour residuals.
+    rows : (n,) integer positions of the observations in the source data, or None. The data layer
+        keeps them so that a derived side (``without_nearest``) reads its variables afresh.
     """
 
     def __init__(self, sign: int, distance: np.ndarray, values: np.ndarray,
                  weights: np.ndarray | None = None, clusters: np.ndarray | None = None,
-                 neighbors: int = 3):
+                 neighbors: int = 3, rows: np.ndarray | None = None):
         self.sign = sign
+        self.rows = rows
         self.distance = distance
         values = values if values.ndim == 2 else values[:, None]
         # Centre each variable on this side: the moment engine expands squared residuals, which
@@ -43,6 +46,23 @@ class Side:
         self.moments = SideMoments(distance)
         self._nn: np.ndarray | None = None
         self._group_starts: np.ndarray | None = None
+
+    def without_nearest(self, start: int, values: np.ndarray | None = None) -> "Side":
+        """This side without its ``start`` observations nearest the cutoff (a donut), with no sort.
+
+        The side is sorted by distance, so the remaining observations are the tail ``[start:]``,
+        still sorted. ``values``: the remaining rows' variables, uncentred, as a fresh array (the new
+        side centres them on its own mean); by default they are rebuilt from this side's centred
+        values and offsets, which equals reading them afresh up to rounding in the last digit.
+        The result equals a Side prepared from scratch on the remaining rows; moment tables and
+        neighbour residuals are rebuilt for it on demand (both depend on which rows remain).
+        """
+        if values is None:
+            values = self.values[start:] + self.offsets
+        return Side(self.sign, self.distance[start:], values,
+                    None if self.weights is None else self.weights[start:],
+                    None if self.clusters is None else self.clusters[start:], self.neighbors,
+                    None if self.rows is None else self.rows[start:])
 
     # ---- per-row series, each a function of a row slice -------------------------------------
     def w(self, rows: slice) -> np.ndarray:

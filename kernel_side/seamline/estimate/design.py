@@ -17,7 +17,7 @@ from ..options import SIDES, check_option
 from ..time_score import TIME_CAUTION, is_time_value, looks_like_date
 from ..results.fit import Fit
 from .engine import JumpEngine, check_support, use_fast_variance
-from .multiple_cutoffs import CutoffNotChosen, plan_cutoffs
+from .multiple_cutoffs import CutoffNotChosen, CutoffPlan, plan_cutoffs
 from .options import FitSpec, resolve
 
 FEW_OBSERVATIONS = 20   # common practice: flag windows with fewer effective observations per side
@@ -27,6 +27,7 @@ FEW_DISTINCT = 10       # convention: warn when a side has fewer distinct score 
 REFERENCE_LEVEL = 0.95
 FIT_CACHE = 512         # fits kept per design (small records)
 ENGINE_CACHE = 16       # fitted engines kept per design (they may hold window arrays)
+DIAGNOSTIC_CACHE = 64   # diagnostic results kept per design (frozen; each holds a few tables)
 
 
 class Bounded(OrderedDict):
@@ -99,6 +100,26 @@ class Design:
         self.covariates = _as_names(covariates, "covariates")
         self.cluster = cluster
         self.weights = weights
+        if isinstance(data, DesignData):
+            # Already validated (one side of another design, for a placebo cutoff): used as it is.
+            cutoff = float(cutoff)
+            self._source = self._frame = None
+            self._declared = dict(score=score, cutoff=cutoff, outcome=self.outcomes, treated=self.treated,
+                                  takeup=takeup, covariates=self.covariates, cluster=cluster, weights=weights)
+            self._plan = CutoffPlan("single", (cutoff,), None, score, cutoff, None)
+            self.cutoff_layout, self.cutoffs, self.cutoff_column = "single", (cutoff,), None
+            self._subsets = {}
+            self._data, self.cutoff, self.time_scale = data, cutoff, None
+        else:
+            self._init_data(data, score, cutoff, takeup, cluster, weights, score_unit)
+        self._selections: dict[tuple, Selection] = {}
+        # Bounded: a slider session makes many specifications, and engines hold window arrays.
+        self._fits: Bounded = Bounded(FIT_CACHE)
+        self._engines: Bounded = Bounded(ENGINE_CACHE)
+        self._diagnostics: Bounded = Bounded(DIAGNOSTIC_CACHE)
+
+    def _init_data(self, data, score, cutoff, takeup, cluster, weights, score_unit) -> None:
+        """Read the user's data: the declared columns, the cutoff layout, the validated arrays."""
         # Only the declared columns are read (a lazy frame computes nothing else); a pandas frame is
         # used as it is. Several cutoffs (a column, or cumulative numbers) are read in
         # seamline.estimate.multiple_cutoffs; a date score takes one cutoff date (seamline.time_score).
@@ -132,10 +153,6 @@ class Design:
             # A date score is measured as the distance from the cutoff date: the numeric cutoff is 0.
             self.cutoff = self._data.cutoff
             self.time_scale = self._data.time_scale
-        self._selections: dict[tuple, Selection] = {}
-        # Bounded: a slider session makes many specifications, and engines hold window arrays.
-        self._fits: Bounded = Bounded(FIT_CACHE)
-        self._engines: Bounded = Bounded(ENGINE_CACHE)
 
     @property
     def treated_sign(self) -> int:
@@ -488,34 +505,46 @@ class Design:
                                                        **options)
 
     # ---- diagnostics (implemented in seamline.estimate.diagnostics) ------------------------------
+    # Every diagnostic result is cached on the design (least recently used, DIAGNOSTIC_CACHE entries)
+    # under its name and its resolved arguments (defaults filled in, fit options equal to the fit's
+    # defaults left out), so ``density_test()`` followed by ``checks()`` runs the density test once,
+    # and a board asking again for an unchanged panel gets the same object back. Results are frozen;
+    # a call that raises is not cached.
+    def _diagnostic(self, name: str, *args, **kwargs):
+        from . import diagnostics
+        key = diagnostics.cache_key(name, args, kwargs)
+        if key is None:  # an argument that cannot be a key (e.g. an unhashable object): no caching
+            return getattr(diagnostics, name)(self, *args, **kwargs)
+        found = self._diagnostics.get(key)
+        if found is None:
+            found = self._diagnostics[key] = getattr(diagnostics, name)(self, *args, **kwargs)
+        return found
+
     def density_test(self, method: str = "local-cdf", **options):
         """Manipulation test of the score's density at the cutoff.
 
         method "local-cdf": local polynomial density estimator on the empirical CDF with robust
         bias-corrected inference (Cattaneo, Jansson & Ma 2020); "binned": McCrary (2008).
         Options: level, and for "local-cdf" degree, kernel, bandwidth; for "binned" bin_width, bandwidth.
+        The result is cached on the design (see the note above the diagnostics).
         """
-        from . import diagnostics
-        return diagnostics.density_test(self, method, **options)
+        return self._diagnostic("density_test", method, **options)
 
     def balance(self, covariates=None, *, bandwidth="own", **fit_options):
-        """Covariates as placebo outcomes: robust CIs, Holm-adjusted p-values and a joint Wald test."""
-        from . import diagnostics
-        return diagnostics.balance(self, covariates, bandwidth=bandwidth, **fit_options)
+        """Covariates as placebo outcomes: robust CIs, Holm-adjusted p-values and a joint Wald test (cached)."""
+        return self._diagnostic("balance", covariates, bandwidth=bandwidth, **fit_options)
 
     def sensitivity(self, bandwidths=None, kernels=None, degrees=None, **fit_options):
-        """A grid of fits: the selected bandwidth x 0.5 ... x 2 and each selector (default)."""
-        from . import diagnostics
-        return diagnostics.sensitivity(self, bandwidths, kernels, degrees, **fit_options)
+        """A grid of fits: the selected bandwidth x 0.5 ... x 2 and each selector (default; cached)."""
+        return self._diagnostic("sensitivity", bandwidths, kernels, degrees, **fit_options)
 
     def placebo_cutoffs(self, cutoffs=None, **fit_options):
-        """Estimates at fake cutoffs, each using only one side's observations."""
-        from . import diagnostics
+        """Estimates at fake cutoffs, each using only one side's observations (cached)."""
         if self.time_scale is None:
-            return diagnostics.placebo_cutoffs(self, cutoffs, **fit_options)
+            return self._diagnostic("placebo_cutoffs", cutoffs, **fit_options)
         if cutoffs is not None:
-            cutoffs = [self._distance(c, "cutoffs") for c in np.atleast_1d(np.asarray(cutoffs, dtype=object))]
-        result = diagnostics.placebo_cutoffs(self, cutoffs, **fit_options)
+            cutoffs = tuple(self._distance(c, "cutoffs") for c in np.atleast_1d(np.asarray(cutoffs, dtype=object)))
+        result = self._diagnostic("placebo_cutoffs", cutoffs, **fit_options)
         return replace(result, cutoff_dates=tuple(self.time_scale.label(r["cutoff"]) for r in result.rows))
 
     def _distance(self, value, argument: str) -> float:
@@ -536,26 +565,22 @@ class Design:
                                   f"date score {self.score!r}; got {value!r}. Pass e.g. [\"2024-03-01\"].") from None
 
     def donut(self, radii=None, **fit_options):
-        """Estimates excluding observations within each radius of the cutoff."""
-        from . import diagnostics
-        return diagnostics.donut(self, radii, **fit_options)
+        """Estimates excluding observations within each radius of the cutoff (cached)."""
+        return self._diagnostic("donut", radii, **fit_options)
 
     def bins(self, outcome=None, method: str = "equal-width", number=None, **options):
         """Binned means (data-driven number of bins per side, Calonico-Cattaneo-Titiunik 2015) and the
-        fitted local polynomial curves with CI bands, for an RD plot."""
-        from . import diagnostics
-        return diagnostics.bins(self, outcome, method, number, **options)
+        fitted local polynomial curves with CI bands, for an RD plot (cached)."""
+        return self._diagnostic("bins", outcome, method, number, **options)
 
     def score_profile(self, **fit_options):
-        """Distinct values and mass points of the score per side, overall and inside the bandwidth."""
-        from . import diagnostics
-        return diagnostics.score_profile(self, **fit_options)
+        """Distinct values and mass points of the score per side, overall and inside the bandwidth (cached)."""
+        return self._diagnostic("score_profile", **fit_options)
 
     def checks(self, **fit_options):
         """Design-level summary of flags: manipulation, balance, weak first stage, few observations,
-        discrete score, heaping."""
-        from . import diagnostics
-        return diagnostics.checks(self, **fit_options)
+        discrete score, heaping. Reuses the cached density test, balance and score profile."""
+        return self._diagnostic("checks", **fit_options)
 
     # ---- several cutoffs, subgroups, power (seamline.estimate.multiple_cutoffs, subgroups, power) ----
     def at(self, cutoff: float) -> "Design":

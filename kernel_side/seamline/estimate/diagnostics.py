@@ -6,15 +6,19 @@ estimates are ordinary ``design.fit`` calls, so every number here equals the fit
 """
 from __future__ import annotations
 
+import inspect
+
 import numpy as np
 import pandas as pd
 from scipy import stats
 
 from ..core.binning import binned_means
 from ..core.density import density_test as core_density_test
+from ..core.density import with_level as density_at_level
+from ..core.kernels import kernel_weights
 from ..errors import (InvalidOptionError, OneSidedDataError, SeamlineError, TooFewDistinctValuesError,
                       shown)
-from ..options import BIN_METHODS, BIN_RULES, DENSITY_METHODS, check_option
+from ..options import BIN_METHODS, BIN_RULES, DENSITY_METHODS, check_level, check_option
 from ..results.diagnostics import (Balance, Bins, Checks, DensityTest, Donut, Placebo, ScoreProfile,
                                    Sensitivity, fit_row, holm)
 from .engine import JumpEngine
@@ -24,6 +28,62 @@ PLACEBO_QUANTILES = (0.2, 0.4, 0.6, 0.8)                # convention (METHODS 13
 DONUT_FRACTIONS = (0.0, 0.05, 0.1, 0.15, 0.2, 0.25)     # convention: radii as shares of the bandwidth
 MIN_PLACEBO_SIDE = 20                                   # convention: observations needed on each side
 ALPHA = 0.05
+REFERENCE_LEVEL = 0.95      # density tests are computed at this level and re-reported at others
+
+
+def _frozen_value(value):
+    """A hashable stand-in for an argument value (lists and arrays become tuples); TypeError if none."""
+    if isinstance(value, np.ndarray):
+        value = value.tolist()
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, (list, tuple)):
+        return tuple(_frozen_value(v) for v in value)
+    if isinstance(value, dict):
+        return tuple(sorted((k, _frozen_value(v)) for k, v in value.items()))
+    hash(value)
+    return value
+
+
+def _fit_defaults() -> dict:
+    from .design import Design
+    return {name: par.default for name, par in inspect.signature(Design.fit).parameters.items()
+            if par.kind is inspect.Parameter.KEYWORD_ONLY}
+
+
+def cache_key(name: str, args: tuple, kwargs: dict):
+    """The key under which a Design caches diagnostic ``name`` called with ``args`` and ``kwargs``.
+
+    Arguments are bound to the function's signature with its defaults filled in, so
+    ``density_test()`` and ``density_test("local-cdf", level=0.95)`` share a key; extra keyword
+    options equal to ``Design.fit``'s defaults are left out for the same reason. None when an
+    argument is not hashable even after turning lists and arrays into tuples (no caching then).
+    """
+    func = globals()[name]
+    try:
+        bound = inspect.signature(func).bind(None, *args, **kwargs)
+    except TypeError:
+        return None       # let the call itself raise its usual error
+    bound.apply_defaults()
+    defaults = _fit_defaults()
+    parts = []
+    params = inspect.signature(func).parameters
+    for arg, value in list(bound.arguments.items())[1:]:
+        if params[arg].kind is inspect.Parameter.VAR_KEYWORD:
+            value = {k: v for k, v in value.items()
+                     if not (k in defaults and _same(v, defaults[k]))}
+        parts.append((arg, value))
+    try:
+        return (name, _frozen_value(parts))
+    except TypeError:
+        return None
+
+
+def _same(a, b) -> bool:
+    try:
+        return type(a) is type(b) and bool(a == b)
+    except (TypeError, ValueError):
+        return False
 
 
 def _clean_score(design) -> np.ndarray:
@@ -35,8 +95,19 @@ def _clean_score(design) -> np.ndarray:
 def density_test(design, method: str = "local-cdf", *, level: float = 0.95, **options) -> DensityTest:
     """Manipulation test of the score's density at the cutoff (see DensityTest)."""
     method = check_option("method", method, DENSITY_METHODS)
-    x = _clean_score(design)
-    est = core_density_test(x, design.cutoff, method=method, level=level, **options)
+    checked = check_level(level)
+    if checked != REFERENCE_LEVEL:
+        # the level changes only the intervals: re-report the (cached) test at the reference level
+        base = design.density_test(method, level=REFERENCE_LEVEL, **options)
+        est = density_at_level(base.estimate, checked)
+    else:
+        data = design._data
+        if method == "local-cdf" and data.weights is None and data.cluster_codes is None:
+            # every row with a score, already sorted for the fits: the core need not sort again
+            x = data.arrays[design.score][data.sorted_rows()[0]]
+        else:
+            x = _clean_score(design)
+        est = core_density_test(x, design.cutoff, method=method, level=level, **options)
     warnings = []
     if est.p_value < ALPHA:
         warnings.append(f"The density of {design.score!r} jumps at the cutoff (p = {est.p_value:.3f}): evidence of "
@@ -145,14 +216,15 @@ def _joint_test(design, names, fits) -> tuple[float, int, float, int]:
     tau = np.array([eng.jump(np.eye(k)[j], robust=True) for j, eng in enumerate(engines)])
     cov = np.zeros((k, k))
     for s_index, side in enumerate((prep.below, prep.above)):
-        rows = max(eng.arrays()[s_index].rows for eng in engines)
+        weights = [_robust_weights(eng.fits[s_index]) for eng in engines]
+        rows = max(len(abc) for abc in weights)
         a = np.zeros((k, rows))
         e = np.zeros((k, rows))
         for j, eng in enumerate(engines):
-            wa = eng.arrays()[s_index]
-            a[j, : wa.rows] = design.treated_sign * side.sign * wa.abc
+            abc = weights[j]
+            a[j, : len(abc)] = design.treated_sign * side.sign * abc
             if fits[0].variance == "neighbors" and not clustered:
-                e[j, :rows] = side.nn_residuals()[:rows, j]
+                e[j, :rows] = _neighbor_column(design, prep, names[j], s_index, j, spec0.donut)[:rows]
             else:
                 resid = side.values[:rows, j] - np.vander(side.sign * side.distance[:rows] / eng.fits[s_index].b,
                                                            eng.q + 1, increasing=True) @ eng.fits[s_index].beta_b[:, j]
@@ -182,6 +254,34 @@ def _joint_test(design, names, fits) -> tuple[float, int, float, int]:
     except np.linalg.LinAlgError:
         return float("nan"), k, float("nan"), prep.n_total
     return stat, k, float(stats.chi2.sf(stat, k)), prep.n_total
+
+
+def _robust_weights(sf) -> np.ndarray:
+    """Bias-corrected smoother weights of one side's fit over its window (the ``abc`` of
+    seamline.core.locpoly.window_arrays, without the residuals and leverages the joint test
+    does not use)."""
+    side, s = sf.side, float(sf.side.sign)
+    rows = side.count_positive(max(sf.h, sf.b), sf.kernel)
+    d = side.distance[:rows]
+    w = side.w(slice(0, rows))
+    a = w * kernel_weights(sf.kernel, d / sf.h) * (np.vander(s * d / sf.h, sf.p + 1, increasing=True) @ sf.c_h)
+    return a - w * kernel_weights(sf.kernel, d / sf.b) * (np.vander(s * d / sf.b, sf.q + 1, increasing=True) @ sf.c_b)
+
+
+def _neighbor_column(design, prep, name: str, s_index: int, j: int, donut: float) -> np.ndarray:
+    """Neighbour residuals of covariate ``name`` on one side of the joint preparation.
+
+    They depend on the side's distances and that covariate only, so when the covariate's own
+    preparation (made for its balance fit) holds the same rows in the same order, its residuals,
+    already computed, are the joint side's column j; otherwise the joint side computes its own.
+    """
+    side = (prep.below, prep.above)[s_index]
+    own = design._data.prepare((name,), donut)
+    own_side = (own.below, own.above)[s_index]
+    if own_side.rows is not None and side.rows is not None and own_side.n == side.n \
+            and np.array_equal(own_side.rows, side.rows):
+        return own_side.nn_residuals()[:, 0]
+    return side.nn_residuals()[:, j]
 
 
 def _variance_option(fit) -> str:
@@ -227,30 +327,18 @@ def sensitivity(design, bandwidths=None, kernels=None, degrees=None, **fit_optio
 
 
 # ---------------------------------------------------------------------------------------------
-def _side_frame(design, side: str) -> pd.DataFrame:
-    """The columns a placebo fit needs, restricted to one side of the true cutoff (a new frame)."""
-    data = design._data
-    x = data.arrays[design.score]
-    keep = (x >= design.cutoff) if side == "above" else (x < design.cutoff)
-    frame = {name: arr[keep] for name, arr in data.arrays.items() if name not in (design.takeup,)}
-    if data.weights is not None:
-        frame["__weights__"] = data.weights[keep]
-    if data.cluster_codes is not None:
-        frame["__cluster__"] = data.cluster_codes[keep].astype(float)
-        frame["__cluster__"][frame["__cluster__"] < 0] = np.nan
-    return pd.DataFrame(frame)
-
-
 def placebo_cutoffs(design, cutoffs=None, **fit_options) -> Placebo:
     """Estimates at fake cutoffs using only the observations on one side of the true cutoff."""
     from .design import Design
     outcome = design._outcome(fit_options.pop("outcome", None))
     fit_options.pop("adjust", None)
     x = _clean_score(design)
+    side_scores = {"below": x[x < design.cutoff], "above": x[x >= design.cutoff]}
     if cutoffs is None:
         requested = []
-        for side, part in (("below", x[x < design.cutoff]), ("above", x[x >= design.cutoff])):
-            requested += [float(np.quantile(part, q)) for q in PLACEBO_QUANTILES] if len(part) else []
+        for part in side_scores.values():
+            # one selection for all quantiles (the same values as one call per quantile)
+            requested += [float(v) for v in np.quantile(part, PLACEBO_QUANTILES)] if len(part) else []
         user = False
     else:
         requested = [float(c) for c in np.atleast_1d(cutoffs)]
@@ -261,8 +349,7 @@ def placebo_cutoffs(design, cutoffs=None, **fit_options) -> Placebo:
             raise InvalidOptionError(f"`cutoffs` must differ from the true cutoff {design.cutoff:g}; got {c:g}. "
                                      "Placebo cutoffs lie strictly on one side.")
         side = "above" if c > design.cutoff else "below"
-        frame = _side_frame(design, side)
-        score = frame[design.score].to_numpy()
+        score = side_scores[side]
         n_left, n_right = int(np.sum(score < c)), int(np.sum(score >= c))
         if min(n_left, n_right) < MIN_PLACEBO_SIDE:
             msg = (f"placebo cutoff {c:g} leaves {n_left} and {n_right} observations on its two sides within the "
@@ -273,9 +360,10 @@ def placebo_cutoffs(design, cutoffs=None, **fit_options) -> Placebo:
                                         f"of a placebo; got {msg}. Choose a value well inside [{lo:g}, {hi:g}].")
             skipped.append(msg)
             continue
-        sub = Design(frame, score=design.score, cutoff=c, outcome=outcome, treated=design.treated,
-                     cluster="__cluster__" if design.cluster is not None else None,
-                     weights="__weights__" if design.weights is not None else None)
+        # One side of the design's own validated data, sharing its arrays and its sorted order: a
+        # placebo cutoff costs no copy of the data and no sort (DesignData.one_side).
+        sub = Design(design._data.one_side(side, c), score=design.score, cutoff=c, outcome=outcome,
+                     treated=design.treated, cluster=design.cluster, weights=design.weights)
         try:
             f = sub.fit(**fit_options)
         except SeamlineError as exc:
@@ -329,8 +417,10 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
     if w is not None:
         ok &= ~np.isnan(w) & (w > 0)
     level = fit_options.get("level", 0.95)
+    if ok.all():
+        ok = slice(None)        # views, not copies (read only: the user's data is never modified)
     binned = binned_means(x[ok], y[ok], design.cutoff, method=method, number=number, rule=rule, scale=scale,
-                          weights=None if w is None else w[ok], level=level)
+                          weights=None if w is None else w[ok], level=level, order=_sorted_positions(data, ok))
     fit = design.fit(outcome, **fit_options)
     spec = design._spec(outcome, **_spec_options(fit, fit_options))
     engine, _, _, _ = design._engine(spec)
@@ -352,6 +442,19 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
     return Bins(outcome=outcome, score=design.score, cutoff=design.cutoff, method=method, rule=binned.rule,
                 number=number_used, level=level, binned=binned, curve_frame=curve, global_frame=global_frame,
                 fit=fit, warnings=fit.warnings)
+
+
+def _sorted_positions(data, ok) -> np.ndarray | None:
+    """Positions that sort the score of the rows ``ok`` selects, read off the design's one sort
+    (None when that sort left out rows ``ok`` keeps: a missing cluster code)."""
+    if data.cluster_codes is not None:
+        return None
+    rows = data.sorted_rows()[0]
+    if isinstance(ok, slice):           # every row: the sorted rows are the positions
+        return rows if len(rows) == data.n_rows else None
+    position = np.empty(ok.size, dtype=np.int64)
+    position[ok] = np.arange(np.count_nonzero(ok))
+    return position[rows[ok[rows]]]
 
 
 def _spec_options(fit, fit_options: dict) -> dict:
@@ -380,22 +483,25 @@ def _global_polynomial(x, y, cutoff, degree, points: int = 60) -> pd.DataFrame:
 # ---------------------------------------------------------------------------------------------
 def score_profile(design, **fit_options) -> ScoreProfile:
     """Distinct values and mass points of the score per side, overall and inside the bandwidth."""
-    x = _clean_score(design) - design.cutoff
+    xs = _sorted_score(design)
+    x = xs - design.cutoff                       # ascending
     try:
         h = design.fit(**fit_options).bandwidth
     except SeamlineError:
         h = (float("nan"), float("nan"))
     rows = []
-    for side, part, bw in (("below", -x[x < 0], h[0]), ("above", x[x >= 0], h[1])):
+    split = int(np.searchsorted(x, 0.0, side="left"))
+    # distances from the cutoff, each side monotone, so equal values sit next to each other
+    for side, part, bw in (("below", -x[:split], h[0]), ("above", x[split:], h[1])):
         for scope, values in (("all", part), ("window", part[part <= bw] if np.isfinite(bw) else part[:0])):
-            vals, counts = np.unique(values, return_counts=True)
+            counts = _run_lengths(values)
             mass = counts >= 2
             rows.append({"side": side, "scope": scope, "observations": int(len(values)),
-                         "distinct_values": int(len(vals)), "mass_points": int(mass.sum()),
+                         "distinct_values": int(len(counts)), "mass_points": int(mass.sum()),
                          "share_at_mass_points": float(counts[mass].sum() / len(values)) if len(values) else 0.0,
                          "largest_mass": int(counts.max()) if len(counts) else 0})
     score = _clean_score(design)
-    uniq = np.unique(score)
+    uniq = xs[np.r_[True, xs[1:] != xs[:-1]]] if len(xs) else xs    # sorted distinct values
     gaps = np.diff(uniq)
     resolution = float(gaps[gaps > 0].min()) if np.any(gaps > 0) else 0.0
     heaping, warnings = _heaping(score, uniq, resolution)
@@ -408,6 +514,22 @@ def score_profile(design, **fit_options) -> ScoreProfile:
                         "by score value is sometimes used but does not protect coverage (Kolesar & Rothe 2018).")
     return ScoreProfile(rows=tuple(rows), score=design.score, bandwidth=h, resolution=resolution,
                         heaping=tuple(heaping), warnings=tuple(warnings))
+
+
+def _sorted_score(design) -> np.ndarray:
+    """Every non-missing score in ascending order, from the design's one sort when it covers them."""
+    data = design._data
+    if data.weights is None and data.cluster_codes is None:
+        return data.arrays[design.score][data.sorted_rows()[0]]
+    return np.sort(_clean_score(design))
+
+
+def _run_lengths(monotone: np.ndarray) -> np.ndarray:
+    """Sizes of the runs of equal values of a sorted (ascending or descending) array."""
+    if len(monotone) == 0:
+        return np.zeros(0, dtype=np.int64)
+    starts = np.flatnonzero(np.r_[True, monotone[1:] != monotone[:-1]])
+    return np.diff(np.append(starts, len(monotone)))
 
 
 def _heaping(score: np.ndarray, uniq: np.ndarray, resolution: float) -> tuple[list[dict], list[str]]:
@@ -446,7 +568,7 @@ def checks(design, **fit_options) -> Checks:
     except SeamlineError as exc:
         add("main estimate", "error", str(exc))
     try:
-        dens = density_test(design)
+        dens = design.density_test()        # cached on the design: a board's Density panel shares it
         add("manipulation (density test)", "flag" if dens.p_value < ALPHA else "ok",
             f"p = {dens.p_value:.3f} ({dens.method}); density {dens.density_below:.4g} below, "
             f"{dens.density_above:.4g} above")
@@ -454,7 +576,7 @@ def checks(design, **fit_options) -> Checks:
         add("manipulation (density test)", "error", str(exc))
     if design.covariates:
         try:
-            bal = balance(design, **{k: v for k, v in fit_options.items() if k != "bandwidth"})
+            bal = design.balance(**{k: v for k, v in fit_options.items() if k != "bandwidth"})
             worst = min(r["p_value_holm"] for r in bal.rows)
             status = "flag" if (worst < ALPHA or bal.joint_p_value < ALPHA) else "ok"
             detail = f"smallest Holm p = {worst:.3f}; joint p = {bal.joint_p_value:.3f}"
@@ -475,7 +597,7 @@ def checks(design, **fit_options) -> Checks:
         add("observations in the window", "flag" if few < 20 else "ok",
             f"{fit.n_used[0]} below, {fit.n_used[1]} above")
     try:
-        prof = score_profile(design, **fit_options)
+        prof = design.score_profile(**fit_options)
         discrete = [w for w in prof.warnings if w.startswith("Few distinct")]
         heaped = [w for w in prof.warnings if w.startswith("Heaping")]
         add("discrete score", "flag" if discrete else "ok",

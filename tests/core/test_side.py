@@ -1,0 +1,114 @@
+"""Sides derived from an already sorted side (donut, placebo cutoff) against sides prepared from scratch.
+
+Reference: a first-principles preparation written in the test (numpy sort of the kept rows, distances
+from the cutoff, variables centred on the side mean), and seamline's own from-scratch preparation of
+a DataFrame holding only the rows that remain; no derived side may need a sort.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from seamline.core.side import Side
+from seamline.data import DesignData
+
+RTOL = 1e-12   # rebuilding values from centred values and offsets rounds in the last digit
+
+
+def raw_frame(n: int = 4000, seed: int = 2) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    x = np.round(rng.normal(0.0, 1.0, n), 2)           # ties, as a rounded score has
+    frame = pd.DataFrame({"x": x, "y": 5.0 + x + rng.normal(0, 1, n), "z": rng.normal(size=n),
+                          "w": rng.uniform(0.5, 2.0, n), "g": rng.integers(0, 40, n)})
+    frame.loc[::53, "y"] = np.nan
+    frame.loc[::71, "x"] = np.nan
+    frame.loc[::97, "w"] = 0.0
+    return frame
+
+
+def data_of(frame: pd.DataFrame, cutoff: float) -> DesignData:
+    return DesignData(frame, score="x", cutoff=cutoff, outcomes=("y",), takeup=None, covariates=("z",),
+                      cluster="g", weights="w")
+
+
+def direct_side(frame: pd.DataFrame, cutoff: float, sign: int, donut: float = 0.0):
+    """First principles: kept rows of one side, sorted by distance, variables centred."""
+    ok = frame[["x", "y", "z", "w"]].notna().all(axis=1) & (frame["w"] > 0)
+    sub = frame[ok]
+    d = (sub["x"] - cutoff) * sign
+    inside = (d >= donut) if sign > 0 else (d > 0) & (d >= donut)
+    sub, d = sub[inside], d[inside]
+    order = np.argsort(d.to_numpy(), kind="stable")
+    values = sub[["y", "z"]].to_numpy()[order]
+    return d.to_numpy()[order], values - values.mean(axis=0), sub["w"].to_numpy()[order]
+
+
+def assert_same_side(side: Side, distance, centred, weights) -> None:
+    assert side.n == len(distance)
+    np.testing.assert_array_equal(side.distance, distance)
+    # tie order may differ between sorts: compare per distinct distance through sorted (d, v) pairs
+    got = np.lexsort((side.values[:, 0], side.distance))
+    want = np.lexsort((centred[:, 0], distance))
+    np.testing.assert_allclose(side.values[got], centred[want], rtol=RTOL, atol=1e-12)
+    np.testing.assert_allclose(side.weights[got], weights[want], rtol=0, atol=0)
+
+
+@pytest.mark.parametrize("donut", [0.05, 0.3, 1.0])
+def test_donut_side_equals_direct_preparation(donut):
+    frame = raw_frame()
+    data = data_of(frame, 0.1)
+    base = data.prepare(("y", "z"))
+    trimmed = data.prepare(("y", "z"), donut)
+    for side, sign in ((trimmed.below, -1), (trimmed.above, 1)):
+        assert_same_side(side, *direct_side(frame, 0.1, sign, donut))
+    # the derived preparation kept the base's spread and counts, as a from-scratch one does
+    scratch = data_of(frame, 0.1)._prepare(("y", "z"), donut, 3)
+    assert (trimmed.score_sd, trimmed.score_scale, trimmed.n_dropped, trimmed.n_donut, trimmed.n_clusters) == (
+        scratch.score_sd, scratch.score_scale, scratch.n_dropped, scratch.n_donut, scratch.n_clusters)
+    for a, b in ((trimmed.below, scratch.below), (trimmed.above, scratch.above)):
+        np.testing.assert_array_equal(a.values, b.values)      # same rows, same order: bit for bit
+        np.testing.assert_array_equal(a.rows, b.rows)
+    assert base.below.n - trimmed.below.n + base.above.n - trimmed.above.n == trimmed.n_donut
+
+
+def test_without_nearest_rebuilds_values_up_to_rounding():
+    frame = raw_frame(seed=4)
+    base = data_of(frame, 0.0).prepare(("y", "z"))
+    dist = base.above.distance
+    start = int(np.flatnonzero(np.diff(dist) > 0)[10]) + 1       # a group boundary: no tie is split
+    side = base.above.without_nearest(start)                      # values rebuilt from the offsets
+    assert_same_side(side, *direct_side(frame, 0.0, 1, donut=dist[start]))
+    assert side.rows is not None and len(side.rows) == side.n
+
+
+@pytest.mark.parametrize("side_name, placebo", [("below", -0.6), ("above", 0.45)])
+def test_one_side_copy_equals_a_design_of_that_side(side_name, placebo):
+    frame = raw_frame(seed=6)
+    parent = data_of(frame, 0.1)
+    parent.sorted_rows(("y",))
+    copy = parent.one_side(side_name, placebo)
+    rows = frame["x"] >= 0.1 if side_name == "above" else frame["x"] < 0.1
+    scratch = data_of(frame[rows].reset_index(drop=True), placebo)
+    got, want = copy.prepare(("y",)), scratch.prepare(("y",))
+    assert (got.n_dropped, got.n_total, got.n_clusters) == (want.n_dropped, want.n_total, want.n_clusters)
+    assert got.score_sd == want.score_sd and got.score_scale == want.score_scale
+    for a, b in ((got.below, want.below), (got.above, want.above)):
+        np.testing.assert_array_equal(a.distance, b.distance)
+        ia, ib = np.lexsort((a.values[:, 0], a.distance)), np.lexsort((b.values[:, 0], b.distance))
+        np.testing.assert_allclose(a.values[ia], b.values[ib], rtol=RTOL, atol=1e-12)
+        np.testing.assert_array_equal(a.weights[ia], b.weights[ib])
+
+
+def test_one_side_copy_does_not_sort(monkeypatch):
+    frame = raw_frame(seed=8)
+    parent = data_of(frame, 0.0)
+    parent.sorted_rows(("y",))
+    copy = parent.one_side("above", 0.5)
+
+    def no_sort(*args, **kwargs):
+        raise AssertionError("a one-sided copy must read its order off its parent's")
+
+    monkeypatch.setattr(np, "argsort", no_sort)
+    copy.prepare(("y",))
+    parent.prepare(("y",), 0.2)       # a donut of the parent: no sort either
