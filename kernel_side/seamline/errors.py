@@ -71,3 +71,7 @@ class InvalidBandwidthError(SeamlineError):
 
 class DesignSpecError(SeamlineError):
     """A design declaration (for example a %%cutoff cell) is malformed."""
+
+
+class WaitTimeoutError(TimeoutError):
+    """``Board.wait`` gave up: the named panels were still computing when the timeout passed."""
