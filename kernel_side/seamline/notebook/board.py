@@ -440,10 +440,7 @@ class Board:
             target = self._target
         if target.error is not None:
             return None
-        try:
-            return self._design_for(target)
-        except SeamlineError:
-            return None
+        return self._design_for(target)
 
     @property
     def data(self):

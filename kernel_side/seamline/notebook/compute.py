@@ -27,14 +27,17 @@ selectors             selection                                       ``Design.b
 bins                  main_fit                                        ``Design.bins``
 takeup_bins           main_fit                                        ``Design.bins`` of take-up
 sensitivity           main_fit                                        ``Design.sensitivity``
-placebo               main_fit                                        ``Design.placebo_cutoffs``
-donut                 main_fit's sources but donut (a donut ladder    ``Design.donut``
-                      re-selects its own radii)
+placebo               rows, the outcome column, outcome, donut,       ``Design.placebo_cutoffs``
+                      estimator, bandwidth, pilot_bandwidth (no
+                      adjustment: placebo fits never adjust)
+donut_ladder          main_fit's sources but donut (the ladder        ``Design.donut``
+                      sets its own radii)
 density               the score column, score, cutoff                 ``Design.density_test``
 balance               rows, covariates, estimator, donut,             ``Design.balance``
                       balance_rule
-checks_balance        as balance with the rule "mse" (shares          ``Design.balance``
-                      balance's cache entry when the rule is mse)
+checks_balance        as balance with the rule "mse" and the pilot    ``Design.balance``
+                      bandwidth (what Design.checks reads; shares
+                      balance's entry when both coincide)
 score_profile         the score column, score, cutoff, main_fit       ``Design.score_profile``
 checks                main_fit, density, checks_balance,              none: assembled from the nodes
                       score_profile
@@ -42,7 +45,7 @@ checks                main_fit, density, checks_balance,              none: asse
 
 Panels (``PANEL_NODES``) read one node each and only re-report it: ``fit`` and ``first_stage``
 read ``main_fit``; ``first_stage_bins`` reads ``takeup_bins``; ``bandwidths`` reads
-``selectors``; the others read the node of their own name. Consequences: a level change
+``selectors``; ``donut`` reads ``donut_ladder`` (a node name is never a source's name); the others read the node of their own name. Consequences: a level change
 computes nothing; a bandwidth change leaves the density test, balance (at its own rule), the
 selectors and the score column's profile outside the window untouched; editing a covariate
 column touches only balance and the checks (unless ``adjust``).
@@ -68,14 +71,14 @@ __all__ = ["NODES", "PANEL_NODES", "Computation", "NodeCache", "assemble_checks"
            "failure", "node_key", "panel_key", "panel_order"]
 
 #: Intermediate results that call the engine (``design``, ``sample`` and ``selection`` group sources).
-NODES: tuple[str, ...] = ("main_fit", "selectors", "bins", "takeup_bins", "sensitivity", "placebo", "donut",
+NODES: tuple[str, ...] = ("main_fit", "selectors", "bins", "takeup_bins", "sensitivity", "placebo", "donut_ladder",
                           "density", "balance", "checks_balance", "score_profile", "checks")
 
 #: The node behind each panel.
 PANEL_NODES: Mapping[str, str] = {
     "fit": "main_fit", "first_stage": "main_fit", "bins": "bins", "first_stage_bins": "takeup_bins",
     "bandwidths": "selectors", "density": "density", "balance": "balance", "sensitivity": "sensitivity",
-    "placebo": "placebo", "donut": "donut", "score_profile": "score_profile", "checks": "checks",
+    "placebo": "placebo", "donut": "donut_ladder", "score_profile": "score_profile", "checks": "checks",
 }
 
 _DESIGN_KEYS = ("score", "cutoff", "treated", "outcomes", "takeup", "covariates", "cluster", "weights")
@@ -108,11 +111,12 @@ def compute_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: 
         "bins": ["main_fit"],
         "takeup_bins": ["main_fit"],
         "sensitivity": ["main_fit"],
-        "placebo": ["main_fit"],
-        "donut": [*without_donut, *_ESTIMATOR, "bandwidth", "pilot_bandwidth"],
+        # Placebo fits use one side's rows without take-up or covariate adjustment.
+        "placebo": [*rows, col(outcome), "outcome", "donut", *_ESTIMATOR, "bandwidth", "pilot_bandwidth"],
+        "donut_ladder": [*without_donut, *_ESTIMATOR, "bandwidth", "pilot_bandwidth"],
         "density": [col(score), "score", "cutoff"],
         "balance": [*rows, *covs, *_ESTIMATOR, "donut", "balance_rule"],
-        "checks_balance": [*rows, *covs, *_ESTIMATOR, "donut"],
+        "checks_balance": [*rows, *covs, *_ESTIMATOR, "donut", "pilot_bandwidth"],
         "score_profile": [col(score), "score", "cutoff", "main_fit"],
         "checks": ["main_fit", "density", "checks_balance", "score_profile"],
     }
@@ -121,8 +125,12 @@ def compute_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: 
 
 def node_key(graph: DependencyGraph, values: Mapping[str, Any], node: str) -> tuple:
     """The cache key of a node: the values of the sources it reads."""
-    if node == "checks_balance":     # the checks read balance at the rule "mse": the same entry
-        return graph.key("balance", {**values, "balance_rule": "mse"})
+    if node == "checks_balance":
+        # The checks read balance at the rule "mse" (with the pilot bandwidth, as Design.checks
+        # does): without a pilot that is the balance panel's own entry under that rule.
+        key = graph.key("balance", {**values, "balance_rule": "mse"})
+        pilot = values.get("pilot_bandwidth")
+        return key if pilot is None else ("checks_balance", *key[1:], ("pilot_bandwidth", pilot))
     return graph.key(node, values)
 
 
@@ -282,7 +290,7 @@ class Computation:
             if node == "placebo":
                 self._main()
                 return design.placebo_cutoffs(**self._kwargs())
-            if node == "donut":
+            if node == "donut_ladder":
                 return design.donut(**self._kwargs("donut"))
             if node == "density":
                 return design.density_test()
@@ -290,9 +298,11 @@ class Computation:
                 if not self.spec["covariates"]:
                     return NotApplicable("No covariates are declared, so there is nothing to check for balance. "
                                          "Declare pre-treatment columns with `covariates: age, prior_score`.")
-                rule = "mse" if node == "checks_balance" else balance_rule(opts["bandwidth"])
-                return design.balance(rule=rule, **self._kwargs("outcome", "bandwidth", "pilot_bandwidth",
-                                                                "adjust"))
+                if node == "checks_balance":
+                    pilot = () if opts["pilot_bandwidth"] is not None else ("pilot_bandwidth",)
+                    return design.balance(rule="mse", **self._kwargs("outcome", "bandwidth", "adjust", *pilot))
+                return design.balance(rule=balance_rule(opts["bandwidth"]),
+                                      **self._kwargs("outcome", "bandwidth", "pilot_bandwidth", "adjust"))
             if node == "score_profile":
                 return design.score_profile(**self._kwargs())
             if node == "checks":
