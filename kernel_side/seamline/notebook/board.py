@@ -361,6 +361,7 @@ class Board:
         self._started = autorun
         self._worker: threading.Thread | None = None
         self._settled_generation = 0
+        self._notifying = 0
         self._change_callbacks: list[Callable] = []
         self._progress_callbacks: list[Callable] = []
         self._view = None
@@ -440,6 +441,19 @@ class Board:
             target = self._target
         if target.error is not None:
             return None
+        try:
+            return self._design_for(target)
+        except SeamlineError:
+            return None
+
+    def validate(self) -> Design:
+        """Build the Design of the current inputs now, raising its validation error (a missing
+        column, a cutoff outside the score's range, ...); the ``%%cutoff`` magic calls this to
+        point the error at the line of the declaration."""
+        with self._lock:
+            target = self._target
+        if target.error is not None:
+            raise InvalidOptionError(target.error)
         return self._design_for(target)
 
     @property
@@ -744,7 +758,7 @@ class Board:
             self._awaited.update(names)
             self._changed.notify_all()
             try:
-                while not self.closed and not all(self._current(p) for p in names):
+                while not self.closed and not (all(self._current(p) for p in names) and not self._notifying):
                     self._start_worker()
                     remaining = None if deadline is None else deadline - time.monotonic()
                     if remaining is not None and remaining <= 0:
@@ -878,8 +892,13 @@ class Board:
                     changed.add(panel)
             self.updated_at = _dt.datetime.now().astimezone()
             self._fallback_dirty = True
-            self._changed.notify_all()
-        self._notify(changed | {"status"})
+            self._notifying += 1          # wait() returns only once subscribers have heard of it
+        try:
+            self._notify(changed | {"status"})
+        finally:
+            with self._lock:
+                self._notifying -= 1
+                self._changed.notify_all()
 
     def _publish_all(self, target: _Inputs, message: str) -> None:
         with self._lock:
@@ -979,12 +998,12 @@ class Board:
             self._view = BoardView(self)
         return self._view
 
-    def _mimebundle(self) -> dict[str, Any]:
+    def _mimebundle(self, charts: bool = True) -> dict[str, Any]:
         """One output bundle: the live widget view plus a static HTML rendition (text/html) that
         notebook viewers and nbconvert show when widgets are not live."""
         view = self.view
         from .panels import mimebundle
-        bundle = dict(mimebundle(view))
+        bundle = dict(mimebundle(view, charts=charts))
         bundle["text/plain"] = repr(self)
         return bundle
 
@@ -994,12 +1013,13 @@ class Board:
         Without a live front end (headless runs) it first waits for every panel, so the saved
         output is complete; with one, the static copy follows once the board is idle."""
         from IPython.display import display
-        if not live_front_end():
+        live = live_front_end()
+        if not live:
             self.wait()
-        handle = display(self._mimebundle(), raw=True, display_id=True)
+        handle = display(self._mimebundle(charts=not live), raw=True, display_id=True)
         if handle is not None:
             self._handles = [*self._handles[-3:], handle]
-        self._fallback_dirty = False
+        self._fallback_dirty = live
         return handle
 
     def _ipython_display_(self) -> None:
