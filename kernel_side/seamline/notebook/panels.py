@@ -176,6 +176,9 @@ class BoardView(widgets.VBox):
         self._syncing = False
         self._lock = threading.RLock()
         self._dirty: set[str] = set()
+        # Headless runs (no live front end) save the widget state: render every tab there.
+        from .board import live_front_end
+        self._eager = not live_front_end()
         self._unsubscribe: list = []
         self.add_class("seamline-board")
         self.layout = widgets.Layout(width="100%", max_width="1100px")
@@ -228,7 +231,7 @@ class BoardView(widgets.VBox):
         self._watch()
         self._sync_controls()
         self._dirty = {k for k, _ in PANELS}
-        self._render(["header", self._open_tab()])
+        self._render(["header", *((k for k, _ in PANELS) if self._eager else [self._open_tab()])])
         for method, callback in (("on_change", self._on_change), ("on_progress", self._on_progress)):
             subscribe = getattr(board, method, None)
             if callable(subscribe):
@@ -479,7 +482,7 @@ class BoardView(widgets.VBox):
             state = self.board.state()
             open_tab = self._open_tab()
             for part in parts:
-                if part != "header" and part != open_tab:
+                if part != "header" and part != open_tab and not self._eager:
                     self._dirty.add(part)
                     continue
                 try:
