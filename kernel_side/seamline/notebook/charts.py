@@ -934,6 +934,6 @@ def to_vega_lite(chart) -> dict:
     dict
         JSON-ready; the data inside are binned or summary values, never the raw rows.
     """
-    spec = chart.to_dict()
+    spec = chart.to_dict(validate=False)    # the builders are validated by the tests; saves ~40 ms a chart
     spec["$schema"] = _V5_SCHEMA
     return spec

@@ -511,7 +511,7 @@ class BoardView(widgets.VBox):
             if not pending:
                 spec = chart_spec(state, what)
                 if spec is not None:
-                    outputs = ({"output_type": "display_data", "metadata": {},
+                    outputs = ({"output_type": "display_data", "metadata": _EMBED,
                                 "data": {charts.VEGA_LITE_MIME: spec, "text/plain": f"<seamline {what} chart>"}},)
             if tuple(output.outputs) != outputs:
                 output.outputs = outputs      # a trait: safe from any thread (no context manager)
@@ -557,6 +557,10 @@ class BoardView(widgets.VBox):
             watch(self, ())
         super().close()
 
+
+# Vega-Embed options for JupyterLab's renderer: draw SVG (crisp, countable marks), no actions menu
+# (its links point off the machine).
+_EMBED = {charts.VEGA_LITE_MIME: {"embed_options": {"renderer": "svg", "actions": False}}}
 
 _SPEC_CACHE: "OrderedDict[tuple, tuple[tuple, dict]]" = OrderedDict()
 _SPEC_CACHE_SIZE = 48
