@@ -69,6 +69,7 @@ def _settle(view):
     rendering when ``wait`` returns; rendering the same state again changes nothing)."""
     view.board.wait()
     view._render(["header", view._open_tab()])
+    view.settle_charts()
     return view
 
 
@@ -206,7 +207,6 @@ def test_outcome_change_rerenders_only_the_panels_that_read_it(sharp_board):
     assert seen["balance"] == []
     assert seen["estimate"] and "attendance" in seen["estimate"][-1]
     assert "seamline-pending" not in seen["estimate"][-1]
-    assert seen["bandwidths"] == []          # a closed tab is rendered when it is opened
     assert "attendance" in _panel(view, "bandwidths")
     assert seen["header"] and "attendance" in view._header.value
 
@@ -236,6 +236,19 @@ def test_manual_bandwidth_slider(sharp_board):
     view._rule.value = "coverage"
     _settle(view)
     assert sharp_board.fit.bandwidth_rule == "coverage" and view._manual.disabled
+
+
+def test_with_a_live_front_end_closed_tabs_wait_until_opened(sharp_board, monkeypatch):
+    import seamline.notebook.board as board_module
+    monkeypatch.setattr(board_module, "live_front_end", lambda: True)
+    view = _settle(BoardView(sharp_board))
+    assert view._panels["balance"].value == "" and view._panels["estimate"].value
+    seen = _count_updates(view)
+    view._kernel.value = "uniform"
+    _settle(view)
+    assert seen["estimate"] and seen["balance"] == []              # only the open tab is rendered
+    assert "balance" in view._dirty
+    assert sharp_board.results["balance"]._repr_html_() in _panel(view, "balance")   # ... until opened
 
 
 def test_panels_for_maps_results_to_panels(shared_board):

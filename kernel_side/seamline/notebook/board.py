@@ -9,8 +9,9 @@ down in ``compute``; a level change only re-reports, see ``levels``).
 
 Threads. Every computation runs on the board's own worker thread, so the kernel stays free:
 ``set_option`` records the new inputs and returns at once; the worker computes the headline
-(the main fit) first, then the panels someone looks at (``watch``) or waits for, then, when no
-change has arrived for ``IDLE_DELAY`` seconds, the others. Inputs arrive from several threads
+(the main fit) and the panels code waits for first, then -- once the inputs have been still for
+``SETTLE_DELAY`` -- the panels someone looks at (``watch``), then, after ``IDLE_DELAY``, the
+others. Inputs arrive from several threads
 (cells on the main thread, widget messages on subshell threads): one lock guards the board's
 state, and the worker reads an immutable snapshot of the inputs (``_Inputs``). A newer change
 supersedes the running one between two intermediate results (the last value wins; nothing
@@ -77,8 +78,10 @@ log = logging.getLogger("seamline")
 
 _CACHE_SIZE = 256
 STATUSES = ("fresh", "stale", "recomputing", "error")
-#: Seconds without a change before the worker computes panels nobody is looking at.
-IDLE_DELAY = 0.3
+#: Seconds without a change before the worker computes the open tab's panels (the headline is
+#: computed at once) and before it computes panels nobody is looking at.
+SETTLE_DELAY = 0.15
+IDLE_DELAY = 0.4
 _LABELS = LABELS
 
 
@@ -802,17 +805,26 @@ class Board:
             self._worker.start()
 
     def _todo(self) -> tuple[list[str], float | None]:
-        """(panels to compute now, in order; seconds until idle work may start) -- under the lock."""
+        """(panels to compute now, in order; seconds until more may start) -- under the lock.
+
+        Three tiers by how long the inputs have been still: the headline and awaited panels at
+        once; watched panels after ``SETTLE_DELAY`` (so a slider being dragged costs one fit per
+        move, not the open tab's diagnostics); the rest after ``IDLE_DELAY``."""
         pending = self._pending()
         if not pending or not self._started:
             return [], None
-        wanted = self._wanted()
-        order = panel_order(wanted, pending)
-        idle_in = IDLE_DELAY - (time.monotonic() - self._target_since)
-        if idle_in > 0:
-            now = [p for p in order if p in wanted]
-            return now, (idle_in if len(now) < len(order) else None)
-        return order, None
+        age = time.monotonic() - self._target_since
+        awaited = {p for p, n in self._awaited.items() if n > 0}
+        watched = set().union(*self._watched.values()) if self._watched else set()
+        tiers = ((0.0, {"fit", "first_stage"} | awaited), (SETTLE_DELAY, watched), (IDLE_DELAY, set(self._panels)))
+        allowed: set[str] = set()
+        later = None
+        for delay, panels in tiers:
+            if age >= delay:
+                allowed |= panels
+            elif panels & pending - allowed:
+                later = delay - age if later is None else min(later, delay - age)
+        return panel_order(self._wanted(), pending & allowed), later
 
     def _loop(self) -> None:
         while True:

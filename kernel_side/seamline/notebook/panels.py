@@ -176,9 +176,12 @@ class BoardView(widgets.VBox):
         self._syncing = False
         self._lock = threading.RLock()
         self._dirty: set[str] = set()
-        # Headless runs (no live front end) save the widget state: render every tab there.
-        from .board import live_front_end
-        self._eager = not live_front_end()
+        self._paint: dict[str, Any] = {}          # tab -> newest state whose charts are to be drawn
+        self._paint_wanted = threading.Event()
+        self._painted = threading.Condition(self._lock)
+        self._painting = False
+        self._painter: threading.Thread | None = None
+        self._closed = False
         self._unsubscribe: list = []
         self.add_class("seamline-board")
         self.layout = widgets.Layout(width="100%", max_width="1100px")
@@ -236,6 +239,14 @@ class BoardView(widgets.VBox):
             subscribe = getattr(board, method, None)
             if callable(subscribe):
                 self._unsubscribe.append(subscribe(callback))
+
+    @property
+    def _eager(self) -> bool:
+        """Render every tab, not just the open one: without a live front end (headless runs save
+        the widget state, and nobody opens tabs there). Read at each render: the front end's
+        channel may open after the view is made."""
+        from . import board as board_module
+        return not board_module.live_front_end()
 
     def _open_tab(self) -> str:
         index = self._tabs.selected_index
@@ -309,18 +320,17 @@ class BoardView(widgets.VBox):
             self._apply("bandwidth", float(change["new"]))
 
     def _apply(self, name: str, value: Any) -> None:
-        """Pass one control change to the board; show a failure beside the controls."""
-        self._busy(True)
+        """Pass one control change to the board; show a failure beside the controls. The board
+        calls back (``_on_change``) to show the change; nothing else is sent per change, so a
+        dragged slider's messages are handled quickly."""
         try:
             self.board.set_option(name, value)
-            self._message.value = ""
+            if self._message.value:
+                self._message.value = ""
         except Exception as exc:  # noqa: BLE001 - the user sees it; the kernel lives on
             self._message.value = error_html(f"{type(exc).__name__}: {exc}",
                                              title=f"The {name} was not changed")
             self._sync_controls()
-        finally:
-            self._busy(False)
-            self._render(["header"])
 
     def _sync_controls(self) -> None:
         """Show the board's current options in the controls without calling back into the board.
@@ -504,6 +514,44 @@ class BoardView(widgets.VBox):
                         self._export_rows[what].layout.display = display
 
     def _draw_charts(self, tab: str, state) -> None:
+        """Queue the tab's charts for the painter thread: building a spec takes a few tenths of a
+        second, which the board's worker (and the other subscribers, such as the cell's chip)
+        should not wait for. Only the newest request per tab is drawn. Headless (no live front
+        end) the charts are drawn at once, so the saved widget state is complete."""
+        if self._eager:
+            self._paint_charts(tab, state)
+            return
+        with self._lock:
+            self._paint[tab] = state
+            if self._painter is None:
+                self._painter = threading.Thread(target=self._paint_loop, name="seamline-view-charts",
+                                                 daemon=True)
+                self._painter.start()
+            self._paint_wanted.set()
+
+    def _paint_loop(self) -> None:
+        while not self._closed:
+            self._paint_wanted.wait(1.0)
+            with self._lock:
+                self._paint_wanted.clear()
+                jobs, self._paint = self._paint, {}
+                self._painting = bool(jobs)
+            try:
+                for tab, state in jobs.items():
+                    self._paint_charts(tab, state)
+            except Exception:  # noqa: BLE001 - a chart must never break the view
+                pass
+            finally:
+                with self._lock:
+                    self._painting = False
+                    self._painted.notify_all()
+
+    def settle_charts(self, timeout: float = 30.0) -> None:
+        """Wait until every queued chart is drawn (tests and headless runs)."""
+        with self._lock:
+            self._painted.wait_for(lambda: not self._paint and not self._painting, timeout)
+
+    def _paint_charts(self, tab: str, state) -> None:
         """Send the tab's charts to the browser as Vega-Lite specs (none while pending)."""
         pending = static.panel_pending(state, tab)
         for what, output in self._charts[tab]:
@@ -552,6 +600,8 @@ class BoardView(widgets.VBox):
             except Exception:  # noqa: BLE001 - closing must not fail
                 pass
         self._unsubscribe = []
+        self._closed = True
+        self._paint_wanted.set()
         watch = getattr(self.board, "watch", None)
         if callable(watch):
             watch(self, ())
