@@ -197,7 +197,7 @@ def live_board(n: int) -> None:
 
 
 def live_view(n: int = 100_000) -> None:
-    import seamline.notebook.board as board_module
+    import seamline.notebook.scheduler as board_module
     from seamline.notebook.board import board as make_board
     from seamline.notebook.panels import BoardView
     scenario = sharp_scenario(n, seed=8)

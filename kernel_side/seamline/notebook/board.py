@@ -13,7 +13,7 @@ Threads. Every computation runs on the board's own worker thread, so the kernel 
 ``SETTLE_DELAY`` -- the panels someone looks at (``watch``), then, after ``IDLE_DELAY``, the
 others. Inputs arrive from several threads
 (cells on the main thread, widget messages on subshell threads): one lock guards the board's
-state, and the worker reads an immutable snapshot of the inputs (``_Inputs``). A newer change
+state, and the worker reads an immutable snapshot of the inputs (``Inputs``). A newer change
 supersedes the running one between two intermediate results (the last value wins; nothing
 queues up); results of inputs that a data change replaced are discarded. Errors of a background
 computation become that panel's error; they never reach the kernel's main loop.
@@ -45,23 +45,27 @@ import warnings
 import weakref
 from collections import Counter
 from collections.abc import Callable, Iterable, Iterator, Mapping
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from ..errors import InvalidOptionError, SeamlineError, WaitTimeoutError
+from ..errors import InvalidOptionError, SeamlineError
 from ..estimate.design import Design
 from ..estimate.options import resolve
-from .compute import Computation, NodeCache, balance_rule, compute_graph, panel_key, panel_order
-from .exports import CHART_FORMATS, EXPORTS, LABELS, TABLE_FORMATS, export_result, methods_text
-from .reactive import PANELS, DataIdentity, DependencyGraph, column_node, fingerprints, shared_fingerprints
-from .spec import (DESIGN_KEYS, OPTION_DEFAULTS, REQUIRED_KEYS, SPEC_KEYS, Failure, NotApplicable,
+from .compute import NodeCache, balance_rule, compute_graph, panel_key
+from .exports import CHART_FORMATS, TABLE_FORMATS, export_result, methods_text
+from .reactive import PANELS, DataIdentity, column_node, fingerprints, shared_fingerprints
+from .spec import (DESIGN_KEYS, OPTION_DEFAULTS, REQUIRED_KEYS, SPEC_KEYS, NotApplicable,
                    coerce_value, lookup)
 from .spec import _EXAMPLE_COLUMN
+from . import scheduler
+from .scheduler import IDLE_DELAY, SETTLE_DELAY, BoardState, Inputs, Scheduler, live_front_end
 
 __all__ = [
     "Board",
     "BoardState",
+    "IDLE_DELAY",
+    "SETTLE_DELAY",
+    "live_front_end",
     "NotApplicable",
     "board",
     "boards",
@@ -78,11 +82,6 @@ log = logging.getLogger("seamline")
 
 _CACHE_SIZE = 256
 STATUSES = ("fresh", "stale", "recomputing", "error")
-#: Seconds without a change before the worker computes the open tab's panels (the headline is
-#: computed at once) and before it computes panels nobody is looking at.
-SETTLE_DELAY = 0.15
-IDLE_DELAY = 0.4
-_LABELS = LABELS
 
 
 # ---- the registry ---------------------------------------------------------------------------------
@@ -111,21 +110,10 @@ def find(name: str, namespace: Mapping | None = None) -> "Board | None":
     return None
 
 
-def live_front_end() -> bool:
-    """Whether seamline's JupyterLab front end is connected to this kernel (its channel is open).
-
-    With a live front end, boards update their views from the worker thread and the kernel never
-    waits for them. Without one (nbclient, nbconvert, a script, a plain IPython shell), each cell
-    waits until the boards it changed are complete, so headless runs are deterministic.
-    """
-    channel = sys.modules.get(f"{__package__}.channel")
-    return bool(channel is not None and channel.channels())
-
-
 def _after_cell(shell, *args) -> None:
     """post_run_cell callback: every live board of this shell checks its inputs."""
     namespace = getattr(shell, "user_ns", None)
-    headless = not live_front_end()
+    headless = not scheduler.live_front_end()
     with shared_fingerprints():     # boards reading the same columns hash them once per cell
         for b in boards():
             if b._namespace is not None and b._namespace is not namespace:
@@ -171,53 +159,6 @@ def _current_shell():
     return get_ipython()
 
 
-# ---- snapshots ------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class _Inputs:
-    """Everything a board reads, frozen: the worker computes from one of these while the notebook
-    moves on. ``keys`` holds each panel's key for these inputs (None when they cannot be used)."""
-
-    generation: int
-    data: Any
-    data_version: int
-    spec: Mapping[str, Any]
-    options: Mapping[str, Any]
-    selected: str
-    fingerprints: Mapping[str, bytes]
-    error: str | None
-    graph: DependencyGraph | None = None
-    values: Mapping[str, Any] = field(default_factory=dict)
-    keys: Mapping[str, tuple] = field(default_factory=dict)
-
-    def design_kwargs(self) -> dict[str, Any]:
-        s = self.spec
-        return dict(score=s["score"], cutoff=s["cutoff"], outcome=list(s["outcome"]), treated=s["treated"],
-                    takeup=s["takeup"], covariates=list(s["covariates"]) or None, cluster=s["cluster"],
-                    weights=s["weights"])
-
-
-@dataclass(frozen=True)
-class BoardState:
-    """What a view shows, read at one moment without waiting.
-
-    ``results`` and ``errors`` hold the last published value of each panel; ``pending`` names the
-    panels whose value does not (yet) belong to the current inputs -- a view must say so rather
-    than show their numbers as current.
-    """
-
-    name: str
-    results: Mapping[str, Any]
-    errors: Mapping[str, str]
-    pending: frozenset
-    status: str
-    paused: bool
-    stale: bool
-    updated_at: _dt.datetime | None
-    options: Mapping[str, Any]
-    spec: Mapping[str, Any]
-    outcomes: tuple[str, ...]
-
-
 class _LiveResults(Mapping):
     """``board.results``: reading a panel waits until it belongs to the current inputs."""
 
@@ -242,7 +183,7 @@ class _LiveResults(Mapping):
 
 
 # ---- the board ------------------------------------------------------------------------------------
-class Board:
+class Board(Scheduler):
     """A live cutoff design: results for every panel, kept in step with the notebook off the main thread.
 
     Parameters
@@ -376,12 +317,12 @@ class Board:
             self._kick()
 
     # ---- snapshots of the inputs ------------------------------------------------------------
-    def _snapshot(self, *, data, data_version, spec, options, selected, prints, error) -> _Inputs:
+    def _snapshot(self, *, data, data_version, spec, options, selected, prints, error) -> Inputs:
         """Freeze one set of inputs with each panel's key (called under the lock or in __init__)."""
         generation = next(self._generation)
         if error is not None:
             keys = {p: ("unusable inputs", generation) for p in self._panels}
-            return _Inputs(generation, data, data_version, dict(spec), dict(options), selected, dict(prints), error,
+            return Inputs(generation, data, data_version, dict(spec), dict(options), selected, dict(prints), error,
                            keys=keys)
         graph = compute_graph(score=spec["score"], outcomes=spec["outcome"], outcome=selected,
                               takeup=spec["takeup"], covariates=spec["covariates"], cluster=spec["cluster"],
@@ -394,10 +335,10 @@ class Board:
         values["data"] = data_version
         values["balance_rule"] = balance_rule(options["bandwidth"])
         keys = {p: panel_key(graph, values, p, options["level"]) for p in self._panels}
-        return _Inputs(generation, data, data_version, dict(spec), dict(options), selected, dict(prints), None,
+        return Inputs(generation, data, data_version, dict(spec), dict(options), selected, dict(prints), None,
                        graph, values, keys)
 
-    def _replace_inputs(self, *, accept: bool, **changes) -> _Inputs:
+    def _replace_inputs(self, *, accept: bool, **changes) -> Inputs:
         """New inputs from the current ones with ``changes`` (under the lock); the worker is told."""
         old = self._inputs
         fields = dict(data=old.data, data_version=old.data_version, spec=old.spec, options=old.options,
@@ -501,27 +442,6 @@ class Board:
         (never waits; ``refresh()`` or ``resume()`` brings them up to date)."""
         with self._lock:
             return self._target is not self._inputs
-
-    def _current(self, panel: str) -> bool:
-        return self._keys.get(panel) == self._target.keys[panel]
-
-    def _pending(self) -> frozenset:
-        return frozenset(p for p in self._panels if not self._current(p))
-
-    def _wanted(self) -> set[str]:
-        wanted = {"fit", *(p for p, n in self._awaited.items() if n > 0)}
-        for panels in self._watched.values():
-            wanted.update(panels)
-        return wanted & set(self._panels)
-
-    def _status(self) -> str:
-        if self._target is not self._inputs and self.paused:
-            return "stale"
-        if self._target.error is not None:
-            return "error"
-        if any(not self._current(p) for p in self._wanted()):
-            return "recomputing" if self._started else "stale"
-        return "error" if "fit" in self._errors else "fresh"
 
     def state(self) -> BoardState:
         """The board as a view shows it, at this moment (never waits)."""
@@ -728,54 +648,6 @@ class Board:
         self._kick()
         self._notify({"status"})
 
-    def wait(self, *panels: str, timeout: float | None = None) -> "Board":
-        """Block until the named panels (every panel when none is named) hold their results for
-        the current inputs, and return the board.
-
-        Parameters
-        ----------
-        *panels : names among ``board.panels``
-        timeout : seconds, optional
-            Give up after this long.
-
-        Returns
-        -------
-        Board
-
-        Raises
-        ------
-        WaitTimeoutError
-            When the timeout passes first (a ``TimeoutError``); the computation goes on.
-        """
-        names = tuple(panels) or self._panels
-        bad = [p for p in names if p not in self._panels]
-        if bad:
-            raise InvalidOptionError(f"`panels` must be among this board's panels ({', '.join(self._panels)}); got "
-                                     f"{bad!r}. Name computed panels or none.")
-        if threading.current_thread() is self._worker:
-            return self                      # a subscriber on the worker must never wait for it
-        deadline = None if timeout is None else time.monotonic() + float(timeout)
-        with self._lock:
-            if self.closed or not self._started:
-                return self
-            self._awaited.update(names)
-            self._changed.notify_all()
-            try:
-                while not self.closed and not (all(self._current(p) for p in names) and not self._notifying):
-                    self._start_worker()
-                    remaining = None if deadline is None else deadline - time.monotonic()
-                    if remaining is not None and remaining <= 0:
-                        pending = [p for p in names if not self._current(p)]
-                        raise WaitTimeoutError(
-                            f"`timeout` must leave time for the panels to finish; got {timeout!r} s with "
-                            f"{', '.join(pending)} still computing. Wait longer, or call wait() without a "
-                            "timeout (the computation goes on in the background).")
-                    self._changed.wait(remaining if remaining is not None else 1.0)
-            finally:
-                self._awaited.subtract(names)
-                self._awaited += Counter()          # drop the zero counts
-        return self
-
     def close(self) -> None:
         """Stop tracking: leave the registry, stop the worker, drop subscribers and close the view."""
         with self._lock:
@@ -791,142 +663,6 @@ class Board:
             except Exception:
                 log.exception("seamline: closing the view of board %r failed", self.name)
         self._handles.clear()
-
-    # ---- the worker ---------------------------------------------------------------------------
-    def _kick(self) -> None:
-        with self._lock:
-            self._started = True
-            self._start_worker()
-            self._changed.notify_all()
-
-    def _start_worker(self) -> None:
-        if self._worker is None and not self.closed:
-            self._worker = threading.Thread(target=self._loop, name=f"seamline-board-{self.name}", daemon=True)
-            self._worker.start()
-
-    def _todo(self) -> tuple[list[str], float | None]:
-        """(panels to compute now, in order; seconds until more may start) -- under the lock.
-
-        Three tiers by how long the inputs have been still: the headline and awaited panels at
-        once; watched panels after ``SETTLE_DELAY`` (so a slider being dragged costs one fit per
-        move, not the open tab's diagnostics); the rest after ``IDLE_DELAY``."""
-        pending = self._pending()
-        if not pending or not self._started:
-            return [], None
-        age = time.monotonic() - self._target_since
-        awaited = {p for p, n in self._awaited.items() if n > 0}
-        watched = set().union(*self._watched.values()) if self._watched else set()
-        tiers = ((0.0, {"fit", "first_stage"} | awaited), (SETTLE_DELAY, watched), (IDLE_DELAY, set(self._panels)))
-        allowed: set[str] = set()
-        later = None
-        for delay, panels in tiers:
-            if age >= delay:
-                allowed |= panels
-            elif panels & pending - allowed:
-                later = delay - age if later is None else min(later, delay - age)
-        return panel_order(self._wanted(), pending & allowed), later
-
-    def _loop(self) -> None:
-        while True:
-            with self._lock:
-                while True:
-                    if self.closed:
-                        return
-                    todo, idle_in = self._todo()
-                    if todo:
-                        break
-                    self._changed.wait(idle_in)
-                target = self._target
-            try:
-                self._work(target, todo)
-            except Exception:       # never into the kernel: the panels show their own errors
-                log.exception("seamline: the background computation of board %r failed", self.name)
-                time.sleep(0.05)
-            self._after_work()
-
-    def _design_for(self, target: _Inputs) -> Design:
-        key = target.graph.key("design", target.values)
-        with self._lock:
-            if self._design is not None and self._design_key == key:
-                return self._design
-        design = Design(target.data, **target.design_kwargs())
-        with self._lock:
-            self._design, self._design_key = design, key
-        return design
-
-    def _work(self, target: _Inputs, todo: list[str]) -> None:
-        if target.error is not None:
-            self._publish_all(target, target.error)
-            return
-        try:
-            design = self._design_for(target)
-        except Exception as exc:
-            self._publish_all(target, _message(exc, self._spec_variables))
-            return
-
-        def still_wanted() -> bool:
-            return self._target.data_version == target.data_version
-
-        comp = Computation(design, target.graph, target.values, target.spec, target.options, target.selected,
-                           self._cache, lambda exc: _message(exc, self._spec_variables), store=still_wanted)
-        total = sum(1 for p in todo if not comp.is_cached(p))
-        done = 0
-        for panel in todo:
-            with self._lock:
-                if self._target is not target or self.closed:
-                    return                      # superseded: the loop takes the newest inputs
-                if self._current(panel):
-                    continue
-            cached = comp.is_cached(panel)
-            if not cached:
-                self._progress(done, total, _LABELS[panel])
-            value = comp.panel(panel)
-            done += 0 if cached else 1
-            self._publish(target, {panel: value})
-        if total:
-            self._progress(total, total, "done")
-
-    def _publish(self, target: _Inputs, values: Mapping[str, Any]) -> None:
-        changed: set[str] = set()
-        with self._lock:
-            if self._target is not target:
-                return                          # inputs moved on: the result is discarded
-            for panel, value in values.items():
-                old_result, old_error = self._results.get(panel), self._errors.get(panel)
-                if isinstance(value, Failure):
-                    self._results[panel] = None
-                    self._errors[panel] = value.message
-                else:
-                    self._results[panel] = value
-                    self._errors.pop(panel, None)
-                self._keys[panel] = target.keys[panel]
-                if self._results[panel] is not old_result or self._errors.get(panel) != old_error:
-                    changed.add(panel)
-            self.updated_at = _dt.datetime.now().astimezone()
-            self._fallback_dirty = True
-            self._notifying += 1          # wait() returns only once subscribers have heard of it
-        try:
-            self._notify(changed | {"status"})
-        finally:
-            with self._lock:
-                self._notifying -= 1
-                self._changed.notify_all()
-
-    def _publish_all(self, target: _Inputs, message: str) -> None:
-        with self._lock:
-            if self._target is target:
-                self._design, self._design_key = None, None
-        self._publish(target, {p: Failure(message) for p in self._panels})
-
-    def _after_work(self) -> None:
-        """Once every panel is current for the newest inputs: refresh a displayed static copy
-        (live front end only; headless runs do it after each cell, on the main thread)."""
-        with self._lock:
-            settled = not self._pending() and self._settled_generation != self._target.generation
-            if settled:
-                self._settled_generation = self._target.generation
-        if settled and self._handles and live_front_end():
-            self._update_displays()
 
     # ---- presentation ------------------------------------------------------------------------
     def summary(self) -> dict[str, Any]:
@@ -1025,7 +761,7 @@ class Board:
         Without a live front end (headless runs) it first waits for every panel, so the saved
         output is complete; with one, the static copy follows once the board is idle."""
         from IPython.display import display
-        live = live_front_end()
+        live = scheduler.live_front_end()
         if not live:
             self.wait()
         handle = display(self._mimebundle(charts=not live), raw=True, display_id=True)
@@ -1073,7 +809,7 @@ def _validate_options(spec: Mapping[str, Any], selected: str, options: Mapping[s
     resolve(selected, has_covariates=bool(spec["covariates"]), **options)
 
 
-def _sources_changed(old: _Inputs, new: _Inputs) -> set[str]:
+def _sources_changed(old: Inputs, new: Inputs) -> set[str]:
     """The source names that differ between two snapshots of the inputs."""
     changes = set()
     if new.data_version != old.data_version:
@@ -1096,17 +832,6 @@ def _sources_changed(old: _Inputs, new: _Inputs) -> set[str]:
 
 def _json_float(value: float) -> float | None:
     return float(value) if value is not None and math.isfinite(value) else None
-
-
-def _message(exc: BaseException, spec_variables: Mapping[str, str]) -> str:
-    """The message shown in a panel: our errors as they are; others with their type, since they
-    point at a bug rather than at the input."""
-    text = str(exc) if isinstance(exc, SeamlineError) else f"{type(exc).__name__}: {exc}"
-    if isinstance(exc, SeamlineError) and text.startswith("`"):
-        key = text[1:].split("`", 1)[0]
-        if key in spec_variables:
-            text += f" (`{key}` comes from the notebook variable `{spec_variables[key]}`.)"
-    return text
 
 
 # ---- the Python builder -----------------------------------------------------------------------------

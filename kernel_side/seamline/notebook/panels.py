@@ -245,8 +245,8 @@ class BoardView(widgets.VBox):
         """Render every tab, not just the open one: without a live front end (headless runs save
         the widget state, and nobody opens tabs there). Read at each render: the front end's
         channel may open after the view is made."""
-        from . import board as board_module
-        return not board_module.live_front_end()
+        from . import scheduler
+        return not scheduler.live_front_end()
 
     def _open_tab(self) -> str:
         index = self._tabs.selected_index
