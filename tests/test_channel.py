@@ -247,6 +247,7 @@ def test_real_board_pushes_recomputing_then_fresh_with_the_new_estimate():
         first = ch.handle(request("subscribe"))["designs"][0]
         assert first["status"] == "fresh" and first["estimate"] is not None
         board.set_option("bandwidth", 4.0)
+        board.wait()                      # the board recomputes on its worker thread
         statuses = [m["design"]["status"] for m in sent]
         assert statuses[0] == "recomputing" and statuses[-1] == "fresh"
         assert sent[-1]["design"]["estimate"] == pytest.approx(board.fit.estimate)

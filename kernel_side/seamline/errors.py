@@ -167,3 +167,5 @@ class WindowTooSmallError(SeamlineError):
 
 class NoBalancedWindowError(SeamlineError):
     """Window selection by covariate balance cannot run (no covariates) or no window passes."""
+class WaitTimeoutError(TimeoutError):
+    """``Board.wait`` gave up: the named panels were still computing when the timeout passed."""

@@ -58,7 +58,7 @@ def _same_fit(a, b):
 
 # ---- results -------------------------------------------------------------------------------------
 def test_every_panel_equals_the_direct_design_call(sharp):
-    b = _make(sharp)
+    b = _make(sharp).wait()
     assert b.status == "fresh" and not b.stale and b.errors == {} and b.updated_at is not None
     assert set(b.results) == set(PANELS)
     ref = Design(sharp.data, **_kwargs(sharp))
@@ -175,11 +175,11 @@ def test_selecting_another_outcome(sharp):
 def test_a_failing_main_fit_sets_status_error_and_recovers(sharp):
     b = _make(sharp)
     b.set_option("bandwidth", 0.01)            # far too narrow: no observations in the window
-    assert b.status == "error" and b.fit is None
+    assert b.wait().status == "error" and b.fit is None
     assert b.errors["fit"].startswith("`")     # the engine's own message, e.g. `bandwidth` ...
     assert b.summary()["error"] == b.errors["fit"]
     b.set_option("bandwidth", "mse")
-    assert b.status == "fresh" and b.fit is not None and "fit" not in b.errors
+    assert b.wait().status == "fresh" and b.fit is not None and "fit" not in b.errors
 
 
 def test_a_failing_panel_keeps_the_others(sharp):
@@ -187,7 +187,7 @@ def test_a_failing_panel_keeps_the_others(sharp):
     data = sharp.data.copy()
     x = data[sharp.score]
     data["sparse"] = np.where((x - sharp.cutoff).abs() > 30, 1.0, np.nan)
-    b = seamline.board(data, **{**_kwargs(sharp), "covariates": ["sparse"]})
+    b = seamline.board(data, **{**_kwargs(sharp), "covariates": ["sparse"]}).wait()
     assert b.status == "fresh" and b.fit is not None
     assert b.results["balance"] is None and "balance" in b.errors
     assert b.results["density"] is not None
@@ -201,7 +201,7 @@ def test_a_broken_subscriber_does_not_break_the_board(sharp, caplog):
 
     b.on_change(broken)
     b.set_option("level", 0.99)
-    assert b.fit.level == 0.99 and b.status == "fresh"
+    assert b.wait().fit.level == 0.99 and b.status == "fresh"
     assert "view bug" in caplog.text
 
 
@@ -216,22 +216,24 @@ def test_pause_marks_stale_and_resume_recomputes(sharp):
     assert b.check_inputs() == {f"column:{outcome}"}
     assert b.stale and b.status == "stale" and b.fit is fit        # paused: old numbers, flagged
     b.resume()
-    assert not b.stale and b.status == "fresh"
+    assert not b.stale and b.wait().status == "fresh"
     _same_fit(b.fit, Design(data, **_kwargs(sharp)).fit())
 
 
 def test_progress_and_change_notifications(sharp):
-    b = _make(sharp, panels=["fit", "bandwidths", "density"])
+    b = _make(sharp, panels=["fit", "bandwidths", "density"]).wait()
     progress, changes = [], []
     b.on_progress(lambda done, total, label: progress.append((done, total, label)))
     unsubscribe = b.on_change(lambda board, changed: changes.append(changed))
     b.set_option("kernel", "uniform")
+    b.wait()
     assert progress[-1][0] == progress[-1][1] and progress[-1][2] == "done"
     assert {"fit", "bandwidths"} <= set().union(*changes) and "density" not in set().union(*changes)
     assert any("status" in c for c in changes)
     unsubscribe()
     n = len(changes)
     b.set_option("kernel", "triangular")
+    b.wait()
     assert len(changes) == n
 
 

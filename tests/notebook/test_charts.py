@@ -417,3 +417,21 @@ def test_chart_data_columns_are_internal_names(sharp):
               if isinstance(ch, dict)}
     assert not fields & {"reading_score", "math_gain"}
     assert isinstance(pd.DataFrame(_rows(spec, _find(spec, "circle", x="x", y="mean")[0])), pd.DataFrame)
+
+
+# ---------------------------------------------------------------------------------------------
+# Specs for the browser: Vega-Lite 5 with inline summary data
+# ---------------------------------------------------------------------------------------------
+@pytest.mark.parametrize("what", charts.CHART_NAMES)
+def test_every_chart_spec_compiles_with_vega_lite_5(what, sharp_board, fuzzy_board):
+    # JupyterLab's built-in renderer is Vega-Lite 5; the spec we send declares v5. Reference:
+    # vl-convert's own Vega-Lite 5 compiler (vl_version="5.8", the oldest 5.x it ships).
+    import vl_convert
+    board = fuzzy_board if what == "first_stage" else sharp_board
+    spec = charts.to_vega_lite(charts.chart_for(board.wait(), what))
+    assert spec["$schema"] == "https://vega.github.io/schema/vega-lite/v5.json"
+    vega = vl_convert.vegalite_to_vega(spec, vl_version="5.8")
+    assert vega["$schema"].startswith("https://vega.github.io/schema/vega/v5")
+    assert "url" not in str(spec.get("datasets", {})) and "'url'" not in str(spec.get("data", {}))
+    svg = vl_convert.vegalite_to_svg(spec, vl_version="5.8")
+    assert "<path" in svg or "<rect" in svg or "<circle" in svg or "<line" in svg

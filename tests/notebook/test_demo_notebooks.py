@@ -2,7 +2,7 @@
 
 Each notebook runs top to bottom in a fresh kernel (nbclient, widget state stored). The saved
 notebook must hold the live board (a widget view whose model carries the "seamline-board" class,
-with SVG charts in its state) next to the static HTML fallback, show no error output, stay under
+with Vega-Lite chart specs in its state) next to the static HTML fallback (with SVG charts), show no error output, stay under
 2 MB, and convert to an HTML page that needs no network.
 """
 from __future__ import annotations
@@ -23,6 +23,7 @@ DEMO_DIR = Path(__file__).resolve().parents[2] / "demo_notebooks"
 NOTEBOOKS = demo_notebooks(DEMO_DIR)
 MAX_BYTES = 2_000_000
 WIDGET_STATE = "application/vnd.jupyter.widget-state+json"
+VEGA_LITE = "application/vnd.vegalite.v5+json"
 
 
 def test_there_are_the_three_demo_scenarios():
@@ -74,8 +75,13 @@ def _check_board_output_holds_widget_view_and_static_fallback(executed):
     model = state[data[WIDGET_VIEW]["model_id"]]
     assert "seamline-board" in model["state"]["_dom_classes"]
     html_values = [m["state"].get("value", "") for m in state.values() if m["model_name"] == "HTMLModel"]
-    assert sum(v.count("<svg") for v in html_values) >= 6       # the charts live in the widget state
     assert any("seamline-header" in v for v in html_values)
+    # The live view's charts are Vega-Lite specs with inline data in Output widgets, drawn by the
+    # browser; the widget state holds no kernel-drawn SVG.
+    specs = [o["data"][VEGA_LITE] for m in state.values() if m["model_name"] == "OutputModel"
+             for o in m["state"].get("outputs", []) if VEGA_LITE in o.get("data", {})]
+    assert len(specs) >= 6 and all("url" not in s.get("data", {}) for s in specs)
+    assert sum(v.count("<svg") for v in html_values) == 0
 
 
 def _check_board_follows_the_upstream_edit(executed):

@@ -1,8 +1,10 @@
 """The widget view and the static HTML of real boards (no browser: the widget models are checked).
 
 Boards are built on the invented demo scenarios. The view must show the board's own numbers, call
-``board.set_option`` from its controls, re-render only the panels whose results changed, keep
-errors inside the panels, escape user text, and export through ``board.export``.
+``board.set_option`` from its controls, re-render only the open panels whose results changed,
+send its charts as Vega-Lite specs with inline summary data, keep errors inside the panels,
+escape user text, and export through ``board.export``. The board computes on its worker thread:
+``_settle`` waits for it and for the view's last render before a check.
 """
 from __future__ import annotations
 
@@ -62,8 +64,28 @@ def _with_class(view, css: str):
     return [w for w in _walk(view) if css in w._dom_classes]
 
 
+def _settle(view):
+    """Wait for the board, then render what the view shows (the worker's last callback may still be
+    rendering when ``wait`` returns; rendering the same state again changes nothing)."""
+    view.board.wait()
+    view._render(["header", view._open_tab()])
+    view.settle_charts()
+    return view
+
+
+def _open(view, key: str):
+    view._tabs.selected_index = [k for k, _ in static.PANELS].index(key)
+    return _settle(view)
+
+
 def _panel(view, key: str) -> str:
-    return view._panels[key].value
+    return _open(view, key)._panels[key].value
+
+
+def _specs(view, key: str) -> list[dict]:
+    """The Vega-Lite specs the open tab ``key`` sends to the browser."""
+    _open(view, key)
+    return [o["data"][charts.VEGA_LITE_MIME] for _w, out in view._charts[key] for o in out.outputs]
 
 
 def _count_updates(view) -> dict[str, list]:
@@ -93,7 +115,7 @@ def test_view_is_a_vbox_with_header_controls_and_six_tabs(shared_board):
 
 
 def test_header_shows_the_design_counts_and_headline(shared_board):
-    view = BoardView(shared_board)
+    view = _settle(BoardView(shared_board))
     fit = shared_board.fit
     head = view._header.value
     lo, hi = fit.robust_conf_int
@@ -115,17 +137,22 @@ def test_panels_show_charts_and_the_results_own_tables_offline(shared_board):
     for key, result in expected_tables.items():
         body = _panel(view, key)
         assert result._repr_html_() in body, key
-        assert "<svg" in body and "seamline-error" not in body, key
+        assert "<svg" not in body and "seamline-error" not in body, key   # charts are drawn by the browser
         assert "<script" not in body.lower()
         external = re.findall(r"(?:src|href)=\"(https?:[^\"]*)", body)
         assert external == [], f"{key} loads {external}"
-    assert _panel(view, "placebos").count("<svg") == 2      # placebo cutoffs and donut
+        specs = _specs(view, key)
+        assert specs and all(s["$schema"].endswith("/vega-lite/v5.json") for s in specs), key
+        for spec in specs:          # summary data inline, nothing fetched
+            text = str(spec)
+            assert "'url'" not in text and "http" not in text.replace(spec["$schema"], ""), key
+    assert len(_specs(view, "placebos")) == 2      # placebo cutoffs and donut
 
 
 def test_sharp_first_stage_tab_says_why_it_does_not_apply(shared_board):
     view = BoardView(shared_board)
     body = _panel(view, "first_stage")
-    assert "seamline-info" in body and "<svg" not in body
+    assert "seamline-info" in body and _specs(view, "first_stage") == []
     assert "First stage does not apply" in body and "takeup" in body
     bar = _with_class(_with_class(view, "seamline-panel-first-stage")[0], "seamline-export")[0]
     assert [row.layout.display for row in bar.children] == ["none"]        # nothing to export
@@ -136,9 +163,10 @@ def test_sharp_first_stage_tab_says_why_it_does_not_apply(shared_board):
 def test_fuzzy_first_stage_tab_shows_jump_f_and_plot(fuzzy_view):
     board = fuzzy_view.board
     body = _panel(fuzzy_view, "first_stage")
+    assert len(_specs(fuzzy_view, "first_stage")) == 1
     assert f"first-stage F = <b>{charts.number(board.fit.first_stage_f)}</b>" in body
     assert f"<b>{charts.number(board.fit.first_stage.estimate)}</b>" in body
-    assert "<svg" in body and "First stage: take-up" in body
+    assert "First stage: take-up" in str(_specs(fuzzy_view, "first_stage")[0])
     assert "Fuzzy cutoff design" in fuzzy_view._header.value
 
 
@@ -158,6 +186,7 @@ def test_kernel_control_refits_and_updates_the_panels(sharp_board):
     view = BoardView(sharp_board)
     before = sharp_board.fit.estimate
     view._kernel.value = "uniform"
+    _settle(view)
     assert sharp_board.options["kernel"] == "uniform" and sharp_board.fit.kernel == "uniform"
     assert sharp_board.fit.estimate != before
     assert f"<b>{charts.number(sharp_board.fit.estimate)}</b>" in view._header.value
@@ -168,23 +197,27 @@ def test_kernel_control_refits_and_updates_the_panels(sharp_board):
 
 def test_outcome_change_rerenders_only_the_panels_that_read_it(sharp_board):
     # Balance reads only the covariates, so switching the outcome leaves its panel untouched; the
-    # estimate panel changes once.
+    # open estimate panel ends with the new outcome.
     view = BoardView(sharp_board)
+    _settle(view)
     seen = _count_updates(view)
     view._outcome.value = "attendance"
+    _settle(view)
     assert sharp_board.fit.outcome == "attendance"
     assert seen["balance"] == []
-    assert len(seen["estimate"]) == 1 and "attendance" in seen["estimate"][0]
-    assert len(seen["bandwidths"]) == 1
+    assert seen["estimate"] and "attendance" in seen["estimate"][-1]
+    assert "seamline-pending" not in seen["estimate"][-1]
+    assert "attendance" in _panel(view, "bandwidths")
     assert seen["header"] and "attendance" in view._header.value
 
 
 def test_editing_a_covariate_rerenders_the_balance_panel_only(sharp_board):
-    view = BoardView(sharp_board)
+    view = _open(BoardView(sharp_board), "balance")
     seen = _count_updates(view)
     sharp_board.data.loc[sharp_board.data.index[:400], "prior_math"] += 5.0   # in place, a used covariate
     assert sharp_board.check_inputs() == {"column:prior_math"}
-    assert len(seen["balance"]) == 1
+    _settle(view)
+    assert seen["balance"] and "seamline-pending" not in seen["balance"][-1]
     for key in ("estimate", "bandwidths", "density", "first_stage", "placebos"):
         assert seen[key] == [], key
     assert sharp_board.results["balance"]._repr_html_() in _panel(view, "balance")
@@ -197,10 +230,25 @@ def test_manual_bandwidth_slider(sharp_board):
     view._rule.value = "manual"
     assert not view._manual.disabled
     view._manual.value = round(1.5 * selected, 2)
+    _settle(view)
     assert sharp_board.fit.bandwidth == pytest.approx((round(1.5 * selected, 2),) * 2, rel=1e-9)
     assert sharp_board.fit.bandwidth_rule == "manual"
     view._rule.value = "coverage"
+    _settle(view)
     assert sharp_board.fit.bandwidth_rule == "coverage" and view._manual.disabled
+
+
+def test_with_a_live_front_end_closed_tabs_wait_until_opened(sharp_board, monkeypatch):
+    from seamline.notebook import scheduler
+    monkeypatch.setattr(scheduler, "live_front_end", lambda: True)
+    view = _settle(BoardView(sharp_board))
+    assert view._panels["balance"].value == "" and view._panels["estimate"].value
+    seen = _count_updates(view)
+    view._kernel.value = "uniform"
+    _settle(view)
+    assert seen["estimate"] and seen["balance"] == []              # only the open tab is rendered
+    assert "balance" in view._dirty
+    assert sharp_board.results["balance"]._repr_html_() in _panel(view, "balance")   # ... until opened
 
 
 def test_panels_for_maps_results_to_panels(shared_board):
@@ -218,14 +266,18 @@ def test_panels_for_maps_results_to_panels(shared_board):
 
 
 def test_progress_bar_shows_while_recomputing(sharp_board):
-    view = BoardView(sharp_board)
+    view = _settle(BoardView(sharp_board))
     states = []
     sharp_board.on_progress(lambda done, total, label: states.append(
         (label, view._progress.layout.visibility, view._progress.max)))
     view._degree.value = 2
+    _settle(view)
     working = [s for s in states if s[0] != "done"]
     assert working and all(vis == "visible" for _, vis, _ in working)
-    assert working[0][2] == len(working)
+    # the headline first, then the open tab's results, then the rest once the board is idle
+    labels = [label for label, _, _ in working]
+    assert labels[:2] == ["main estimate", "binned means"] and labels[-1] == "design checks"
+    view._on_change(sharp_board, {"status"})
     assert view._progress.layout.visibility == "hidden"
 
 
@@ -240,19 +292,23 @@ def test_a_rejected_value_is_reported_beside_the_controls(sharp_board):
     assert sharp_board.fit.estimate == estimate and view._rule.value == "mse"
     view._kernel.value = "epanechnikov"                       # the next change clears the message
     assert view._message.value == ""
+    _settle(view)
 
 
 def test_a_failing_recompute_shows_in_the_panels_and_recovers(sharp_board):
     view = BoardView(sharp_board)
     view._donut.value = 1000.0                               # no observations outside the donut
+    _settle(view)
     assert sharp_board.status == "error"
     message = html.escape(sharp_board.errors["fit"])
     assert "seamline-error" in view._header.value and message in view._header.value
     for key in view._panels:
         assert "seamline-error" in _panel(view, key), key
     view._donut.value = 0.0
+    _settle(view)
     assert sharp_board.status == "fresh"
-    assert "seamline-error" not in view._header.value and "<svg" in _panel(view, "estimate")
+    assert "seamline-error" not in _panel(view, "estimate") and _specs(view, "estimate")
+    assert "seamline-error" not in view._header.value
 
 
 def test_a_failed_diagnostic_stays_inside_its_panel(sharp_data):
@@ -265,7 +321,7 @@ def test_a_failed_diagnostic_stays_inside_its_panel(sharp_data):
     body = _panel(view, "balance")
     assert "seamline-error" in body and html.escape(board.errors["balance"]) in body
     assert "seamline-error" not in _panel(view, "estimate")
-    assert "<svg" in _panel(view, "density")
+    assert "seamline-error" not in _panel(view, "density") and _specs(view, "density")
 
 
 def test_a_chart_that_cannot_be_drawn_keeps_the_table(sharp_board, monkeypatch):
@@ -383,4 +439,5 @@ def test_closing_the_view_unsubscribes(sharp_board):
     seen = _count_updates(view)
     view.close()
     sharp_board.set_option("kernel", "uniform")
+    sharp_board.wait()
     assert all(v == [] for v in seen.values())

@@ -1,16 +1,33 @@
 """Live boards: a cutoff design that keeps its results current as the notebook changes.
 
 A :class:`Board` holds a design declaration (column names, the cutoff, fit options), the data it
-reads, and every panel's current result. After each notebook cell (``check_inputs``) it looks at
-what it depends on -- the data variable rebound to a new object, the columns it uses edited in
-place (content fingerprints of those columns only), and every notebook variable its declaration
-names -- and recomputes just the results whose inputs changed (see ``reactive.board_graph``).
-Results are cached by their inputs, so changing ``level`` never refits and switching back to an
-earlier bandwidth is instant.
+reads, and every panel's result. After each notebook cell (``check_inputs``) it looks at what it
+depends on -- the data variable rebound to a new object, the columns it uses edited in place
+(content fingerprints of those columns only), and every notebook variable its declaration names
+-- and recomputes exactly the intermediate results whose inputs changed (the graph is written
+down in ``compute``; a level change only re-reports, see ``levels``).
 
-Invariant: a board's results always belong to its current inputs. When an input cannot be used
-(a deleted variable, a cutoff outside the score's range, ...) the affected panels hold no result
-and ``errors[panel]`` says why; the kernel keeps working and the next change is picked up.
+Threads. Every computation runs on the board's own worker thread, so the kernel stays free:
+``set_option`` records the new inputs and returns at once; the worker computes the headline
+(the main fit) and the panels code waits for first, then -- once the inputs have been still for
+``SETTLE_DELAY`` -- the panels someone looks at (``watch``), then, after ``IDLE_DELAY``, the
+others. Inputs arrive from several threads
+(cells on the main thread, widget messages on subshell threads): one lock guards the board's
+state, and the worker reads an immutable snapshot of the inputs (``Inputs``). A newer change
+supersedes the running one between two intermediate results (the last value wins; nothing
+queues up); results of inputs that a data change replaced are discarded. Errors of a background
+computation become that panel's error; they never reach the kernel's main loop.
+
+Reading results from code -- ``board.fit``, ``board.results[name]``, ``board.errors``,
+``board.export(...)`` -- waits until they belong to the current inputs, so a cell run after a
+change reads what that change produced; ``board.wait(*panels, timeout=None)`` does the same
+explicitly. Views read ``board.state()``, which never waits and marks every panel that is not yet
+current as pending.
+
+Invariant: a published result always belongs to the inputs it is keyed by; a panel whose key is
+not the current inputs' key is pending and shown as such. When an input cannot be used (a
+deleted variable, a cutoff outside the score's range, ...) every panel holds an error saying
+why; the kernel keeps working and the next change is picked up.
 
 Boards are made by the ``%%cutoff`` cell magic or from Python with :func:`board`. Nothing here
 imports IPython or ipywidgets at module level.
@@ -18,33 +35,37 @@ imports IPython or ipywidgets at module level.
 from __future__ import annotations
 
 import datetime as _dt
-import html
 import itertools
 import logging
 import math
 import sys
+import threading
+import time
 import warnings
 import weakref
-from collections import OrderedDict
-from collections.abc import Callable, Iterable, Mapping
-from dataclasses import dataclass
-from numbers import Integral, Real
+from collections import Counter
+from collections.abc import Callable, Iterable, Iterator, Mapping
 from pathlib import Path
-from types import MappingProxyType
 from typing import Any
-
-import numpy as np
-import pandas as pd
 
 from ..errors import InvalidOptionError, SeamlineError
 from ..estimate.design import Design
 from ..estimate.options import resolve
-from ..options import BANDWIDTH_RULES, KERNELS, SIDES, VARIANCES, check_option
-from .reactive import (PANELS, DataIdentity, board_graph, column_node, fingerprints, panel_node,
-                       shared_fingerprints)
+from .compute import NodeCache, balance_rule, compute_graph, panel_key
+from .exports import CHART_FORMATS, TABLE_FORMATS, export_result, methods_text
+from .reactive import PANELS, DataIdentity, column_node, fingerprints, shared_fingerprints
+from .spec import (DESIGN_KEYS, OPTION_DEFAULTS, REQUIRED_KEYS, SPEC_KEYS, NotApplicable,
+                   coerce_value, lookup)
+from .spec import _EXAMPLE_COLUMN
+from . import scheduler
+from .scheduler import IDLE_DELAY, SETTLE_DELAY, BoardState, Inputs, Scheduler, live_front_end
 
 __all__ = [
     "Board",
+    "BoardState",
+    "IDLE_DELAY",
+    "SETTLE_DELAY",
+    "live_front_end",
     "NotApplicable",
     "board",
     "boards",
@@ -53,220 +74,14 @@ __all__ = [
     "OPTION_DEFAULTS",
     "REQUIRED_KEYS",
     "SPEC_KEYS",
+    "coerce_value",
+    "lookup",
 ]
 
 log = logging.getLogger("seamline")
 
-#: Keys of the design declaration (names and numbers given to ``seamline.Design``).
-DESIGN_KEYS: tuple[str, ...] = ("score", "cutoff", "treated", "outcome", "takeup", "covariates",
-                                "cluster", "weights")
-#: Fit options and their defaults (the engine's defaults).
-OPTION_DEFAULTS: dict[str, Any] = {
-    "bandwidth": "mse", "kernel": "triangular", "degree": 1, "bias_degree": None,
-    "pilot_bandwidth": None, "variance": "neighbors", "level": 0.95, "donut": 0.0,
-    "derivative": 0, "adjust": False,
-}
-#: Every key a declaration may hold.
-SPEC_KEYS: tuple[str, ...] = ("data", *DESIGN_KEYS, *OPTION_DEFAULTS)
-#: Keys a declaration must hold.
-REQUIRED_KEYS: tuple[str, ...] = ("data", "score", "cutoff", "outcome")
-
-#: Fits are computed at this level and re-reported at the board's ``level`` (no refit).
-_REFERENCE_LEVEL = 0.95
 _CACHE_SIZE = 256
 STATUSES = ("fresh", "stale", "recomputing", "error")
-
-_LABELS = {
-    "fit": "main estimate", "first_stage": "first stage", "bins": "binned means",
-    "first_stage_bins": "binned take-up", "bandwidths": "bandwidth rules", "density": "density test",
-    "balance": "covariate balance", "sensitivity": "bandwidth sensitivity",
-    "placebo": "placebo cutoffs", "donut": "donut radii", "score_profile": "score profile",
-    "checks": "design checks",
-}
-#: Export names -> result keys.
-EXPORTS: dict[str, str] = {
-    "estimate": "fit", "first_stage": "first_stage", "bandwidths": "bandwidths",
-    "sensitivity": "sensitivity", "balance": "balance", "density": "density", "placebo": "placebo",
-    "donut": "donut", "bins": "bins", "score_profile": "score_profile", "checks": "checks",
-}
-TABLE_FORMATS = ("latex", "markdown", "csv", "html", "text")
-CHART_FORMATS = ("svg", "png")
-
-
-@dataclass(frozen=True)
-class NotApplicable:
-    """A panel that does not apply to this design, with the reason (e.g. a first stage for a sharp
-    design). ``applies`` is always False, so views can test for it without importing this class."""
-
-    reason: str
-    applies: bool = False
-
-    def _repr_html_(self) -> str:
-        return f'<p class="seamline-not-applicable">{html.escape(self.reason)}</p>'
-
-    def __str__(self) -> str:
-        return self.reason
-
-
-@dataclass(frozen=True)
-class _Failure:
-    """A cached computation error (the same inputs give the same error, so it is not retried)."""
-    message: str
-
-
-# ---- values of the declaration -----------------------------------------------------------------
-def _where(key: str, variable: str | None) -> str:
-    return f"`{key}`" + (f" (from the notebook variable `{variable}`)" if variable else "")
-
-
-def _is_real(value: Any) -> bool:
-    return isinstance(value, Real) and not isinstance(value, (bool, np.bool_))
-
-
-def _as_float(key: str, value: Any, variable: str | None, example: str) -> float:
-    if isinstance(value, np.ndarray) and value.ndim == 0:
-        value = value.item()
-    if not _is_real(value):
-        raise InvalidOptionError(f"{_where(key, variable)} must be a number; got {value!r}. "
-                                 f"Use e.g. `{key}: {example}`.")
-    return float(value)
-
-
-def _as_int(key: str, value: Any, variable: str | None) -> int:
-    if isinstance(value, Integral) and not isinstance(value, (bool, np.bool_)):
-        return int(value)
-    if _is_real(value) and float(value).is_integer():
-        return int(value)
-    raise InvalidOptionError(f"{_where(key, variable)} must be a whole number; got {value!r}. "
-                             f"Use e.g. `{key}: 1`.")
-
-
-def _as_name(key: str, value: Any, variable: str | None, optional: bool) -> str | None:
-    if value is None and optional:
-        return None
-    if isinstance(value, str) and value.strip():
-        return value.strip()
-    fix = "a column name" + (" (or leave the key out)" if optional else "")
-    raise InvalidOptionError(f"{_where(key, variable)} must be {fix}; got {value!r}. "
-                             f"Name a column of the data, e.g. `{key}: {_EXAMPLE_COLUMN[key]}`.")
-
-
-def _as_names(key: str, value: Any, variable: str | None) -> tuple[str, ...]:
-    if value is None and key == "covariates":
-        return ()
-    if isinstance(value, str):
-        value = [value]
-    if isinstance(value, pd.Index):
-        value = list(value)
-    if isinstance(value, (list, tuple)) and all(isinstance(v, str) and v.strip() for v in value):
-        names = tuple(v.strip() for v in value)
-        if names or key == "covariates":
-            return names
-    raise InvalidOptionError(f"{_where(key, variable)} must be a column name or a list of names; got "
-                             f"{value!r}. Use e.g. `{key}: {_EXAMPLE_COLUMN[key]}`.")
-
-
-def _as_pair_or_number(key: str, value: Any, variable: str | None) -> float | tuple[float, float]:
-    if isinstance(value, (list, tuple, np.ndarray)) and len(value) == 2 and all(map(_is_real, value)):
-        return (float(value[0]), float(value[1]))
-    if _is_real(value):
-        return float(value)
-    raise InvalidOptionError(f"{_where(key, variable)} must be a number or two numbers (below, above); "
-                             f"got {value!r}. Use e.g. `{key}: 2.5` or `{key}: 2.0, 3.0`.")
-
-
-_EXAMPLE_COLUMN = {"score": "reading_score", "outcome": "math_gain", "takeup": "attended",
-                   "covariates": "age, prior_math", "cluster": "school", "weights": "sample_weight"}
-
-
-def coerce_value(key: str, value: Any, variable: str | None = None) -> Any:
-    """Check one declaration value and return it in canonical form.
-
-    Parameters
-    ----------
-    key : one of ``SPEC_KEYS`` except "data"
-    value : the Python value (a literal from a ``%%cutoff`` cell or a notebook variable's value)
-    variable : the notebook variable it came from, named in error messages
-
-    Returns
-    -------
-    The value: floats for numbers, ints for degrees, tuples for lists and pairs, canonical
-    spellings for choices.
-
-    Raises
-    ------
-    InvalidOptionError
-        With the key, the variable, the value and how to fix it.
-    """
-    if key in ("cutoff", "level", "donut"):
-        number = _as_float(key, value, variable, {"cutoff": "40", "level": "0.95", "donut": "0.5"}[key])
-        if key == "level" and not 0 < number < 1:
-            raise InvalidOptionError(f"{_where(key, variable)} must be between 0 and 1; got {value!r}. "
-                                     "Use e.g. `level: 0.95`.")
-        if key == "cutoff" and not math.isfinite(number):
-            raise InvalidOptionError(f"{_where(key, variable)} must be a finite number; got {value!r}. "
-                                     "Use e.g. `cutoff: 40`.")
-        return number
-    if key in ("degree", "derivative"):
-        return _as_int(key, value, variable)
-    if key == "bias_degree":
-        return None if value is None else _as_int(key, value, variable)
-    if key in ("score", "takeup", "cluster", "weights"):
-        return _as_name(key, value, variable, optional=key != "score")
-    if key in ("outcome", "covariates"):
-        return _as_names(key, value, variable)
-    if key in ("treated", "kernel", "variance"):
-        allowed = {"treated": SIDES, "kernel": KERNELS, "variance": VARIANCES}[key]
-        try:
-            return check_option(key, value, allowed)
-        except InvalidOptionError:
-            choices = ", ".join(f'"{a}"' for a in allowed)
-            raise InvalidOptionError(f"{_where(key, variable)} must be one of {choices}; got {value!r}. "
-                                     "Pick one of the listed values.") from None
-    if key == "bandwidth":
-        if isinstance(value, str):
-            try:
-                return check_option(key, value, BANDWIDTH_RULES)
-            except InvalidOptionError:
-                rules = ", ".join(f'"{a}"' for a in BANDWIDTH_RULES)
-                raise InvalidOptionError(f"{_where(key, variable)} must be one of {rules}, a number or two "
-                                         f"numbers; got {value!r}. Use e.g. `bandwidth: mse` or "
-                                         "`bandwidth: 2.5`.") from None
-        return _as_pair_or_number(key, value, variable)
-    if key == "pilot_bandwidth":
-        return None if value is None else _as_pair_or_number(key, value, variable)
-    if key == "adjust":
-        if isinstance(value, (bool, np.bool_)):
-            return bool(value)
-        raise InvalidOptionError(f"{_where(key, variable)} must be true or false; got {value!r}. "
-                                 "Use `adjust: true` to adjust for the covariates.")
-    raise InvalidOptionError(f"`key` must be one of {', '.join(SPEC_KEYS)}; got {key!r}. "
-                             "Check the spelling of the setting.")
-
-
-def lookup(namespace: Mapping[str, Any], name: str) -> Any:
-    """The value of a notebook variable, or of a dotted attribute path (``config.cutoff``).
-
-    Only names and attribute access are followed; nothing is evaluated.
-
-    Raises
-    ------
-    NameError
-        When the variable (or an attribute on the path) does not exist.
-    """
-    head, *rest = name.split(".")
-    if head not in namespace:
-        raise NameError(f"`{head}` must be a variable defined in the notebook; got no such variable. "
-                        "Define it in a cell above.")
-    value = namespace[head]
-    for i, attribute in enumerate(rest):
-        try:
-            value = getattr(value, attribute)
-        except AttributeError:
-            path = ".".join([head, *rest[:i]])
-            raise NameError(f"`{name}` must name an existing attribute; got no attribute {attribute!r} "
-                            f"on `{path}`. Check the spelling.") from None
-    return value
 
 
 # ---- the registry ---------------------------------------------------------------------------------
@@ -298,13 +113,16 @@ def find(name: str, namespace: Mapping | None = None) -> "Board | None":
 def _after_cell(shell, *args) -> None:
     """post_run_cell callback: every live board of this shell checks its inputs."""
     namespace = getattr(shell, "user_ns", None)
+    headless = not scheduler.live_front_end()
     with shared_fingerprints():     # boards reading the same columns hash them once per cell
         for b in boards():
             if b._namespace is not None and b._namespace is not namespace:
                 continue
             try:
                 b.check_inputs()
-                b._update_displays()
+                if headless:
+                    b.wait()
+                    b._update_displays()
             except Exception:   # a board must never break the kernel; it records its own errors
                 log.exception("seamline: checking board %r after a cell failed", b.name)
 
@@ -341,9 +159,32 @@ def _current_shell():
     return get_ipython()
 
 
+class _LiveResults(Mapping):
+    """``board.results``: reading a panel waits until it belongs to the current inputs."""
+
+    def __init__(self, board: "Board"):
+        self._board = board
+
+    def __getitem__(self, panel: str) -> Any:
+        if panel not in self._board._panels:
+            raise KeyError(panel)
+        self._board.wait(panel)
+        with self._board._lock:
+            return self._board._results.get(panel)
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._board._panels)
+
+    def __len__(self) -> int:
+        return len(self._board._panels)
+
+    def __repr__(self) -> str:
+        return f"<results of board {self._board.name!r}: {', '.join(self._board._panels)}>"
+
+
 # ---- the board ------------------------------------------------------------------------------------
-class Board:
-    """A live cutoff design: current results for every panel, kept in step with the notebook.
+class Board(Scheduler):
+    """A live cutoff design: results for every panel, kept in step with the notebook off the main thread.
 
     Parameters
     ----------
@@ -368,21 +209,21 @@ class Board:
     panels : iterable of str, optional
         Which results to compute (default: all of ``reactive.PANELS``); "fit" is always computed.
     autorun : bool, default True
-        Compute the results now (otherwise on the first ``refresh()``).
+        Start computing now (otherwise on the first ``refresh()``).
 
     Attributes
     ----------
-    results : mapping panel -> result object, ``NotApplicable`` or None (no current result)
-    errors : dict panel -> message for panels whose computation failed
-    status : "fresh" | "stale" | "recomputing" | "error" ("error" only when the main fit fails)
+    results : mapping panel -> result object, ``NotApplicable`` or None; reading a panel waits
+        for its result for the current inputs
+    errors : dict panel -> message for panels whose computation failed (waits for every panel)
+    status : "fresh" (the headline and every watched or awaited panel are current), "recomputing",
+        "stale" (paused with pending changes) or "error" (the main fit or the inputs failed)
     stale : bool; updated_at : datetime or None; paused : bool
 
     Notes
     -----
-    Recompute rules: a change marks stale exactly the results downstream of it in
-    ``reactive.board_graph`` (``level`` only re-reports the main fit; ``kernel`` invalidates every
-    fit; a covariate column only the balance panel; the density test only reads the score).
-    ``pause()`` stops the automatic recompute after cells (the board still marks itself stale);
+    Recompute rules: ``compute.compute_graph`` (its module docstring holds the table).
+    ``pause()`` stops the automatic recompute after cells (the board marks itself stale);
     explicit actions -- ``set_option``, ``refresh``, ``resume`` -- always bring it up to date.
     """
 
@@ -405,9 +246,7 @@ class Board:
                 raise InvalidOptionError("`data` must be given (or `data_name` with a `namespace`); got "
                                          "neither. Pass the DataFrame, e.g. board(pupils, ...).")
             data = lookup(namespace, data_name)
-        self._data = data
         self._identity = DataIdentity(data)
-        self._data_version = 0
 
         design = dict(design_kwargs)
         unknown = sorted(set(design) - set(DESIGN_KEYS))
@@ -418,25 +257,25 @@ class Board:
             if key not in design:
                 raise InvalidOptionError(f"`{key}` must be declared; got nothing. Add it, e.g. "
                                          f"`{key}: {'40' if key == 'cutoff' else _EXAMPLE_COLUMN[key]}`.")
-        self._spec: dict[str, Any] = {"treated": "above", "takeup": None, "covariates": (), "cluster": None,
-                                      "weights": None}
+        spec: dict[str, Any] = {"treated": "above", "takeup": None, "covariates": (), "cluster": None,
+                                "weights": None}
         for key, value in design.items():
-            self._spec[key] = coerce_value(key, value, self._spec_variables.get(key))
+            spec[key] = coerce_value(key, value, self._spec_variables.get(key))
         options = dict(fit_options or {})
         selected = options.pop("outcome", None)
         unknown = sorted(set(options) - set(OPTION_DEFAULTS))
         if unknown:
             raise InvalidOptionError(f"`fit_options` must be fit options; got {unknown!r}. "
                                      f"Use keys among {', '.join(OPTION_DEFAULTS)}.")
-        self._options: dict[str, Any] = dict(OPTION_DEFAULTS)
+        opts: dict[str, Any] = dict(OPTION_DEFAULTS)
         for key, value in options.items():
-            self._options[key] = coerce_value(key, value, self._spec_variables.get(key))
-        self._selected = self._check_selected(selected if selected is not None else self._spec["outcome"][0])
-        self._validate_options(self._options)
+            opts[key] = coerce_value(key, value, self._spec_variables.get(key))
+        selected = _check_selected(spec, selected if selected is not None else spec["outcome"][0])
+        _validate_options(spec, selected, opts)
         self._seen: dict[str, Any] = {}
         if namespace is not None:
-            for key, variable in self._spec_variables.items():
-                self._seen[key] = self._spec[key] if key in self._spec else self._options[key]
+            for key in self._spec_variables:
+                self._seen[key] = spec[key] if key in spec else opts[key]
 
         wanted = PANELS if panels is None else tuple(panels)
         bad = [p for p in wanted if p not in PANELS]
@@ -444,19 +283,29 @@ class Board:
             raise InvalidOptionError(f"`panels` must be among {', '.join(PANELS)}; got {bad!r}. "
                                      "Leave it out to compute every panel.")
         self._panels = tuple(p for p in PANELS if p in wanted or p == "fit")
+
+        self._lock = threading.RLock()
+        self._changed = threading.Condition(self._lock)    # notified on every input change and result
+        self._generation = itertools.count(1)
+        self._inputs = self._snapshot(data=data, data_version=0, spec=spec, options=opts, selected=selected,
+                                      prints=fingerprints(data, _columns(spec)), error=None)
+        self._target = self._inputs          # the inputs the results must reach (lags while paused)
+        self._target_since = time.monotonic()
         self._results: dict[str, Any] = {p: None for p in self._panels}
-        self.errors: dict[str, str] = {}
-        self.stale = True
-        self.status = "stale"
+        self._errors: dict[str, str] = {}
+        self._keys: dict[str, tuple] = {}
+        self._watched: dict[int, frozenset] = {}     # view id -> panels it shows
+        self._awaited: Counter = Counter()           # panels some thread waits for
+        self._cache = NodeCache(_CACHE_SIZE)
+        self._design: Design | None = None
+        self._design_key: tuple | None = None
         self.updated_at: _dt.datetime | None = None
         self.paused = False
         self.closed = False
-        self._fingerprints: dict[str, bytes] = fingerprints(data, self.columns)
-        self._input_error: str | None = None
-        self._design: Design | None = None
-        self._design_key: tuple | None = None
-        self._keys: dict[str, tuple] = {}
-        self._cache: OrderedDict[tuple, Any] = OrderedDict()
+        self._started = autorun
+        self._worker: threading.Thread | None = None
+        self._settled_generation = 0
+        self._notifying = 0
         self._change_callbacks: list[Callable] = []
         self._progress_callbacks: list[Callable] = []
         self._view = None
@@ -465,50 +314,112 @@ class Board:
         self._serial = next(_SERIAL)
         _REGISTRY[self._serial] = weakref.ref(self)
         if autorun:
-            self._recompute()
+            self._kick()
+
+    # ---- snapshots of the inputs ------------------------------------------------------------
+    def _snapshot(self, *, data, data_version, spec, options, selected, prints, error) -> Inputs:
+        """Freeze one set of inputs with each panel's key (called under the lock or in __init__)."""
+        generation = next(self._generation)
+        if error is not None:
+            keys = {p: ("unusable inputs", generation) for p in self._panels}
+            return Inputs(generation, data, data_version, dict(spec), dict(options), selected, dict(prints), error,
+                           keys=keys)
+        graph = compute_graph(score=spec["score"], outcomes=spec["outcome"], outcome=selected,
+                              takeup=spec["takeup"], covariates=spec["covariates"], cluster=spec["cluster"],
+                              weights=spec["weights"], adjust=bool(options["adjust"]))
+        values: dict[str, Any] = {column_node(c): fp for c, fp in prints.items()}
+        values.update(spec)
+        values.update(options)
+        values["outcomes"] = values.pop("outcome")
+        values["outcome"] = selected
+        values["data"] = data_version
+        values["balance_rule"] = balance_rule(options["bandwidth"])
+        keys = {p: panel_key(graph, values, p, options["level"]) for p in self._panels}
+        return Inputs(generation, data, data_version, dict(spec), dict(options), selected, dict(prints), None,
+                       graph, values, keys)
+
+    def _replace_inputs(self, *, accept: bool, **changes) -> Inputs:
+        """New inputs from the current ones with ``changes`` (under the lock); the worker is told."""
+        old = self._inputs
+        fields = dict(data=old.data, data_version=old.data_version, spec=old.spec, options=old.options,
+                      selected=old.selected, prints=old.fingerprints, error=old.error)
+        fields.update(changes)
+        self._inputs = self._snapshot(**fields)
+        if accept:
+            self._accept()
+        return self._inputs
+
+    def _accept(self) -> None:
+        """Make the current inputs the target of the results (under the lock)."""
+        if self._target is not self._inputs:
+            self._target = self._inputs
+            self._target_since = time.monotonic()
+        self._started = True
+        self._changed.notify_all()
 
     # ---- read-only views of the state -----------------------------------------------------
     @property
     def results(self) -> Mapping[str, Any]:
-        """Every panel's current result (read-only mapping)."""
-        return MappingProxyType(self._results)
+        """Every panel's result for the current inputs (reading one waits for it; read-only)."""
+        return _LiveResults(self)
+
+    @property
+    def errors(self) -> dict[str, str]:
+        """Panel -> error message for the current inputs (waits for every panel; a copy)."""
+        self.wait()
+        with self._lock:
+            return dict(self._errors)
 
     @property
     def fit(self):
-        """The current Fit of the selected outcome at the board's level, or None after an error."""
-        value = self._results.get("fit")
+        """The current Fit of the selected outcome at the board's level (waits for it), or None
+        after an error."""
+        value = self.results["fit"]
         return value if not isinstance(value, NotApplicable) else None
 
     @property
     def design(self) -> Design | None:
-        """The current ``seamline.Design`` (rebuilt when the data or the declaration changes), or
-        None while the inputs cannot form a design (``status`` "error"; ``errors`` says why)."""
-        if self._design is None and self.status != "error":
-            self._design = Design(self._data, **self._design_kwargs())
-        return self._design
+        """The ``seamline.Design`` of the current inputs (built on first use), or None while the
+        inputs cannot form one (``status`` "error"; ``errors`` says why)."""
+        with self._lock:
+            target = self._target
+        if target.error is not None:
+            return None
+        try:
+            return self._design_for(target)
+        except SeamlineError:
+            return None
+
+    def validate(self) -> Design:
+        """Build the Design of the current inputs now, raising its validation error (a missing
+        column, a cutoff outside the score's range, ...); the ``%%cutoff`` magic calls this to
+        point the error at the line of the declaration."""
+        with self._lock:
+            target = self._target
+        if target.error is not None:
+            raise InvalidOptionError(target.error)
+        return self._design_for(target)
 
     @property
     def data(self):
         """The data the board currently reads (the user's object; never modified)."""
-        return self._data
+        return self._inputs.data
 
     @property
     def spec(self) -> dict[str, Any]:
         """The current design declaration (a copy)."""
-        return dict(self._spec)
+        return dict(self._inputs.spec)
 
     @property
     def options(self) -> dict[str, Any]:
         """The current fit options, including the selected ``outcome`` (a copy)."""
-        return {"outcome": self._selected, **self._options}
+        inputs = self._inputs
+        return {"outcome": inputs.selected, **inputs.options}
 
     @property
     def columns(self) -> tuple[str, ...]:
         """The data columns the board reads (only these are fingerprinted)."""
-        s = self._spec
-        names = [s["score"], *s["outcome"], *(c for c in (s["takeup"], s["cluster"], s["weights"]) if c),
-                 *s["covariates"]]
-        return tuple(dict.fromkeys(names))
+        return _columns(self._inputs.spec)
 
     @property
     def panels(self) -> tuple[str, ...]:
@@ -519,23 +430,48 @@ class Board:
         """Declaration key -> notebook variable it is read from."""
         return dict(self._spec_variables)
 
+    @property
+    def status(self) -> str:
+        """"fresh", "recomputing", "stale" or "error" (never waits)."""
+        with self._lock:
+            return self._status()
+
+    @property
+    def stale(self) -> bool:
+        """Whether the inputs changed while paused and the results still show the earlier ones
+        (never waits; ``refresh()`` or ``resume()`` brings them up to date)."""
+        with self._lock:
+            return self._target is not self._inputs
+
+    def state(self) -> BoardState:
+        """The board as a view shows it, at this moment (never waits)."""
+        with self._lock:
+            inputs = self._inputs
+            return BoardState(name=self.name, results=dict(self._results), errors=dict(self._errors),
+                              pending=self._pending(), status=self._status(), paused=self.paused,
+                              stale=self._target is not self._inputs,
+                              updated_at=self.updated_at, options={"outcome": inputs.selected, **inputs.options},
+                              spec=dict(inputs.spec), outcomes=tuple(inputs.spec["outcome"]))
+
     def __repr__(self) -> str:
-        s = self._spec
-        head = f"<Board {self.name}: {s['score']} at {s['cutoff']:g}, outcome {self._selected}"
-        fit = self.fit
-        if fit is not None:
+        state = self.state()
+        s = state.spec
+        head = f"<Board {self.name}: {s['score']} at {s['cutoff']:g}, outcome {state.options['outcome']}"
+        fit = state.results.get("fit")
+        if fit is not None and not isinstance(fit, NotApplicable) and "fit" not in state.pending:
             lo, hi = fit.robust_conf_int
             head += (f"; {fit.kind} estimate {fit.estimate:.4g}, robust {fit.level:.0%} CI "
                      f"[{lo:.4g}, {hi:.4g}]")
         when = f", updated {self.updated_at:%H:%M:%S}" if self.updated_at else ""
-        error = f"; error: {self.errors.get('fit')}" if self.status == "error" else ""
-        return head + f"; {self.status}{' (paused)' if self.paused else ''}{when}{error}>"
+        error = f"; error: {state.errors.get('fit')}" if state.status == "error" else ""
+        return head + f"; {state.status}{' (paused)' if self.paused else ''}{when}{error}>"
 
     # ---- subscriptions --------------------------------------------------------------------------
     def on_change(self, callback: Callable[["Board", set], Any]) -> Callable[[], None]:
         """Call ``callback(board, changed)`` after each update; ``changed`` holds the names of the
         panels whose result or error changed, and "status" when the status, staleness or pause
-        state may have changed. Returns a function that unsubscribes."""
+        state may have changed. Callbacks run on the thread that made the update (often the
+        worker): they must not wait for the board. Returns a function that unsubscribes."""
         self._change_callbacks.append(callback)
         return lambda: self._change_callbacks.remove(callback) if callback in self._change_callbacks else None
 
@@ -545,6 +481,17 @@ class Board:
         Returns a function that unsubscribes."""
         self._progress_callbacks.append(callback)
         return lambda: self._progress_callbacks.remove(callback) if callback in self._progress_callbacks else None
+
+    def watch(self, viewer: Any, panels: Iterable[str]) -> None:
+        """Tell the board which panels ``viewer`` (a view) shows now: they are computed right after
+        the headline, before panels nobody looks at. An empty list withdraws the viewer."""
+        wanted = frozenset(p for p in panels if p in self._panels)
+        with self._lock:
+            if wanted:
+                self._watched[id(viewer)] = wanted
+            else:
+                self._watched.pop(id(viewer), None)
+            self._changed.notify_all()
 
     def _notify(self, changed: set[str]) -> None:
         for cb in list(self._change_callbacks):
@@ -561,36 +508,20 @@ class Board:
                 log.exception("seamline: an on_progress subscriber of board %r failed", self.name)
 
     # ---- inputs -----------------------------------------------------------------------------
-    def _check_selected(self, outcome: Any) -> str:
-        allowed = tuple(self._spec["outcome"]) + tuple(self._spec["covariates"])
-        if not isinstance(outcome, str) or outcome not in allowed:
-            raise InvalidOptionError(f"`outcome` must be one of the declared outcomes or covariates "
-                                     f"{list(allowed)}; got {outcome!r}. Declare it first.")
-        return outcome
-
-    def _validate_options(self, options: Mapping[str, Any]) -> None:
-        resolve(self._selected, has_covariates=bool(self._spec["covariates"]), **options)
-
-    def _design_kwargs(self) -> dict[str, Any]:
-        s = self._spec
-        return dict(score=s["score"], cutoff=s["cutoff"], outcome=list(s["outcome"]), treated=s["treated"],
-                    takeup=s["takeup"], covariates=list(s["covariates"]) or None, cluster=s["cluster"],
-                    weights=s["weights"])
-
-    def _sync_inputs(self) -> set[str]:
-        """Read the notebook: data identity, spec variables, column fingerprints. Returns the
-        changed sources; sets ``_input_error`` when an input cannot be read."""
-        changes: set[str] = set()
-        error = None
+    def _read_notebook(self) -> dict[str, Any] | None:
+        """Read the notebook: data identity, spec variables, column fingerprints (under the lock).
+        Returns the changed fields of the inputs, or None when nothing the board reads changed."""
+        old = self._inputs
+        data, version, error = old.data, old.data_version, None
+        spec, options, selected = dict(old.spec), dict(old.options), old.selected
+        changed = False
         if self._namespace is not None and self._data_name is not None:
             try:
-                data = lookup(self._namespace, self._data_name)
+                new = lookup(self._namespace, self._data_name)
             except NameError as exc:
-                data, error = self._data, f"`data` is read from the notebook variable `{self._data_name}`: {exc}"
-            if not self._identity.same(data):
-                self._data, self._identity = data, DataIdentity(data)
-                self._data_version += 1
-                changes.add("data")
+                new, error = data, f"`data` is read from the notebook variable `{self._data_name}`: {exc}"
+            if not self._identity.same(new):
+                data, self._identity, version, changed = new, DataIdentity(new), version + 1, True
         if self._namespace is not None:
             for key, variable in self._spec_variables.items():
                 try:
@@ -600,71 +531,52 @@ class Board:
                     continue
                 if self._seen.get(key, _MISSING) != value:
                     self._seen[key] = value
-                    if key in self._spec:
-                        self._spec[key] = value
-                        if key in ("outcome", "covariates") and self._selected not in (
-                                *self._spec["outcome"], *self._spec["covariates"]):
-                            self._selected = self._spec["outcome"][0]
+                    changed = True
+                    if key in spec:
+                        spec[key] = value
+                        if key in ("outcome", "covariates") and selected not in (*spec["outcome"],
+                                                                                  *spec["covariates"]):
+                            selected = spec["outcome"][0]
                     else:
-                        self._options[key] = value
-                    changes.add(key)
-        if error is None and changes & set(SPEC_KEYS):
+                        options[key] = value
+        if error is None and changed:
             try:
-                self._validate_options(self._options)
+                _validate_options(spec, selected, options)
             except SeamlineError as exc:
                 error = str(exc)
-        fps = fingerprints(self._data, self.columns)
-        for name, fp in fps.items():
-            if self._fingerprints.get(name) != fp:
-                changes.add(column_node(name))
-        self._fingerprints = fps
-        if error != self._input_error:
-            changes.add("inputs")
-        self._input_error = error
-        return changes
-
-    def _graph(self):
-        s = self._spec
-        return board_graph(score=s["score"], outcomes=s["outcome"], outcome=self._selected, takeup=s["takeup"],
-                           covariates=s["covariates"], cluster=s["cluster"], weights=s["weights"],
-                           adjust=bool(self._options["adjust"]))
-
-    def _source_values(self) -> dict[str, Any]:
-        values: dict[str, Any] = {column_node(c): fp for c, fp in self._fingerprints.items()}
-        values.update(self._spec)
-        values.update(self._options)
-        values["outcomes"] = values.pop("outcome")
-        values["outcome"] = self._selected
-        values["data"] = self._data_version
-        return values
+        prints = fingerprints(data, _columns(spec))
+        if prints != old.fingerprints or error != old.error:
+            changed = True
+        if not changed:
+            return None
+        return dict(data=data, data_version=version, spec=spec, options=options, selected=selected, prints=prints,
+                    error=error)
 
     # ---- the public actions -------------------------------------------------------------------
     def check_inputs(self) -> set[str]:
-        """Look for changed inputs (called after every notebook cell) and update what they affect.
+        """Look for changed inputs (called after every notebook cell) and start updating what they
+        affect (the call returns at once; reads wait for the new results).
 
         Returns
         -------
         set of str
             The changed sources: "data" (the variable was rebound), ``column:<name>`` (a used
-            column's content), declaration keys read from notebook variables. Empty when nothing
-            the board reads changed -- e.g. an edit to a column it does not use.
+            column's content), declaration keys read from notebook variables, "inputs" when an
+            input became unusable or usable again. Empty when nothing the board reads changed.
         """
         if self.closed:
             return set()
-        changes = self._sync_inputs()
-        if not changes:
-            return changes
-        self.stale = True
-        if self.paused:
-            if self.status != "error":
-                self.status = "stale"
-            self._notify({"status"})
-        else:
-            self._recompute()
-        return changes
+        with self._lock:
+            old = self._inputs
+            changes = self._read_notebook()
+            if changes is None:
+                return set()
+            new = self._replace_inputs(accept=not self.paused, **changes)
+        self._notify({"status"})
+        return _sources_changed(old, new)
 
     def refresh(self, force: bool = False) -> None:
-        """Bring every result up to date now (also when paused).
+        """Bring every result up to date (also when paused); returns at once, reads wait.
 
         Parameters
         ----------
@@ -672,13 +584,18 @@ class Board:
             Drop the cache and recompute everything (e.g. after changing data in a way
             fingerprints cannot see, such as a library writing through a raw pointer).
         """
-        if force:
-            self._cache.clear()
-            self._keys.clear()
-            self._design = None
-            self._design_key = None
-        self._sync_inputs()
-        self._recompute()
+        with self._lock:
+            if force:
+                self._cache.clear()
+                self._keys.clear()
+                self._design, self._design_key = None, None
+                self._replace_inputs(accept=False, data_version=self._inputs.data_version + 1)
+            changes = self._read_notebook()
+            if changes is not None:
+                self._replace_inputs(accept=False, **changes)
+            self._accept()
+        self._kick()
+        self._notify({"status"})
 
     def pause(self) -> None:
         """Stop recomputing automatically after cells; the board still marks itself stale."""
@@ -688,53 +605,54 @@ class Board:
     def resume(self) -> None:
         """Recompute automatically again, starting now if anything changed while paused."""
         self.paused = False
-        changes = self._sync_inputs()
-        if self.stale or changes:
-            self._recompute()
-        else:
-            self._notify({"status"})
+        self.refresh()
 
     def set_option(self, name: str, value: Any) -> None:
-        """Change one setting and recompute only the results that depend on it.
+        """Change one setting; the results that depend on it are recomputed in the background.
 
-        This is what the view's controls call. Fit options, the selected ``outcome`` and the
-        design keys (``cutoff``, ``treated``, ...) are accepted; a value read from a notebook
-        variable is overridden until that variable changes again.
+        This is what the view's controls call (from whatever thread delivers widget messages). Fit
+        options, the selected ``outcome`` and the design keys (``cutoff``, ``treated``, ...) are
+        accepted; a value read from a notebook variable is overridden until that variable changes
+        again. Returns at once; reading results afterwards waits for the new ones.
 
         Raises
         ------
         InvalidOptionError
             When the name or the value is not allowed (nothing changes then).
         """
-        if name == "outcome" and isinstance(value, str):
-            value = self._check_selected(value)
-            if value == self._selected:
+        with self._lock:
+            inputs = self._inputs
+            spec, options, selected = dict(inputs.spec), dict(inputs.options), inputs.selected
+            if name == "outcome" and isinstance(value, str):
+                selected = _check_selected(spec, value)
+            elif name in OPTION_DEFAULTS:
+                options[name] = coerce_value(name, value)
+                _validate_options(spec, selected, options)
+            elif name in DESIGN_KEYS:
+                spec[name] = coerce_value(name, value)
+                if selected not in (*spec["outcome"], *spec["covariates"]):
+                    selected = spec["outcome"][0]
+            else:
+                raise InvalidOptionError(f"`name` must be a setting of the board ({', '.join(SPEC_KEYS[1:])}); "
+                                         f"got {name!r}. Check the spelling.")
+            if (spec, options, selected) == (dict(inputs.spec), dict(inputs.options), inputs.selected):
+                if self._target is not self._inputs:
+                    self._accept()
                 return
-            self._selected = value
-        elif name in OPTION_DEFAULTS:
-            value = coerce_value(name, value)
-            trial = {**self._options, name: value}
-            self._validate_options(trial)
-            if trial == self._options:
-                return
-            self._options = trial
-        elif name in DESIGN_KEYS:
-            value = coerce_value(name, value)
-            if self._spec[name] == value:
-                return
-            self._spec[name] = value
-            if self._selected not in (*self._spec["outcome"], *self._spec["covariates"]):
-                self._selected = self._spec["outcome"][0]
-        else:
-            raise InvalidOptionError(f"`name` must be a setting of the board ({', '.join(SPEC_KEYS[1:])}); "
-                                     f"got {name!r}. Check the spelling.")
-        self._sync_inputs()
-        self.stale = True
-        self._recompute()
+            prints = dict(inputs.fingerprints)
+            missing = [c for c in _columns(spec) if c not in prints]
+            if missing:                       # a newly named column: fingerprint only that one
+                prints.update(fingerprints(inputs.data, missing))
+            prints = {c: prints[c] for c in _columns(spec)}
+            self._replace_inputs(accept=True, spec=spec, options=options, selected=selected, prints=prints)
+        self._kick()
+        self._notify({"status"})
 
     def close(self) -> None:
-        """Stop tracking: leave the registry, drop subscribers and close the view."""
-        self.closed = True
+        """Stop tracking: leave the registry, stop the worker, drop subscribers and close the view."""
+        with self._lock:
+            self.closed = True
+            self._changed.notify_all()
         _REGISTRY.pop(self._serial, None)
         self._change_callbacks.clear()
         self._progress_callbacks.clear()
@@ -746,149 +664,10 @@ class Board:
                 log.exception("seamline: closing the view of board %r failed", self.name)
         self._handles.clear()
 
-    # ---- recomputation -------------------------------------------------------------------------
-    def _fail_all(self, message: str) -> None:
-        changed = {p for p in self._panels if self._results.get(p) is not None or self.errors.get(p) != message}
-        for p in self._panels:
-            self._results[p] = None
-            self.errors[p] = message
-        self._keys.clear()
-        self._design = None
-        self._design_key = None
-        self.status = "error"
-        self.stale = False
-        self.updated_at = _dt.datetime.now().astimezone()
-        self._fallback_dirty = True
-        self._notify(changed | {"status"})
-
-    def _recompute(self) -> None:
-        if self._input_error is not None:
-            self._fail_all(self._input_error)
-            return
-        graph = self._graph()
-        values = self._source_values()
-        design_key = graph.key("design", values)
-        if self._design is None or design_key != self._design_key:
-            try:
-                self._design = Design(self._data, **self._design_kwargs())
-            except Exception as exc:
-                self._fail_all(_message(exc, self._spec_variables))
-                return
-            self._design_key = design_key
-        todo = [p for p in self._panels if self._keys.get(p) != graph.key(panel_node(p), values)]
-        if not todo:
-            if self.stale:
-                self.stale = False
-                self.status = "error" if "fit" in self.errors else "fresh"
-                self._notify({"status"})
-            return
-        self.status = "recomputing"
-        self._notify({"status"})
-        misses = [p for p in todo if graph.key(panel_node(p), values) not in self._cache]
-        total, done = len(misses), 0
-        changed: set[str] = set()
-        for panel in todo:
-            key = graph.key(panel_node(panel), values)
-            if key in self._cache:
-                self._cache.move_to_end(key)
-                value = self._cache[key]
-            else:
-                self._progress(done, total, _LABELS[panel])
-                value = self._compute(panel, graph, values)
-                done += 1
-                self._store(key, value)
-            old_result, old_error = self._results.get(panel), self.errors.get(panel)
-            if isinstance(value, _Failure):
-                self._results[panel] = None
-                self.errors[panel] = value.message
-            else:
-                self._results[panel] = value
-                self.errors.pop(panel, None)
-            self._keys[panel] = key
-            if self._results[panel] is not old_result or self.errors.get(panel) != old_error:
-                changed.add(panel)
-        if total:
-            self._progress(total, total, "done")
-        self.stale = False
-        self.status = "error" if "fit" in self.errors else "fresh"
-        self.updated_at = _dt.datetime.now().astimezone()
-        self._fallback_dirty = True
-        self._notify(changed | {"status"})
-
-    def _store(self, key: tuple, value: Any) -> None:
-        self._cache[key] = value
-        while len(self._cache) > _CACHE_SIZE:
-            self._cache.popitem(last=False)
-
-    def _main_fit(self, graph, values):
-        key = graph.key("main_fit", values)
-        if key not in self._cache:
-            opts = dict(self._options, level=_REFERENCE_LEVEL)
-            try:
-                value = self.design.fit(self._selected, **opts)
-            except Exception as exc:
-                value = _Failure(_message(exc, self._spec_variables))
-            self._store(key, value)
-        return self._cache[key]
-
-    def _fit_kwargs(self, *drop: str) -> dict[str, Any]:
-        kwargs = {"outcome": self._selected, **self._options}
-        for d in drop:
-            kwargs.pop(d, None)
-        return kwargs
-
-    def _compute(self, panel: str, graph, values):
-        """One panel's result for the current inputs, or a _Failure with the message."""
-        design, opts, level = self.design, self._options, self._options["level"]
-        try:
-            if panel in ("fit", "first_stage", "first_stage_bins"):
-                main = self._main_fit(graph, values)
-                if isinstance(main, _Failure):
-                    return main if panel == "fit" else _Failure(f"needs the main fit, which failed: {main.message}")
-                fit = main.with_level(level)
-                if panel == "fit":
-                    return fit
-                if fit.first_stage is None:
-                    return NotApplicable(_sharp_reason(fit, self._spec["takeup"]))
-                if panel == "first_stage":
-                    return fit.first_stage
-                # The take-up jump drawn at the main fit's bandwidths, so the plot shows the first
-                # stage that the estimate uses.
-                kwargs = self._fit_kwargs("outcome", "adjust")
-                kwargs.update(bandwidth=fit.bandwidth, pilot_bandwidth=fit.pilot_bandwidth)
-                return design.bins(self._spec["takeup"], **kwargs)
-            if panel == "bins":
-                return design.bins(**self._fit_kwargs())
-            if panel == "bandwidths":
-                return design.bandwidths(self._selected, kernel=opts["kernel"], degree=opts["degree"],
-                                         bias_degree=opts["bias_degree"], variance=opts["variance"],
-                                         donut=opts["donut"], derivative=opts["derivative"], adjust=opts["adjust"])
-            if panel == "density":
-                return design.density_test(level=level)
-            if panel == "balance":
-                if not self._spec["covariates"]:
-                    return NotApplicable("No covariates are declared, so there is nothing to check for balance. "
-                                         "Declare pre-treatment columns with `covariates: age, prior_score`.")
-                rule = opts["bandwidth"] if isinstance(opts["bandwidth"], str) else "mse"
-                return design.balance(rule=rule, **self._fit_kwargs("outcome", "bandwidth", "pilot_bandwidth",
-                                                                    "adjust"))
-            if panel == "sensitivity":
-                return design.sensitivity(**self._fit_kwargs())
-            if panel == "placebo":
-                return design.placebo_cutoffs(**self._fit_kwargs())
-            if panel == "donut":
-                return design.donut(**self._fit_kwargs("donut"))
-            if panel == "score_profile":
-                return design.score_profile(**self._fit_kwargs())
-            if panel == "checks":
-                return design.checks(**self._fit_kwargs())
-        except Exception as exc:
-            return _Failure(_message(exc, self._spec_variables))
-        raise AssertionError(f"unknown panel {panel!r}")   # PANELS and this dispatch must agree
-
     # ---- presentation ------------------------------------------------------------------------
     def summary(self) -> dict[str, Any]:
-        """A JSON-ready summary for the front end and headers.
+        """A JSON-ready summary for the front end and headers (never waits: a pending headline
+        is reported with status "recomputing").
 
         Returns
         -------
@@ -896,39 +675,42 @@ class Board:
             name, score, cutoff, outcome, kind, estimate, robust_ci ([low, high] or None),
             level, status, stale, paused, updated_at (ISO 8601 or None), error (or None).
         """
-        fit = self.fit
-        error = self.errors.get("fit") or self._input_error
+        state = self.state()
+        fit = state.results.get("fit")
+        fit = None if isinstance(fit, NotApplicable) else fit
         return {
             "name": self.name,
-            "score": self._spec["score"],
-            "cutoff": self._spec["cutoff"],
-            "outcome": self._selected,
+            "score": state.spec["score"],
+            "cutoff": state.spec["cutoff"],
+            "outcome": state.options["outcome"],
             "kind": None if fit is None else fit.kind,
             "estimate": None if fit is None else _json_float(fit.estimate),
             "robust_ci": None if fit is None else [_json_float(v) for v in fit.robust_conf_int],
-            "level": self._options["level"],
-            "status": self.status,
-            "stale": self.stale,
-            "paused": self.paused,
-            "updated_at": None if self.updated_at is None else self.updated_at.isoformat(timespec="seconds"),
-            "error": error,
+            "level": state.options["level"],
+            "status": state.status,
+            "stale": state.stale,
+            "paused": state.paused,
+            "updated_at": None if state.updated_at is None else state.updated_at.isoformat(timespec="seconds"),
+            "error": state.errors.get("fit") or self._target.error,
         }
+
+    def _current_state(self) -> BoardState:
+        """The state once every panel belongs to the current inputs (waits unless paused)."""
+        if not self.paused:
+            self.wait()
+        return self.state()
 
     def methods_paragraph(self) -> str:
         """The specification and results in prose for a paper's methods section (see
-        ``seamline.export.methods.methods_paragraph``)."""
-        from ..export.methods import methods_paragraph
-        fit = self.fit
-        if fit is None:
-            raise InvalidOptionError(f"`board` must have a current main fit to describe; got none: "
-                                     f"{self.errors.get('fit', 'not computed')}. Fix the error first.")
-        diagnostics = {k: v for k, v in self._results.items()
-                       if k in ("density", "balance", "sensitivity", "placebo", "donut") and v is not None
-                       and not isinstance(v, NotApplicable)}
-        return methods_paragraph(fit, diagnostics=diagnostics, weights=self._spec["weights"])
+        ``seamline.export.methods.methods_paragraph``); waits for current results."""
+        state = self._current_state()
+        fit = state.results.get("fit")
+        return methods_text(None if isinstance(fit, NotApplicable) else fit, state.results, state.errors,
+                            state.spec["weights"])
 
     def export(self, what: str, fmt: str = "latex", path: str | Path | None = None) -> str | bytes:
-        """Render one table, chart or the methods paragraph; write it when ``path`` is given.
+        """Render one table, chart or the methods paragraph of the current results (waits for
+        them); write it when ``path`` is given.
 
         Parameters
         ----------
@@ -942,36 +724,13 @@ class Board:
         -------
         str, or bytes for "png"
         """
-        fmt = check_option("fmt", fmt, TABLE_FORMATS + CHART_FORMATS)
-        if self.stale:
+        from ..options import check_option
+        check_option("fmt", fmt, TABLE_FORMATS + CHART_FORMATS)
+        state = self._current_state()
+        if state.stale:
             warnings.warn(f"Board {self.name!r} is stale (paused with pending changes): the export shows the "
                           "results before those changes. Call refresh() first.", UserWarning, stacklevel=2)
-        if what == "methods":
-            if fmt not in ("text", "markdown", "latex", "html"):
-                raise InvalidOptionError(f"`fmt` for the methods paragraph must be \"text\", \"markdown\", "
-                                         f"\"latex\" or \"html\"; got {fmt!r}. Use fmt=\"text\".")
-            text = self.methods_paragraph()
-            if fmt == "latex":
-                from ..export.render import latex_escape
-                text = latex_escape(text) + "\n"
-            elif fmt == "html":
-                text = f"<p class=\"seamline-methods\">{html.escape(text)}</p>\n"
-            else:
-                text += "\n"
-            return _write(text, path)
-        if what not in EXPORTS:
-            names = ", ".join(f'"{n}"' for n in (*EXPORTS, "methods"))
-            raise InvalidOptionError(f"`what` must be one of {names}; got {what!r}. Pick a table or chart name.")
-        if fmt in CHART_FORMATS:
-            from . import charts
-            chart = charts.chart_for(self, what)
-            return _write(charts.to_svg(chart) if fmt == "svg" else charts.to_png(chart), path)
-        result = self._results.get(EXPORTS[what])
-        if result is None or isinstance(result, NotApplicable):
-            reason = str(result) if result is not None else self.errors.get(EXPORTS[what], "not computed")
-            raise InvalidOptionError(f"`what` must name a panel with a current result; got {what!r}, which has "
-                                     f"none: {reason}")
-        return _write(_render_table(result, fmt, title=f"{self.name}: {_LABELS[EXPORTS[what]]}"), path)
+        return export_result(state, what, fmt, path, weights=state.spec["weights"])
 
     # ---- display -------------------------------------------------------------------------------
     @property
@@ -987,30 +746,36 @@ class Board:
             self._view = BoardView(self)
         return self._view
 
-    def _mimebundle(self) -> dict[str, Any]:
+    def _mimebundle(self, charts: bool = True) -> dict[str, Any]:
         """One output bundle: the live widget view plus a static HTML rendition (text/html) that
         notebook viewers and nbconvert show when widgets are not live."""
         view = self.view
         from .panels import mimebundle
-        bundle = dict(mimebundle(view))
+        bundle = dict(mimebundle(view, charts=charts))
         bundle["text/plain"] = repr(self)
         return bundle
 
     def show(self):
-        """Display the board (widget view + static fallback) in the notebook; returns the handle."""
+        """Display the board (widget view + static fallback) in the notebook; returns the handle.
+
+        Without a live front end (headless runs) it first waits for every panel, so the saved
+        output is complete; with one, the static copy follows once the board is idle."""
         from IPython.display import display
-        handle = display(self._mimebundle(), raw=True, display_id=True)
+        live = scheduler.live_front_end()
+        if not live:
+            self.wait()
+        handle = display(self._mimebundle(charts=not live), raw=True, display_id=True)
         if handle is not None:
             self._handles = [*self._handles[-3:], handle]
-        self._fallback_dirty = False
+        self._fallback_dirty = live
         return handle
 
     def _ipython_display_(self) -> None:
         self.show()
 
     def _update_displays(self) -> None:
-        """Refresh the static fallback of this board's displayed outputs (after a cell), so a saved
-        notebook shows the current numbers."""
+        """Refresh the static fallback of this board's displayed outputs, so a saved notebook shows
+        the current numbers (after a cell when headless; when idle with a live front end)."""
         if not (self._fallback_dirty and self._handles):
             return
         self._fallback_dirty = False
@@ -1019,65 +784,54 @@ class Board:
         except Exception:
             log.exception("seamline: rendering the static rendition of board %r failed", self.name)
             return
-        for handle in self._handles:
+        for handle in list(self._handles):
             handle.update(bundle, raw=True)
 
 
 _MISSING = object()
 
 
+def _columns(spec: Mapping[str, Any]) -> tuple[str, ...]:
+    names = [spec["score"], *spec["outcome"], *(c for c in (spec["takeup"], spec["cluster"], spec["weights"]) if c),
+             *spec["covariates"]]
+    return tuple(dict.fromkeys(names))
+
+
+def _check_selected(spec: Mapping[str, Any], outcome: Any) -> str:
+    allowed = tuple(spec["outcome"]) + tuple(spec["covariates"])
+    if not isinstance(outcome, str) or outcome not in allowed:
+        raise InvalidOptionError(f"`outcome` must be one of the declared outcomes or covariates "
+                                 f"{list(allowed)}; got {outcome!r}. Declare it first.")
+    return outcome
+
+
+def _validate_options(spec: Mapping[str, Any], selected: str, options: Mapping[str, Any]) -> None:
+    resolve(selected, has_covariates=bool(spec["covariates"]), **options)
+
+
+def _sources_changed(old: Inputs, new: Inputs) -> set[str]:
+    """The source names that differ between two snapshots of the inputs."""
+    changes = set()
+    if new.data_version != old.data_version:
+        changes.add("data")
+    for name, fp in new.fingerprints.items():
+        if old.fingerprints.get(name) != fp:
+            changes.add(column_node(name))
+    for key in new.spec:
+        if new.spec[key] != old.spec.get(key):
+            changes.add(key)
+    for key in new.options:
+        if new.options[key] != old.options.get(key):
+            changes.add(key)
+    if new.selected != old.selected:
+        changes.add("outcome")
+    if new.error != old.error:
+        changes.add("inputs")
+    return changes
+
+
 def _json_float(value: float) -> float | None:
     return float(value) if value is not None and math.isfinite(value) else None
-
-
-def _message(exc: BaseException, spec_variables: Mapping[str, str]) -> str:
-    """The message shown in a panel: our errors as they are; others with their type, since they
-    point at a bug rather than at the input."""
-    text = str(exc) if isinstance(exc, SeamlineError) else f"{type(exc).__name__}: {exc}"
-    if isinstance(exc, SeamlineError) and text.startswith("`"):
-        key = text[1:].split("`", 1)[0]
-        if key in spec_variables:
-            text += f" (`{key}` comes from the notebook variable `{spec_variables[key]}`.)"
-    return text
-
-
-def _sharp_reason(fit, takeup: str | None) -> str:
-    if takeup:
-        return (f"Take-up column {takeup!r} equals assignment on every usable row, so the design is sharp and "
-                "there is no first stage to report.")
-    return ("Sharp design: treatment follows the side of the cutoff exactly, so there is no first stage. "
-            "Declare `takeup: <column>` for a fuzzy design.")
-
-
-def _render_table(result: Any, fmt: str, *, title: str) -> str:
-    if isinstance(result, pd.DataFrame):
-        from ..export.render import to_csv, to_html, to_latex, to_markdown
-        from ..export.table_model import from_dataframe
-        model = from_dataframe(result, title=title)
-        if fmt == "text":
-            return f"{title}\n{result.to_string(index=False)}\n"
-        return {"latex": to_latex, "markdown": to_markdown, "csv": to_csv, "html": to_html}[fmt](model)
-    if fmt == "latex":
-        return result.to_latex()
-    if fmt == "markdown":
-        return result.to_markdown()
-    if fmt == "csv":
-        return result.table().to_csv(index=False)
-    if fmt == "html":
-        return result._repr_html_()
-    heading = result.title() if hasattr(result, "title") and callable(result.title) else title
-    return f"{heading}\n{result.table().to_string(index=False)}\n"
-
-
-def _write(value: str | bytes, path: str | Path | None) -> str | bytes:
-    if path is not None:
-        target = Path(path)
-        if isinstance(value, bytes):
-            target.write_bytes(value)
-        else:
-            with open(target, "w", encoding="utf-8", newline="") as handle:
-                handle.write(value)
-    return value
 
 
 # ---- the Python builder -----------------------------------------------------------------------------
@@ -1137,4 +891,5 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
               namespace=namespace, panels=panels)
     if shell is not None and hasattr(shell, "events"):
         install_hook(shell)
+    b.wait("fit")          # the headline is there when the builder returns; the rest follows
     return b

@@ -910,3 +910,30 @@ def to_png(chart, scale: float = 2) -> bytes:
     if version:
         return vlc.vegalite_to_png(spec, scale=scale, vl_version=version)
     return vlc.vegalite_to_png(spec, scale=scale)
+
+
+#: The MIME type of chart specs sent to the browser (JupyterLab's built-in Vega 5 renderer).
+VEGA_LITE_MIME = "application/vnd.vegalite.v5+json"
+_V5_SCHEMA = "https://vega.github.io/schema/vega-lite/v5.json"
+
+
+def to_vega_lite(chart) -> dict:
+    """A chart as a Vega-Lite specification with its summary data inline, for the browser.
+
+    JupyterLab draws ``application/vnd.vegalite.v5+json`` with the renderer in its own bundle
+    (no request leaves the machine); the spec declares the v5 schema that renderer reads. The
+    builders only use marks and encodings both Vega-Lite 5 and 6 know (tested by compiling each
+    chart with vl-convert's Vega-Lite 5).
+
+    Parameters
+    ----------
+    chart : altair chart
+
+    Returns
+    -------
+    dict
+        JSON-ready; the data inside are binned or summary values, never the raw rows.
+    """
+    spec = chart.to_dict(validate=False)    # the builders are validated by the tests; saves ~40 ms a chart
+    spec["$schema"] = _V5_SCHEMA
+    return spec

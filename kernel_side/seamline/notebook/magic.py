@@ -355,7 +355,7 @@ def build_board(spec: ParsedSpec, namespace: dict[str, Any]):
     try:
         board = Board(spec.name, spec.design_kwargs, spec.fit_options, data=spec.data, data_name=spec.data_name,
                       namespace=namespace, spec_variables=spec.spec_variables, autorun=False)
-        board.design          # validates the columns and the cutoff against the data
+        board.validate()      # the columns and the cutoff against the data
     except SeamlineError as exc:
         message = str(exc)
         raise _fail(_line_of(message, spec.lines), message) from None

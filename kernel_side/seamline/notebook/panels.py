@@ -1,33 +1,39 @@
 """The live view of a board: header, controls and one tab per diagnostic, as ipywidgets.
 
-``BoardView(board)`` is a thin view (STYLE habit 10): every number comes from the board's
-results, every control calls ``board.set_option(name, value)``, and the view re-renders only the
-panels whose results changed, when the board calls back through ``board.on_change``. Charts are
-drawn kernel-side to SVG by vl-convert and shown in ``ipywidgets.HTML`` (no CDN, no JavaScript
-renderer, small saved notebooks); tables come from the result objects' own escaping HTML
-renderers. Nothing a user does in the view can raise into the kernel: failures are shown inside
-the panel (class ``seamline-error``).
+``BoardView(board)`` is a thin view (STYLE habit 10): every number comes from ``board.state()``,
+every control calls ``board.set_option(name, value)``, and the view re-renders the header and
+the open tab when the board calls back through ``board.on_change`` (from its worker thread);
+other tabs are rendered when opened. Charts are sent to the browser as Vega-Lite specs with
+their summary data inline (``application/vnd.vegalite.v5+json`` in an ``ipywidgets.Output``,
+drawn by JupyterLab's built-in renderer: no CDN, no request off the machine); kernel-side SVG is
+only drawn for exports and for the static copy saved with the notebook. Tables come from the
+result objects' own escaping HTML renderers. Nothing a user does in the view can raise into the
+kernel: failures are shown inside the panel (class ``seamline-error``).
 
 This module imports ipywidgets when it is imported; ``%load_ext seamline`` does not import it.
 
 CSS classes (for styling and browser tests): ``seamline-board`` (the whole view),
 ``seamline-header-box``, ``seamline-controls``, ``seamline-progress``, ``seamline-tabs``,
 ``seamline-panel-<name>`` for name in estimate, bandwidths, balance, density, first-stage,
-placebos; ``seamline-export`` (a panel's export buttons), ``seamline-export-<format>`` (each
-button), ``seamline-export-result`` (what an export produced), ``seamline-error`` (an error box).
+placebos; ``seamline-chart-live`` and ``seamline-chart-<chart>`` (a chart drawn by the browser),
+``seamline-pending`` (a panel updating for new settings), ``seamline-export`` (a panel's export
+buttons), ``seamline-export-<format>`` (each button), ``seamline-export-result`` (what an export
+produced), ``seamline-error`` (an error box).
 """
 from __future__ import annotations
 
 import base64
 import html
 import os
+import threading
+from collections import OrderedDict
 from collections.abc import Iterable
 from typing import Any
 
 import ipywidgets as widgets
 import pandas as pd
 
-from . import static
+from . import charts, static
 from .static import PANEL_EXPORTS, PANEL_RESULTS, PANELS, error_html, header_html, panel_html
 
 __all__ = ["BoardView", "mimebundle"]
@@ -98,36 +104,43 @@ def download_link(data: bytes | str, filename: str, fmt: str) -> str:
             f'<span style="font-size:11px;color:#777">({len(raw):,} bytes)</span>')
 
 
-def _board_options(board) -> dict[str, Any]:
-    """The options the board currently fits with, completed from the current fit."""
-    options: dict[str, Any] = {}
-    for attr in ("fit_options", "options"):
-        value = getattr(board, attr, None)
-        if isinstance(value, dict):
-            options.update(value)
-            break
-    fit = static._fit(board)
-    if fit is not None:
+def _board_options(state) -> dict[str, Any]:
+    """The options the board's current inputs hold, completed from its current fit.
+
+    The manual bandwidth shown is the one the inputs hold (never an older fit's, so a slider
+    being dragged does not jump back); under a rule it is the current fit's selected bandwidth."""
+    options: dict[str, Any] = dict(getattr(state, "options", None) or {})
+    bandwidth = options.get("bandwidth")
+    if isinstance(bandwidth, (int, float)):
+        options["_bandwidth_now"] = float(bandwidth)
+    elif isinstance(bandwidth, tuple):
+        options["_bandwidth_now"] = float(bandwidth[0])
+    fit = static._fit(state)
+    if fit is not None and "fit" not in getattr(state, "pending", ()):
         options.setdefault("outcome", fit.outcome)
         options.setdefault("kernel", fit.kernel)
         options.setdefault("degree", fit.degree)
         options.setdefault("level", fit.level)
         options.setdefault("donut", fit.donut)
         options.setdefault("variance", fit.variance)
-        options.setdefault("bandwidth", fit.bandwidth_rule if fit.bandwidth_rule != "manual"
-                           else fit.bandwidth[0])
         options["_resolved_variance"] = fit.variance
-        options["_bandwidth_now"] = float(fit.bandwidth[0])
+        options.setdefault("_bandwidth_now", float(fit.bandwidth[0]))
     return options
 
 
-def _outcomes(board) -> tuple[str, ...]:
-    design = getattr(board, "design", None)
-    outcomes = getattr(design, "outcomes", None)
+def _outcomes(state) -> tuple[str, ...]:
+    outcomes = getattr(state, "outcomes", None)
     if outcomes:
         return tuple(outcomes)
-    fit = static._fit(board)
+    fit = static._fit(state)
     return (fit.outcome,) if fit is not None else ()
+
+
+#: The charts each tab draws (export names understood by ``charts.chart_for``).
+TAB_CHARTS: dict[str, tuple[str, ...]] = {
+    "estimate": ("estimate",), "bandwidths": ("sensitivity",), "balance": ("balance",),
+    "density": ("density",), "first_stage": ("first_stage",), "placebos": ("placebo", "donut"),
+}
 
 
 class BoardView(widgets.VBox):
@@ -136,14 +149,20 @@ class BoardView(widgets.VBox):
     Parameters
     ----------
     board : seamline Board
-        Needs ``results``, ``errors``, ``status``, ``updated_at``, ``set_option(name, value)``,
-        ``export(what, fmt)`` and ``on_change(callback)``.
+        Needs ``state()``, ``set_option(name, value)``, ``export(what, fmt)``, ``watch(viewer,
+        panels)``, ``on_change(callback)`` and ``on_progress(callback)``.
 
     Notes
     -----
-    The view subscribes with ``board.on_change(self._on_change)``; the callback receives the set
-    of result names that changed and re-renders only the panels showing them (``PANEL_RESULTS``).
-    A control change shows a progress bar until the board has recomputed.
+    The view renders ``board.state()`` snapshots and never waits for the board: board callbacks
+    arrive on the board's worker thread and control changes on whatever thread delivers widget
+    messages, so rendering is serialised by a lock and only sets widget traits (never an Output
+    context manager). Only the header and the open tab are rendered on a change; the other tabs
+    are marked dirty and rendered when opened, and the board is told (``watch``) which results the
+    open tab shows, so it computes those first. Charts go to the browser as Vega-Lite specs with
+    their summary data inline (``charts.VEGA_LITE_MIME``, drawn by JupyterLab's own renderer); the
+    tables and text are escaped HTML. A pending panel says so and shows its previous numbers
+    dimmed, without charts.
 
     Examples
     --------
@@ -155,6 +174,14 @@ class BoardView(widgets.VBox):
         super().__init__(**kwargs)
         self.board = board
         self._syncing = False
+        self._lock = threading.RLock()
+        self._dirty: set[str] = set()
+        self._paint: dict[str, Any] = {}          # tab -> newest state whose charts are to be drawn
+        self._paint_wanted = threading.Event()
+        self._painted = threading.Condition(self._lock)
+        self._painting = False
+        self._painter: threading.Thread | None = None
+        self._closed = False
         self._unsubscribe: list = []
         self.add_class("seamline-board")
         self.layout = widgets.Layout(width="100%", max_width="1100px")
@@ -177,30 +204,69 @@ class BoardView(widgets.VBox):
 
         self._controls = self._build_controls()
         self._panels: dict[str, widgets.HTML] = {}
+        self._charts: dict[str, list[tuple[str, widgets.Output]]] = {}
         self._export_rows: dict[str, widgets.HBox] = {}
         boxes = []
         for key, _title in PANELS:
             body = widgets.HTML(layout=widgets.Layout(width="100%"))
             self._panels[key] = body
+            outputs = []
+            for what in TAB_CHARTS[key]:
+                chart = widgets.Output(layout=widgets.Layout(min_width="380px"))
+                chart.add_class("seamline-chart-live")
+                chart.add_class(f"seamline-chart-{what.replace('_', '-')}")
+                outputs.append((what, chart))
+            self._charts[key] = outputs
             out = widgets.VBox()
             out.add_class("seamline-export-result")
             bar = self._export_bar(key, out)
-            box = widgets.VBox([body, bar, out], layout=widgets.Layout(padding="6px 4px"))
+            row = widgets.HBox([c for _w, c in outputs], layout=widgets.Layout(flex_flow="row wrap"))
+            box = widgets.VBox([row, body, bar, out], layout=widgets.Layout(padding="6px 4px"))
             box.add_class(_css(key))
             boxes.append(box)
         self._tabs = widgets.Tab(children=boxes, titles=[title for _k, title in PANELS])
         self._tabs.add_class("seamline-tabs")
+        self._tabs.observe(self._tab_changed, names="selected_index")
 
         top = widgets.HBox([methods, self._progress], layout=widgets.Layout(align_items="center"))
         self.children = [self._header, top, self._methods_out, self._controls, self._message,
                          self._tabs]
+        self._watch()
         self._sync_controls()
-        self._render_all()
-        self._unsubscribe = []
+        self._dirty = {k for k, _ in PANELS}
+        self._render(["header", *((k for k, _ in PANELS) if self._eager else [self._open_tab()])])
         for method, callback in (("on_change", self._on_change), ("on_progress", self._on_progress)):
             subscribe = getattr(board, method, None)
             if callable(subscribe):
                 self._unsubscribe.append(subscribe(callback))
+
+    @property
+    def _eager(self) -> bool:
+        """Render every tab, not just the open one: without a live front end (headless runs save
+        the widget state, and nobody opens tabs there). Read at each render: the front end's
+        channel may open after the view is made."""
+        from . import scheduler
+        return not scheduler.live_front_end()
+
+    def _open_tab(self) -> str:
+        index = self._tabs.selected_index
+        keys = [k for k, _ in PANELS]
+        return keys[index] if isinstance(index, int) and 0 <= index < len(keys) else keys[0]
+
+    def _watch(self) -> None:
+        """Tell the board which results the open tab shows (computed right after the headline)."""
+        watch = getattr(self.board, "watch", None)
+        if callable(watch):
+            watch(self, ("fit", *PANEL_RESULTS[self._open_tab()]))
+
+    def _tab_changed(self, change) -> None:
+        try:
+            self._watch()
+            tab = self._open_tab()
+            if tab in self._dirty:
+                self._render([tab])
+        except Exception as exc:  # noqa: BLE001 - the view must never raise into the kernel
+            self._header.value = error_html(f"{type(exc).__name__}: {exc}", title="The view could not update")
 
     # ---- controls -------------------------------------------------------------------------
     def _build_controls(self) -> widgets.Box:
@@ -254,18 +320,17 @@ class BoardView(widgets.VBox):
             self._apply("bandwidth", float(change["new"]))
 
     def _apply(self, name: str, value: Any) -> None:
-        """Pass one control change to the board; show a failure beside the controls."""
-        self._busy(True)
+        """Pass one control change to the board; show a failure beside the controls. The board
+        calls back (``_on_change``) to show the change; nothing else is sent per change, so a
+        dragged slider's messages are handled quickly."""
         try:
             self.board.set_option(name, value)
-            self._message.value = ""
+            if self._message.value:
+                self._message.value = ""
         except Exception as exc:  # noqa: BLE001 - the user sees it; the kernel lives on
             self._message.value = error_html(f"{type(exc).__name__}: {exc}",
                                              title=f"The {name} was not changed")
             self._sync_controls()
-        finally:
-            self._busy(False)
-            self._render(["header"])
 
     def _sync_controls(self) -> None:
         """Show the board's current options in the controls without calling back into the board.
@@ -273,17 +338,18 @@ class BoardView(widgets.VBox):
         Each control's options, value and state change under one ``hold_sync``, so the front end
         receives them as one update (never a value that is not among the options).
         """
-        opts = _board_options(self.board)
+        state = self.board.state()
+        opts = _board_options(state)
         self._syncing = True
         try:
-            outcomes = _outcomes(self.board)
+            outcomes = _outcomes(state)
             with self._outcome.hold_sync():
                 if outcomes and tuple(self._outcome.options) != outcomes:
                     self._outcome.options = outcomes
                 if opts.get("outcome") in outcomes:
                     self._outcome.value = opts["outcome"]
                 self._outcome.disabled = len(outcomes) < 2
-            self._sync_bandwidth(opts)
+            self._sync_bandwidth(opts, state)
             if opts.get("kernel") in _KERNELS:
                 self._kernel.value = opts["kernel"]
             degree = opts.get("degree")
@@ -320,15 +386,20 @@ class BoardView(widgets.VBox):
                 control.options = options
             control.value = value
 
-    def _sync_bandwidth(self, opts: dict[str, Any]) -> None:
+    def _sync_bandwidth(self, opts: dict[str, Any], state) -> None:
         rule = opts.get("bandwidth")
         now = opts.get("_bandwidth_now")
-        selectors = self.board.results.get("bandwidths") if hasattr(self.board, "results") else None
+        selectors = state.results.get("bandwidths")
         values = []
         if isinstance(selectors, pd.DataFrame) and len(selectors):
             values = [float(v) for v in selectors[["bandwidth_below", "bandwidth_above"]].to_numpy().ravel()]
-        if now is not None:
+        inside = now is not None and self._manual.min <= now <= self._manual.max and self._manual.max > 1.0001
+        if now is not None and not values:
             values.append(float(now))
+        if inside and rule is not None and not isinstance(rule, str):
+            values = []               # a manual value inside the range: keep the range, move the handle
+            with self._manual.hold_sync():
+                self._manual.value = float(now)
         if values:
             low, high = 0.25 * min(values), 2.5 * max(values)
             step = max((high - low) / 400.0, 1e-6)
@@ -412,39 +483,96 @@ class BoardView(widgets.VBox):
         return parts
 
     def _render_all(self) -> None:
-        self._render(["header", *(k for k, _ in PANELS)])
+        self._dirty = {k for k, _ in PANELS}
+        self._render(["header", self._open_tab()])
 
     def _render(self, parts: Iterable[str]) -> None:
-        for part in parts:
+        """Render the header and the named tabs that are open; mark the closed ones dirty."""
+        with self._lock:
+            state = self.board.state()
+            open_tab = self._open_tab()
+            for part in parts:
+                if part != "header" and part != open_tab and not self._eager:
+                    self._dirty.add(part)
+                    continue
+                try:
+                    new = header_html(state) if part == "header" else panel_html(state, part, charts=False)
+                except Exception as exc:  # noqa: BLE001
+                    new = error_html(f"{type(exc).__name__}: {exc}")
+                target = self._header if part == "header" else self._panels[part]
+                if target.value != new:
+                    target.value = new
+                if part == "header":
+                    continue
+                self._dirty.discard(part)
+                self._draw_charts(part, state)
+                for what in PANEL_EXPORTS.get(part, ()):
+                    # Export buttons only where there is something to export (not on a sharp design's
+                    # first stage, nor on a panel whose result failed).
+                    display = None if static.export_available(state, what) else "none"
+                    if self._export_rows[what].layout.display != display:
+                        self._export_rows[what].layout.display = display
+
+    def _draw_charts(self, tab: str, state) -> None:
+        """Queue the tab's charts for the painter thread: building a spec takes a few tenths of a
+        second, which the board's worker (and the other subscribers, such as the cell's chip)
+        should not wait for. Only the newest request per tab is drawn. Headless (no live front
+        end) the charts are drawn at once, so the saved widget state is complete."""
+        if self._eager:
+            self._paint_charts(tab, state)
+            return
+        with self._lock:
+            self._paint[tab] = state
+            if self._painter is None:
+                self._painter = threading.Thread(target=self._paint_loop, name="seamline-view-charts",
+                                                 daemon=True)
+                self._painter.start()
+            self._paint_wanted.set()
+
+    def _paint_loop(self) -> None:
+        while not self._closed:
+            self._paint_wanted.wait(1.0)
+            with self._lock:
+                self._paint_wanted.clear()
+                jobs, self._paint = self._paint, {}
+                self._painting = bool(jobs)
             try:
-                new = header_html(self.board) if part == "header" else panel_html(self.board, part)
-            except Exception as exc:  # noqa: BLE001
-                new = error_html(f"{type(exc).__name__}: {exc}")
-            target = self._header if part == "header" else self._panels[part]
-            if target.value != new:
-                target.value = new
-            for what in PANEL_EXPORTS.get(part, ()):
-                # Export buttons only where there is something to export (not on a sharp design's
-                # first stage, nor on a panel whose result failed).
-                shown = static.export_available(self.board, what)
-                display = None if shown else "none"
-                if self._export_rows[what].layout.display != display:
-                    self._export_rows[what].layout.display = display
+                for tab, state in jobs.items():
+                    self._paint_charts(tab, state)
+            except Exception:  # noqa: BLE001 - a chart must never break the view
+                pass
+            finally:
+                with self._lock:
+                    self._painting = False
+                    self._painted.notify_all()
+
+    def settle_charts(self, timeout: float = 30.0) -> None:
+        """Wait until every queued chart is drawn (tests and headless runs)."""
+        with self._lock:
+            self._painted.wait_for(lambda: not self._paint and not self._painting, timeout)
+
+    def _paint_charts(self, tab: str, state) -> None:
+        """Send the tab's charts to the browser as Vega-Lite specs (none while pending)."""
+        pending = static.panel_pending(state, tab)
+        for what, output in self._charts[tab]:
+            outputs: tuple = ()
+            if not pending:
+                spec = chart_spec(state, what)
+                if spec is not None:
+                    outputs = ({"output_type": "display_data", "metadata": _EMBED,
+                                "data": {charts.VEGA_LITE_MIME: spec, "text/plain": f"<seamline {what} chart>"}},)
+            if tuple(output.outputs) != outputs:
+                output.outputs = outputs      # a trait: safe from any thread (no context manager)
 
     def _on_change(self, board, changed=None) -> None:
-        """Board callback: re-render what changed; never raises into the board or the kernel."""
+        """Board callback (usually on the worker thread): re-render what changed; never raises."""
         try:
             status = str(getattr(board, "status", ""))
-            if status == "recomputing":
-                self._busy(True)
-                self._render(["header"])
-                return
             parts = self.panels_for(changed)
             if "fit" in set(changed or ()) or parts[1:] == [k for k, _ in PANELS]:
                 self._sync_controls()
             self._render(parts)
-            if status != "recomputing":
-                self._progress.layout.visibility = "hidden"
+            self._progress.layout.visibility = "visible" if status == "recomputing" else "hidden"
         except Exception as exc:  # noqa: BLE001
             self._header.value = error_html(f"{type(exc).__name__}: {exc}", title="The view could not update")
 
@@ -472,10 +600,45 @@ class BoardView(widgets.VBox):
             except Exception:  # noqa: BLE001 - closing must not fail
                 pass
         self._unsubscribe = []
+        self._closed = True
+        self._paint_wanted.set()
+        watch = getattr(self.board, "watch", None)
+        if callable(watch):
+            watch(self, ())
         super().close()
 
 
-def mimebundle(view: BoardView) -> dict[str, Any]:
+# Vega-Embed options for JupyterLab's renderer: draw SVG (crisp, countable marks), no actions menu
+# (its links point off the machine).
+_EMBED = {charts.VEGA_LITE_MIME: {"embed_options": {"renderer": "svg", "actions": False}}}
+
+_SPEC_CACHE: "OrderedDict[tuple, tuple[tuple, dict]]" = OrderedDict()
+_SPEC_CACHE_SIZE = 48
+_SPEC_LOCK = threading.Lock()
+
+
+def chart_spec(state, what: str) -> dict | None:
+    """The Vega-Lite spec of one chart of a board state, or None when its results are missing or
+    do not apply (the panel's text says why). Cached by the identity of the results it draws."""
+    inputs = static._chart_inputs(state, what)
+    key = (what, *(id(obj) for obj in inputs))
+    with _SPEC_LOCK:
+        hit = _SPEC_CACHE.get(key)
+        if hit is not None and all(a is b for a, b in zip(hit[0], inputs)):
+            _SPEC_CACHE.move_to_end(key)
+            return hit[1]
+    try:
+        spec = charts.to_vega_lite(charts.chart_for(state, what))
+    except ValueError:
+        return None
+    with _SPEC_LOCK:
+        _SPEC_CACHE[key] = (inputs, spec)
+        while len(_SPEC_CACHE) > _SPEC_CACHE_SIZE:
+            _SPEC_CACHE.popitem(last=False)
+    return spec
+
+
+def mimebundle(view: BoardView, *, charts: bool = True) -> dict[str, Any]:
     """The output bundle of a displayed board: the live widget and its static HTML fallback.
 
     Front ends with the widget manager draw the widget; nbconvert and notebook viewers show the
@@ -484,6 +647,9 @@ def mimebundle(view: BoardView) -> dict[str, Any]:
     Parameters
     ----------
     view : BoardView
+    charts : bool, default True
+        Draw the static copy's charts as SVG (kernel-side, so only when the copy is saved);
+        False leaves them out until the board is idle.
 
     Returns
     -------
@@ -494,6 +660,6 @@ def mimebundle(view: BoardView) -> dict[str, Any]:
     return {
         "application/vnd.jupyter.widget-view+json": {
             "version_major": 2, "version_minor": 0, "model_id": view.model_id},
-        "text/html": static.static_html(board),
+        "text/html": static.static_html(board.state(), charts=charts),
         "text/plain": f"<seamline board {getattr(board, 'name', '')!s}>",
     }

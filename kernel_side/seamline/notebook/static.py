@@ -10,6 +10,7 @@ This module imports neither ipywidgets nor IPython; Altair and vl-convert load o
 """
 from __future__ import annotations
 
+import contextvars
 import html
 import math
 from collections import OrderedDict
@@ -19,6 +20,7 @@ from typing import Any
 
 import pandas as pd
 
+from ..results.base import CAUTION
 from . import charts
 
 __all__ = [
@@ -87,6 +89,12 @@ _INFO = ("border-left:3px solid #8c8c8c;background:#f4f4f4;color:#333;padding:6p
 # entry keeps those objects alive, so an id cannot be reused by a new object while the entry lives.
 _SVG_CACHE: "OrderedDict[tuple, tuple[tuple, str]]" = OrderedDict()
 _SVG_CACHE_SIZE = 48
+# Whether panel fragments carry their SVG charts (the static copy) or leave them to the browser
+# (the live view draws Vega-Lite specs itself); set per call by panel_html / static_html.
+_DRAW_CHARTS: contextvars.ContextVar[bool] = contextvars.ContextVar("seamline_draw_charts", default=True)
+_PENDING = ("border-left:3px solid #1d6470;background:#eef5f6;color:#1d3b40;padding:4px 10px;"
+            "margin:4px 0;font-size:12px")
+_DIM = "opacity:0.45"
 
 
 # ---------------------------------------------------------------------------------------------
@@ -207,7 +215,21 @@ def chart_svg(board, what: str) -> str:
     return svg
 
 
+def _pending(board) -> frozenset:
+    """The results of a board (state) that do not yet belong to its current inputs."""
+    pending = getattr(board, "pending", None)
+    return frozenset(pending) if pending else frozenset()
+
+
+def pending_note(what: str) -> str:
+    """The notice a panel shows while its result is being recomputed for the new inputs."""
+    return (f'<div class="seamline-pending" style="{_PENDING}">Updating {_esc(what)} for the current settings; '
+            "the numbers below (dimmed) belong to the previous ones.</div>")
+
+
 def _chart_or_error(board, what: str) -> str:
+    if not _DRAW_CHARTS.get():
+        return ""
     try:
         return _figure(chart_svg(board, what))
     except Exception as exc:  # a chart that fails must not take the panel's table with it
@@ -254,6 +276,9 @@ def _status_text(board) -> str:
 def _checks_html(board) -> str:
     """One line of design checks (ok / flag / not applicable), flags first in the warnings."""
     checks = _results(board).get("checks")
+    if "checks" in _pending(board):
+        return ('<div class="seamline-checks seamline-checks-pending" style="font-size:12px;margin:3px 0">'
+                "Design checks: updating for the current settings...</div>")
     if charts.not_applicable_reason(checks) is not None or not hasattr(checks, "table"):
         return ""
     marks = {"ok": ("ok", "#1d6470"), "flag": ("flag", "#b3261e")}
@@ -269,7 +294,8 @@ def _checks_html(board) -> str:
 def _design_warnings(board, fit) -> list[str]:
     """Design-level warnings: the checks summary's when available, otherwise the fit's own."""
     checks = _results(board).get("checks")
-    if charts.not_applicable_reason(checks) is None and hasattr(checks, "warnings"):
+    if "checks" not in _pending(board) and charts.not_applicable_reason(checks) is None \
+            and hasattr(checks, "warnings"):
         return list(checks.warnings)
     return list(getattr(fit, "warnings", ()) or ())
 
@@ -306,6 +332,10 @@ def header_html(board) -> str:
         f"comparison side: {untreated}) &middot; <span class=\"seamline-status\">{status}</span></div>")
     lo, hi = fit.robust_conf_int
     level = f"{100 * fit.level:g}%"
+    stale_fit = "fit" in _pending(board)
+    if stale_fit:
+        parts.append(pending_note("the estimate"))
+        parts.append(f'<div class="seamline-headline-previous" style="{_DIM}">')
     parts.append(
         f'<div class="seamline-headline" style="font-size:15px;margin:4px 0">Estimate '
         f"<b>{_esc(_number(fit.estimate))}</b> (se {_esc(_number(fit.std_error))}); robust {level} CI "
@@ -328,6 +358,9 @@ def header_html(board) -> str:
             f'<div style="font-size:12px">First stage: take-up jumps by '
             f"{_esc(_number(fit.first_stage.estimate))}"
             + (f"; F = {_esc(_number(f_stat))}" if f_stat is not None else "") + ".</div>")
+    if stale_fit:
+        parts.append("</div>")
+    parts.append(f'<div class="seamline-caution" style="{_NOTE}">{_esc(CAUTION)}</div>')
     parts.append(_checks_html(board))
     parts.append(_warnings_html(_design_warnings(board, fit)))
     parts.extend(error_html(m) for m in _panel_errors(board, "header"))
@@ -448,20 +481,38 @@ def _placebos_panel(board) -> str:
     return _result_block(board, "placebo", "placebo") + _result_block(board, "donut", "donut")
 
 
-def panel_html(board, panel: str) -> str:
+def panel_pending(board, panel: str) -> bool:
+    """Whether a panel shows a result that does not yet belong to the board's current inputs."""
+    return bool(set(PANEL_RESULTS.get(panel, ())) & _pending(board))
+
+
+def panel_html(board, panel: str, *, charts: bool = True) -> str:
     """The HTML of one panel: explanation, charts, tables, warnings, or the panel's error.
 
     Never raises: an exception while rendering becomes an error box (class ``seamline-error``).
+    A panel whose results are pending (``board.pending``) says so and shows the previous numbers
+    dimmed.
 
     Parameters
     ----------
-    board : seamline Board
+    board : seamline Board or BoardState
     panel : one of the keys of :data:`PANELS`
+    charts : bool, default True
+        Inline the charts as SVG (the static copy); False leaves them to the live view, which
+        sends them to the browser as Vega-Lite specs.
 
     Returns
     -------
     str
     """
+    token = _DRAW_CHARTS.set(charts)
+    try:
+        return _panel_html(board, panel)
+    finally:
+        _DRAW_CHARTS.reset(token)
+
+
+def _panel_html(board, panel: str) -> str:
     try:
         if panel not in dict(PANELS):
             names = ", ".join(f'"{k}"' for k, _ in PANELS)
@@ -480,13 +531,15 @@ def panel_html(board, panel: str) -> str:
         }[panel](board)
         errors = [m for m in _panel_errors(board, panel)
                   if _esc(m) not in body]  # result-level errors are already shown in the body
-        return (f'<div class="seamline-panel-body" style="{_BOX}">{_explain(panel)}'
-                + "".join(error_html(m) for m in errors) + body + "</div>")
+        body = "".join(error_html(m) for m in errors) + body
+        if panel_pending(board, panel):
+            body = pending_note(f"the {dict(PANELS)[panel].lower()} panel") + f'<div style="{_DIM}">{body}</div>'
+        return f'<div class="seamline-panel-body" style="{_BOX}">{_explain(panel)}{body}</div>'
     except Exception as exc:  # noqa: BLE001 - shown to the user inside the panel
         return error_html(f"{type(exc).__name__}: {exc}")
 
 
-def static_html(board) -> str:
+def static_html(board, *, charts: bool = True) -> str:
     """A self-contained HTML rendition of the whole board for the ``text/html`` fallback.
 
     Shows the header, then every panel one after the other (tables and inline SVG charts, no
@@ -495,7 +548,10 @@ def static_html(board) -> str:
 
     Parameters
     ----------
-    board : seamline Board
+    board : seamline Board or BoardState
+    charts : bool, default True
+        Inline every chart as SVG (drawn kernel-side by vl-convert, so only when the static copy
+        is saved: headless runs, an idle board); False leaves a note instead.
 
     Returns
     -------
@@ -510,7 +566,8 @@ def static_html(board) -> str:
         css = key.replace("_", "-")
         parts.append(f'<section class="seamline-static-{css}" style="margin-top:14px">'
                      f'<h4 style="margin:6px 0 2px 0;font-size:14px;border-bottom:1px solid #ddd">'
-                     f"{_esc(title)}</h4>{panel_html(board, key)}</section>")
+                     f"{_esc(title)}</h4>{panel_html(board, key, charts=charts)}</section>")
+    note = "" if charts else " Its charts are added once the board has finished computing."
     parts.append('<div style="font-size:11px;color:#777;margin-top:8px">Static copy of the seamline '
-                 "board; run the notebook for the live panels.</div></div>")
+                 f"board; run the notebook for the live panels.{note}</div></div>")
     return "".join(parts)

@@ -1,0 +1,410 @@
+"""The compute graph of a board: intermediate results, what each reads, and how panels are made.
+
+A board's panels are built from a few *intermediate results*, each computed once per set of
+inputs and shared by every panel and by the design checks. Each node below is cached under the
+values of the sources it reads (``DependencyGraph.key``), so a change recomputes exactly the nodes
+downstream of it; everything is computed at the reference level 0.95 and re-reported at the
+board's level (``levels.at_level``), so ``level`` is the source of no node at all.
+
+Sources: ``column:<name>`` (content fingerprint of a used column), ``data`` (which object the data
+is), the design keys (``score``, ``cutoff``, ``treated``, ``outcomes`` -- every declared outcome --,
+``outcome`` -- the selected one --, ``takeup``, ``covariates``, ``cluster``, ``weights``), the fit
+options (``bandwidth``, ``kernel``, ``degree``, ``bias_degree``, ``pilot_bandwidth``,
+``variance``, ``donut``, ``derivative``, ``adjust``) and ``balance_rule`` (the bandwidth rule when
+``bandwidth`` names one, else "mse"). Below, *rows* = the score, take-up, cluster and weights
+columns and names with the cutoff and the treated side (missing values in any of them drop a
+row); *estimator* = kernel, degree, bias_degree, variance, derivative.
+
+====================  ==============================================  ===============================
+node                  reads                                           engine call
+====================  ==============================================  ===============================
+design                data, every used column, the design keys         ``Design(...)``
+sample                rows, the outcome column, outcome, adjust,      (grouping only)
+                      donut; with adjust also the covariates
+selection             sample, estimator                               (grouping only)
+main_fit              selection, bandwidth, pilot_bandwidth           ``Design.fit``
+selectors             selection                                       ``Design.bandwidths``
+bins                  main_fit                                        ``Design.bins``
+takeup_bins           main_fit                                        ``Design.bins`` of take-up
+sensitivity           main_fit                                        ``Design.sensitivity``
+placebo               rows, the outcome column, outcome, donut,       ``Design.placebo_cutoffs``
+                      estimator, bandwidth, pilot_bandwidth (no
+                      adjustment: placebo fits never adjust)
+donut_ladder          main_fit's sources but donut (the ladder        ``Design.donut``
+                      sets its own radii)
+density               the score column, score, cutoff                 ``Design.density_test``
+balance               rows, covariates, estimator, donut,             ``Design.balance``
+                      balance_rule
+checks_balance        as balance with the rule "mse" and the pilot    ``Design.balance``
+                      bandwidth (what Design.checks reads; shares
+                      balance's entry when both coincide)
+score_profile         the score column, score, cutoff, main_fit       ``Design.score_profile``
+checks                main_fit, density, checks_balance,              none: assembled from the nodes
+                      score_profile
+====================  ==============================================  ===============================
+
+Panels (``PANEL_NODES``) read one node each and only re-report it: ``fit`` and ``first_stage``
+read ``main_fit``; ``first_stage_bins`` reads ``takeup_bins``; ``bandwidths`` reads
+``selectors``; ``donut`` reads ``donut_ladder`` (a node name is never a source's name); the others read the node of their own name. Consequences: a level change
+computes nothing; a bandwidth change leaves the density test, balance (at its own rule), the
+selectors and the score column's profile outside the window untouched; editing a covariate
+column touches only balance and the checks (unless ``adjust``).
+
+Nothing here imports IPython, widgets or charts.
+"""
+from __future__ import annotations
+
+import threading
+from collections import OrderedDict
+from collections.abc import Callable, Iterable, Mapping
+from dataclasses import dataclass
+from typing import Any
+
+from ..errors import SeamlineError
+from ..estimate.design import Design
+from ..results.diagnostics import Checks
+from .levels import REFERENCE_LEVEL, at_level
+from .reactive import DependencyGraph, PANELS, column_node
+from .spec import Failure, NotApplicable
+
+__all__ = ["NODES", "PANEL_NODES", "Computation", "NodeCache", "assemble_checks", "compute_graph",
+           "failure", "node_key", "panel_key", "panel_order"]
+
+#: Intermediate results that call the engine (``design``, ``sample`` and ``selection`` group sources).
+NODES: tuple[str, ...] = ("main_fit", "selectors", "bins", "takeup_bins", "sensitivity", "placebo", "donut_ladder",
+                          "density", "balance", "checks_balance", "score_profile", "checks")
+
+#: The node behind each panel.
+PANEL_NODES: Mapping[str, str] = {
+    "fit": "main_fit", "first_stage": "main_fit", "bins": "bins", "first_stage_bins": "takeup_bins",
+    "bandwidths": "selectors", "density": "density", "balance": "balance", "sensitivity": "sensitivity",
+    "placebo": "placebo", "donut": "donut_ladder", "score_profile": "score_profile", "checks": "checks",
+}
+
+_DESIGN_KEYS = ("score", "cutoff", "treated", "outcomes", "takeup", "covariates", "cluster", "weights")
+_ESTIMATOR = ("kernel", "degree", "bias_degree", "variance", "derivative")
+
+
+def compute_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: str | None = None,
+                  covariates: Iterable[str] = (), cluster: str | None = None, weights: str | None = None,
+                  adjust: bool = False) -> DependencyGraph:
+    """The dependency graph of a board's intermediate results for its current declaration
+    (the table in this module's docstring).
+
+    Returns
+    -------
+    DependencyGraph
+    """
+    covariates = tuple(covariates)
+    col = column_node
+    used = [score, *outcomes, *(c for c in (takeup, cluster, weights) if c), *covariates]
+    rows = [col(score), *(col(c) for c in (takeup, cluster, weights) if c),
+            "score", "cutoff", "treated", "takeup", "cluster", "weights"]
+    covs = [*(col(c) for c in covariates), "covariates"]
+    without_donut = [*rows, col(outcome), "outcome", "adjust", *(covs if adjust else [])]
+    parents = {
+        "design": ["data", *(col(c) for c in used), *_DESIGN_KEYS],
+        "sample": [*without_donut, "donut"],
+        "selection": ["sample", *_ESTIMATOR],
+        "main_fit": ["selection", "bandwidth", "pilot_bandwidth"],
+        "selectors": ["selection"],
+        "bins": ["main_fit"],
+        "takeup_bins": ["main_fit"],
+        "sensitivity": ["main_fit"],
+        # Placebo fits use one side's rows without take-up or covariate adjustment.
+        "placebo": [*rows, col(outcome), "outcome", "donut", *_ESTIMATOR, "bandwidth", "pilot_bandwidth"],
+        "donut_ladder": [*without_donut, *_ESTIMATOR, "bandwidth", "pilot_bandwidth"],
+        "density": [col(score), "score", "cutoff"],
+        "balance": [*rows, *covs, *_ESTIMATOR, "donut", "balance_rule"],
+        "checks_balance": [*rows, *covs, *_ESTIMATOR, "donut", "pilot_bandwidth"],
+        "score_profile": [col(score), "score", "cutoff", "main_fit"],
+        "checks": ["main_fit", "density", "checks_balance", "score_profile"],
+    }
+    return DependencyGraph(parents)
+
+
+def node_key(graph: DependencyGraph, values: Mapping[str, Any], node: str) -> tuple:
+    """The cache key of a node: the values of the sources it reads."""
+    if node == "checks_balance":
+        # The checks read balance at the rule "mse" (with the pilot bandwidth, as Design.checks
+        # does): without a pilot that is the balance panel's own entry under that rule.
+        key = graph.key("balance", {**values, "balance_rule": "mse"})
+        pilot = values.get("pilot_bandwidth")
+        return key if pilot is None else ("checks_balance", *key[1:], ("pilot_bandwidth", pilot))
+    return graph.key(node, values)
+
+
+def panel_key(graph: DependencyGraph, values: Mapping[str, Any], panel: str, level: float) -> tuple:
+    """What a panel's result is for: its node's key and the level it is reported at."""
+    return (node_key(graph, values, PANEL_NODES[panel]), level)
+
+
+def balance_rule(bandwidth: Any) -> str:
+    """The rule balance uses: the board's bandwidth rule, or "mse" under a manual bandwidth."""
+    return bandwidth if isinstance(bandwidth, str) else "mse"
+
+
+def failure(exc: BaseException, message: str) -> Failure:
+    return Failure(message, detail=str(exc), ours=isinstance(exc, SeamlineError))
+
+
+class NodeCache:
+    """Node values by key, least recently used dropped beyond ``size`` (thread-safe)."""
+
+    def __init__(self, size: int = 256):
+        self.size = size
+        self._values: OrderedDict[tuple, Any] = OrderedDict()
+        self._lock = threading.Lock()
+
+    def get(self, key: tuple, default: Any = None) -> Any:
+        with self._lock:
+            if key not in self._values:
+                return default
+            self._values.move_to_end(key)
+            return self._values[key]
+
+    def __contains__(self, key: tuple) -> bool:
+        with self._lock:
+            return key in self._values
+
+    def put(self, key: tuple, value: Any) -> None:
+        with self._lock:
+            self._values[key] = value
+            self._values.move_to_end(key)
+            while len(self._values) > self.size:
+                self._values.popitem(last=False)
+
+    def clear(self) -> None:
+        with self._lock:
+            self._values.clear()
+
+
+_MISSING = object()
+
+
+@dataclass(frozen=True)
+class Computation:
+    """Computes the nodes and panels of one set of inputs, sharing ``cache`` with earlier sets.
+
+    Parameters
+    ----------
+    design : the Design of these inputs
+    graph : their ``compute_graph``
+    values : the source values (keys of ``graph.sources``)
+    spec, options, selected : the declaration, the fit options and the selected outcome
+    cache : node values by key
+    describe : exception -> the message a panel shows
+    store : whether computed nodes go into ``cache`` (False for inputs already superseded by a
+        data change, whose results are discarded)
+    """
+
+    design: Design
+    graph: DependencyGraph
+    values: Mapping[str, Any]
+    spec: Mapping[str, Any]
+    options: Mapping[str, Any]
+    selected: str
+    cache: NodeCache
+    describe: Callable[[BaseException], str]
+    store: Callable[[], bool] = lambda: True
+
+    def node_key(self, node: str) -> tuple:
+        return node_key(self.graph, self.values, node)
+
+    def is_cached(self, panel: str) -> bool:
+        return self.node_key(PANEL_NODES[panel]) in self.cache
+
+    def node(self, node: str) -> Any:
+        """A node's value (a result, ``NotApplicable`` or ``Failure``), computed once per key."""
+        key = self.node_key(node)
+        value = self.cache.get(key, _MISSING)
+        if value is _MISSING:
+            try:
+                value = self._compute(node)
+            except Exception as exc:   # shown in the panel; never raised into the kernel
+                value = failure(exc, self.describe(exc))
+            if self.store():
+                self.cache.put(key, value)
+        return value
+
+    def panel(self, panel: str) -> Any:
+        """A panel's result at the board's level (or ``NotApplicable`` / ``Failure``); the same
+        object each time for the same inputs, so views can tell a change by identity."""
+        key = ("panel", panel, panel_key(self.graph, self.values, panel, self.options["level"]))
+        value = self.cache.get(key, _MISSING)
+        if value is _MISSING:
+            value = self._panel(panel)
+            if self.store():
+                self.cache.put(key, value)
+        return value
+
+    def _panel(self, panel: str) -> Any:
+        level = self.options["level"]
+        if panel in ("fit", "first_stage"):
+            main = self.node("main_fit")
+            if isinstance(main, Failure):
+                return main if panel == "fit" else Failure(f"needs the main fit, which failed: {main.message}")
+            fit = main.with_level(level)
+            if panel == "fit":
+                return fit
+            if fit.first_stage is None:
+                return NotApplicable(sharp_reason(self.spec["takeup"]))
+            return fit.first_stage
+        value = self.node(PANEL_NODES[panel])
+        return value if isinstance(value, (Failure, NotApplicable)) else at_level(value, level)
+
+    # ---- the engine calls ----------------------------------------------------------------------
+    def _kwargs(self, *drop: str) -> dict[str, Any]:
+        kwargs = {"outcome": self.selected, **self.options, "level": REFERENCE_LEVEL}
+        for name in drop:
+            kwargs.pop(name, None)
+        return kwargs
+
+    def _main(self):
+        main = self.node("main_fit")
+        if isinstance(main, Failure):
+            raise _Upstream(main)
+        return main
+
+    def _compute(self, node: str) -> Any:
+        design, opts = self.design, self.options
+        try:
+            if node == "main_fit":
+                return design.fit(**self._kwargs())
+            if node == "selectors":
+                return design.bandwidths(self.selected, **{k: opts[k] for k in (*_ESTIMATOR, "donut", "adjust")})
+            if node == "bins":
+                self._main()
+                return design.bins(**self._kwargs())
+            if node == "takeup_bins":
+                fit = self._main()
+                if fit.first_stage is None:
+                    return NotApplicable(sharp_reason(self.spec["takeup"]))
+                # The take-up jump drawn at the main fit's bandwidths: the first stage the estimate uses.
+                kwargs = self._kwargs("outcome", "adjust")
+                kwargs.update(bandwidth=fit.bandwidth, pilot_bandwidth=fit.pilot_bandwidth)
+                return design.bins(self.spec["takeup"], **kwargs)
+            if node == "sensitivity":
+                self._main()
+                return design.sensitivity(**self._kwargs())
+            if node == "placebo":
+                self._main()
+                return design.placebo_cutoffs(**self._kwargs())
+            if node == "donut_ladder":
+                return design.donut(**self._kwargs("donut"))
+            if node == "density":
+                return design.density_test()
+            if node in ("balance", "checks_balance"):
+                if not self.spec["covariates"]:
+                    return NotApplicable("No covariates are declared, so there is nothing to check for balance. "
+                                         "Declare pre-treatment columns with `covariates: age, prior_score`.")
+                if node == "checks_balance":
+                    pilot = () if opts["pilot_bandwidth"] is not None else ("pilot_bandwidth",)
+                    return design.balance(rule="mse", **self._kwargs("outcome", "bandwidth", "adjust", *pilot))
+                return design.balance(rule=balance_rule(opts["bandwidth"]),
+                                      **self._kwargs("outcome", "bandwidth", "pilot_bandwidth", "adjust"))
+            if node == "score_profile":
+                return design.score_profile(**self._kwargs())
+            if node == "checks":
+                return assemble_checks(self.node("main_fit"), self.node("density"), self.node("checks_balance"),
+                                       self.node("score_profile"), adjust=bool(opts["adjust"]))
+        except _Upstream as up:
+            return Failure(f"needs the main fit, which failed: {up.failure.message}", detail=up.failure.detail,
+                           ours=up.failure.ours)
+        raise AssertionError(f"unknown node {node!r}")   # NODES and this dispatch must agree
+
+
+class _Upstream(Exception):
+    def __init__(self, failure: Failure):
+        super().__init__(failure.message)
+        self.failure = failure
+
+
+def sharp_reason(takeup: str | None) -> str:
+    if takeup:
+        return (f"Take-up column {takeup!r} equals assignment on every usable row, so the design is sharp and "
+                "there is no first stage to report.")
+    return ("Sharp design: treatment follows the side of the cutoff exactly, so there is no first stage. "
+            "Declare `takeup: <column>` for a fuzzy design.")
+
+
+_ALPHA = 0.05
+
+
+def _raise_if_foreign(value: Any) -> None:
+    # Design.checks lets anything but a seamline input error propagate: so does the assembly.
+    if isinstance(value, Failure) and not value.ours:
+        raise RuntimeError(value.message)
+
+
+def assemble_checks(fit: Any, density: Any, balance: Any, profile: Any, *, adjust: bool) -> Checks:
+    """The design checks summary from results already computed: the rows ``Design.checks`` gives
+    for the same options, without running the fit, the density test, balance or the score profile
+    again.
+
+    Parameters
+    ----------
+    fit : the main Fit (or a Failure); density : DensityTest; balance : Balance at the rule "mse",
+        ``NotApplicable`` without covariates; profile : ScoreProfile (each may be a Failure)
+    adjust : whether the fit adjusts for the covariates (noted beside a balance flag)
+
+    Returns
+    -------
+    Checks
+    """
+    for value in (fit, density, balance, profile):
+        _raise_if_foreign(value)
+    rows, warnings = [], []
+
+    def add(check, status, detail):
+        rows.append({"check": check, "status": status, "detail": detail})
+        if status == "flag":
+            warnings.append(f"{check}: {detail}")
+
+    if isinstance(fit, Failure):
+        add("main estimate", "error", fit.detail)
+        fit = None
+    if isinstance(density, Failure):
+        add("manipulation (density test)", "error", density.detail)
+    else:
+        add("manipulation (density test)", "flag" if density.p_value < _ALPHA else "ok",
+            f"p = {density.p_value:.3f} ({density.method}); density {density.density_below:.4g} below, "
+            f"{density.density_above:.4g} above")
+    if isinstance(balance, NotApplicable):
+        add("covariate balance", "not applicable", "no covariates declared")
+    elif isinstance(balance, Failure):
+        add("covariate balance", "error", balance.detail)
+    else:
+        worst = min(r["p_value_holm"] for r in balance.rows)
+        status = "flag" if (worst < _ALPHA or balance.joint_p_value < _ALPHA) else "ok"
+        detail = f"smallest Holm p = {worst:.3f}; joint p = {balance.joint_p_value:.3f}"
+        if status == "flag" and adjust:
+            detail += "; covariate adjustment does not repair imbalance"
+        add("covariate balance", status, detail)
+    if fit is not None:
+        if fit.first_stage_f is not None:
+            add("first stage strength", "flag" if fit.first_stage_f < 10 else "ok",
+                f"F = {fit.first_stage_f:.1f} (common practice: F < 10 is weak)")
+        else:
+            add("first stage strength", "not applicable", "sharp design")
+        few = min(fit.n_used)
+        add("observations in the window", "flag" if few < 20 else "ok", f"{fit.n_used[0]} below, {fit.n_used[1]} above")
+    if isinstance(profile, Failure):
+        add("score profile", "error", profile.detail)
+    else:
+        discrete = [w for w in profile.warnings if w.startswith("Few distinct")]
+        heaped = [w for w in profile.warnings if w.startswith("Heaping")]
+        add("discrete score", "flag" if discrete else "ok",
+            discrete[0] if discrete else "enough distinct score values in the window")
+        add("heaping at round values", "flag" if heaped else "ok", heaped[0] if heaped else "no heaping detected")
+    return Checks(rows=tuple(rows), warnings=tuple(warnings))
+
+
+def panel_order(wanted: Iterable[str], panels: Iterable[str]) -> list[str]:
+    """The order a board computes its panels in: the headline first, then the wanted panels, then
+    the rest in ``PANELS`` order."""
+    panels = [p for p in PANELS if p in set(panels)]
+    wanted = set(wanted)
+    head = [p for p in ("fit", "first_stage") if p in panels]
+    return head + [p for p in panels if p in wanted and p not in head] + \
+        [p for p in panels if p not in wanted and p not in head]

@@ -1,0 +1,114 @@
+"""Exports of a board: one table, chart or the methods paragraph, rendered from current results.
+
+``export_result`` takes the board's results *for its current inputs* (the board waits for them
+before calling), so an export never shows a stale number. Tables go through
+``seamline.export``; charts are drawn kernel-side to SVG or PNG by vl-convert, only here and for
+the static copy of a saved notebook. Nothing here imports IPython or widgets.
+"""
+from __future__ import annotations
+
+import html
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from ..errors import InvalidOptionError
+from ..options import check_option
+from .spec import NotApplicable
+
+__all__ = ["CHART_FORMATS", "EXPORTS", "LABELS", "TABLE_FORMATS", "export_result", "methods_text"]
+
+LABELS = {
+    "fit": "main estimate", "first_stage": "first stage", "bins": "binned means",
+    "first_stage_bins": "binned take-up", "bandwidths": "bandwidth rules", "density": "density test",
+    "balance": "covariate balance", "sensitivity": "bandwidth sensitivity",
+    "placebo": "placebo cutoffs", "donut": "donut radii", "score_profile": "score profile",
+    "checks": "design checks",
+}
+#: Export names -> result keys.
+EXPORTS: dict[str, str] = {
+    "estimate": "fit", "first_stage": "first_stage", "bandwidths": "bandwidths",
+    "sensitivity": "sensitivity", "balance": "balance", "density": "density", "placebo": "placebo",
+    "donut": "donut", "bins": "bins", "score_profile": "score_profile", "checks": "checks",
+}
+TABLE_FORMATS = ("latex", "markdown", "csv", "html", "text")
+CHART_FORMATS = ("svg", "png")
+_METHODS_FORMATS = ("text", "markdown", "latex", "html")
+
+
+def methods_text(fit, results: Mapping[str, Any], errors: Mapping[str, str], weights: str | None) -> str:
+    """The specification and results in prose (see ``seamline.export.methods.methods_paragraph``)."""
+    from ..export.methods import methods_paragraph
+    if fit is None:
+        raise InvalidOptionError(f"`board` must have a current main fit to describe; got none: "
+                                 f"{errors.get('fit', 'not computed')}. Fix the error first.")
+    diagnostics = {k: v for k, v in results.items()
+                   if k in ("density", "balance", "sensitivity", "placebo", "donut") and v is not None
+                   and not isinstance(v, NotApplicable)}
+    return methods_paragraph(fit, diagnostics=diagnostics, weights=weights)
+
+
+def export_result(state, what: str, fmt: str, path: str | Path | None, *, weights: str | None) -> str | bytes:
+    """Render ``what`` of a board's state (``results``, ``errors``, ``name``) as ``fmt``; write it
+    to ``path`` when given. See ``Board.export`` for the names and formats."""
+    fmt = check_option("fmt", fmt, TABLE_FORMATS + CHART_FORMATS)
+    if what == "methods":
+        if fmt not in _METHODS_FORMATS:
+            raise InvalidOptionError(f"`fmt` for the methods paragraph must be \"text\", \"markdown\", "
+                                     f"\"latex\" or \"html\"; got {fmt!r}. Use fmt=\"text\".")
+        fit = state.results.get("fit")
+        text = methods_text(None if isinstance(fit, NotApplicable) else fit, state.results, state.errors, weights)
+        if fmt == "latex":
+            from ..export.render import latex_escape
+            text = latex_escape(text) + "\n"
+        elif fmt == "html":
+            text = f"<p class=\"seamline-methods\">{html.escape(text)}</p>\n"
+        else:
+            text += "\n"
+        return _write(text, path)
+    if what not in EXPORTS:
+        names = ", ".join(f'"{n}"' for n in (*EXPORTS, "methods"))
+        raise InvalidOptionError(f"`what` must be one of {names}; got {what!r}. Pick a table or chart name.")
+    if fmt in CHART_FORMATS:
+        from . import charts
+        chart = charts.chart_for(state, what)
+        return _write(charts.to_svg(chart) if fmt == "svg" else charts.to_png(chart), path)
+    result = state.results.get(EXPORTS[what])
+    if result is None or isinstance(result, NotApplicable):
+        reason = str(result) if result is not None else state.errors.get(EXPORTS[what], "not computed")
+        raise InvalidOptionError(f"`what` must name a panel with a current result; got {what!r}, which has "
+                                 f"none: {reason}")
+    return _write(_render_table(result, fmt, title=f"{state.name}: {LABELS[EXPORTS[what]]}"), path)
+
+
+def _render_table(result: Any, fmt: str, *, title: str) -> str:
+    if isinstance(result, pd.DataFrame):
+        from ..export.render import to_csv, to_html, to_latex, to_markdown
+        from ..export.table_model import from_dataframe
+        model = from_dataframe(result, title=title)
+        if fmt == "text":
+            return f"{title}\n{result.to_string(index=False)}\n"
+        return {"latex": to_latex, "markdown": to_markdown, "csv": to_csv, "html": to_html}[fmt](model)
+    if fmt == "latex":
+        return result.to_latex()
+    if fmt == "markdown":
+        return result.to_markdown()
+    if fmt == "csv":
+        return result.table().to_csv(index=False)
+    if fmt == "html":
+        return result._repr_html_()
+    heading = result.title() if hasattr(result, "title") and callable(result.title) else title
+    return f"{heading}\n{result.table().to_string(index=False)}\n"
+
+
+def _write(value: str | bytes, path: str | Path | None) -> str | bytes:
+    if path is not None:
+        target = Path(path)
+        if isinstance(value, bytes):
+            target.write_bytes(value)
+        else:
+            with open(target, "w", encoding="utf-8", newline="") as handle:
+                handle.write(value)
+    return value

@@ -1,0 +1,266 @@
+"""The board's compute graph: which engine calls each change makes, and that every panel equals
+the direct ``seamline.Design`` call for the same inputs.
+
+Reference: a direct ``Design(...)`` call on the same data with the same options (the notebook
+layer's reference: a board only routes, caches and re-reports what the engine computes), and for
+the level, the first-principles fact that a normal interval at another level keeps its centre and
+scales its half-width by the ratio of normal quantiles (common practice). Data: the package's
+invented demo scenario (n = 2000) with two extra invented columns (a take-up column and a copy of
+the score).
+"""
+from __future__ import annotations
+
+import threading
+from collections import Counter
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import seamline
+from seamline.demo_data import sharp_scenario
+from seamline.estimate import design as design_module
+from seamline.estimate import diagnostics
+from seamline.estimate.design import Design
+from seamline.notebook.board import boards
+from seamline.notebook.compute import compute_graph
+from seamline.notebook.spec import NotApplicable
+
+TIGHT = dict(rtol=1e-9, atol=1e-12)   # re-reported intervals equal direct ones to rounding
+
+# Design methods a board may call, counted by name when the board calls them (not when one calls
+# another); "fits" counts every real (uncached) fit, "selections" every bandwidth selection and
+# "density" every density test, wherever they are called from.
+METHODS = ("fit", "bandwidths", "bins", "sensitivity", "placebo_cutoffs", "donut", "balance", "score_profile",
+           "checks")
+FIT_DIAGNOSTICS = {"bins", "sensitivity", "placebo_cutoffs", "donut", "score_profile"}
+
+
+@pytest.fixture(autouse=True)
+def _close_boards():
+    before = {id(b) for b in boards()}
+    yield
+    for b in boards():
+        if id(b) not in before:
+            b.close()
+
+
+@pytest.fixture
+def scenario():
+    s = sharp_scenario(n=2000, seed=11)
+    data = s.data.copy()
+    rng = np.random.default_rng(3)           # invented: take-up mostly follows assignment
+    assigned = (data[s.score] < s.cutoff).to_numpy()
+    data["enrolled"] = np.where(rng.random(len(data)) < 0.85, assigned, ~assigned).astype(float)
+    data["score_copy"] = data[s.score] + 0.0
+    return s, data
+
+
+@pytest.fixture
+def calls(monkeypatch):
+    counts: Counter = Counter()
+    depth = threading.local()
+
+    def wrap(owner, name, label, outermost):
+        real = getattr(owner, name)
+
+        def counting(*args, **kwargs):
+            level = getattr(depth, "n", 0)
+            if level == 0 or not outermost:
+                counts[label] += 1
+            depth.n = level + 1
+            try:
+                return real(*args, **kwargs)
+            finally:
+                depth.n = level
+
+        monkeypatch.setattr(owner, name, counting)
+
+    for name in METHODS:
+        wrap(Design, name, name, True)
+    wrap(Design, "_fit", "fits", False)
+    wrap(design_module, "mse_selection", "selections", False)
+    wrap(diagnostics, "density_test", "density", False)
+    return counts
+
+
+# change -> (how to apply it, the calls it must make; every other counted call must be zero)
+ALL_BUT_DENSITY = {"fit", "bandwidths", "balance", *FIT_DIAGNOSTICS}
+CHANGES = {
+    "level": (("level", 0.9), set()),
+    "bandwidth (manual)": (("bandwidth", 3.0), {"fit", *FIT_DIAGNOSTICS}),
+    "bandwidth (another rule)": (("bandwidth", "coverage"), {"fit", "balance", *FIT_DIAGNOSTICS}),
+    "kernel": (("kernel", "uniform"), ALL_BUT_DENSITY),
+    "degree": (("degree", 2), ALL_BUT_DENSITY),
+    "bias_degree": (("bias_degree", 3), ALL_BUT_DENSITY),
+    # the checks' balance uses the pilot bandwidth (as Design.checks does), the panel's does not
+    "pilot_bandwidth": (("pilot_bandwidth", 9.0), {"fit", "balance", *FIT_DIAGNOSTICS}),
+    "variance": (("variance", "hc1"), ALL_BUT_DENSITY),
+    # the donut ladder re-selects its own radii, so the donut option does not touch it
+    "donut": (("donut", 0.5), ALL_BUT_DENSITY - {"donut"}),
+    "derivative": (("derivative", 1), ALL_BUT_DENSITY),
+    # placebo fits and balance never adjust, so adjusting touches neither
+    "adjust": (("adjust", True), ALL_BUT_DENSITY - {"placebo_cutoffs", "balance"}),
+    "outcome": (("outcome", "attendance"), ALL_BUT_DENSITY - {"balance"}),
+    "score": (("score", "score_copy"), ALL_BUT_DENSITY | {"density"}),
+    "cutoff": (("cutoff", 41.0), ALL_BUT_DENSITY | {"density"}),
+    "treated": (("treated", "above"), ALL_BUT_DENSITY),
+    "takeup": (("takeup", "enrolled"), ALL_BUT_DENSITY),
+    "covariates": (("covariates", ("age", "prior_math")), {"balance"}),
+    "cluster": (("cluster", None), ALL_BUT_DENSITY),
+    "weights": (("weights", None), ALL_BUT_DENSITY),
+    "column: outcome": (("edit", "math_gain"), ALL_BUT_DENSITY - {"balance"}),
+    "column: covariate": (("edit", "age"), {"balance"}),
+    "column: score": (("edit", "reading_score"), ALL_BUT_DENSITY | {"density"}),
+    "column: unused": (("edit", "free_lunch_unused"), set()),
+}
+
+
+def _board(s, data):
+    kwargs = {**s.design_kwargs(), "covariates": ["age", "prior_math", "free_lunch"]}
+    return seamline.board(data, **kwargs).wait()
+
+
+def _apply(board, data, change):
+    name, value = change
+    if name == "edit":
+        if value not in data:
+            data[value] = 1.0                       # a column the board does not read
+        data.loc[data.index[:300], value] += 0.25   # in place
+        return board.check_inputs()
+    board.set_option(name, value)
+    return None
+
+
+@pytest.mark.parametrize("label", list(CHANGES))
+def test_each_change_makes_exactly_its_engine_calls(label, scenario, calls):
+    s, data = scenario
+    b = _board(s, data)
+    change, expected = CHANGES[label]
+    calls.clear()
+    _apply(b, data, change)
+    b.wait()
+    made = {name for name, n in calls.items() if n} - {"fits", "selections"}
+    if not expected:
+        assert calls["fits"] == calls["selections"] == 0, "nothing may be fitted or selected"
+    assert made == expected, f"{label}: extra {made - expected}, missing {expected - made}"
+    assert calls["checks"] == 0, "the checks summary is assembled, never recomputed"
+    assert calls["density"] <= 1 and calls["balance"] <= 2
+
+
+def test_nothing_runs_twice_when_panels_share_a_result(scenario, calls):
+    s, data = scenario
+    _board(s, data)
+    # One density test serves the density panel and the checks; one balance serves both at "mse".
+    assert calls["density"] == 1 and calls["balance"] == 1 and calls["checks"] == 0
+    assert calls["bandwidths"] == 1 and calls["donut"] == 1 and calls["placebo_cutoffs"] == 1
+
+
+def test_switching_back_is_a_cache_hit(scenario, calls):
+    s, data = scenario
+    b = _board(s, data)
+    b.set_option("bandwidth", 3.0)
+    b.wait()
+    calls.clear()
+    b.set_option("bandwidth", "mse")
+    b.wait()
+    assert sum(calls.values()) == 0
+
+
+def test_the_graph_is_acyclic_and_level_is_no_source():
+    graph = compute_graph(score="x", outcomes=["y"], outcome="y", covariates=["c"], takeup="t")
+    assert "level" not in graph.sources
+    assert graph.stale_after({"bandwidth"}) >= {"main_fit", "bins", "sensitivity", "placebo", "donut_ladder"}
+    assert not graph.stale_after({"bandwidth"}) & {"density", "selectors", "balance", "checks_balance"}
+    assert graph.stale_after({"column:c"}) == {"design", "balance", "checks_balance", "checks"}
+
+
+# ---- every panel against the direct Design call ----------------------------------------------------
+def _expected(data, spec, options):
+    """Every panel computed directly with seamline.Design for the given declaration and options."""
+    design = Design(data, **spec)
+    kw = dict(options)
+    level = kw["level"]
+    rule = kw["bandwidth"] if isinstance(kw["bandwidth"], str) else "mse"
+    fit = design.fit(**kw)
+    out = {
+        "fit": fit,
+        "bandwidths": design.bandwidths(kw["outcome"], **{k: kw[k] for k in (
+            "kernel", "degree", "bias_degree", "variance", "donut", "derivative", "adjust")}),
+        "bins": design.bins(**kw),
+        "sensitivity": design.sensitivity(**kw),
+        "placebo": design.placebo_cutoffs(**kw),
+        "donut": design.donut(**{k: v for k, v in kw.items() if k != "donut"}),
+        "density": design.density_test(level=level),
+        "score_profile": design.score_profile(**kw),
+        "checks": design.checks(**kw),
+    }
+    if spec.get("covariates"):
+        out["balance"] = design.balance(rule=rule, **{k: v for k, v in kw.items() if k not in (
+            "outcome", "bandwidth", "pilot_bandwidth", "adjust")})
+    if fit.first_stage is not None:
+        out["first_stage"] = fit.first_stage
+        out["first_stage_bins"] = design.bins(spec["takeup"], **{
+            **{k: v for k, v in kw.items() if k not in ("outcome", "adjust")},
+            "bandwidth": fit.bandwidth, "pilot_bandwidth": fit.pilot_bandwidth})
+    return out
+
+
+def _same(got, want, panel):
+    if isinstance(want, pd.DataFrame):
+        pd.testing.assert_frame_equal(got, want, **TIGHT)
+        return
+    for table in ("table", "curve", "grid"):
+        if hasattr(want, table):
+            pd.testing.assert_frame_equal(getattr(got, table)(), getattr(want, table)(), check_exact=False,
+                                          **TIGHT, obj=f"{panel}.{table}()")
+    if hasattr(want, "robust_conf_int"):
+        np.testing.assert_allclose(got.robust_conf_int, want.robust_conf_int, **TIGHT)
+        assert got.level == want.level
+
+
+SETTINGS = [
+    ("bandwidth", 3.0), ("bandwidth", "coverage"), ("kernel", "epanechnikov"), ("degree", 2), ("bias_degree", 3),
+    ("pilot_bandwidth", 9.0), ("variance", "hc2"), ("level", 0.9), ("donut", 0.5), ("derivative", 1),
+    ("adjust", True), ("outcome", "attendance"), ("score", "score_copy"), ("cutoff", 41.0), ("treated", "above"),
+    ("takeup", "enrolled"), ("covariates", ("age",)), ("cluster", None), ("weights", None),
+]
+
+
+@pytest.mark.parametrize(("name", "value"), SETTINGS, ids=[f"{n}={v}" for n, v in SETTINGS])
+def test_every_panel_equals_the_direct_design_call_after_a_setting(name, value, scenario):
+    s, data = scenario
+    b = _board(s, data)
+    b.set_option(name, value)
+    b.wait()
+    spec = {**s.design_kwargs(), "covariates": ["age", "prior_math", "free_lunch"]}
+    options = {"outcome": spec["outcome"][0], "bandwidth": "mse", "kernel": "triangular", "degree": 1,
+               "bias_degree": None, "pilot_bandwidth": None, "variance": "neighbors", "level": 0.95,
+               "donut": 0.0, "derivative": 0, "adjust": False}
+    if name in options:
+        options[name] = value
+    else:
+        spec[name] = list(value) if isinstance(value, tuple) else value
+    expected = _expected(data, spec, options)
+    for panel in b.panels:
+        got = b.results[panel]
+        if panel not in expected:
+            assert isinstance(got, NotApplicable), panel
+            continue
+        assert got is not None, (panel, b.errors.get(panel))
+        _same(got, expected[panel], panel)
+
+
+def test_a_level_change_equals_the_interval_rebuilt_by_hand(scenario):
+    s, data = scenario
+    b = _board(s, data)
+    before = b.results["density"]
+    b.set_option("level", 0.8)
+    after = b.results["density"]
+    # First principles: centre kept, half-width scaled by z(0.9) / z(0.975) (common practice).
+    from scipy import stats
+    ratio = stats.norm.ppf(0.9) / stats.norm.ppf(0.975)
+    centre = sum(before.ci_below) / 2
+    half = (before.ci_below[1] - before.ci_below[0]) / 2
+    np.testing.assert_allclose(after.ci_below, (centre - ratio * half, centre + ratio * half), **TIGHT)
+    assert after.p_value == before.p_value and after.level == 0.8
