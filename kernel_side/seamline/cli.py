@@ -145,7 +145,6 @@ def read_spec(path: str | Path):
 def _page(board, spec_path: Path, data_path: Path, files: Sequence[str]) -> str:
     from . import __version__
     from .notebook.static import static_html
-    from .results.base import CAUTION
 
     esc = html.escape
     methods = board.methods_paragraph()
@@ -159,9 +158,7 @@ def _page(board, spec_path: Path, data_path: Path, files: Sequence[str]) -> str:
         f"<h1 style=\"font-size:20px\">{esc(board.name)}</h1>\n"
         f"<p style=\"font-size:12px;color:#555\">Made by seamline {esc(__version__)} from {esc(spec_path.name)} "
         f"on {esc(stamp)}; data: {esc(str(data_path))} ({rows:,} rows).</p>\n"
-        f'<p class="seamline-caution" style="border-left:3px solid #8c8c8c;padding:4px 10px;font-size:13px">'
-        f"<b>Caution.</b> {esc(CAUTION)}</p>\n"
-        f"{static_html(board)}\n"
+        f"{static_html(board)}\n"          # the static board states the caution once
         f'<h2 style="font-size:16px">Methods</h2>\n<p class="seamline-methods">{esc(methods)}</p>\n'
         f'<h2 style="font-size:16px">Files</h2>\n<ul>{links}</ul>\n</body>\n</html>\n'
     )

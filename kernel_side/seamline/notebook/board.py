@@ -708,14 +708,17 @@ class Board(Scheduler):
         return methods_text(None if isinstance(fit, NotApplicable) else fit, state.results, state.errors,
                             state.spec["weights"])
 
-    def export(self, what: str, fmt: str = "latex", path: str | Path | None = None) -> str | bytes:
+    def export(self, what: str, fmt: str = "latex", path: str | Path | None = None, *,
+               data_path: str | Path | None = None) -> str | bytes:
         """Render one table, chart or the methods paragraph of the current results (waits for
         them); write it when ``path`` is given.
 
         Parameters
         ----------
         what : "estimate", "sensitivity", "balance", "density", "placebo", "donut", "bins",
-            "bandwidths", "first_stage" or "methods"
+            "bandwidths", "first_stage", "methods", or "script": a standalone Python script that
+            rebuilds every number of the board from the data file ``data_path`` (CSV or Parquet;
+            without it, a marked constant to edit), see ``seamline.export.script``
         fmt : tables: "latex" (booktabs), "markdown", "csv", "html", "text";
             charts: "svg", "png"; methods: "text", "markdown", "latex", "html"
         path : file to write (replaced if it exists); nothing is written without it
@@ -724,6 +727,9 @@ class Board(Scheduler):
         -------
         str, or bytes for "png"
         """
+        if what == "script":
+            from ..export.script import board_script
+            return board_script(self, path, data_path=data_path)
         from ..options import check_option
         check_option("fmt", fmt, TABLE_FORMATS + CHART_FORMATS)
         state = self._current_state()
@@ -741,7 +747,7 @@ class Board(Scheduler):
                 from .panels import BoardView
             except ImportError as exc:
                 raise ImportError("seamline's board view needs ipywidgets and altair: install them with "
-                                  "`pip install \"seamline[notebook]\"`; the results are in board.results "
+                                  "`pip install seamline` (ipywidgets is a dependency); the results are in board.results "
                                   f"meanwhile ({exc}).") from exc
             self._view = BoardView(self)
         return self._view

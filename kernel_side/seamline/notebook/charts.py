@@ -76,7 +76,7 @@ def _alt():
     except ImportError as exc:  # pragma: no cover - exercised only without the extra
         raise ImportError(
             "seamline's charts need the `altair` package; install it with "
-            "`pip install \"seamline[notebook]\"` (or `pip install altair vl-convert-python`)."
+            "`pip install altair vl-convert-python` (both are dependencies of seamline)."
         ) from exc
     return alt
 
@@ -87,7 +87,7 @@ def _vlc():
     except ImportError as exc:  # pragma: no cover - exercised only without the extra
         raise ImportError(
             "exporting charts needs the `vl-convert-python` package; install it with "
-            "`pip install \"seamline[notebook]\"` (or `pip install vl-convert-python`)."
+            "`pip install vl-convert-python` (a dependency of seamline)."
         ) from exc
     return vl_convert
 

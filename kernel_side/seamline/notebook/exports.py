@@ -84,23 +84,9 @@ def export_result(state, what: str, fmt: str, path: str | Path | None, *, weight
 
 
 def _render_table(result: Any, fmt: str, *, title: str) -> str:
-    if isinstance(result, pd.DataFrame):
-        from ..export.render import to_csv, to_html, to_latex, to_markdown
-        from ..export.table_model import from_dataframe
-        model = from_dataframe(result, title=title)
-        if fmt == "text":
-            return f"{title}\n{result.to_string(index=False)}\n"
-        return {"latex": to_latex, "markdown": to_markdown, "csv": to_csv, "html": to_html}[fmt](model)
-    if fmt == "latex":
-        return result.to_latex()
-    if fmt == "markdown":
-        return result.to_markdown()
-    if fmt == "csv":
-        return result.table().to_csv(index=False)
-    if fmt == "html":
-        return result._repr_html_()
-    heading = result.title() if hasattr(result, "title") and callable(result.title) else title
-    return f"{heading}\n{result.table().to_string(index=False)}\n"
+    """Reader labels in every format (seamline.export.labels); ``table()`` keeps the machine names."""
+    from ..export.labels import export_table
+    return export_table(result, fmt, title=title if isinstance(result, pd.DataFrame) else None)
 
 
 def _write(value: str | bytes, path: str | Path | None) -> str | bytes:

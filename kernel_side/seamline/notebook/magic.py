@@ -21,6 +21,7 @@ import re
 from dataclasses import dataclass, field
 from typing import Any
 
+from ..time_score import looks_like_date
 from ..errors import DesignSpecError
 from ..options import BANDWIDTH_RULES, KERNELS, SIDES, VARIANCES
 
@@ -206,6 +207,8 @@ class _Resolver:
             if len(items) == 1:
                 return self.column(key, items[0][0], items[0][1], line, single=True)
             return [self.column(key, item, quoted, line, single=False) for item, quoted in items]
+        if key == "cutoff" and looks_like_date(text):
+            return text.strip().strip("'\"")          # a cutoff date for a date score (seamline.time_score)
         if kind in ("number", "level"):
             number = _number(text[:-1] if kind == "level" and text.endswith("%") else text)
             if number is not None:

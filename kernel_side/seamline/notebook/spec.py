@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..time_score import is_time_value, looks_like_date
 from ..errors import InvalidOptionError
 from ..options import BANDWIDTH_RULES, KERNELS, SIDES, VARIANCES, check_option
 
@@ -148,6 +149,8 @@ def coerce_value(key: str, value: Any, variable: str | None = None) -> Any:
     InvalidOptionError
         With the key, the variable, the value and how to fix it.
     """
+    if key == "cutoff" and (looks_like_date(value) or is_time_value(value)):
+        return value      # a cutoff date: checked against the score by seamline.Design
     if key in ("cutoff", "level", "donut"):
         number = _as_float(key, value, variable, {"cutoff": "40", "level": "0.95", "donut": "0.5"}[key])
         if key == "level" and not 0 < number < 1:
