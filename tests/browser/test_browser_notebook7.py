@@ -101,10 +101,19 @@ def test_demo_board_runs_in_notebook_7(browser, notebook7):
         page.goto(f"{base}/notebooks/{DEMO}?token={token}")
         expect(page.locator(".jp-NotebookPanel").first).to_be_visible(timeout=60_000)
         expect(page.locator(ui.IDLE).first).to_be_attached(timeout=90_000)
-        page.locator(".lm-MenuBar-itemLabel", has_text=re.compile(r"^Run$")).click()
-        page.locator(".lm-Menu-itemLabel", has_text=re.compile(r"^Run All Cells$")).click()
         board = page.locator(".seamline-board").first
-        expect(board).to_be_attached(timeout=ui.RUN_TIMEOUT_MS)
+        # Run All can be swallowed while Notebook 7 is still connecting its kernel (seen once in a full
+        # run: no cell started); ask again, at most three times, before judging the board.
+        for attempt in range(3):
+            page.locator(".lm-MenuBar-itemLabel", has_text=re.compile(r"^Run$")).click()
+            page.locator(".lm-Menu-itemLabel", has_text=re.compile(r"^Run All Cells$")).click()
+            try:
+                expect(board).to_be_attached(timeout=ui.RUN_TIMEOUT_MS // 3)
+                break
+            except AssertionError:
+                if attempt == 2:
+                    raise
+                ui.wait_idle(page)
         expect(board.locator(".seamline-headline")).to_contain_text("Estimate", timeout=60_000)
         ui.wait_idle(page)
         design = page.locator(".jp-Cell.seamline-design-cell")
