@@ -14,7 +14,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-dd = pytest.importorskip("dask.dataframe")
+import dask.dataframe as dd
 
 import seamline
 from seamline.errors import ColumnNotFoundError, ColumnTypeError, DataSourceError, DuplicateColumnError
@@ -125,7 +125,7 @@ def test_only_the_design_columns_are_read(folder):
 
 
 def test_two_worker_processes(folder, want):
-    distributed = pytest.importorskip("dask.distributed")
+    import dask.distributed as distributed
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=None) as cluster, distributed.Client(cluster) as client:
         seen = []

@@ -17,8 +17,8 @@ from pathlib import Path
 
 import pytest
 
-nbformat = pytest.importorskip("nbformat")
-nbclient = pytest.importorskip("nbclient")
+import nbformat
+import nbclient
 
 pytestmark = pytest.mark.slow
 

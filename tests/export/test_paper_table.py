@@ -124,7 +124,7 @@ def test_bad_arguments_are_pointed(fits):
 
 
 def test_word_file_holds_the_same_cells(fits, tmp_path):
-    docx = pytest.importorskip("docx")
+    import docx
     table = paper_table([fits["sharp"], fits["fuzzy"]], title="Invented estimates", notes=["Invented data."])
     path = table.to_docx(tmp_path / "table.docx")
     document = docx.Document(str(path))   # Reference: python-docx reading the file back

@@ -17,8 +17,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-pytest.importorskip("altair")
-pytest.importorskip("vl_convert")
+import altair  # noqa: F401  (required: a missing one fails the suite)
+import vl_convert  # noqa: F401  (required: a missing one fails the suite)
 
 import seamline  # noqa: E402
 from seamline.demo_data import discrete_scenario, fuzzy_scenario, sharp_scenario  # noqa: E402

@@ -12,10 +12,10 @@ from pathlib import Path
 
 import pytest
 
-nbformat = pytest.importorskip("nbformat")
-pytest.importorskip("nbclient")
-pytest.importorskip("nbconvert")
-pytest.importorskip("ipykernel")
+import nbformat
+import nbclient  # noqa: F401  (required: a missing one fails the suite)
+import nbconvert  # noqa: F401  (required: a missing one fails the suite)
+import ipykernel  # noqa: F401  (required: a missing one fails the suite)
 
 from seamline.notebook.run_demos import WIDGET_VIEW, demo_notebooks, execute_notebook, static_html_page  # noqa: E402
 

@@ -2,7 +2,7 @@
 
 Reference: the rendered tables of the same result objects (``to_markdown`` / ``table()``), so a
 reader who checks a number in the paragraph against a table finds the same digits; the named
-methods are the published ones behind each option (METHODS.md; Calonico, Cattaneo & Titiunik
+methods are the published ones behind each option (Calonico, Cattaneo & Titiunik
 2014; Calonico, Cattaneo & Farrell 2020; Imbens & Kalyanaraman 2012; Cattaneo, Jansson & Ma 2020).
 """
 from __future__ import annotations

@@ -14,9 +14,9 @@ import re
 
 import pytest
 
-pytest.importorskip("ipywidgets")
-pytest.importorskip("altair")
-pytest.importorskip("vl_convert")
+import ipywidgets  # noqa: F401  (required: a missing one fails the suite)
+import altair  # noqa: F401  (required: a missing one fails the suite)
+import vl_convert  # noqa: F401  (required: a missing one fails the suite)
 
 import ipywidgets as widgets  # noqa: E402
 

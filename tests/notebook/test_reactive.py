@@ -3,7 +3,7 @@
 References: fingerprints are checked against Python's own ``zlib`` / ``hashlib`` over the column
 bytes (standard library); CRC-32 detecting every error burst of at most 32 bits is a textbook
 property of cyclic redundancy checks (common practice); "which result goes stale for which change" follows from what each number
-depends on (METHODS: the density test reads the score only, balance reads the covariates,
+depends on (the definitions of the estimators: the density test reads the score only, balance reads the covariates,
 the confidence level only rescales an interval) -- common practice of spreadsheet-style recompute.
 """
 from __future__ import annotations
