@@ -417,8 +417,11 @@ def test_kernel_messages_have_the_shapes_the_front_end_accepts():
     # extension/test/protocol.test.ts checks that the front end accepts every fixture message.
     fixtures = json.loads(FIXTURES.read_text())
     board = FakeBoard("tutoring", score="reading_score", cutoff=40.0, outcome="math_gain")
+    scenario = sharp_scenario(n=600, seed=3)
+    board.fit = seamline.Design(scenario.data, **scenario.design_kwargs()).fit()
     frame = pd.DataFrame({"reading_score": [1.0], "school": ["a"]})
     ch, sent = make_channel([board], {"pupils": frame})
+    seamline.paper_tables.clear()
     replies = {
         "hello_reply": ch.handle(request("hello", client_version="0.1.0")),
         "list_reply": ch.handle(request("list")),
@@ -427,6 +430,9 @@ def test_kernel_messages_have_the_shapes_the_front_end_accepts():
         "export_reply": ch.handle(request("export", name="tutoring", what="estimate",
                                           format="latex")),
         "dataframes_reply": ch.handle(request("dataframes")),
+        "paper_add_reply": ch.handle(request("paper_add", name="tutoring", table="main")),
+        "paper_tables_reply": ch.handle(request("paper_tables")),
+        "script_reply": ch.handle(request("export", name="tutoring", what="script", format="text")),
         "failed_reply": ch.handle(request("export", name="x", what="estimate", format="latex")),
         "error": ch.handle(request("dance")),
     }
@@ -436,6 +442,48 @@ def test_kernel_messages_have_the_shapes_the_front_end_accepts():
     ch._registry = lambda: []
     ch.sync()
     replies["removed"] = sent[-1]
+    seamline.paper_tables.clear()
     for key, message in replies.items():
         assert _shape(json.loads(json.dumps(message, allow_nan=False))) == _shape(fixtures[key]), key
     assert set(replies) == {k for k in fixtures if not k.startswith("_")}
+
+
+# --- the paper workflow: scripts and paper tables ---------------------------------------------------
+
+def test_paper_add_puts_the_board_headline_in_the_named_session_table():
+    scenario = sharp_scenario(n=800, seed=4)
+    design = seamline.Design(scenario.data, **scenario.design_kwargs())
+    board = FakeBoard("tutoring")
+    board.fit = design.fit()
+    other = FakeBoard("uniform")
+    other.fit = design.fit(kernel="uniform")
+    ch, _sent = make_channel([board, other])
+    seamline.paper_tables.clear()
+    try:
+        first = ch.handle(request("paper_add", name="tutoring", table=" main "))
+        assert first["success"], first
+        assert (first["table"], first["columns"]) == ("main", ["tutoring"])
+        second = ch.handle(request("paper_add", name="uniform", table="main"))
+        assert second["columns"] == ["tutoring", "uniform"]
+        again = ch.handle(request("paper_add", name="tutoring", table="main"))   # replaces, keeps place
+        assert again["columns"] == ["tutoring", "uniform"]
+        table = seamline.paper_tables["main"]
+        assert table.columns == ("tutoring", "uniform")
+        # the reply's text is the table as the kernel renders it, numbers as the fits format them
+        assert again["text"] == table.to_markdown()
+        assert f"{board.fit.estimate:.3f}" in again["text"] and f"{other.fit.estimate:.3f}" in again["text"]
+        listing = ch.handle(request("paper_tables"))
+        assert listing["tables"] == [{"name": "main", "columns": ["tutoring", "uniform"]}]
+        bad = ch.handle(request("paper_add", name="tutoring", table="   "))
+        assert not bad["success"] and "`table` must be 1 to 60 printable characters" in bad["error"]
+        missing = ch.handle(request("paper_add", name="nobody", table="main"))
+        assert not missing["success"] and "`name` must be the name of a design" in missing["error"]
+    finally:
+        seamline.paper_tables.clear()
+
+
+def test_script_export_is_the_board_replication_script():
+    board = FakeBoard("tutoring")
+    ch, _sent = make_channel([board])
+    answer = ch.handle(request("export", name="tutoring", what="script", format="text"))
+    assert answer["success"] and answer["text"] == "script as text"

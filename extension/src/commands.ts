@@ -1,14 +1,17 @@
 /**
- * Commands: insert a design cell from a form, show the Designs panel, copy an export.
+ * Commands: insert a design cell from a form, show the Designs panel, copy an export, copy or
+ * save a replication script, add a headline to a paper table.
  *
  * Command ids live in one namespace (`CommandIDs`).
  */
 import { Clipboard, Dialog, Notification, showDialog } from '@jupyterlab/apputils';
 import { NotebookActions } from '@jupyterlab/notebook';
+import { Contents } from '@jupyterlab/services';
 import { Widget } from '@lumino/widgets';
 
 import { NotebookDesigns } from './notebook';
-import { ExportFormat, ExportWhat, IDataFrameInfo } from './protocol';
+import { DEFAULT_TABLE, folderOf, joinPath, replicationFileName, tableCode, tableNameProblem } from './paper';
+import { ExportFormat, ExportWhat, IDataFrameInfo, IPaperTableInfo } from './protocol';
 import {
   IDesignForm,
   Side,
@@ -208,5 +211,143 @@ export async function copyExport(
     Notification.error(`Could not copy ${label} of ${name}: ${String((error as Error).message ?? error)}`, {
       autoClose: 8000
     });
+  }
+}
+
+function problemText(error: unknown): string {
+  return String((error as Error).message ?? error);
+}
+
+/** Copy a design's replication script to the clipboard and say so. */
+export async function copyScript(designs: NotebookDesigns, name: string): Promise<void> {
+  try {
+    const text = await designs.channel.script(name);
+    Clipboard.copyToSystem(text);
+    Notification.success(`Copied the replication script of ${name} to the clipboard.`, { autoClose: 3000 });
+  } catch (error) {
+    Notification.error(`Could not copy the replication script of ${name}: ${problemText(error)}`, {
+      autoClose: 8000
+    });
+  }
+}
+
+/**
+ * Save a design's replication script next to the notebook as `<design>_replication.py` (with
+ * -2, -3, ... when that name is taken: nothing is overwritten). Returns the saved path, or null.
+ */
+export async function saveScript(
+  designs: NotebookDesigns,
+  name: string,
+  contents: Contents.IManager
+): Promise<string | null> {
+  try {
+    const text = await designs.channel.script(name);
+    const folder = folderOf(designs.panel.context.path);
+    const listing = await contents.get(folder, { content: true });
+    const taken = Array.isArray(listing.content)
+      ? (listing.content as Contents.IModel[]).map(model => model.name)
+      : [];
+    const path = joinPath(folder, replicationFileName(name, taken));
+    await contents.save(path, { type: 'file', format: 'text', content: text });
+    Notification.success(
+      `Saved the replication script of ${name} as ${path}. Set DATA_PATH at its top to your data file, ` +
+        'then run it with python.',
+      { autoClose: 6000 }
+    );
+    return path;
+  } catch (error) {
+    Notification.error(`Could not save the replication script of ${name}: ${problemText(error)}`, {
+      autoClose: 8000
+    });
+    return null;
+  }
+}
+
+/** The paper-table dialog: a name (existing tables offered) and what each table holds. */
+export class PaperTableForm extends Widget implements Dialog.IBodyWidget<string> {
+  constructor(tables: IPaperTableInfo[], initial: string, problem: string | null) {
+    super();
+    this.addClass('seamline-paper-form');
+    if (problem) {
+      const box = document.createElement('div');
+      box.className = 'seamline-form-problems';
+      box.textContent = problem;
+      this.node.append(box);
+    }
+    const list = document.createElement('datalist');
+    list.id = `seamline-paper-tables-${++PaperTableForm._count}`;
+    for (const table of tables) {
+      list.append(option(table.name));
+    }
+    this._name.type = 'text';
+    this._name.value = initial;
+    this._name.spellcheck = false;
+    this._name.setAttribute('list', list.id);
+    this._name.classList.add('jp-mod-styled', 'seamline-paper-table-name');
+    this.node.append(labelled('Paper table', this._name, 'table'), list);
+    if (tables.length) {
+      const known = document.createElement('ul');
+      known.className = 'seamline-paper-known';
+      for (const table of tables) {
+        const item = document.createElement('li');
+        item.textContent = `${table.name}: ${table.columns.join(', ')}`;
+        known.append(item);
+      }
+      this.node.append(known);
+    }
+  }
+
+  getValue(): string {
+    return this._name.value.trim();
+  }
+
+  private static _count = 0;
+  private _name = document.createElement('input');
+}
+
+/**
+ * Ask for a paper table's name and add the design's headline to it in the kernel session.
+ * Returns the table's columns after the addition, or null when nothing was added.
+ */
+export async function addToPaperTable(designs: NotebookDesigns, name: string): Promise<string[] | null> {
+  let tables: IPaperTableInfo[];
+  try {
+    tables = await designs.channel.paperTables();
+  } catch (error) {
+    Notification.error(`Could not list the paper tables: ${problemText(error)}`, { autoClose: 8000 });
+    return null;
+  }
+  let table = tables.length ? tables[tables.length - 1].name : DEFAULT_TABLE;
+  let problem: string | null = null;
+  for (;;) {
+    const result = await showDialog<string>({
+      title: `Add ${name} to a paper table`,
+      body: new PaperTableForm(tables, table, problem),
+      buttons: [Dialog.cancelButton(), Dialog.okButton({ label: 'Add' })],
+      focusNodeSelector: 'input'
+    });
+    if (!result.button.accept || result.value === null) {
+      return null;
+    }
+    table = result.value;
+    problem = tableNameProblem(table);
+    if (!problem) {
+      break;
+    }
+  }
+  try {
+    const reply = await designs.channel.paperAdd(name, table);
+    Notification.success(
+      `Added ${name} to paper table ${reply.table} (${reply.columns.length} column` +
+        `${reply.columns.length === 1 ? '' : 's'}: ${reply.columns.join(', ')}). ` +
+        `Read it with ${tableCode(reply.table)}.`,
+      { autoClose: 6000 }
+    );
+    return reply.columns;
+  } catch (error) {
+    Notification.error(`Could not add ${name} to paper table ${table}: ${problemText(error)}`, {
+      autoClose: 8000
+    });
+    return null;
   }
 }

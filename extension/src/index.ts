@@ -18,7 +18,7 @@ import { INotebookModel, INotebookTracker, NotebookPanel } from '@jupyterlab/not
 import { LabIcon } from '@jupyterlab/ui-components';
 import { IDisposable } from '@lumino/disposable';
 
-import { CommandIDs, copyExport, insertDesign } from './commands';
+import { CommandIDs, addToPaperTable, copyExport, copyScript, insertDesign, saveScript } from './commands';
 import { NotebookDesigns } from './notebook';
 import { DesignsPanel } from './panel';
 
@@ -73,7 +73,18 @@ const plugin: JupyterFrontEndPlugin<void> = {
     const designsFor = (panel: NotebookPanel | null): NotebookDesigns | null =>
       (panel && byPanel.get(panel)) ?? null;
 
-    const sidePanel = new DesignsPanel({ copy: copyExport });
+    const contents = app.serviceManager.contents;
+    const sidePanel = new DesignsPanel({
+      copy: copyExport,
+      script: async (designs, name, action) => {
+        if (action === 'copy') {
+          await copyScript(designs, name);
+        } else {
+          await saveScript(designs, name, contents);
+        }
+      },
+      paper: async (designs, name) => void (await addToPaperTable(designs, name))
+    });
     sidePanel.title.icon = seamlineIcon;
     app.shell.add(sidePanel, 'left', { rank: 650 });
     if (restorer) {

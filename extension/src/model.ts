@@ -9,6 +9,8 @@ import { ISignal, Signal } from '@lumino/signaling';
 import {
   IDataFrameInfo,
   IDesignSummary,
+  IPaperAddReply,
+  IPaperTableInfo,
   IReplyFor,
   KernelMessage,
   PROTOCOL_VERSION,
@@ -143,6 +145,22 @@ export class DesignChannel {
   async exportText(name: string, what: ExportWhat, format: ExportFormat): Promise<string> {
     const reply = await this.request({ type: 'export', name, what, format });
     return reply.text;
+  }
+
+  /** A board's replication script (what `Board.export("script")` returns). */
+  script(name: string): Promise<string> {
+    return this.exportText(name, 'script', 'text');
+  }
+
+  /** Add a board's headline to the kernel session's named paper table. */
+  paperAdd(name: string, table: string): Promise<IPaperAddReply> {
+    return this.request({ type: 'paper_add', name, table });
+  }
+
+  /** The kernel session's paper tables with their columns. */
+  async paperTables(): Promise<IPaperTableInfo[]> {
+    const reply = await this.request({ type: 'paper_tables' });
+    return reply.tables;
   }
 
   /** The DataFrames in the kernel's namespace with their columns. */

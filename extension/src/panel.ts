@@ -3,7 +3,8 @@
  *
  * Each entry shows the name, score and cutoff, outcome, estimate with robust CI, status and the
  * time of the last update; clicking it scrolls to the design's cell; its buttons copy the
- * board's exports. All text is set with `textContent`.
+ * board's exports, copy or save its replication script, and add its headline to a named paper
+ * table of the kernel session. All text is set with `textContent`.
  */
 import { Widget } from '@lumino/widgets';
 
@@ -21,9 +22,39 @@ export const COPY_ACTIONS: { label: string; what: ExportWhat; format: ExportForm
   { label: 'Methods', what: 'methods', format: 'text', title: 'Copy the methods paragraph' }
 ];
 
+/** What the script buttons do with a design's replication script. */
+export type ScriptAction = 'copy' | 'save';
+
 export interface IDesignsPanelOptions {
   /** Copy one export of a design to the clipboard (and tell the user). */
   copy: (designs: NotebookDesigns, name: string, what: ExportWhat, format: ExportFormat, label: string) => Promise<void>;
+  /** Copy the replication script, or save it next to the notebook (and tell the user). */
+  script: (designs: NotebookDesigns, name: string, action: ScriptAction) => Promise<void>;
+  /** Ask for a paper table's name and add the design's headline to it. */
+  paper: (designs: NotebookDesigns, name: string) => Promise<void>;
+}
+
+/** A labelled row of buttons ("Copy: LaTeX Markdown Methods", "Script: Copy Save", ...). */
+function buttonRow(
+  className: string,
+  label: string,
+  buttons: { text: string; className: string; title: string; onClick: () => void }[],
+  disabled: boolean
+): HTMLDivElement {
+  const row = el('div', `seamline-design-copy ${className}`);
+  row.append(el('span', 'seamline-design-copy-label', label));
+  for (const spec of buttons) {
+    const button = el('button', `seamline-copy-button jp-Button ${spec.className}`, spec.text);
+    button.type = 'button';
+    button.title = spec.title;
+    button.disabled = disabled;
+    button.addEventListener('click', event => {
+      event.stopPropagation();
+      spec.onClick();
+    });
+    row.append(button);
+  }
+  return row;
 }
 
 function el<K extends keyof HTMLElementTagNameMap>(
@@ -72,6 +103,8 @@ export class DesignsPanel extends Widget {
   constructor(options: IDesignsPanelOptions) {
     super();
     this._copy = options.copy;
+    this._script = options.script;
+    this._paper = options.paper;
     this.id = PANEL_ID;
     this.addClass('seamline-designs-panel');
     this.title.caption = 'Designs (seamline)';
@@ -190,6 +223,30 @@ export class DesignsPanel extends Widget {
         copy.append(button);
       }
       item.append(copy);
+      const noEstimate = summary.estimate === null;
+      item.append(
+        buttonRow('seamline-design-script', 'Script', [
+          {
+            text: 'Copy', className: 'seamline-script-copy',
+            title: 'Copy the replication script (a standalone Python file that rebuilds every number of the board)',
+            onClick: () => void this._script(designs, name, 'copy')
+          },
+          {
+            text: 'Save', className: 'seamline-script-save',
+            title: `Save the replication script next to the notebook as ${name}_replication.py (never overwrites)`,
+            onClick: () => void this._script(designs, name, 'save')
+          }
+        ], noEstimate)
+      );
+      item.append(
+        buttonRow('seamline-design-paper', 'Paper table', [
+          {
+            text: 'Add…', className: 'seamline-paper-add-button',
+            title: 'Add this estimate as a column of a named paper table (seamline.paper_tables[name])',
+            onClick: () => void this._paper(designs, name)
+          }
+        ], noEstimate)
+      );
     } else {
       item.append(el('div', 'seamline-design-spec', 'Run the cell to compute this design.'));
     }
@@ -223,6 +280,8 @@ export class DesignsPanel extends Widget {
   }
 
   private _copy: IDesignsPanelOptions['copy'];
+  private _script: IDesignsPanelOptions['script'];
+  private _paper: IDesignsPanelOptions['paper'];
   private _current: NotebookDesigns | null = null;
   private _heading: HTMLDivElement;
   private _subtitle: HTMLDivElement;

@@ -26,7 +26,8 @@ export type ExportWhat =
   | 'placebo'
   | 'donut'
   | 'bins'
-  | 'methods';
+  | 'methods'
+  | 'script';
 export type ExportFormat = 'latex' | 'markdown' | 'csv' | 'text' | 'html';
 
 /** One design as the chip and the side panel show it. */
@@ -43,6 +44,12 @@ export interface IDesignSummary {
   paused: boolean;
   updated_at: string | null;
   error: string | null;
+}
+
+/** One named paper table of the kernel session (`seamline.paper_tables`). */
+export interface IPaperTableInfo {
+  name: string;
+  columns: string[];
 }
 
 export interface IColumnInfo {
@@ -87,6 +94,15 @@ export interface IExportRequest extends IRequestBase {
 export interface IDataFramesRequest extends IRequestBase {
   type: 'dataframes';
 }
+/** Add a board's headline as a column of a named paper table of the kernel session. */
+export interface IPaperAddRequest extends IRequestBase {
+  type: 'paper_add';
+  name: string;
+  table: string;
+}
+export interface IPaperTablesRequest extends IRequestBase {
+  type: 'paper_tables';
+}
 
 export type Request =
   | IHelloRequest
@@ -94,7 +110,9 @@ export type Request =
   | ISubscribeRequest
   | IUnsubscribeRequest
   | IExportRequest
-  | IDataFramesRequest;
+  | IDataFramesRequest
+  | IPaperAddRequest
+  | IPaperTablesRequest;
 
 /** A request without the envelope the channel adds (`version`, `id`). */
 export type RequestBody<R extends Request = Request> = R extends unknown
@@ -137,6 +155,19 @@ export interface IDataFramesReply extends IReplyBase {
   type: 'dataframes_reply';
   dataframes: IDataFrameInfo[];
 }
+export interface IPaperAddReply extends IReplyBase {
+  type: 'paper_add_reply';
+  name: string;
+  table: string;
+  /** The table's column headings after the addition. */
+  columns: string[];
+  /** The table as Markdown. */
+  text: string;
+}
+export interface IPaperTablesReply extends IReplyBase {
+  type: 'paper_tables_reply';
+  tables: IPaperTableInfo[];
+}
 /** The answer to a message whose `type` the kernel does not know (or that is not an object). */
 export interface IErrorReply extends IReplyBase {
   type: 'error';
@@ -149,6 +180,8 @@ export type Reply =
   | IUnsubscribeReply
   | IExportReply
   | IDataFramesReply
+  | IPaperAddReply
+  | IPaperTablesReply
   | IErrorReply;
 
 /** Maps a request type to its reply type. */
@@ -159,6 +192,8 @@ export interface IReplyFor {
   unsubscribe: IUnsubscribeReply;
   export: IExportReply;
   dataframes: IDataFramesReply;
+  paper_add: IPaperAddReply;
+  paper_tables: IPaperTablesReply;
 }
 
 // ---- pushes (kernel → front end, unasked, after `subscribe`) ----------------------------------
@@ -213,6 +248,14 @@ export function isDesignSummary(value: unknown): value is IDesignSummary {
     isStringOrNull(value.updated_at) &&
     isStringOrNull(value.error)
   );
+}
+
+function isStringList(value: unknown): value is string[] {
+  return Array.isArray(value) && value.every(v => typeof v === 'string');
+}
+
+function isPaperTableInfo(value: unknown): value is IPaperTableInfo {
+  return isObject(value) && typeof value.name === 'string' && isStringList(value.columns);
 }
 
 function isDataFrameInfo(value: unknown): value is IDataFrameInfo {
@@ -291,6 +334,15 @@ export function parseKernelMessage(
         return (
           Array.isArray(data.dataframes) && data.dataframes.every(isDataFrameInfo)
         );
+      case 'paper_add_reply':
+        return (
+          typeof data.name === 'string' &&
+          typeof data.table === 'string' &&
+          isStringList(data.columns) &&
+          typeof data.text === 'string'
+        );
+      case 'paper_tables_reply':
+        return Array.isArray(data.tables) && data.tables.every(isPaperTableInfo);
       default:
         return false;
     }

@@ -69,6 +69,10 @@ const kernel: Handler = request => {
       return request.name === 'tutoring'
         ? reply(request, { name: request.name, what: request.what, format: request.format, text: 'TEX' })
         : reply(request, { success: false, error: "KeyError: `name` must be ...; got 'x'." });
+    case 'paper_add':
+      return reply(request, { name: request.name, table: request.table, columns: [request.name], text: '| |' });
+    case 'paper_tables':
+      return reply(request, { tables: [{ name: 'main', columns: ['tutoring'] }] });
     case 'dataframes':
       return undefined; // a kernel busy for ever
     default:
@@ -201,4 +205,17 @@ test('a reset while connecting leaves the channel idle, not unavailable', async 
   channel.reset();
   assert.equal(await attempt, false);
   assert.equal(channel.state, 'idle');
+});
+
+test('the script and paper-table requests carry the design and the table', async () => {
+  const { channel, comms } = channelWith(kernel);
+  await channel.connect();
+  assert.equal(await channel.script('tutoring'), 'TEX');
+  const script = comms[0].sent.at(-1);
+  assert.deepEqual([script.type, script.name, script.what, script.format], ['export', 'tutoring', 'script', 'text']);
+  const added = await channel.paperAdd('tutoring', 'main');
+  assert.deepEqual([added.table, added.columns], ['main', ['tutoring']]);
+  const add = comms[0].sent.at(-1);
+  assert.deepEqual([add.type, add.name, add.table], ['paper_add', 'tutoring', 'main']);
+  assert.deepEqual(await channel.paperTables(), [{ name: 'main', columns: ['tutoring'] }]);
 });

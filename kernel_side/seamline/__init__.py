@@ -6,6 +6,7 @@
 """
 from .estimate.design import Design
 from .export.paper import paper_table
+from .export.paper_session import paper_tables
 from .results.fit import Fit
 
 try:  # the version is written once, in extension/package.json, and reaches us through the package metadata
@@ -13,7 +14,7 @@ try:  # the version is written once, in extension/package.json, and reaches us t
     __version__ = _version("seamline")
 except PackageNotFoundError:  # pragma: no cover - running from a source tree that was never installed
     __version__ = "0+unknown"
-__all__ = ["Design", "Fit", "__version__", "board", "load_ipython_extension", "paper_table"]
+__all__ = ["Design", "Fit", "__version__", "board", "load_ipython_extension", "paper_table", "paper_tables"]
 
 
 def load_ipython_extension(ip) -> None:

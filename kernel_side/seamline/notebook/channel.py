@@ -29,6 +29,7 @@ __all__ = [
     "TARGET_NAME",
     "Channel",
     "DesignSummary",
+    "PaperTableInfo",
     "channels",
     "dataframe_listing",
     "register",
@@ -41,9 +42,10 @@ TARGET_NAME = "seamline"
 Status = Literal["fresh", "stale", "recomputing", "error"]
 STATUSES: tuple[str, ...] = ("fresh", "stale", "recomputing", "error")
 REQUEST_TYPES: tuple[str, ...] = ("hello", "list", "subscribe", "unsubscribe", "export",
-                                  "dataframes")
+                                  "dataframes", "paper_add", "paper_tables")
+# "script": the board's replication script (``Board.export("script")``; `format` is "text").
 EXPORT_WHATS: tuple[str, ...] = ("estimate", "sensitivity", "balance", "density", "placebo",
-                                 "donut", "bins", "methods")
+                                 "donut", "bins", "methods", "script")
 EXPORT_FORMATS: tuple[str, ...] = ("latex", "markdown", "csv", "text", "html")
 # Listing every column of a very wide frame would flood the insert-design form.
 MAX_COLUMNS = 2000
@@ -81,6 +83,13 @@ class DataFrameInfo(TypedDict):
     truncated: bool
 
 
+class PaperTableInfo(TypedDict):
+    """One named paper table of the session (``seamline.paper_tables``)."""
+
+    name: str
+    columns: list[str]
+
+
 class Reply(TypedDict, total=False):
     type: str
     version: int
@@ -99,6 +108,10 @@ class Reply(TypedDict, total=False):
     text: str
     # dataframes_reply
     dataframes: list[DataFrameInfo]
+    # paper_add_reply (also name, text), paper_tables_reply
+    table: str
+    columns: list[str]
+    tables: list[PaperTableInfo]
 
 
 # --- Helpers --------------------------------------------------------------------------------------
@@ -323,6 +336,21 @@ class Channel:
 
     def _on_dataframes(self, data: Mapping[str, Any]) -> Reply:
         return Reply(dataframes=dataframe_listing(self._namespace()))
+
+    def _on_paper_add(self, data: Mapping[str, Any]) -> Reply:
+        # The board's headline becomes (or replaces) a column of the session's named paper table.
+        from ..export.paper_session import check_table_name, paper_tables
+        name = data.get("name")
+        table = check_table_name(data.get("table"))
+        board = self._board(name)
+        columns = paper_tables.add(board, table)
+        return Reply(name=str(name), table=table, columns=list(columns),
+                     text=paper_tables[table].to_markdown())
+
+    def _on_paper_tables(self, data: Mapping[str, Any]) -> Reply:
+        from ..export.paper_session import paper_tables
+        return Reply(tables=[PaperTableInfo(name=t["name"], columns=t["columns"])
+                             for t in paper_tables.listing()])
 
     # -- boards ------------------------------------------------------------------------------
 

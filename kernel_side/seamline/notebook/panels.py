@@ -228,7 +228,10 @@ class BoardView(widgets.VBox):
         self._tabs.add_class("seamline-tabs")
         self._tabs.observe(self._tab_changed, names="selected_index")
 
-        top = widgets.HBox([methods, self._progress], layout=widgets.Layout(align_items="center"))
+        from .paper_control import PaperControl  # "Add to paper table" (issue 10)
+        self._paper = PaperControl(board)
+        top = widgets.HBox([methods, self._paper, self._progress],
+                           layout=widgets.Layout(align_items="center", flex_flow="row wrap"))
         self.children = [self._header, top, self._methods_out, self._controls, self._message,
                          self._tabs]
         self._watch()
