@@ -105,9 +105,14 @@ def lab(tmp_path_factory) -> Lab:
         import jupyterlab  # noqa: F401
     except ImportError:
         _unavailable("jupyterlab is not installed; run `make venv`")
-    labext = Path(sys.prefix) / "share" / "jupyter" / "labextensions" / "seamline" / "package.json"
-    if not labext.exists():
-        _unavailable(f"the seamline labextension is not installed at {labext}; run `make venv`")
+    # JupyterLab takes the first seamline labextension on its data path; JUPYTER_PATH comes first,
+    # so a fresh build can be tested without reinstalling (DEVELOPERS.md, "Working on the front end").
+    from jupyter_core.paths import jupyter_path
+    found = [Path(d) / "seamline" / "package.json" for d in jupyter_path("labextensions")]
+    found = [p for p in found if p.exists()]
+    if not found:
+        _unavailable("the seamline labextension is not installed on the Jupyter data path; run `make venv`")
+    print(f"seamline labextension used by the browser tests: {found[0].parent}", file=sys.stderr)
     root = tmp_path_factory.mktemp("lab")
     notebooks = root / "notebooks"
     notebooks.mkdir()
