@@ -31,7 +31,7 @@ def __getattr__(name: str):
         from .notebook.board import board
 
         return board
-    raise AttributeError(f"module 'seamline' has no attribute {name!r}")
+    raise AttributeError(f"module 'seamline' has no attribute '{name}'")
 
 
 def _jupyter_labextension_paths() -> list[dict[str, str]]:

@@ -80,7 +80,7 @@ def check_columns(data, roles: dict[str, str]) -> None:
         return
     dups = sorted({n for n in names if names.count(n) > 1})
     if dups:
-        raise DuplicateColumnError(f"column names must be unique; got duplicates {dups!r}. "
+        raise DuplicateColumnError(f"column names must be unique; got duplicates {shown(dups)}. "
                                    "Rename or drop the duplicated columns before declaring the design.")
     for name, role in roles.items():
         if name not in names:
@@ -105,7 +105,7 @@ def numeric_column(frame: pd.DataFrame, name: str, role: str) -> np.ndarray:
         raise _missing_column(frame.columns, name, role)
     col = frame[name]
     if isinstance(col, pd.DataFrame):
-        raise DuplicateColumnError(f"`{role}` column {name!r} appears more than once in the data; "
+        raise DuplicateColumnError(f"`{role}` column {shown(name)} appears more than once in the data; "
                                    "got duplicate column names. Rename or drop the duplicates.")
     if pd.api.types.is_bool_dtype(col):
         col = col.astype(float)
@@ -113,7 +113,7 @@ def numeric_column(frame: pd.DataFrame, name: str, role: str) -> np.ndarray:
         coerced = pd.to_numeric(col, errors="coerce")
         bad = col[coerced.isna() & col.notna()]
         example = repr(bad.iloc[0]) if len(bad) else "non-numeric dtype"
-        raise ColumnTypeError(f"`{role}` column {name!r} must be numeric; got dtype {col.dtype} "
+        raise ColumnTypeError(f"`{role}` column {shown(name)} must be numeric; got dtype {col.dtype} "
                               f"(e.g. {example}). Convert it with pandas.to_numeric or choose a numeric column.")
     if col.dtype == np.float64:
         values = col.to_numpy()          # no copy: read-only use only
@@ -121,10 +121,10 @@ def numeric_column(frame: pd.DataFrame, name: str, role: str) -> np.ndarray:
         values = col.to_numpy(dtype=float, na_value=np.nan)
     if np.isinf(values).any():
         row = col.index[np.flatnonzero(np.isinf(values))[0]]
-        raise NonFiniteValueError(f"`{role}` column {name!r} must be finite; got infinite values "
+        raise NonFiniteValueError(f"`{role}` column {shown(name)} must be finite; got infinite values "
                                   f"(first at row {shown(row)}). Replace them with NaN (dropped) or a finite value.")
     if np.isnan(values).all():
-        raise EmptyColumnError(f"`{role}` column {name!r} must have non-missing values; got only "
+        raise EmptyColumnError(f"`{role}` column {shown(name)} must have non-missing values; got only "
                                "missing values. Choose a column with data.")
     return values
 
@@ -190,7 +190,7 @@ class DesignData:
             t = numeric_column(frame, takeup, "takeup")
             outside = (t < 0) | (t > 1)
             if outside.any():
-                raise TakeupRangeError(f"`takeup` column {takeup!r} must lie in [0, 1] (treatment received, "
+                raise TakeupRangeError(f"`takeup` column {shown(takeup)} must lie in [0, 1] (treatment received, "
                                        f"or its probability); got {shown(t[outside][0])} at row "
                                        f"{shown(frame.index[np.flatnonzero(outside)[0]])}. Recode it as 0/1.")
             self.arrays[takeup] = t
@@ -200,10 +200,10 @@ class DesignData:
         if weights is not None:
             w = numeric_column(frame, weights, "weights")
             if (w < 0).any():
-                raise InvalidWeightsError(f"`weights` column {weights!r} must be non-negative; got "
+                raise InvalidWeightsError(f"`weights` column {shown(weights)} must be non-negative; got "
                                           f"{shown(w[w < 0][0])}. Use sampling weights >= 0.")
             if not (w > 0).any():
-                raise InvalidWeightsError(f"`weights` column {weights!r} must have a positive value; got "
+                raise InvalidWeightsError(f"`weights` column {shown(weights)} must have a positive value; got "
                                           "all zeros or missing. Choose another weights column.")
             self.weights = w
         self.cluster_codes = None
@@ -218,10 +218,10 @@ class DesignData:
         if not np.isfinite(cutoff) or cutoff < lo or cutoff > hi:
             if self.time_scale is not None:
                 ts = self.time_scale
-                raise CutoffOutOfRangeError(f"`cutoff` must lie within the dates of score {score!r} "
+                raise CutoffOutOfRangeError(f"`cutoff` must lie within the dates of score {shown(score)} "
                                             f"[{ts.label(lo)}, {ts.label(hi)}]; got {ts.label(0.0)}. Check the "
                                             "cutoff date.")
-            raise CutoffOutOfRangeError(f"`cutoff` must lie within the range of score {score!r} "
+            raise CutoffOutOfRangeError(f"`cutoff` must lie within the range of score {shown(score)} "
                                         f"[{lo:g}, {hi:g}]; got {shown(cutoff)}. Check the cutoff and its units.")
         self.cutoff = float(cutoff)
         self._cache: dict[tuple, Prepared] = {}
@@ -340,7 +340,7 @@ class DesignData:
         if len(rows) < 2:
             raise OneSidedDataError(f"the design must keep observations on both sides of the cutoff; got "
                                     f"{len(rows)} usable rows after dropping missing values in "
-                                    f"{[self.score_name, *variables]}. Check for missing data.")
+                                    f"{shown([self.score_name, *variables])}. Check for missing data.")
         x_sorted = self._sorted_score(variables, rows)
         x_sorted -= self.cutoff
         split = int(np.searchsorted(x_sorted, 0.0, side="left"))
@@ -379,7 +379,7 @@ class DesignData:
             name = "below" if sign < 0 else "above"
             why = f" outside the donut of radius {donut:g}" if donut > 0 else ""
             raise OneSidedDataError(f"the design must have observations {name} the cutoff{why}; got none "
-                                    f"(score {self.score_name!r}, cutoff {self.cutoff:g}). Check the cutoff, "
+                                    f"(score {shown(self.score_name)}, cutoff {self.cutoff:g}). Check the cutoff, "
                                     "the treated side, or reduce the donut radius.")
 
     def _gather(self, variables: tuple[str, ...], src: np.ndarray) -> np.ndarray:

@@ -42,7 +42,7 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from .errors import ColumnNotFoundError, ColumnTypeError, DataSourceError
+from .errors import ColumnNotFoundError, ColumnTypeError, DataSourceError, shown
 
 PARQUET_SUFFIXES = (".parquet", ".parq", ".pq")
 INSTALL_HINT = "Install the optional extra: pip install 'seamline[dask]'."
@@ -116,7 +116,7 @@ def parquet_files(path) -> list[str]:
     else:
         files = [text] if os.path.isfile(text) else []
     if not files:
-        raise DataSourceError(f"`data` path {text!r} must match at least one Parquet file; got none. Check the "
+        raise DataSourceError(f"`data` path {shown(text)} must match at least one Parquet file; got none. Check the "
                               "path, or pass a folder of Parquet files or a glob such as 'data/*.parquet'.")
     return files
 
@@ -151,16 +151,16 @@ def _check_parquet_schemas(files: list[str], roles: dict[str, str]) -> None:
             if kind == "numeric" or (kind == "time" and role == "score"):
                 continue
             allowed = "numeric or a date/time" if role == "score" else "numeric"
-            raise ColumnTypeError(f"`{role}` column {name!r} must be {allowed}; got Parquet type "
-                                  f"{schema.field(name).type} in {f!r}. Write the column as numbers (or cast "
+            raise ColumnTypeError(f"`{role}` column {shown(name)} must be {allowed}; got Parquet type "
+                                  f"{schema.field(name).type} in {shown(f)}. Write the column as numbers (or cast "
                                   "it in dask and pass the dask DataFrame), or choose another column.")
     for name, where in missing.items():
         role = roles[name]
         if len(where) == len(files):
-            raise ColumnNotFoundError(f"`{role}` column {name!r} is not in the Parquet files (e.g. {where[0]!r}). "
+            raise ColumnNotFoundError(f"`{role}` column {shown(name)} is not in the Parquet files (e.g. {shown(where[0])}). "
                                       "Check the spelling against the files' schema.")
         shown = ", ".join(repr(w) for w in where[:3]) + (" ..." if len(where) > 3 else "")
-        raise ColumnNotFoundError(f"`{role}` column {name!r} must be in every Parquet file; got it missing from "
+        raise ColumnNotFoundError(f"`{role}` column {shown(name)} must be in every Parquet file; got it missing from "
                                   f"{len(where)} of {len(files)} files ({shown}). Rewrite those files with the "
                                   "column, or select the files that have it with a narrower path or glob.")
 
@@ -185,7 +185,7 @@ def _check_dask_dtypes(frame, roles: dict[str, str]) -> None:
                                  or isinstance(dtype, pd.PeriodDtype)))
         if not ok and not pd.api.types.is_object_dtype(dtype):   # object: decided on the values, as in memory
             allowed = "numeric or a date/time" if role == "score" else "numeric"
-            raise ColumnTypeError(f"`{role}` column {name!r} must be {allowed}; got dtype {dtype} in the dask "
+            raise ColumnTypeError(f"`{role}` column {shown(name)} must be {allowed}; got dtype {dtype} in the dask "
                                   f"DataFrame. Convert it with dask.dataframe.to_numeric or choose another column.")
 
 

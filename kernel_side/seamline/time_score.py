@@ -74,12 +74,12 @@ def _as_datetimes(column: pd.Series, name: str) -> pd.Series:
     odd = values[~values.map(is_time_value)]
     if len(odd):
         row, value = odd.index[0], odd.iloc[0]
-        raise ColumnTypeError(f"`score` column {name!r} must hold dates only; got a mix of dates and "
-                              f"{type(value).__name__} values (e.g. {value!r} at row {row!r}). Convert it with "
+        raise ColumnTypeError(f"`score` column {shown(name)} must hold dates only; got a mix of dates and "
+                              f"{type(value).__name__} values (e.g. {shown(value)} at row {shown(row)}). Convert it with "
                               "pandas.to_datetime(column, errors='coerce') (unparseable values become missing).")
     zones = {str(_time_zone(v)) for v in values}
     if len(zones) > 1:
-        raise ColumnTypeError(f"`score` column {name!r} must use one time zone; got {sorted(zones)}. Convert it "
+        raise ColumnTypeError(f"`score` column {shown(name)} must use one time zone; got {shown(sorted(zones))}. Convert it "
                               "with pandas.to_datetime(column, utc=True).")
     return pd.to_datetime(column)
 
@@ -90,7 +90,7 @@ def _as_timestamp(cutoff: Any, score: str, zone) -> pd.Timestamp:
         try:
             stamp = pd.Timestamp(cutoff.strip())
         except ValueError:
-            raise CutoffTypeError(f"`cutoff` must be a date for the date score {score!r}; got {shown(cutoff)}. "
+            raise CutoffTypeError(f"`cutoff` must be a date for the date score {shown(score)}; got {shown(cutoff)}. "
                                   "Write it as an ISO date, e.g. \"2024-07-01\".") from None
         # A typed date means that date where the data were recorded: take the score's time zone.
         if stamp.tzinfo is None and zone is not None:
@@ -98,17 +98,17 @@ def _as_timestamp(cutoff: Any, score: str, zone) -> pd.Timestamp:
     elif is_time_value(cutoff):
         stamp = pd.Timestamp(cutoff)
     else:
-        raise CutoffTypeError(f"`cutoff` must be a date for the date score {score!r}; got {shown(cutoff)}. Pass "
+        raise CutoffTypeError(f"`cutoff` must be a date for the date score {shown(score)}; got {shown(cutoff)}. Pass "
                               "e.g. cutoff=\"2024-07-01\" or pandas.Timestamp(\"2024-07-01\").")
     if pd.isna(stamp):
-        raise CutoffTypeError(f"`cutoff` must be a date for the date score {score!r}; got a missing date. "
+        raise CutoffTypeError(f"`cutoff` must be a date for the date score {shown(score)}; got a missing date. "
                               "Pass e.g. cutoff=\"2024-07-01\".")
     if (stamp.tzinfo is None) != (zone is None):
         if zone is not None:
-            raise CutoffTypeError(f"`cutoff` must carry the time zone of score {score!r} ({zone}); got "
+            raise CutoffTypeError(f"`cutoff` must carry the time zone of score {shown(score)} ({zone}); got "
                                   f"{stamp.isoformat()} without one. Localise it, e.g. "
                                   f"pandas.Timestamp(\"2024-07-01\", tz=\"{zone}\").")
-        raise CutoffTypeError(f"`cutoff` must have no time zone, like score {score!r}; got {stamp.isoformat()} "
+        raise CutoffTypeError(f"`cutoff` must have no time zone, like score {shown(score)}; got {stamp.isoformat()} "
                               f"in time zone {stamp.tzinfo}. Drop the zone with .tz_localize(None), or localise "
                               "the score column.")
     return stamp
@@ -164,7 +164,7 @@ def time_scale(column: pd.Series, cutoff: Any, unit: str | None, score: str) -> 
     unit = check_option("score_unit", "days" if unit is None else unit, SCORE_UNITS)
     dates = _as_datetimes(column, score)
     if not dates.notna().any():
-        raise EmptyColumnError(f"`score` column {score!r} must have non-missing values; got only missing dates. "
+        raise EmptyColumnError(f"`score` column {shown(score)} must have non-missing values; got only missing dates. "
                                "Choose a column with data.")
     zone = dates.dt.tz
     stamp = _as_timestamp(cutoff, score, zone)
@@ -180,16 +180,16 @@ def reject_time_cutoff(cutoff: Any, score: str, unit: str | None) -> float:
     """The cutoff of a numeric score as a float; dates, date strings and a unit are errors here."""
     if unit is not None:
         raise InvalidOptionError(f"`score_unit` applies to date or time scores only; got {shown(unit)} for the "
-                                 f"numeric score {score!r}. Leave it out.")
+                                 f"numeric score {shown(score)}. Leave it out.")
     if is_time_value(cutoff):
-        raise CutoffTypeError(f"`cutoff` must be a number for the numeric score {score!r}; got {shown(cutoff)}. Give "
+        raise CutoffTypeError(f"`cutoff` must be a number for the numeric score {shown(score)}; got {shown(cutoff)}. Give "
                               "the cutoff in the score's units, or declare a date column as the score.")
     try:
         return float(cutoff)
     except (TypeError, ValueError):
         pass
     if looks_like_date(cutoff):
-        raise CutoffTypeError(f"`cutoff` must be a number for the numeric score {score!r}; got the date "
-                              f"{cutoff!r}. Give the cutoff in the score's units, or declare a date column as "
+        raise CutoffTypeError(f"`cutoff` must be a number for the numeric score {shown(score)}; got the date "
+                              f"{shown(cutoff)}. Give the cutoff in the score's units, or declare a date column as "
                               "the score (convert text dates with pandas.to_datetime).")
     raise InvalidOptionError(f"`cutoff` must be a number; got {shown(cutoff)}. Pass e.g. cutoff=40.")

@@ -964,6 +964,6 @@ def density_test(score, cutoff: float, *, method: str = "local-cdf", **options) 
     unknown = sorted(set(options) - set(allowed))
     if unknown:
         raise InvalidOptionError(
-            f"`{unknown[0]}` must be an option of the {method!r} density method; got {unknown}. "
+            f"`{unknown[0]}` must be an option of the {shown(method)} density method; got {unknown}. "
             f"Use only {', '.join(allowed)}.")
     return func(score, cutoff, **options)

@@ -19,7 +19,7 @@ import pandas as pd
 from ..core.bias_aware import (accepted_set, critical_value, half_length, holder_max_bias,
                                minimise_on_log_grid, second_derivative_bound, taylor_max_bias)
 from ..data import Prepared
-from ..errors import InvalidOptionError, InvalidSmoothnessError
+from ..errors import InvalidOptionError, InvalidSmoothnessError, shown
 from ..options import KERNELS, SMOOTHNESS_CLASSES, check_level, check_option
 from ..results.inference import BiasAwareInterval
 from .engine import JumpEngine, check_support
@@ -140,7 +140,7 @@ def _check_smoothness(value, fuzzy: bool):
     pair = " or a pair (outcome, take-up)" if fuzzy else ""
     raise InvalidSmoothnessError(
         f"`smoothness` must be a positive number{pair} (a bound on the second derivative, in outcome "
-        f"units per squared score unit); got {value!r}. Pass a positive bound, or smoothness=None for the "
+        f"units per squared score unit); got {shown(value)}. Pass a positive bound, or smoothness=None for the "
         "rule of thumb.")
 
 
@@ -177,13 +177,13 @@ def bias_aware(design, outcome=None, *, smoothness=None, bandwidth="optimal", ke
         for name, v in zip(variables, values):
             if not np.isfinite(v) or v <= 0:
                 raise InvalidSmoothnessError(
-                    f"`smoothness` must be given for {name!r}: the rule of thumb found no curvature (got "
-                    f"{v!r}; too few distinct score values or an exactly linear column). Pass smoothness=M.")
+                    f"`smoothness` must be given for {shown(name)}: the rule of thumb found no curvature (got "
+                    f"{shown(v)}; too few distinct score values or an exactly linear column). Pass smoothness=M.")
         smoothness = (values[0], values[1]) if fuzzy else values[0]
     if isinstance(bandwidth, str):
         if bandwidth.strip().lower() != "optimal":
             raise InvalidOptionError(f"`bandwidth` must be \"optimal\" or a positive number (or pair below, "
-                                     f"above); got {bandwidth!r}. Use bandwidth=\"optimal\".")
+                                     f"above); got {shown(bandwidth)}. Use bandwidth=\"optimal\".")
         common, at_edge = problem.optimal_bandwidth(smoothness)
         h, bandwidth_rule = (common, common), "optimal"
         if at_edge:

@@ -180,7 +180,7 @@ class Design:
         if outcome in allowed:
             return outcome
         raise InvalidOptionError(f"`outcome` must be one of the design's outcomes, covariates or take-up "
-                                 f"{list(allowed)}; got {shown(outcome)}. Declare it in Design(...).")
+                                 f"[{', '.join(shown(a) for a in allowed)}]; got {shown(outcome)}. Declare it in Design(...).")
 
     def _spec(self, outcome=None, **options) -> FitSpec:
         return resolve(self._outcome(outcome), has_covariates=bool(self.covariates), **options)
@@ -556,13 +556,13 @@ class Design:
             try:
                 return float((stamp - scale.cutoff).total_seconds() / scale.seconds)
             except TypeError:
-                raise CutoffTypeError(f"`{argument}` must match the time zone of score {self.score!r}; got "
-                                      f"{value!r}. Give dates in the score's time zone.") from None
+                raise CutoffTypeError(f"`{argument}` must match the time zone of score {shown(self.score)}; got "
+                                      f"{shown(value)}. Give dates in the score's time zone.") from None
         try:
             return float(value)
         except (TypeError, ValueError):
             raise CutoffTypeError(f"`{argument}` must be dates (or distances in {self.time_scale.unit}) for the "
-                                  f"date score {self.score!r}; got {value!r}. Pass e.g. [\"2024-03-01\"].") from None
+                                  f"date score {shown(self.score)}; got {shown(value)}. Pass e.g. [\"2024-03-01\"].") from None
 
     def donut(self, radii=None, **fit_options):
         """Estimates excluding observations within each radius of the cutoff (cached)."""
@@ -593,8 +593,8 @@ class Design:
         from .multiple_cutoffs import rows_of
         value = float(cutoff) if isinstance(cutoff, (int, float, np.number)) and not isinstance(cutoff, bool) else None
         if self.cutoff_layout == "single" or value not in self.cutoffs:
-            raise InvalidOptionError(f"`cutoff` must be one of the design's cutoffs {list(self.cutoffs)}; got "
-                                     f"{cutoff!r}. Pick one of the listed values.")
+            raise InvalidOptionError(f"`cutoff` must be one of the design's cutoffs {shown(list(self.cutoffs))}; got "
+                                     f"{shown(cutoff)}. Pick one of the listed values.")
         if ("at", value) not in self._subsets:
             self._subsets[("at", value)] = self._subset(rows_of(self, value), value)
         return self._subsets[("at", value)]

@@ -268,12 +268,12 @@ class JumpEngine:
             if scale[j] <= tol * max(1.0, scale.max()):
                 raise CollinearCovariatesError(
                     f"`covariates` must vary within the window after removing the local polynomial; got "
-                    f"{self.covariate_names[j]!r} constant (or a polynomial in the score) there. Drop it.")
+                    f"{shown(self.covariate_names[j])} constant (or a polynomial in the score) there. Drop it.")
             trial = kept + [j]
             sub = q_mat[np.ix_(trial, trial)] / np.outer(scale[trial], scale[trial])
             if np.linalg.eigvalsh(sub)[0] <= tol:
                 names = [self.covariate_names[i] for i in trial]
                 raise CollinearCovariatesError(
                     f"`covariates` must not be collinear inside the window; got {shown(names)} linearly dependent "
-                    f"({self.covariate_names[j]!r} is a combination of the others). Drop one of them.")
+                    f"({shown(self.covariate_names[j])} is a combination of the others). Drop one of them.")
             kept.append(j)

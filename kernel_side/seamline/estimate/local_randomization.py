@@ -18,7 +18,7 @@ import pandas as pd
 from scipy import stats
 
 from ..core.randomization import STATISTICS, RandomizationTest, draw_assignments, invert
-from ..errors import InvalidOptionError, NoBalancedWindowError, WindowTooSmallError
+from ..errors import InvalidOptionError, NoBalancedWindowError, WindowTooSmallError, shown
 from ..options import check_level
 from ..results.inference import LocalRandomization
 
@@ -36,12 +36,12 @@ def _check_statistic(value) -> str:
             if value.strip().lower() == name.lower():
                 return name
     choices = ", ".join(f'"{s}"' for s in STATISTICS)
-    raise InvalidOptionError(f"`statistic` must be one of {choices}; got {value!r}. Pick one of the listed values.")
+    raise InvalidOptionError(f"`statistic` must be one of {choices}; got {shown(value)}. Pick one of the listed values.")
 
 
 def _check_count(argument: str, value, low: int) -> int:
     if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
-        raise InvalidOptionError(f"`{argument}` must be an integer of at least {low}; got {value!r}. "
+        raise InvalidOptionError(f"`{argument}` must be an integer of at least {low}; got {shown(value)}. "
                                  f"Pass e.g. {argument}=10_000.")
     return int(value)
 
@@ -135,7 +135,7 @@ def _sequence(units: _Units, candidates) -> list[float]:
     if candidates is not None:
         widths = sorted(float(w) for w in candidates)
         if not widths or not all(np.isfinite(w) and w > 0 for w in widths):
-            raise InvalidOptionError(f"`candidates` must be positive half-widths; got {candidates!r}. "
+            raise InvalidOptionError(f"`candidates` must be positive half-widths; got {shown(candidates)}. "
                                      "Pass e.g. candidates=[0.5, 1.0, 1.5].")
         return widths
     first = units.half_width_for(FIRST_WINDOW_UNITS)
@@ -161,7 +161,7 @@ def _resolve_window(window, cutoff: float) -> tuple[float, float] | None:
             and window[0] < cutoff <= window[1]):
         return (float(window[0]) - cutoff, float(window[1]) - cutoff)
     raise InvalidOptionError(f"`window` must be None, a positive half-width, or a pair (low, high) of scores "
-                             f"with low < cutoff <= high; got {window!r}. Pass e.g. window=0.5 or "
+                             f"with low < cutoff <= high; got {shown(window)}. Pass e.g. window=0.5 or "
                              f"window=({cutoff - 0.5:g}, {cutoff + 0.5:g}).")
 
 
@@ -183,7 +183,7 @@ def local_randomization(design, outcome=None, *, window=None, statistic="differe
         unknown = [c for c in names if c not in units.covariates]
         if unknown:
             raise InvalidOptionError(f"`covariates` must be covariates declared in Design(...) (other than the "
-                                     f"outcome); got {unknown!r}. Declare them with covariates=[...].")
+                                     f"outcome); got {shown(unknown)}. Declare them with covariates=[...].")
         units.covariates = {c: units.covariates[c] for c in names}
     given = _resolve_window(window, design.cutoff)
     widths = _sequence(units, candidates)

@@ -57,7 +57,7 @@ def plan_cutoffs(frame: pd.DataFrame, score: str, cutoff, columns: tuple[str, ..
         return CutoffPlan("single", (0.0,), None, score, cutoff, frame)
     if score_unit is not None:
         raise InvalidOptionError(f"`score_unit` applies to date or time scores with one cutoff date only; got "
-                                 f"{score_unit!r} for score {score!r}. Leave it out.")
+                                 f"{shown(score_unit)} for score {shown(score)}. Leave it out.")
     if isinstance(cutoff, str):
         return _column_plan(frame, score, cutoff, columns)
     if isinstance(cutoff, (list, tuple, np.ndarray, pd.Series)) and np.ndim(cutoff) > 0:
@@ -69,7 +69,7 @@ def plan_cutoffs(frame: pd.DataFrame, score: str, cutoff, columns: tuple[str, ..
         value = float(cutoff)
     except (TypeError, ValueError):
         raise InvalidOptionError(f"`cutoff` must be a number, a column name or a list of increasing numbers; got "
-                                 f"{cutoff!r}. Pass e.g. cutoff=40, cutoff=\"threshold\" or cutoff=[30, 60].") from None
+                                 f"{shown(cutoff)}. Pass e.g. cutoff=40, cutoff=\"threshold\" or cutoff=[30, 60].") from None
     return CutoffPlan("single", (value,), None, score, value, frame)
 
 
@@ -77,7 +77,7 @@ def _column_plan(frame: pd.DataFrame, score: str, column: str, columns: tuple[st
     per_row = numeric_column(frame, column, "cutoff")
     distinct = np.unique(per_row[~np.isnan(per_row)])
     if len(distinct) < 2:
-        raise SingleCutoffError(f"`cutoff` column {column!r} must hold at least two distinct cutoffs; got only "
+        raise SingleCutoffError(f"`cutoff` column {shown(column)} must hold at least two distinct cutoffs; got only "
                                 f"{distinct[0]:g}. Pass cutoff={distinct[0]:g} for a single-cutoff design.")
     x = numeric_column(frame, score, "score")
     label = f"{score} - {column}"
@@ -97,14 +97,14 @@ def _cumulative_plan(frame: pd.DataFrame, score: str, values: list) -> CutoffPla
     cutoffs = [float(v) for v in values]
     if any(b <= a for a, b in zip(cutoffs, cutoffs[1:])):
         raise CutoffOrderError(f"`cutoff` must be strictly increasing cumulative cutoffs; got {shown(values)}. "
-                               f"Sort them and drop repeats: cutoff={sorted(set(cutoffs))!r}.")
+                               f"Sort them and drop repeats: cutoff={shown(sorted(set(cutoffs)))}.")
     x = numeric_column(frame, score, "score")
     x = x[~np.isnan(x)]
     lo, hi = float(x.min()), float(x.max())
     outside = [c for c in cutoffs if not lo < c <= hi]
     if outside:
-        raise InvalidOptionError(f"`cutoff` values must lie inside the range of score {score!r} ({lo:g}, {hi:g}]; "
-                                 f"got {outside!r}. Check the cutoffs and their units.")
+        raise InvalidOptionError(f"`cutoff` values must lie inside the range of score {shown(score)} ({lo:g}, {hi:g}]; "
+                                 f"got {shown(outside)}. Check the cutoffs and their units.")
     edges = [-np.inf, *cutoffs, np.inf]
     for a, b in zip(edges, edges[1:]):
         n = int(np.sum((x > a) & (x < b)))
@@ -112,7 +112,7 @@ def _cumulative_plan(frame: pd.DataFrame, score: str, values: list) -> CutoffPla
             where = (f"below {b:g}" if a == -np.inf else f"above {a:g}" if b == np.inf
                      else f"strictly between {a:g} and {b:g}")
             raise TooFewUnitsError(f"`cutoff` must leave at least {MIN_UNITS_PER_SIDE} observations between "
-                                   f"neighbouring cutoffs; got {n} with {score!r} {where}. Drop or move one of "
+                                   f"neighbouring cutoffs; got {n} with {shown(score)} {where}. Drop or move one of "
                                    "the cutoffs (or collect more data there).")
     return CutoffPlan("cumulative", tuple(cutoffs), None, score, None, None)
 

@@ -18,7 +18,7 @@ from scipy import stats
 
 from ..core.power import (bandwidth_rate, power_of_test, required_n, scaled_std_error, se_exponent,
                           window_growth)
-from ..errors import InvalidEffectError, InvalidOptionError
+from ..errors import InvalidEffectError, InvalidOptionError, shown
 from ..options import POWER_SCALINGS, check_level, check_option
 from ..results.power import Power, PowerCurve, SampleSize
 
@@ -33,7 +33,7 @@ def _plan(design, level, scaling, fit_options) -> dict:
     fit = design.fit(**fit_options)
     se0 = fit.robust_std_error
     if not (np.isfinite(se0) and se0 > 0):
-        raise InvalidOptionError(f"the pilot fit's robust standard error must be positive; got {se0!r}. Check "
+        raise InvalidOptionError(f"the pilot fit's robust standard error must be positive; got {shown(se0)}. Check "
                                  "the outcome varies near the cutoff and try another bandwidth.")
     warnings = [f"Pilot fit: {w}" for w in fit.warnings]
     if scaling == "reselected-bandwidth" and fit.bandwidth_rule == "manual":
@@ -56,14 +56,14 @@ def _total(n, n_pilot: int) -> int:
         return n_pilot
     if isinstance(n, Real) and not isinstance(n, bool) and np.isfinite(n) and n >= 10 and float(n) == int(n):
         return int(n)
-    raise InvalidOptionError(f"`n` must be a whole number of observations (at least 10); got {n!r}. Pass the "
+    raise InvalidOptionError(f"`n` must be a whole number of observations (at least 10); got {shown(n)}. Pass the "
                              "planned total sample size, e.g. n=2000, or None for the pilot's size.")
 
 
 def _effect(effect, argument: str = "effect") -> float:
     if isinstance(effect, Real) and not isinstance(effect, bool) and np.isfinite(effect):
         return float(effect)
-    raise InvalidEffectError(f"`{argument}` must be a finite number in the outcome's units; got {effect!r}. "
+    raise InvalidEffectError(f"`{argument}` must be a finite number in the outcome's units; got {shown(effect)}. "
                              "Pass the effect you want to detect, e.g. effect=0.2.")
 
 
@@ -121,7 +121,7 @@ def sample_size(design, effect, *, power=0.8, level=0.95, scaling="reselected-ba
     level = check_level(level)
     if not (isinstance(power, Real) and not isinstance(power, bool) and 1 - level < power < 1):
         raise InvalidOptionError(f"`power` must lie strictly between 1 - level = {1 - level:.3g} and 1; got "
-                                 f"{power!r}. Use e.g. power=0.8.")
+                                 f"{shown(power)}. Use e.g. power=0.8.")
     plan = _plan(design, level, scaling, fit_options)
     root = required_n(effect, plan["pilot_std_error"], plan["n_pilot"], plan["exponent"], float(power), level)
     n_total = int(math.ceil(root - 1e-9))

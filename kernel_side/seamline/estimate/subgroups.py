@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import pandas as pd
 
-from ..errors import ColumnNotFoundError, CutoffChoiceError, InvalidOptionError
+from ..errors import ColumnNotFoundError, CutoffChoiceError, InvalidOptionError, shown
 from ..results.designs import GroupEffects
 from .effect_rows import (SHARED_CLUSTERS_ACCOUNTED, clustered_covariance, equality_test, fit_row, row_warnings,
                           shared_clusters)
@@ -19,19 +19,19 @@ def by_group(design, column: str, **fit_options) -> GroupEffects:
     """One default fit per group of ``column`` (rows with a missing group are left out)."""
     if design.cutoff_layout == "cumulative":
         c = design.cutoffs
-        raise CutoffChoiceError(f"`cutoff` must be chosen first on a design with cumulative cutoffs {list(c)}; got "
-                                f"by_group({column!r}). Use design.at({c[0]:g}).by_group({column!r}).")
+        raise CutoffChoiceError(f"`cutoff` must be chosen first on a design with cumulative cutoffs {shown(list(c))}; got "
+                                f"by_group({shown(column)}). Use design.at({c[0]:g}).by_group({shown(column)}).")
     frame = design._frame_with(column) if isinstance(column, str) else design._frame
     if not isinstance(column, str) or column not in frame.columns:
-        raise ColumnNotFoundError(f"`column` must name a column of the data; got {column!r}. "
+        raise ColumnNotFoundError(f"`column` must name a column of the data; got {shown(column)}. "
                                   "Check the spelling against data.columns.")
     labels = frame[column]
     groups = pd.unique(labels.dropna())
     if len(groups) > MAX_GROUPS:
         raise InvalidOptionError(f"`column` must have at most {MAX_GROUPS} groups; got {len(groups)} distinct values "
-                                 f"in {column!r}. Group a continuous column first, e.g. with pandas.cut.")
+                                 f"in {shown(column)}. Group a continuous column first, e.g. with pandas.cut.")
     if len(groups) < 2:
-        raise InvalidOptionError(f"`column` must have at least two groups; got {list(groups)!r} in {column!r}. "
+        raise InvalidOptionError(f"`column` must have at least two groups; got {shown(list(groups))} in {shown(column)}. "
                                  "Choose a column that splits the units.")
     groups = [g.item() if hasattr(g, "item") else g for g in groups]     # plain Python labels
     try:

@@ -9,7 +9,7 @@ from __future__ import annotations
 from scipy import stats
 
 from ..core.weak_iv import robust_set
-from ..errors import NotFuzzyError
+from ..errors import NotFuzzyError, shown
 from ..options import check_level
 from ..results.inference import WeakIVSet, set_shape
 
@@ -22,7 +22,7 @@ def weak_iv_conf_set(fit, level: float) -> WeakIVSet:
     if fit.kind != "fuzzy" or fit.robust_jumps is None:
         raise NotFuzzyError(
             f"`fit` must be a fuzzy fit (a design with a take-up column that jumps at the cutoff) for a "
-            f"weak-instrument-robust set; got a {fit.kind} fit of {fit.outcome!r}. Declare takeup=... in "
+            f"weak-instrument-robust set; got a {fit.kind} fit of {shown(fit.outcome)}. Declare takeup=... in "
             "Design(...), or use the robust interval of the sharp fit.")
     j_y, j_d = fit.robust_jumps
     v_y, c, v_d = fit.robust_jump_covariance

@@ -149,7 +149,7 @@ class TableModel:
         ):
             raise ValueError(
                 f"`label` must use only letters, digits and the characters : . _ -; got "
-                f"{self.label!r}. Use a key such as 'tab:main-estimate'."
+                f"{shown(self.label)}. Use a key such as 'tab:main-estimate'."
             )
         # The dataclass is frozen; these normalised values are set once, here.
         object.__setattr__(self, "columns", columns)
@@ -288,7 +288,7 @@ def from_dataframe(
         if unknown:
             raise ValueError(
                 f"`decimals` must name columns of the table; got {shown(unknown)}. "
-                f"Use labels among {labels!r}."
+                f"Use labels among {shown(labels)}."
             )
         per_column = [
             _check_decimals(f"decimals[{label_!r}]", decimals.get(label_, 3)) for label_ in labels

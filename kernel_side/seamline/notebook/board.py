@@ -48,7 +48,7 @@ from collections.abc import Callable, Iterable, Iterator, Mapping
 from pathlib import Path
 from typing import Any
 
-from ..errors import InvalidOptionError, SeamlineError
+from ..errors import InvalidOptionError, SeamlineError, shown
 from ..estimate.design import Design
 from ..estimate.options import resolve
 from .compute import NodeCache, balance_rule, compute_graph, panel_key
@@ -232,14 +232,14 @@ class Board(Scheduler):
                  spec_variables: Mapping[str, str] | None = None, panels: Iterable[str] | None = None,
                  autorun: bool = True):
         if not isinstance(name, str) or not name:
-            raise InvalidOptionError(f"`name` must be a non-empty string; got {name!r}. Use e.g. name=\"tutoring\".")
+            raise InvalidOptionError(f"`name` must be a non-empty string; got {shown(name)}. Use e.g. name=\"tutoring\".")
         self.name = name
         self._namespace = namespace
         self._data_name = data_name
         self._spec_variables = dict(spec_variables or {})
         for key in self._spec_variables:
             if key not in SPEC_KEYS or key == "data":
-                raise InvalidOptionError(f"`spec_variables` keys must be declaration keys; got {key!r}. "
+                raise InvalidOptionError(f"`spec_variables` keys must be declaration keys; got {shown(key)}. "
                                          f"Use keys among {', '.join(SPEC_KEYS[1:])}.")
         if data is None:
             if data_name is None or namespace is None:
@@ -251,7 +251,7 @@ class Board(Scheduler):
         design = dict(design_kwargs)
         unknown = sorted(set(design) - set(DESIGN_KEYS))
         if unknown:
-            raise InvalidOptionError(f"`design_kwargs` must hold design keys only; got {unknown!r}. "
+            raise InvalidOptionError(f"`design_kwargs` must hold design keys only; got {shown(unknown)}. "
                                      f"Use keys among {', '.join(DESIGN_KEYS)}.")
         for key in ("score", "cutoff", "outcome"):
             if key not in design:
@@ -265,7 +265,7 @@ class Board(Scheduler):
         selected = options.pop("outcome", None)
         unknown = sorted(set(options) - set(OPTION_DEFAULTS))
         if unknown:
-            raise InvalidOptionError(f"`fit_options` must be fit options; got {unknown!r}. "
+            raise InvalidOptionError(f"`fit_options` must be fit options; got {shown(unknown)}. "
                                      f"Use keys among {', '.join(OPTION_DEFAULTS)}.")
         opts: dict[str, Any] = dict(OPTION_DEFAULTS)
         for key, value in options.items():
@@ -280,7 +280,7 @@ class Board(Scheduler):
         wanted = PANELS if panels is None else tuple(panels)
         bad = [p for p in wanted if p not in PANELS]
         if bad:
-            raise InvalidOptionError(f"`panels` must be among {', '.join(PANELS)}; got {bad!r}. "
+            raise InvalidOptionError(f"`panels` must be among {', '.join(PANELS)}; got {shown(bad)}. "
                                      "Leave it out to compute every panel.")
         self._panels = tuple(p for p in PANELS if p in wanted or p == "fit")
 
@@ -634,7 +634,7 @@ class Board(Scheduler):
                     selected = spec["outcome"][0]
             else:
                 raise InvalidOptionError(f"`name` must be a setting of the board ({', '.join(SPEC_KEYS[1:])}); "
-                                         f"got {name!r}. Check the spelling.")
+                                         f"got {shown(name)}. Check the spelling.")
             if (spec, options, selected) == (dict(inputs.spec), dict(inputs.options), inputs.selected):
                 if self._target is not self._inputs:
                     self._accept()
@@ -734,7 +734,7 @@ class Board(Scheduler):
         check_option("fmt", fmt, TABLE_FORMATS + CHART_FORMATS)
         state = self._current_state()
         if state.stale:
-            warnings.warn(f"Board {self.name!r} is stale (paused with pending changes): the export shows the "
+            warnings.warn(f"Board {shown(self.name)} is stale (paused with pending changes): the export shows the "
                           "results before those changes. Call refresh() first.", UserWarning, stacklevel=2)
         return export_result(state, what, fmt, path, weights=state.spec["weights"])
 
@@ -807,7 +807,7 @@ def _check_selected(spec: Mapping[str, Any], outcome: Any) -> str:
     allowed = tuple(spec["outcome"]) + tuple(spec["covariates"])
     if not isinstance(outcome, str) or outcome not in allowed:
         raise InvalidOptionError(f"`outcome` must be one of the declared outcomes or covariates "
-                                 f"{list(allowed)}; got {outcome!r}. Declare it first.")
+                                 f"[{', '.join(shown(a) for a in allowed)}]; got {shown(outcome)}. Declare it first.")
     return outcome
 
 
@@ -883,11 +883,11 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
     shell = _current_shell()
     namespace = getattr(shell, "user_ns", None) if data_name is not None else None
     if data_name is not None and namespace is None:
-        raise InvalidOptionError(f"`data_name` needs a running notebook to follow; got {data_name!r} outside "
+        raise InvalidOptionError(f"`data_name` needs a running notebook to follow; got {shown(data_name)} outside "
                                  "IPython. Leave data_name out.")
     if data_name is not None and lookup(namespace, data_name) is not data:
         raise InvalidOptionError(f"`data_name` must name the notebook variable holding `data`; got "
-                                 f"{data_name!r}, which holds another object. Pass the variable's name.")
+                                 f"{shown(data_name)}, which holds another object. Pass the variable's name.")
     design_kwargs = dict(score=score, cutoff=cutoff, outcome=outcome, treated=treated, takeup=takeup,
                          covariates=covariates, cluster=cluster, weights=weights)
     fit_options = dict(bandwidth=bandwidth, kernel=kernel, degree=degree, bias_degree=bias_degree,

@@ -23,6 +23,7 @@ import threading
 import weakref
 from collections.abc import Callable, Iterable, Mapping
 from typing import Any, Literal, TypedDict
+from ..errors import shown
 
 __all__ = [
     "PROTOCOL_VERSION",
@@ -282,11 +283,11 @@ class Channel:
                                  "Send {\"type\": ..., \"version\": 1}.")
             if kind not in REQUEST_TYPES:
                 allowed = ", ".join(f'"{t}"' for t in REQUEST_TYPES)
-                raise ValueError(f"`type` must be one of {allowed}; got {kind!r}. "
+                raise ValueError(f"`type` must be one of {allowed}; got {shown(kind)}. "
                                  "See the channel table in DEVELOPERS.md.")
             version = data.get("version")
             if version != PROTOCOL_VERSION:
-                raise ValueError(f"`version` must be {PROTOCOL_VERSION}; got {version!r}. "
+                raise ValueError(f"`version` must be {PROTOCOL_VERSION}; got {shown(version)}. "
                                  "Install matching versions of the seamline Python package and "
                                  "its JupyterLab extension (they ship in one wheel).")
             reply: Reply = getattr(self, f"_on_{kind}")(data)
@@ -322,11 +323,11 @@ class Channel:
         name, what, fmt = data.get("name"), data.get("what"), data.get("format")
         if what not in EXPORT_WHATS:
             allowed = ", ".join(f'"{w}"' for w in EXPORT_WHATS)
-            raise ValueError(f"`what` must be one of {allowed}; got {what!r}. "
+            raise ValueError(f"`what` must be one of {allowed}; got {shown(what)}. "
                              "Pick one of the listed exports.")
         if fmt not in EXPORT_FORMATS:
             allowed = ", ".join(f'"{f}"' for f in EXPORT_FORMATS)
-            raise ValueError(f"`format` must be one of {allowed}; got {fmt!r}. "
+            raise ValueError(f"`format` must be one of {allowed}; got {shown(fmt)}. "
                              "Pick one of the listed formats.")
         board = self._board(name)
         text = board.export(what, fmt)
@@ -370,7 +371,7 @@ class Channel:
         if name not in boards:
             known = ", ".join(repr(n) for n in boards) or "none yet"
             raise KeyError(f"`name` must be the name of a design in this kernel ({known}); "
-                           f"got {name!r}. Run its %%cutoff cell first.")
+                           f"got {shown(name)}. Run its %%cutoff cell first.")
         return boards[name]
 
     def _watch_new_boards(self) -> None:

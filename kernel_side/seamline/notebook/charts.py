@@ -32,6 +32,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from ..errors import shown
 
 __all__ = [
     "CHART_NAMES",
@@ -201,7 +202,7 @@ def _ci_columns(df: pd.DataFrame) -> tuple[str, str]:
             return low, high
     raise KeyError(
         f"`table()` must have interval columns robust_ci_low/robust_ci_high or ci_low/ci_high; "
-        f"got {list(df.columns)!r}. Pass a seamline result object."
+        f"got {shown(list(df.columns))}. Pass a seamline result object."
     )
 
 
@@ -773,7 +774,7 @@ def chart_for(board, what: str, *, configure: bool = True):
     """
     if what not in CHART_NAMES:
         names = ", ".join(f'"{n}"' for n in CHART_NAMES)
-        raise ValueError(f"`what` must be one of {names}; got {what!r}. Pick a chart name.")
+        raise ValueError(f"`what` must be one of {names}; got {shown(what)}. Pick a chart name.")
     results: Mapping[str, Any] = board.results
     errors = getattr(board, "errors", None)
 
@@ -818,7 +819,7 @@ def _usable(results: Mapping[str, Any], key: str, what: str, errors: Mapping[str
     if reason is not None:
         if reason == "not computed" and errors and errors.get(key):
             reason = str(errors[key])
-        raise ValueError(f"`what` {what!r} needs the {key!r} result, which is unavailable: {reason}")
+        raise ValueError(f"`what` {shown(what)} needs the {shown(key)} result, which is unavailable: {reason}")
     return value
 
 

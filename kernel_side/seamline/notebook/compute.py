@@ -60,7 +60,7 @@ from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass
 from typing import Any
 
-from ..errors import SeamlineError
+from ..errors import SeamlineError, shown
 from ..estimate.design import Design
 from ..results.diagnostics import Checks
 from .levels import REFERENCE_LEVEL, at_level
@@ -311,7 +311,7 @@ class Computation:
         except _Upstream as up:
             return Failure(f"needs the main fit, which failed: {up.failure.message}", detail=up.failure.detail,
                            ours=up.failure.ours)
-        raise AssertionError(f"unknown node {node!r}")   # NODES and this dispatch must agree
+        raise AssertionError(f"unknown node {shown(node)}")   # NODES and this dispatch must agree
 
 
 class _Upstream(Exception):

@@ -14,7 +14,7 @@ from typing import Any
 
 import pandas as pd
 
-from ..errors import InvalidOptionError
+from ..errors import InvalidOptionError, shown
 from ..options import check_option
 from .spec import NotApplicable
 
@@ -57,7 +57,7 @@ def export_result(state, what: str, fmt: str, path: str | Path | None, *, weight
     if what == "methods":
         if fmt not in _METHODS_FORMATS:
             raise InvalidOptionError(f"`fmt` for the methods paragraph must be \"text\", \"markdown\", "
-                                     f"\"latex\" or \"html\"; got {fmt!r}. Use fmt=\"text\".")
+                                     f"\"latex\" or \"html\"; got {shown(fmt)}. Use fmt=\"text\".")
         fit = state.results.get("fit")
         text = methods_text(None if isinstance(fit, NotApplicable) else fit, state.results, state.errors, weights)
         if fmt == "latex":
@@ -70,7 +70,7 @@ def export_result(state, what: str, fmt: str, path: str | Path | None, *, weight
         return _write(text, path)
     if what not in EXPORTS:
         names = ", ".join(f'"{n}"' for n in (*EXPORTS, "methods"))
-        raise InvalidOptionError(f"`what` must be one of {names}; got {what!r}. Pick a table or chart name.")
+        raise InvalidOptionError(f"`what` must be one of {names}; got {shown(what)}. Pick a table or chart name.")
     if fmt in CHART_FORMATS:
         from . import charts
         chart = charts.chart_for(state, what)
@@ -78,7 +78,7 @@ def export_result(state, what: str, fmt: str, path: str | Path | None, *, weight
     result = state.results.get(EXPORTS[what])
     if result is None or isinstance(result, NotApplicable):
         reason = str(result) if result is not None else state.errors.get(EXPORTS[what], "not computed")
-        raise InvalidOptionError(f"`what` must name a panel with a current result; got {what!r}, which has "
+        raise InvalidOptionError(f"`what` must name a panel with a current result; got {shown(what)}, which has "
                                  f"none: {reason}")
     return _write(_render_table(result, fmt, title=f"{state.name}: {LABELS[EXPORTS[what]]}"), path)
 

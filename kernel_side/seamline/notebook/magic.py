@@ -22,7 +22,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from ..time_score import looks_like_date
-from ..errors import DesignSpecError
+from ..errors import DesignSpecError, shown
 from ..options import BANDWIDTH_RULES, KERNELS, SIDES, VARIANCES
 
 __all__ = ["ParsedSpec", "cutoff", "load_ipython_extension", "parse_spec", "parse_name"]
@@ -100,11 +100,11 @@ def _split_list(text: str, line: int, key: str) -> list[tuple[str, bool]]:
         else:
             current.append(ch)
     if quote:
-        raise _fail(line, f"`{key}` must close its quote; got an unmatched {quote} in {text!r}. Add the closing "
+        raise _fail(line, f"`{key}` must close its quote; got an unmatched {quote} in {shown(text)}. Add the closing "
                           f"{quote}.")
     items.append(("".join(current).strip(), quoted))
     if any(not t for t, _ in items):
-        raise _fail(line, f"`{key}` must list names separated by single commas; got {text!r}. Remove the empty "
+        raise _fail(line, f"`{key}` must list names separated by single commas; got {shown(text)}. Remove the empty "
                           f"item, e.g. `{key}: {_EXAMPLES[key]}`.")
     return items
 
@@ -115,11 +115,11 @@ def parse_name(line: str) -> str:
     if not words:
         raise _fail(1, "`%%cutoff` must be followed by a board name; got nothing. Write e.g. `%%cutoff tutoring`.")
     if len(words) > 1:
-        raise _fail(1, f"`%%cutoff` takes one board name; got {line.strip()!r}. Write e.g. `%%cutoff {words[0]}` "
+        raise _fail(1, f"`%%cutoff` takes one board name; got {shown(line.strip())}. Write e.g. `%%cutoff {words[0]}` "
                        "and put settings on the lines below.")
     name = words[0]
     if not name.isidentifier() or keyword.iskeyword(name):
-        raise _fail(1, f"the board name must be a Python identifier; got {name!r}. Use letters, digits and "
+        raise _fail(1, f"the board name must be a Python identifier; got {shown(name)}. Use letters, digits and "
                        "underscores, e.g. `%%cutoff tutoring`.")
     return name
 
@@ -139,7 +139,7 @@ def _read_lines(body: str, first_line: int) -> dict[str, tuple[str, int]]:
         if not text:
             continue
         if ":" not in text:
-            raise _fail(number, f"a setting must be written `key: value`; got {text!r}. Add the colon, e.g. "
+            raise _fail(number, f"a setting must be written `key: value`; got {shown(text)}. Add the colon, e.g. "
                                 "`cutoff: 40`.")
         key_text, value = (part.strip() for part in text.split(":", 1))
         key = re.sub(r"[\s\-]+", "_", key_text.lower())
@@ -169,14 +169,14 @@ class _Resolver:
             hint = (" Expressions are not evaluated: compute the value in a cell above (e.g. "
                     f"`my_{key} = ...`) and write `{key}: my_{key}`." if any(c in text for c in "+-*/()[]")
                     else f" Write e.g. `{key}: {_EXAMPLES[key]}`.")
-            raise _fail(line, f"`{key}` must be {expected} or the name of a notebook variable; got {text!r}.{hint}")
+            raise _fail(line, f"`{key}` must be {expected} or the name of a notebook variable; got {shown(text)}.{hint}")
         try:
             value = lookup(self.namespace, text)
         except NameError:
             pool = self.columns if key in _COLUMN_KEYS and self.columns else [
                 n for n in self.namespace if not n.startswith("_")]
             hint = _closest(text, pool) or f"Define `{text}` in a cell above, or write e.g. `{key}: {_EXAMPLES[key]}`."
-            raise _fail(line, f"`{key}` must be {expected} or the name of a notebook variable; got {text!r}, "
+            raise _fail(line, f"`{key}` must be {expected} or the name of a notebook variable; got {shown(text)}, "
                               f"which is neither. {hint}") from None
         self.variables[key] = text
         return value
@@ -188,7 +188,7 @@ class _Resolver:
             value = self.variable(key, text, line, "a column name")
             return value
         hint = _closest(text, self.columns) or "Check the spelling against the data's columns."
-        raise _fail(line, f"`{key}` must name a column of the data; got {text!r}, which is not a column (nor a "
+        raise _fail(line, f"`{key}` must name a column of the data; got {shown(text)}, which is not a column (nor a "
                           f"notebook variable). {hint}")
 
     def resolve(self, key: str, text: str, line: int) -> Any:
@@ -200,7 +200,7 @@ class _Resolver:
         if kind == "column":
             (item, quoted), *rest = _split_list(text, line, key)
             if rest:
-                raise _fail(line, f"`{key}` must name one column; got {text!r}. Keep one name.")
+                raise _fail(line, f"`{key}` must name one column; got {shown(text)}. Keep one name.")
             return self.column(key, item, quoted, line, single=True)
         if kind == "columns":
             items = _split_list(text, line, key)
@@ -226,7 +226,7 @@ class _Resolver:
                 return self.variable(key, text, line, "one of " + ", ".join(allowed))
             close = difflib.get_close_matches(lowered, allowed, n=1, cutoff=0.5)
             hint = f"Did you mean `{key}: {close[0]}`?" if close else "Pick one of the listed values."
-            raise _fail(line, f"`{key}` must be one of {', '.join(allowed)}; got {text!r}. {hint}")
+            raise _fail(line, f"`{key}` must be one of {', '.join(allowed)}; got {shown(text)}. {hint}")
         if kind == "bandwidth":
             if lowered in BANDWIDTH_RULES:
                 return lowered
@@ -239,7 +239,7 @@ class _Resolver:
             close = difflib.get_close_matches(lowered, BANDWIDTH_RULES, n=1, cutoff=0.5)
             hint = f" Did you mean `{key}: {close[0]}`?" if close else ""
             raise _fail(line, f"`{key}` must be one of {', '.join(BANDWIDTH_RULES)}, a number or two numbers "
-                              f"(below, above); got {text!r}.{hint or ' Write e.g. `bandwidth: 2.5, 3`.'}")
+                              f"(below, above); got {shown(text)}.{hint or ' Write e.g. `bandwidth: 2.5, 3`.'}")
         if kind == "boolean":
             if lowered in _TRUE:
                 return True
@@ -299,7 +299,7 @@ def parse_spec(body: str, namespace: dict[str, Any], *, name: str = "board", fir
     from .board import coerce_value, lookup
     data_text, data_line = raw["data"]
     if not _NAME.match(data_text):
-        raise _fail(data_line, f"`data` must be the name of a DataFrame variable; got {data_text!r}. Write e.g. "
+        raise _fail(data_line, f"`data` must be the name of a DataFrame variable; got {shown(data_text)}. Write e.g. "
                                "`data: pupils` (expressions are not evaluated).")
     try:
         data = lookup(namespace, data_text)

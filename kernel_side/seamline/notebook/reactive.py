@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..errors import InvalidOptionError
+from ..errors import InvalidOptionError, shown
 
 __all__ = [
     "DataIdentity",
@@ -107,7 +107,7 @@ def use_fingerprint_algorithm(name: str) -> None:
     global _ALGORITHM
     if name not in _CHECKS:
         choices = ", ".join(f'"{k}"' for k in _CHECKS)
-        raise InvalidOptionError(f"`name` must be one of {choices}; got {name!r}. Use \"crc32\" unless "
+        raise InvalidOptionError(f"`name` must be one of {choices}; got {shown(name)}. Use \"crc32\" unless "
                                  "you need a cryptographic digest.")
     _ALGORITHM = name
 

@@ -19,6 +19,7 @@ import sys
 import time
 from collections.abc import Iterable, Sequence
 from pathlib import Path
+from ..errors import shown
 
 __all__ = ["DEFAULT_SOURCE", "DEFAULT_OUTPUT", "demo_notebooks", "execute_notebook", "static_html_page",
            "run", "main"]
@@ -48,7 +49,7 @@ def demo_notebooks(folder: str | Path = DEFAULT_SOURCE) -> list[Path]:
     found = sorted(p for p in folder.glob("*.ipynb") if ".ipynb_checkpoints" not in p.parts)
     if not found:
         raise FileNotFoundError(
-            f"`folder` must contain demo notebooks (*.ipynb); got none in {str(folder)!r}. "
+            f"`folder` must contain demo notebooks (*.ipynb); got none in {shown(str(folder))}. "
             "Run from the repository root or pass --source.")
     return found
 

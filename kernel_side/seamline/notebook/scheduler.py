@@ -22,7 +22,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-from ..errors import InvalidOptionError, SeamlineError, WaitTimeoutError
+from ..errors import InvalidOptionError, SeamlineError, WaitTimeoutError, shown
 from ..estimate.design import Design
 from .compute import Computation, panel_order
 from .exports import LABELS
@@ -144,7 +144,7 @@ class Scheduler:
         bad = [p for p in names if p not in self._panels]
         if bad:
             raise InvalidOptionError(f"`panels` must be among this board's panels ({', '.join(self._panels)}); got "
-                                     f"{bad!r}. Name computed panels or none.")
+                                     f"{shown(bad)}. Name computed panels or none.")
         if threading.current_thread() is self._worker:
             return self                      # a subscriber on the worker must never wait for it
         deadline = None if timeout is None else time.monotonic() + float(timeout)
@@ -160,7 +160,7 @@ class Scheduler:
                     if remaining is not None and remaining <= 0:
                         pending = [p for p in names if not self._current(p)]
                         raise WaitTimeoutError(
-                            f"`timeout` must leave time for the panels to finish; got {timeout!r} s with "
+                            f"`timeout` must leave time for the panels to finish; got {shown(timeout)} s with "
                             f"{', '.join(pending)} still computing. Wait longer, or call wait() without a "
                             "timeout (the computation goes on in the background).")
                     self._changed.wait(remaining if remaining is not None else 1.0)

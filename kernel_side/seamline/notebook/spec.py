@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 
 from ..time_score import is_time_value, looks_like_date
-from ..errors import InvalidOptionError
+from ..errors import InvalidOptionError, shown
 from ..options import BANDWIDTH_RULES, KERNELS, SIDES, VARIANCES, check_option
 
 __all__ = ["DESIGN_KEYS", "OPTION_DEFAULTS", "REQUIRED_KEYS", "SPEC_KEYS", "Failure", "NotApplicable",
@@ -78,7 +78,7 @@ def _as_float(key: str, value: Any, variable: str | None, example: str) -> float
     if isinstance(value, np.ndarray) and value.ndim == 0:
         value = value.item()
     if not _is_real(value):
-        raise InvalidOptionError(f"{_where(key, variable)} must be a number; got {value!r}. "
+        raise InvalidOptionError(f"{_where(key, variable)} must be a number; got {shown(value)}. "
                                  f"Use e.g. `{key}: {example}`.")
     return float(value)
 
@@ -88,7 +88,7 @@ def _as_int(key: str, value: Any, variable: str | None) -> int:
         return int(value)
     if _is_real(value) and float(value).is_integer():
         return int(value)
-    raise InvalidOptionError(f"{_where(key, variable)} must be a whole number; got {value!r}. "
+    raise InvalidOptionError(f"{_where(key, variable)} must be a whole number; got {shown(value)}. "
                              f"Use e.g. `{key}: 1`.")
 
 
@@ -98,7 +98,7 @@ def _as_name(key: str, value: Any, variable: str | None, optional: bool) -> str 
     if isinstance(value, str) and value.strip():
         return value.strip()
     fix = "a column name" + (" (or leave the key out)" if optional else "")
-    raise InvalidOptionError(f"{_where(key, variable)} must be {fix}; got {value!r}. "
+    raise InvalidOptionError(f"{_where(key, variable)} must be {fix}; got {shown(value)}. "
                              f"Name a column of the data, e.g. `{key}: {_EXAMPLE_COLUMN[key]}`.")
 
 
@@ -114,7 +114,7 @@ def _as_names(key: str, value: Any, variable: str | None) -> tuple[str, ...]:
         if names or key == "covariates":
             return names
     raise InvalidOptionError(f"{_where(key, variable)} must be a column name or a list of names; got "
-                             f"{value!r}. Use e.g. `{key}: {_EXAMPLE_COLUMN[key]}`.")
+                             f"{shown(value)}. Use e.g. `{key}: {_EXAMPLE_COLUMN[key]}`.")
 
 
 def _as_pair_or_number(key: str, value: Any, variable: str | None) -> float | tuple[float, float]:
@@ -123,7 +123,7 @@ def _as_pair_or_number(key: str, value: Any, variable: str | None) -> float | tu
     if _is_real(value):
         return float(value)
     raise InvalidOptionError(f"{_where(key, variable)} must be a number or two numbers (below, above); "
-                             f"got {value!r}. Use e.g. `{key}: 2.5` or `{key}: 2.0, 3.0`.")
+                             f"got {shown(value)}. Use e.g. `{key}: 2.5` or `{key}: 2.0, 3.0`.")
 
 
 _EXAMPLE_COLUMN = {"score": "reading_score", "outcome": "math_gain", "takeup": "attended",
@@ -154,10 +154,10 @@ def coerce_value(key: str, value: Any, variable: str | None = None) -> Any:
     if key in ("cutoff", "level", "donut"):
         number = _as_float(key, value, variable, {"cutoff": "40", "level": "0.95", "donut": "0.5"}[key])
         if key == "level" and not 0 < number < 1:
-            raise InvalidOptionError(f"{_where(key, variable)} must be between 0 and 1; got {value!r}. "
+            raise InvalidOptionError(f"{_where(key, variable)} must be between 0 and 1; got {shown(value)}. "
                                      "Use e.g. `level: 0.95`.")
         if key == "cutoff" and not math.isfinite(number):
-            raise InvalidOptionError(f"{_where(key, variable)} must be a finite number; got {value!r}. "
+            raise InvalidOptionError(f"{_where(key, variable)} must be a finite number; got {shown(value)}. "
                                      "Use e.g. `cutoff: 40`.")
         return number
     if key in ("degree", "derivative"):
@@ -174,7 +174,7 @@ def coerce_value(key: str, value: Any, variable: str | None = None) -> Any:
             return check_option(key, value, allowed)
         except InvalidOptionError:
             choices = ", ".join(f'"{a}"' for a in allowed)
-            raise InvalidOptionError(f"{_where(key, variable)} must be one of {choices}; got {value!r}. "
+            raise InvalidOptionError(f"{_where(key, variable)} must be one of {choices}; got {shown(value)}. "
                                      "Pick one of the listed values.") from None
     if key == "bandwidth":
         if isinstance(value, str):
@@ -183,7 +183,7 @@ def coerce_value(key: str, value: Any, variable: str | None = None) -> Any:
             except InvalidOptionError:
                 rules = ", ".join(f'"{a}"' for a in BANDWIDTH_RULES)
                 raise InvalidOptionError(f"{_where(key, variable)} must be one of {rules}, a number or two "
-                                         f"numbers; got {value!r}. Use e.g. `bandwidth: mse` or "
+                                         f"numbers; got {shown(value)}. Use e.g. `bandwidth: mse` or "
                                          "`bandwidth: 2.5`.") from None
         return _as_pair_or_number(key, value, variable)
     if key == "pilot_bandwidth":
@@ -191,9 +191,9 @@ def coerce_value(key: str, value: Any, variable: str | None = None) -> Any:
     if key == "adjust":
         if isinstance(value, (bool, np.bool_)):
             return bool(value)
-        raise InvalidOptionError(f"{_where(key, variable)} must be true or false; got {value!r}. "
+        raise InvalidOptionError(f"{_where(key, variable)} must be true or false; got {shown(value)}. "
                                  "Use `adjust: true` to adjust for the covariates.")
-    raise InvalidOptionError(f"`key` must be one of {', '.join(SPEC_KEYS)}; got {key!r}. "
+    raise InvalidOptionError(f"`key` must be one of {', '.join(SPEC_KEYS)}; got {shown(key)}. "
                              "Check the spelling of the setting.")
 
 
@@ -217,6 +217,6 @@ def lookup(namespace: Mapping[str, Any], name: str) -> Any:
             value = getattr(value, attribute)
         except AttributeError:
             path = ".".join([head, *rest[:i]])
-            raise NameError(f"`{name}` must name an existing attribute; got no attribute {attribute!r} "
+            raise NameError(f"`{name}` must name an existing attribute; got no attribute {shown(attribute)} "
                             f"on `{path}`. Check the spelling.") from None
     return value

@@ -20,6 +20,7 @@ from typing import Any
 
 import pandas as pd
 
+from ..errors import shown
 from ..results.base import CAUTION
 from . import charts
 
@@ -157,10 +158,10 @@ def _table_html(obj) -> str:
     """HTML of a result table through the result's own (escaping) renderer."""
     if obj is None:
         return ""
-    if isinstance(obj, pd.DataFrame):
+    if isinstance(obj, pd.DataFrame):   # a plain frame (the bandwidth rules): reader labels too
+        from ..export.labels import labelled_model
         from ..export.render import to_html
-        from ..export.table_model import from_dataframe
-        return to_html(from_dataframe(obj, title=""))
+        return to_html(labelled_model(obj, title=""))
     render = getattr(obj, "_repr_html_", None)
     if render is None:
         return f"<pre>{_esc(str(obj))}</pre>"
@@ -516,7 +517,7 @@ def _panel_html(board, panel: str) -> str:
     try:
         if panel not in dict(PANELS):
             names = ", ".join(f'"{k}"' for k, _ in PANELS)
-            raise ValueError(f"`panel` must be one of {names}; got {panel!r}. Pick a panel name.")
+            raise ValueError(f"`panel` must be one of {names}; got {shown(panel)}. Pick a panel name.")
         if _fit(board) is None:
             messages = _panel_errors(board, panel) or _panel_errors(board, "header") or [
                 "the main estimate is not available"]
