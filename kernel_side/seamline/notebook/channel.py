@@ -11,8 +11,8 @@ The channel reads boards only through the public board API: the registry
 ``seamline.notebook.board.boards()``, ``Board.name``, ``Board.summary()``,
 ``Board.on_change(callback)`` and ``Board.export(what, fmt)``.
 
-This module imports nothing beyond the standard library at import time, so that
-``%load_ext seamline`` stays fast.
+This module imports nothing beyond the standard library (and seamline's own light ``errors``) at
+import time, so that ``%load_ext seamline`` stays fast.
 """
 from __future__ import annotations
 
@@ -23,6 +23,7 @@ import threading
 import weakref
 from collections.abc import Callable, Iterable, Mapping
 from typing import Any, Literal, TypedDict
+
 from ..errors import shown
 
 __all__ = [

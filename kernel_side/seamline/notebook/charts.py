@@ -32,6 +32,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+
 from ..errors import shown
 
 __all__ = [

@@ -19,6 +19,7 @@ import sys
 import time
 from collections.abc import Iterable, Sequence
 from pathlib import Path
+
 from ..errors import shown
 
 __all__ = ["DEFAULT_SOURCE", "DEFAULT_OUTPUT", "demo_notebooks", "execute_notebook", "static_html_page",
