@@ -11,6 +11,7 @@ import { Widget } from '@lumino/widgets';
 import { formatCutoff, formatInterval, formatLevel, formatNumber, formatTime, statusLabel } from './format';
 import { ChannelState } from './model';
 import { NotebookDesigns } from './notebook';
+import { fileStem } from './paper';
 import { ExportFormat, ExportWhat, IDesignSummary } from './protocol';
 
 export const PANEL_ID = 'seamline-designs-panel';
@@ -233,7 +234,7 @@ export class DesignsPanel extends Widget {
           },
           {
             text: 'Save', className: 'seamline-script-save',
-            title: `Save the replication script next to the notebook as ${name}_replication.py (never overwrites)`,
+            title: `Save the replication script next to the notebook as ${fileStem(name)}_replication.py (never overwrites)`,
             onClick: () => void this._script(designs, name, 'save')
           }
         ], noEstimate)
