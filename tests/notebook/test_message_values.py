@@ -203,8 +203,9 @@ def test_estimate_validators_show_numpy_values_plainly(scenario):
         (lambda: design.bias_aware(smoothness=np.float64(-1.0)), "got -1.0"),
         (lambda: design.bias_aware(smoothness=1.0, bandwidth=np.float64(-2.0)), "got -2.0"),
         (lambda: design.power(effect=np.float64(np.nan)), "got nan"),
-        (lambda: design.sample_size(effect=1.0, power=np.float64(1.5)), "got "),
-        (lambda: design.local_randomization(window=np.float64(-1.0)), "got "),
+        (lambda: design.sample_size(effect=1.0, power=np.float64(1.5)), "got 1.5"),
+        (lambda: design.local_randomization(window=np.float64(-1.0)), "got -1.0"),
+        (lambda: design.local_randomization(window=(np.float64(41.0), np.float64(42.0))), "got (41.0, 42.0)"),
         (lambda: design.by_group(np.str_("nowhere")), "got 'nowhere'"),
         (lambda: steps.at(np.float64(12345.0)), "got 12345.0"),
     ]
