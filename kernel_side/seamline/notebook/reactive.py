@@ -42,7 +42,8 @@ __all__ = [
 
 #: The result panels of a board, in the order they are computed (the headline first).
 PANELS: tuple[str, ...] = ("fit", "first_stage", "bins", "first_stage_bins", "bandwidths", "density",
-                           "balance", "sensitivity", "placebo", "donut", "score_profile", "checks")
+                           "balance", "sensitivity", "placebo", "donut", "score_profile", "checks",
+                           "by_cutoff", "subgroups", "power")     # the last three: designs_graph
 
 #: Fit options a board passes to the engine (``level`` only re-reports a fit).
 FIT_OPTIONS: tuple[str, ...] = ("bandwidth", "kernel", "degree", "bias_degree", "pilot_bandwidth",
