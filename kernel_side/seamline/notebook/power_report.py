@@ -76,7 +76,7 @@ class PowerReport(Reported):
                          ("expected inside the bandwidth, below", s.n_window[0]),
                          ("expected inside the bandwidth, above", s.n_window[1]),
                          ("power at that size", s.achieved_power)]
-        return pd.DataFrame(rows, columns=["item", "value"]).astype({"value": object})   # counts stay whole
+        return pd.DataFrame(rows, columns=["item", "value"], dtype=object)   # counts stay whole numbers
 
     def sentence(self) -> str:
         """The plan in words, with the scaling rule and the bandwidth convention."""

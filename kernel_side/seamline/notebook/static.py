@@ -21,7 +21,7 @@ from typing import Any
 import pandas as pd
 
 from ..results.base import CAUTION
-from . import charts
+from . import charts, panels_designs
 
 __all__ = [
     "PANELS",
@@ -42,6 +42,7 @@ PANELS: tuple[tuple[str, str], ...] = (
     ("density", "Density"),
     ("first_stage", "First stage"),
     ("placebos", "Placebos"),
+    *panels_designs.TABS,           # by cutoff, subgroups, power
 )
 
 #: Which board results each panel shows (a change to one of them re-renders the panel).
@@ -53,6 +54,7 @@ PANEL_RESULTS: Mapping[str, tuple[str, ...]] = {
     "density": ("fit", "density", "score_profile"),
     "first_stage": ("fit", "first_stage", "first_stage_bins"),
     "placebos": ("fit", "placebo", "donut"),
+    **panels_designs.RESULTS,
 }
 
 #: The export name behind each panel's table and chart buttons.
@@ -63,12 +65,14 @@ PANEL_EXPORTS: Mapping[str, tuple[str, ...]] = {
     "density": ("density",),
     "first_stage": ("first_stage",),
     "placebos": ("placebo", "donut"),
+    **panels_designs.EXPORTS,
 }
 
 #: The board result behind each export name.
 EXPORT_RESULTS: Mapping[str, str] = {
     "estimate": "fit", "sensitivity": "sensitivity", "balance": "balance", "density": "density",
     "first_stage": "first_stage", "placebo": "placebo", "donut": "donut",
+    **panels_designs.EXPORT_RESULTS,
 }
 
 _esc = html.escape
@@ -181,7 +185,7 @@ def _chart_inputs(board, what: str) -> tuple:
     keys = {"estimate": ("fit", "bins"), "sensitivity": ("fit", "sensitivity", "bandwidths"),
             "balance": ("balance",), "density": ("fit", "density"),
             "first_stage": ("fit", "first_stage", "first_stage_bins"),
-            "placebo": ("fit", "placebo"), "donut": ("fit", "donut")}[what]
+            "placebo": ("fit", "placebo"), "donut": ("fit", "donut"), **panels_designs.CHART_INPUTS}[what]
     return tuple(results.get(k) for k in keys)
 
 
@@ -393,7 +397,8 @@ _EXPLAIN = {
 
 
 def _explain(panel: str) -> str:
-    return f'<div class="seamline-note" style="{_NOTE}">{_esc(_EXPLAIN[panel])}</div>'
+    text = _EXPLAIN[panel] if panel in _EXPLAIN else panels_designs.EXPLAIN[panel]
+    return f'<div class="seamline-note" style="{_NOTE}">{_esc(text)}</div>'
 
 
 def _result_block(board, key: str, what: str | None, *, extra_tables: Iterable[Any] = ()) -> str:
@@ -528,6 +533,7 @@ def _panel_html(board, panel: str) -> str:
             "density": _density_panel,
             "first_stage": _first_stage_panel,
             "placebos": _placebos_panel,
+            **panels_designs.BODIES,
         }[panel](board)
         errors = [m for m in _panel_errors(board, panel)
                   if _esc(m) not in body]  # result-level errors are already shown in the body
