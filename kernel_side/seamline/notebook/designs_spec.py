@@ -61,8 +61,8 @@ def coerce_designs_value(key: str, value: Any, variable: str | None = None) -> t
         Naming the key, the notebook variable, the value and the fix.
     """
     if key == "cutoff":
-        if isinstance(value, str) and value.strip() and not looks_like_date(value):
-            return True, value.strip()                      # a column of per-unit cutoffs
+        if isinstance(value, str) and value.strip() and not looks_like_date(value) and variable is None:
+            return True, value.strip()   # a column of per-unit cutoffs (named in the cell, not by a variable)
         if isinstance(value, (list, tuple, np.ndarray, pd.Series)):
             return True, _cutoffs(value, variable)
         return False, value

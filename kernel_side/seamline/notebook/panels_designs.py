@@ -16,7 +16,8 @@ __all__ = ["BODIES", "CHART_INPUTS", "EXPLAIN", "EXPORTS", "EXPORT_RESULTS", "RE
 #: (panel key, tab title), after the single-cutoff tabs.
 TABS: tuple[tuple[str, str], ...] = (("by_cutoff", "By cutoff"), ("subgroups", "Subgroups"), ("power", "Power"))
 #: Board results each panel shows.
-RESULTS = {"by_cutoff": ("fit", "by_cutoff"), "subgroups": ("fit", "subgroups"), "power": ("fit", "power")}
+#: (By cutoff names the headline cutoff, so it also follows the main fit; the others change with their result.)
+RESULTS = {"by_cutoff": ("fit", "by_cutoff"), "subgroups": ("subgroups",), "power": ("power",)}
 #: Export names behind each panel's buttons.
 EXPORTS = {"by_cutoff": ("by_cutoff", "decomposition"), "subgroups": ("subgroups",), "power": ("power", "sample_size")}
 #: The board result behind each export name.
