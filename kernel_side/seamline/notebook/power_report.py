@@ -62,7 +62,7 @@ class PowerReport(Reported):
     def summary(self) -> pd.DataFrame:
         """The plan in one row per quantity (item, value)."""
         c = self.curve
-        rows = [("test size", 1 - c.level), ("pilot observations", c.n_pilot),
+        rows = [("test size", round(1 - c.level, 12)), ("pilot observations", c.n_pilot),
                 ("pilot robust standard error", c.pilot_std_error),
                 (f"effect detectable with {TARGET_POWER:.0%} power", self.detectable)]
         if self.effect is not None:
