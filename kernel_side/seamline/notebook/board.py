@@ -684,7 +684,9 @@ class Board(Scheduler):
         return {
             "name": self.name,
             "score": state.spec["score"],
-            "cutoff": state.spec["cutoff"],
+            # cumulative cutoffs as text ("30, 60"), which the front end shows as written
+            "cutoff": cutoff_text(state.spec["cutoff"]) if isinstance(state.spec["cutoff"], tuple)
+            else state.spec["cutoff"],
             "outcome": state.options["outcome"],
             "kind": None if fit is None else fit.kind,
             "estimate": None if fit is None else _json_float(fit.estimate),
