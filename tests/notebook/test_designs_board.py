@@ -250,3 +250,34 @@ def test_the_methods_paragraph_cites_the_methods_where_they_apply(districts, far
     assert f"{effects.rows[0].estimate:.3f} at cutoff 45" in text
     plain = seamline.board(farms.data, score=farms.score, cutoff=30.0, outcome="investment").methods_paragraph()
     assert "Vazquez-Bare" not in plain       # one cutoff, no groups, no planned effect: nothing added
+
+
+def test_editing_the_cutoff_column_in_place_recomputes_the_board(districts):
+    data = districts.data.copy()
+    b = seamline.board(data, score=districts.score, cutoff="district_threshold", outcome="repair_spending")
+    before = b.results["by_cutoff"]
+    data.loc[data["district"] == "west", "district_threshold"] = 58.0       # in place, as a user would
+    assert "column:district_threshold" in b.check_inputs()
+    after = b.results["by_cutoff"]
+    assert after is not before and [r.label for r in after.rows] == [45.0, 50.0, 55.0, 58.0]
+    want = seamline.Design(data, score=districts.score, cutoff="district_threshold", outcome="repair_spending")
+    assert b.fit.estimate == want.fit().estimate
+
+
+def test_the_view_has_effect_and_headline_controls(farms):
+    from seamline.notebook.panels import BoardView
+    s = farms
+    b = seamline.board(s.data, score=s.score, cutoff=list(s.cutoff), outcome="investment")
+    view = BoardView(b.wait())
+    headline, effect = view._designs.headline, view._designs.effect
+    assert headline.layout.display is None and [v for _l, v in headline.options] == [30.0, 60.0]
+    headline.value = 60.0
+    assert b.wait().fit.cutoff == 60.0
+    effect.value = "0.3"
+    assert b.wait().spec["effect"] == 0.3 and b.results["power"].sample is not None
+    effect.value = "a lot"                          # shown beside the controls; nothing changes
+    assert "The effect was not changed" in view._message.value and b.spec["effect"] == 0.3
+    single = BoardView(seamline.board(s.data, score=s.score, cutoff=30.0, outcome="investment").wait())
+    assert single._designs.headline.layout.display == "none"
+    view.close()
+    single.close()

@@ -62,6 +62,8 @@ class _Exported:
 def _pooled_row(effects) -> pd.DataFrame:
     """The cutoff table with the pooled estimate as its last row (column layout)."""
     table = effects.table()
+    # cutoffs as written (30, not 30.000 at the tables' three decimals)
+    table = table.assign(cutoff=[f"{c:g}" for c in table["cutoff"]])
     pooled = effects.pooled
     if pooled is None:
         return table
@@ -72,7 +74,6 @@ def _pooled_row(effects) -> pd.DataFrame:
            "n_below": pooled.n_used[0], "n_above": pooled.n_used[1], "bandwidth_below": pooled.bandwidth[0],
            "bandwidth_above": pooled.bandwidth[1], "units_below": pooled.n_total[0],
            "units_above": pooled.n_total[1], "note": ""}
-    table = table.astype({"cutoff": object})
     return pd.concat([table, pd.DataFrame([row], columns=table.columns)], ignore_index=True)
 
 
