@@ -31,14 +31,19 @@ def _effects_frame(result, pooled=None) -> pd.DataFrame:
         lo, hi = pooled.robust_conf_int
         rows.append({"name": "pooled", "kind": "pooled (normalised score)", "estimate": pooled.estimate,
                      "lo": float(lo), "hi": float(hi), "n": f"{pooled.n_used[0]} below, {pooled.n_used[1]} above"})
-    frame = pd.DataFrame(rows, columns=["name", "kind", "estimate", "lo", "hi", "n"])
-    return _records(_finite(frame, ["estimate", "lo", "hi"]))
+    frame = _records(_finite(pd.DataFrame(rows, columns=["name", "kind", "estimate", "lo", "hi", "n"]),
+                             ["estimate", "lo", "hi"]))
+    if frame.empty:
+        notes = "; ".join(f"{_label(r.label)}: {r.note}" for r in result.rows if r.note)
+        raise ValueError(f"no row could be fitted, so there is nothing to draw ({notes})")
+    return frame
 
 
 def _point_ranges(alt, data: pd.DataFrame, x_title: str, y_title: str, order: list[str]):
-    color = alt.Color("kind:N", legend=alt.Legend(title=None),
-                      scale=alt.Scale(domain=["each on its own rows", "pooled (normalised score)"],
-                                      range=[TREATED, UNTREATED]))
+    kinds = {"each on its own rows": TREATED, "pooled (normalised score)": UNTREATED}
+    present = [k for k in kinds if k in set(data["kind"])] or list(kinds)[:1]     # no legend entry for none
+    color = alt.Color("kind:N", legend=alt.Legend(title=None) if len(present) > 1 else None,
+                      scale=alt.Scale(domain=present, range=[kinds[k] for k in present]))
     x = alt.X("name:N", title=x_title, sort=order, axis=alt.Axis(labelAngle=0))
     tooltip = [alt.Tooltip("name:N", title=x_title), alt.Tooltip("estimate:Q", format=".4g"),
                alt.Tooltip("lo:Q", format=".4g", title="CI low"), alt.Tooltip("hi:Q", format=".4g", title="CI high"),
@@ -79,12 +84,13 @@ def cutoff_effects_chart(effects, *, configure: bool = True):
     data = _effects_frame(effects, effects.pooled)
     order = [_label(r.label) for r in effects.rows] + (["pooled"] if effects.pooled is not None else [])
     layers = _point_ranges(alt, data, "cutoff", f"effect on {effects.outcome}", order) + _common_rule(alt, effects.equality)
-    how = ("each cutoff's units" if effects.layout == "column"
-           else "observations between the neighbouring cutoffs (effects are increments)")
+    how = ([f"estimate and robust {_pct(effects.level)} CI, each fitted on its cutoff's units"]
+           if effects.layout == "column" else
+           [f"estimate and robust {_pct(effects.level)} CI, each fitted between its neighbouring cutoffs",
+            "each effect is the increment of the treatment at its cutoff"])
     chart = alt.layer(*layers).properties(
         width=WIDTH, height=HEIGHT,
-        title=_title(alt, "Effects at each cutoff",
-                     [f"estimate and robust {_pct(effects.level)} CI, each fitted on {how}", _test_text(effects.equality)]))
+        title=_title(alt, "Effects at each cutoff", [*how, _test_text(effects.equality)]))
     return _configure(chart, configure=configure)
 
 
@@ -134,13 +140,15 @@ def power_chart(report, *, configure: bool = True):
     labels = alt.Chart(marks).mark_text(align="left", dx=3, dy=-5, fontSize=9, color=INK).encode(
         x=alt.value(0), y="y:Q", text="what:N")
     layers = [line, rules, labels]
-    points = [{"effect": report.detectable, "power": 0.8, "what": f"80% power at {report.detectable:.3g}"}]
+    points = [{"effect": report.detectable, "power": 0.8, "what": f"80% at {report.detectable:.3g}"}]
     if report.effect is not None and report.power is not None:
         points.append({"effect": report.effect, "power": report.power.power,
-                       "what": f"planned effect {report.effect:g}: power {report.power.power:.2f}"})
-    dots = pd.DataFrame(points)
-    layers.append(alt.Chart(dots).mark_circle(color=UNTREATED, size=50, opacity=1).encode(
+                       "what": f"planned {report.effect:g}: {report.power.power:.0%}"})
+    dots = alt.Chart(pd.DataFrame(points))
+    layers.append(dots.mark_circle(color=UNTREATED, size=50, opacity=1).encode(
         x="effect:Q", y="power:Q", tooltip=[alt.Tooltip("what:N", title="")]))
+    layers.append(dots.mark_text(align="left", dx=7, dy=8, fontSize=9, color=INK).encode(
+        x="effect:Q", y="power:Q", text="what:N"))
     subtitle = [f"robust test at size {1 - curve.level:.3g} with the pilot's {curve.n_pilot} observations",
                 f"se scales as (n0 / n)^{curve.exponent:.3g} ({curve.scaling.replace('-', ' ')})"]
     chart = alt.layer(*layers).properties(width=WIDTH, height=HEIGHT,
