@@ -281,3 +281,15 @@ def test_the_view_has_effect_and_headline_controls(farms):
     assert single._designs.headline.layout.display == "none"
     view.close()
     single.close()
+
+
+def test_the_header_says_which_cutoff_the_headline_is(farms, districts):
+    s = farms
+    b = seamline.board(s.data, score=s.score, cutoff=list(s.cutoff), outcome="investment", headline_cutoff=60)
+    assert "Cumulative cutoffs 30, 60: the headline and the single-cutoff tabs show the cutoff 60" in \
+        static.header_html(b)
+    d = districts
+    column = seamline.board(d.data, score=d.score, cutoff=d.cutoff, outcome="repair_spending")
+    assert "the headline pools every unit on the normalised score" in static.header_html(column)
+    single = seamline.board(s.data, score=s.score, cutoff=30.0, outcome="investment")
+    assert "seamline-cutoffs-note" not in static.header_html(single)

@@ -133,5 +133,23 @@ def _power(board) -> str:
     return body + _layout(board, "power", [_table(designs_table("sample_size", report))], warnings)
 
 
+def header_note(board) -> str:
+    """A line under the header's design line on boards with several cutoffs (else empty)."""
+    from .designs_spec import cutoff_layout, cutoff_text
+    spec = getattr(board, "spec", None) or {}
+    layout = cutoff_layout(spec)
+    if layout == "single":
+        return ""
+    if layout == "column":
+        text = (f"Cutoffs from the column <code>{_esc(spec['cutoff'])}</code>: the headline pools every unit on "
+                "the normalised score (each cutoff's own estimate: <b>By cutoff</b>).")
+    else:
+        chosen = spec.get("headline_cutoff")
+        shown = chosen if chosen is not None else spec["cutoff"][0]
+        text = (f"Cumulative cutoffs {_esc(cutoff_text(spec['cutoff']))}: the headline and the single-cutoff tabs "
+                f"show the cutoff {shown:g} (the <i>headline</i> control picks another; all: <b>By cutoff</b>).")
+    return f'<div class="seamline-cutoffs-note" style="font-size:12px;color:#555;margin:2px 0">{text}</div>'
+
+
 #: Panel key -> function(board or state) -> HTML body.
 BODIES: dict[str, Any] = {"by_cutoff": _by_cutoff, "subgroups": _subgroups, "power": _power}

@@ -334,6 +334,7 @@ def header_html(board) -> str:
         f"<code>{_esc(fit.outcome)}</code> at <code>{_esc(fit.score)}</code> = "
         f"{_esc(charts._short(fit.cutoff))} (treated side: {_esc(fit.treated)}, "
         f"comparison side: {untreated}) &middot; <span class=\"seamline-status\">{status}</span></div>")
+    parts.append(panels_designs.header_note(board))     # several cutoffs: which one the headline is
     lo, hi = fit.robust_conf_int
     level = f"{100 * fit.level:g}%"
     stale_fit = "fit" in _pending(board)
