@@ -721,7 +721,8 @@ class Board(Scheduler):
         Parameters
         ----------
         what : "estimate", "sensitivity", "balance", "density", "placebo", "donut", "bins",
-            "bandwidths", "first_stage", "methods", or "script": a standalone Python script that
+            "bandwidths", "first_stage", "by_cutoff", "decomposition" (a cutoff column), "subgroups",
+            "power" (the curve), "sample_size", "methods", or "script": a standalone Python script that
             rebuilds every number of the board from the data file ``data_path`` (CSV or Parquet;
             without it, a marked constant to edit), see ``seamline.export.script``
         fmt : tables: "latex" (booktabs), "markdown", "csv", "html", "text";
