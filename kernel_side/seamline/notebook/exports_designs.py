@@ -14,8 +14,9 @@ from typing import Any
 import pandas as pd
 
 from ..errors import InvalidOptionError
+from ..results.base import CAUTION
 
-__all__ = ["DESIGNS_EXPORTS", "designs_table", "drop_blank_columns"]
+__all__ = ["DESIGNS_EXPORTS", "RESULT_EXPORTS", "designs_table", "drop_blank_columns", "without_caution"]
 
 #: Export name -> (board result, what of it is exported).
 DESIGNS_EXPORTS: Mapping[str, tuple[str, str]] = {
@@ -25,6 +26,12 @@ DESIGNS_EXPORTS: Mapping[str, tuple[str, str]] = {
     "power": ("power", "the power curve"),
     "sample_size": ("power", "the power and sample size summary"),
 }
+
+
+def without_caution(notes) -> list[str]:
+    """Notes without the cautions sentence, which a board states once (and the methods paragraph)."""
+    out = [str(n).replace(CAUTION, "").strip() for n in notes]
+    return [n for n in out if n]
 
 
 def drop_blank_columns(df: pd.DataFrame) -> pd.DataFrame:
@@ -56,7 +63,7 @@ class _Exported:
         return self.result.title()
 
     def notes(self) -> list[str]:
-        return list(self.result.notes())
+        return without_caution(self.result.notes())
 
 
 def _pooled_row(effects) -> pd.DataFrame:
@@ -92,7 +99,7 @@ class _Summary:
         return self.report.title().replace("Power of", "Power and sample size of", 1)
 
     def notes(self) -> list[str]:
-        return self.report.notes()
+        return without_caution(self.report.notes())
 
 
 def designs_table(what: str, result: Any) -> Any:
@@ -117,3 +124,8 @@ def designs_table(what: str, result: Any) -> Any:
     if what == "sample_size":
         return _Summary(result)
     return _Exported(result, result.table())
+
+
+#: Export names of each board result (what a report writes for it).
+RESULT_EXPORTS: Mapping[str, tuple[str, ...]] = {"by_cutoff": ("by_cutoff", "decomposition"),
+                                                 "subgroups": ("subgroups",), "power": ("power", "sample_size")}

@@ -16,7 +16,7 @@ from scipy import optimize
 from ..core.power import power_of_test
 from ..errors import SeamlineError
 from ..estimate import power as power_module
-from ..results.base import CAUTION, Reported
+from ..results.base import Reported
 from ..results.fit import Fit
 from ..results.power import Power, PowerCurve, SampleSize
 
@@ -96,7 +96,8 @@ class PowerReport(Reported):
         return f"Power of the robust test for {self.outcome} (size {1 - self.level:.3g})"
 
     def notes(self) -> list[str]:
-        return [self.sentence(), *self.curve.notes()[:1], *self.curve.notes()[2:3], CAUTION]
+        # the cautions sentence is stated once per board and in the methods paragraph
+        return [self.sentence(), *self.curve.notes()[:1], *self.curve.notes()[2:3]]
 
 
 def _detectable(curve: PowerCurve) -> float:
