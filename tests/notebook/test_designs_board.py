@@ -293,3 +293,13 @@ def test_the_header_says_which_cutoff_the_headline_is(farms, districts):
     assert "the headline pools every unit on the normalised score" in static.header_html(column)
     single = seamline.board(s.data, score=s.score, cutoff=30.0, outcome="investment")
     assert "seamline-cutoffs-note" not in static.header_html(single)
+
+
+def test_export_buttons_only_where_there_is_a_table(farms, districts):
+    s = farms
+    cumulative = seamline.board(s.data, score=s.score, cutoff=list(s.cutoff), outcome="investment")
+    assert static.export_available(cumulative, "by_cutoff") and not static.export_available(cumulative,
+                                                                                            "decomposition")
+    assert not static.export_available(cumulative, "subgroups") and static.export_available(cumulative, "power")
+    column = seamline.board(districts.data, score=districts.score, cutoff=districts.cutoff, outcome="repair_spending")
+    assert static.export_available(column, "decomposition")

@@ -133,6 +133,11 @@ def _power(board) -> str:
     return body + _layout(board, "power", [_table(designs_table("sample_size", report))], warnings)
 
 
+def has_table(value: Any, what: str) -> bool:
+    """Whether a result has the table of export ``what`` (cumulative cutoffs have no decomposition)."""
+    return what != "decomposition" or getattr(value, "decomposition", None) is not None
+
+
 def header_note(board) -> str:
     """A line under the header's design line on boards with several cutoffs (else empty)."""
     from .designs_spec import cutoff_layout, cutoff_text

@@ -135,7 +135,8 @@ def _fit(board):
 def export_available(board, what: str) -> bool:
     """Whether the board has a current result to export under ``what``."""
     key = EXPORT_RESULTS.get(what, what)
-    return charts.not_applicable_reason(_results(board).get(key)) is None
+    value = _results(board).get(key)
+    return charts.not_applicable_reason(value) is None and panels_designs.has_table(value, what)
 
 
 def error_html(message: str, *, title: str = "This panel could not be computed") -> str:
