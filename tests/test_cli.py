@@ -99,7 +99,8 @@ def test_report_from_a_parquet_file_in_process(tmp_path, capsys):
 BAD_SPECS = [
     # (spec text, the pointed message)
     ("data: invented.csv\nscore: reading_score\ncutoff: forty\noutcome: math_gain\n",
-     "line 3: `cutoff` must be a number or the name of a notebook variable; got 'forty'"),
+     "line 3: `cutoff` must be a number, a column name, increasing numbers or the name of a notebook variable; "
+     "got 'forty'"),
     ("%%cutoff tutoring\ndata: invented.csv\nscore: reading_score\ncutoff: 40\noutcome: math_gian\n",
      "line 5: `outcome` must name a column of the data; got 'math_gian'"),
     ("data: invented.csv\nscore: reading_score\ncutoff: 40\noutcome: math_gain\nkernal: uniform\n",
@@ -133,3 +134,26 @@ def test_the_module_entry_point_exits_2_without_a_traceback(sharp):
     result = run_cli("report", "bad.txt", "--out", "never", cwd=folder)
     assert result.returncode == 2
     assert BAD_SPECS[0][1] in result.stderr and "Traceback" not in result.stderr
+
+
+def test_report_of_cumulative_cutoffs_writes_the_new_tables_and_figures(tmp_path, capsys):
+    # Reference: the board's own exports (checked against Design calls in tests/notebook/test_designs_board.py).
+    from seamline.demo_cutoffs import cumulative_grants_scenario
+    scenario = cumulative_grants_scenario(2500, seed=12)
+    scenario.data.to_csv(tmp_path / "farms.csv", index=False)
+    spec = ("data: farms.csv\nscore: support_points\ncutoff: 30, 60\noutcome: investment\n"
+            "groups: cooperative\neffect: 0.5\n")
+    (tmp_path / "grants.txt").write_text(spec, encoding="utf-8")
+    code = cli.main(["report", str(tmp_path / "grants.txt"), "--out", str(tmp_path / "out")])
+    assert code == 0, capsys.readouterr().err
+    tables, figures = tmp_path / "out" / "tables", tmp_path / "out" / "figures"
+    for stem in ("by_cutoff", "subgroups", "power", "sample_size"):
+        assert (tables / f"{stem}.tex").read_text(encoding="utf-8").startswith(r"\begin{table}"), stem
+        assert "robust_ci_low" not in (tables / f"{stem}.md").read_text(encoding="utf-8")
+    assert not (tables / "decomposition.tex").exists()      # cumulative cutoffs have no pooled estimate
+    for what in ("by_cutoff", "subgroups", "power"):
+        ElementTree.parse(figures / f"{what}.svg")
+    methods = (tmp_path / "out" / "methods.txt").read_text(encoding="utf-8")
+    assert "cumulative cutoffs 30, 60" in methods and "Cattaneo, Titiunik and Vazquez-Bare (2019)" in methods
+    page = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    assert page.count(CAUTION) == 2          # the new tabs do not repeat the cautions

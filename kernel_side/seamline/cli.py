@@ -186,9 +186,17 @@ def _tables(board, folder: Path) -> list[str]:
     written += [_write(folder / "headline.tex", headline.to_latex(label="tab:headline")),
                 _write(folder / "headline.md", headline.to_markdown())]
     names = {"fit": "estimate"}
+    from .notebook.exports_designs import RESULT_EXPORTS
     for panel, result in board.results.items():
         if panel in ("bins", "first_stage_bins") or result is None or getattr(result, "applies", True) is False:
             continue    # binned means are chart data; a panel that does not apply has no table
+        if panel in RESULT_EXPORTS:     # several cutoffs, subgroups, power: the board's own exports
+            for what in RESULT_EXPORTS[panel]:
+                if what == "decomposition" and getattr(result, "decomposition", None) is None:
+                    continue
+                written += [_write(folder / f"{what}.tex", board.export(what, "latex")),
+                            _write(folder / f"{what}.md", board.export(what, "markdown"))]
+            continue
         stem = names.get(panel, panel)
         if isinstance(result, pd.DataFrame):
             model = labelled_model(result, title=f"{board.name}: {panel.replace('_', ' ')}")

@@ -34,7 +34,7 @@ TABLE_ROWS = """(board) => [...board.querySelectorAll('table')].map(table => {
 
 
 def test_demo_notebooks_found():
-    assert len(DEMOS) >= 3, f"demo_notebooks/ should hold the three demos; found {DEMOS}"
+    assert len(DEMOS) >= 4, f"demo_notebooks/ should hold the four demos; found {DEMOS}"
 
 
 @pytest.mark.parametrize("name", DEMOS)

@@ -198,3 +198,21 @@ def test_equality_test_has_about_its_nominal_size_under_equal_effects():
         result = seamline.Design(frame, score="x", cutoff=0.0, outcome="y").by_group("group")
         rejected += result.equality_p_value < 0.05
     assert abs(rejected / reps - 0.05) < 3 * np.sqrt(0.05 * 0.95 / reps), rejected / reps
+
+
+def test_groups_inside_one_cutoff_of_a_cutoff_column_are_fitted_at_that_cutoff():
+    # Reference: each group's direct single-cutoff fit on its own rows (computed here). A group that
+    # lies inside one cutoff group (a region with its own threshold) has no pooled design of its own.
+    rng = np.random.default_rng(31)
+    n = 4000
+    region = rng.choice(["east", "west"], n)
+    threshold = np.where(region == "east", 40.0, 55.0)
+    score = rng.uniform(0.0, 100.0, n)
+    y = 1.0 + 0.02 * score + np.where(region == "east", 1.0, 0.5) * (score >= threshold) + rng.normal(0, 0.5, n)
+    data = pd.DataFrame({"score": score, "threshold": threshold, "region": region, "y": y})
+    design = seamline.Design(data, score="score", cutoff="threshold", outcome="y")
+    groups = design.by_group("region")
+    for row in groups.rows:
+        own = data[data["region"] == row.label]
+        direct = seamline.Design(own, score="score", cutoff=float(own["threshold"].iloc[0]), outcome="y").fit()
+        assert row.fitted and row.estimate == pytest.approx(direct.estimate, rel=TOL, abs=TOL)

@@ -428,6 +428,10 @@ def test_every_chart_spec_compiles_with_vega_lite_5(what, sharp_board, fuzzy_boa
     # vl-convert's own Vega-Lite 5 compiler (vl_version="5.8", the oldest 5.x it ships).
     import vl_convert
     board = fuzzy_board if what == "first_stage" else sharp_board
+    if what in ("by_cutoff", "subgroups"):       # these charts need several cutoffs and groups
+        from seamline.demo_cutoffs import district_cutoffs_scenario
+        sc = district_cutoffs_scenario(3000, seed=23)
+        board = Board("districts", {**sc.design_kwargs(), "groups": "owner"}, {}, data=sc.data)
     spec = charts.to_vega_lite(charts.chart_for(board.wait(), what))
     assert spec["$schema"] == "https://vega.github.io/schema/vega-lite/v5.json"
     vega = vl_convert.vegalite_to_vega(spec, vl_version="5.8")

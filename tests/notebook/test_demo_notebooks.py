@@ -26,12 +26,13 @@ WIDGET_STATE = "application/vnd.jupyter.widget-state+json"
 VEGA_LITE = "application/vnd.vegalite.v5+json"
 
 
-def test_there_are_the_three_demo_scenarios():
+def test_there_are_the_four_demo_scenarios():
     text = " ".join(p.read_text(encoding="utf-8") for p in NOTEBOOKS)
-    assert len(NOTEBOOKS) >= 3
-    for scenario in ("sharp_scenario", "fuzzy_scenario", "discrete_scenario"):
+    assert len(NOTEBOOKS) >= 4
+    for scenario in ("sharp_scenario", "fuzzy_scenario", "discrete_scenario", "cumulative_grants_scenario"):
         assert scenario in text, scenario
     assert "takeup:" in text          # the fuzzy demo declares take-up
+    assert "cutoff: 30, 60" in text and "groups:" in text and "effect:" in text   # the two-threshold demo
 
 
 def _outputs(nb):

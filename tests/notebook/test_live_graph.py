@@ -32,7 +32,7 @@ TIGHT = dict(rtol=1e-9, atol=1e-12)   # re-reported intervals equal direct ones 
 # another); "fits" counts every real (uncached) fit, "selections" every bandwidth selection and
 # "density" every density test, wherever they are called from.
 METHODS = ("fit", "bandwidths", "bins", "sensitivity", "placebo_cutoffs", "donut", "balance", "score_profile",
-           "checks")
+           "checks", "by_cutoff", "by_group")
 FIT_DIAGNOSTICS = {"bins", "sensitivity", "placebo_cutoffs", "donut", "score_profile"}
 
 
@@ -113,6 +113,9 @@ CHANGES = {
     "column: covariate": (("edit", "age"), {"balance"}),
     "column: score": (("edit", "reading_score"), ALL_BUT_DENSITY | {"density"}),
     "column: unused": (("edit", "free_lunch_unused"), set()),
+    # the power panel re-reads the main fit it has (no engine call); subgroups need `groups`
+    "effect": (("effect", 0.5), set()),
+    "groups": (("groups", "free_lunch"), {"by_group"}),
 }
 
 
@@ -198,6 +201,8 @@ def _expected(data, spec, options):
     if spec.get("covariates"):
         out["balance"] = design.balance(rule=rule, **{k: v for k, v in kw.items() if k not in (
             "outcome", "bandwidth", "pilot_bandwidth", "adjust")})
+    # the power panel's curve: Design.power_curve with the board's options (the board passes its main fit)
+    out["power"] = design.power_curve(**kw)
     if fit.first_stage is not None:
         out["first_stage"] = fit.first_stage
         out["first_stage_bins"] = design.bins(spec["takeup"], **{
@@ -264,3 +269,73 @@ def test_a_level_change_equals_the_interval_rebuilt_by_hand(scenario):
     half = (before.ci_below[1] - before.ci_below[0]) / 2
     np.testing.assert_allclose(after.ci_below, (centre - ratio * half, centre + ratio * half), **TIGHT)
     assert after.p_value == before.p_value and after.level == 0.8
+
+
+# ---- boards with several cutoffs and subgroups (seamline.notebook.designs_graph) -----------------
+# change -> (how to apply it, the calls it must make) on a board with cumulative cutoffs 30, 60 and
+# groups: the headline cutoff moves every single-cutoff panel and the subgroups (which are taken at
+# the headline cutoff) but never the cutoff-specific effects; the level and the effect compute nothing.
+SINGLE_PANELS = ALL_BUT_DENSITY | {"density"}
+DESIGNS_CHANGES = {
+    "level": (("level", 0.9), set()),
+    "effect": (("effect", 0.4), set()),
+    "headline_cutoff": (("headline_cutoff", 60.0), SINGLE_PANELS | {"by_group"}),
+    "bandwidth (manual)": (("bandwidth", 6.0), {"fit", *FIT_DIAGNOSTICS, "by_cutoff", "by_group"}),
+    "groups": (("groups", None), set()),
+    "column: outcome": (("edit", "investment"), ALL_BUT_DENSITY - {"balance"} | {"by_cutoff", "by_group"}),
+    "column: covariate": (("edit", "farm_size"), {"balance"}),
+}
+
+
+def _designs_board():
+    from seamline.demo_cutoffs import cumulative_grants_scenario
+    s = cumulative_grants_scenario(4000, seed=5)
+    data = s.data.copy()
+    b = seamline.board(data, score=s.score, cutoff=s.cutoff, outcome="investment", covariates=["farm_size"],
+                       groups="cooperative").wait()
+    return b, data
+
+
+@pytest.mark.parametrize("label", list(DESIGNS_CHANGES))
+def test_each_change_on_a_board_with_several_cutoffs_makes_exactly_its_engine_calls(label, calls):
+    b, data = _designs_board()
+    change, expected = DESIGNS_CHANGES[label]
+    calls.clear()
+    _apply(b, data, change)
+    b.wait()
+    made = {name for name, n in calls.items() if n} - {"fits", "selections"}
+    if not expected:
+        assert calls["fits"] == calls["selections"] == 0, "nothing may be fitted or selected"
+    assert made == expected, f"{label}: extra {made - expected}, missing {expected - made}"
+    assert calls["checks"] == 0
+
+
+def test_a_single_cutoff_board_never_runs_the_designs_nodes(scenario, calls):
+    s, data = scenario
+    b = _board(s, data)
+    assert calls["by_cutoff"] == calls["by_group"] == 0
+    assert isinstance(b.results["by_cutoff"], NotApplicable) and isinstance(b.results["subgroups"], NotApplicable)
+    graph = compute_graph(score="x", outcomes=["y"], outcome="y")
+    assert not graph.nodes & {"cutoff_effects", "group_effects"}
+
+
+def test_designs_panels_equal_the_direct_design_calls():
+    """Reference: Design.at / by_cutoff / by_group / power_curve / sample_size called directly."""
+    b, data = _designs_board()
+    b.set_option("effect", 0.4)
+    b.set_option("headline_cutoff", 60.0)
+    b.set_option("level", 0.9)
+    b.wait()
+    from seamline.demo_cutoffs import cumulative_grants_scenario
+    s = cumulative_grants_scenario(4000, seed=5)
+    design = Design(data, score=s.score, cutoff=list(s.cutoff), outcome="investment", covariates=["farm_size"])
+    at = design.at(60.0)
+    kw = dict(outcome="investment", level=0.9)
+    np.testing.assert_allclose(b.fit.robust_conf_int, at.fit(**kw).robust_conf_int, **TIGHT)
+    pd.testing.assert_frame_equal(b.results["by_cutoff"].table(), design.by_cutoff(**kw).table(), **TIGHT)
+    pd.testing.assert_frame_equal(b.results["subgroups"].table(), at.by_group("cooperative", **kw).table(), **TIGHT)
+    report = b.results["power"]
+    pd.testing.assert_frame_equal(report.table(), at.power_curve(**kw).table(), **TIGHT)
+    want = at.sample_size(0.4, power=0.8, **kw)
+    assert report.sample.n_total == want.n_total and report.sample.n_window == want.n_window
+    assert report.power.power == pytest.approx(at.power(0.4, **kw).power, rel=1e-12)

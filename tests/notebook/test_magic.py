@@ -106,8 +106,9 @@ def test_a_column_name_wins_over_a_variable_of_the_same_name(ns):
     (BASE + "cutoff: 41", r"^line 6: `cutoff` must be given once; got it again \(first on line 4\)"),
     (BASE + "kernel:", r"^line 6: `kernel` must have a value"),
     (BASE + "just words", r"^line 6: a setting must be written `key: value`"),
-    (BASE.replace("cutoff: 40", "cutoff: c0 + 1"), r"^line 4: `cutoff` must be a number or the name of a notebook "
-                                                   r"variable; got 'c0 \+ 1'. Expressions are not evaluated"),
+    (BASE.replace("cutoff: 40", "cutoff: c0 + 1"), r"^line 4: `cutoff` must be a number, a column name, increasing "
+                                                   r"numbers or the name of a notebook variable; got 'c0 \+ 1'. "
+                                                   r"Expressions are not evaluated"),
     (BASE.replace("cutoff: 40", "cutoff: c9"), r"^line 4: .*got 'c9', which is neither. Did you mean 'c0'\?"),
     (BASE.replace("cutoff: 40", "cutoff: text"), r"^line 4: `cutoff` \(from the notebook variable `text`\) must "
                                                  r"be a number; got 'forty'"),

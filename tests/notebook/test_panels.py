@@ -26,7 +26,9 @@ from seamline.notebook.board import Board  # noqa: E402
 from seamline.notebook.panels import BoardView, mimebundle  # noqa: E402
 
 PANEL_CLASSES = ["seamline-panel-estimate", "seamline-panel-bandwidths", "seamline-panel-balance",
-                 "seamline-panel-density", "seamline-panel-first-stage", "seamline-panel-placebos"]
+                 "seamline-panel-density", "seamline-panel-first-stage", "seamline-panel-placebos",
+                 # several cutoffs, subgroups, power (panels_designs): on every board, saying where they apply
+                 "seamline-panel-by-cutoff", "seamline-panel-subgroups", "seamline-panel-power"]
 HOSTILE = "<img src=x onerror=alert(1)>"
 
 
@@ -99,19 +101,20 @@ def _count_updates(view) -> dict[str, list]:
 # ---------------------------------------------------------------------------------------------
 # Structure and content
 # ---------------------------------------------------------------------------------------------
-def test_view_is_a_vbox_with_header_controls_and_six_tabs(shared_board):
+def test_view_is_a_vbox_with_header_controls_and_nine_tabs(shared_board):
     view = BoardView(shared_board)
     assert isinstance(view, widgets.VBox) and "seamline-board" in view._dom_classes
     assert list(view._tabs.titles) == ["Estimate", "Bandwidths", "Balance", "Density", "First stage",
-                                       "Placebos"]
+                                       "Placebos", "By cutoff", "Subgroups", "Power"]
     for css in PANEL_CLASSES:
         assert len(_with_class(view, css)) == 1, css
     for css in ("seamline-header-box", "seamline-controls", "seamline-progress", "seamline-tabs"):
         assert _with_class(view, css), css
-    assert len(_with_class(view, "seamline-export")) == 6
+    assert len(_with_class(view, "seamline-export")) == 9
     controls = {c for w in _walk(view._controls) for c in w._dom_classes if c.startswith("seamline-control-")}
     assert controls == {f"seamline-control-{n}" for n in (
-        "outcome", "bandwidth", "manual-bandwidth", "kernel", "degree", "variance", "donut", "level")}
+        "outcome", "bandwidth", "manual-bandwidth", "kernel", "degree", "variance", "donut", "level",
+        "effect", "headline-cutoff")}
 
 
 def test_header_shows_the_design_counts_and_headline(shared_board):
@@ -258,9 +261,10 @@ def test_panels_for_maps_results_to_panels(shared_board):
     assert view.panels_for({"density", "score_profile"}) == ["header", "density"]
     assert view.panels_for({"placebo"}) == ["header", "placebos"]
     assert view.panels_for({"first_stage_bins"}) == ["header", "first_stage"]
-    everything = ["header", "estimate", "bandwidths", "balance", "density", "first_stage", "placebos"]
+    everything = ["header", "estimate", "bandwidths", "balance", "density", "first_stage", "placebos",
+                  "by_cutoff", "subgroups", "power"]
     assert view.panels_for({"fit"}) == ["header", "estimate", "bandwidths", "density", "first_stage",
-                                        "placebos"]
+                                        "placebos", "by_cutoff"]
     assert view.panels_for(set()) == everything
     assert view.panels_for({"something new"}) == everything
 
@@ -419,9 +423,11 @@ def test_methods_paragraph_button(shared_board):
 # ---------------------------------------------------------------------------------------------
 def test_static_html_is_self_contained(shared_board):
     page = static.static_html(shared_board)
-    for css in ("estimate", "bandwidths", "balance", "density", "first-stage", "placebos"):
+    for css in ("estimate", "bandwidths", "balance", "density", "first-stage", "placebos", "by-cutoff",
+                "subgroups", "power"):
         assert f'class="seamline-static-{css}"' in page
-    assert page.count("<svg") == 6
+    # six single-cutoff charts and the power curve (by cutoff and subgroups do not apply here)
+    assert page.count("<svg") == 7
     assert "<script" not in page.lower() and "<style" not in page.lower()
     assert shared_board.fit._repr_html_() in page
     assert re.findall(r"(?:src|href)=\"(https?:[^\"]*)", page) == []

@@ -1,6 +1,7 @@
 """Power and sample size of the robust bias-corrected test, with the design as pilot data.
 
-The pilot is the design's fit with the given options (default: the default fit). Its robust
+The pilot is the design's fit with the given options (default: the default fit); each function
+also accepts that Fit itself in place of the design (a board passes the main fit it already has). Its robust
 standard error se_0 at n_0 usable observations is scaled to another total size n by
 se(n) = se_0 (n_0 / n)^gamma (seamline.core.power): "fixed-bandwidth" keeps the pilot's bandwidths
 (gamma = 1/2); "reselected-bandwidth" (default) assumes the bandwidths are re-selected at the new n
@@ -20,6 +21,7 @@ from ..core.power import (bandwidth_rate, power_of_test, required_n, scaled_std_
                           window_growth)
 from ..errors import InvalidEffectError, InvalidOptionError, shown
 from ..options import POWER_SCALINGS, check_level, check_option
+from ..results.fit import Fit
 from ..results.power import Power, PowerCurve, SampleSize
 
 CURVE_POINTS = 25
@@ -27,10 +29,11 @@ CURVE_TOP_POWER = 0.99      # the default curve runs from no effect to about thi
 FEW_IN_WINDOW = 20          # common practice: the normal approximation is poor with fewer per side
 
 
-def _plan(design, level, scaling, fit_options) -> dict:
+def _plan(pilot, level, scaling, fit_options) -> dict:
+    """The pilot's numbers; ``pilot`` is a Design (fitted with ``fit_options``) or its Fit already made."""
     level = check_level(level)
     scaling = check_option("scaling", scaling, POWER_SCALINGS)
-    fit = design.fit(**fit_options)
+    fit = pilot if isinstance(pilot, Fit) else pilot.fit(**fit_options)
     se0 = fit.robust_std_error
     if not (np.isfinite(se0) and se0 > 0):
         raise InvalidOptionError(f"the pilot fit's robust standard error must be positive; got {shown(se0)}. Check "

@@ -2,6 +2,7 @@
 chi-square test of equal effects across groups (precision weights, G - 1 degrees of freedom)."""
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 
 from ..errors import ColumnNotFoundError, CutoffChoiceError, InvalidOptionError, shown
@@ -43,7 +44,13 @@ def by_group(design, column: str, **fit_options) -> GroupEffects:
     def group_design(g):
         key = ("group", column, g)
         if key not in design._subsets:
-            design._subsets[key] = design._subset(values == g, design._declared["cutoff"])
+            rows = values == g
+            cutoff = design._declared["cutoff"]
+            if design.cutoff_layout == "column":
+                # a group inside one cutoff group (a district with its own threshold) is a single-cutoff design
+                own = np.unique(design._plan.per_row[rows & ~np.isnan(design._plan.per_row)])
+                cutoff = float(own[0]) if len(own) == 1 else cutoff
+            design._subsets[key] = design._subset(rows, cutoff)
         return design._subsets[key]
 
     rows = tuple(fit_row(g, lambda g=g: group_design(g), fit_options) for g in groups)

@@ -7,7 +7,7 @@ carries.
 """
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping
 from typing import Any
 
 from ..results.fit import CAUTION
@@ -226,7 +226,8 @@ _DIAGNOSTIC_WRITERS = {
 }
 
 
-def methods_paragraph(fit, *, diagnostics: Mapping[str, Any] | None = None, weights: str | None = None) -> str:
+def methods_paragraph(fit, *, diagnostics: Mapping[str, Any] | None = None, weights: str | None = None,
+                      extra: Iterable[str] = ()) -> str:
     """Describe a fit and its diagnostics in prose, with the numbers the tables show.
 
     Parameters
@@ -238,6 +239,8 @@ def methods_paragraph(fit, *, diagnostics: Mapping[str, Any] | None = None, weig
         "placebo" (Placebo), "donut" (Donut); each present result adds its sentence.
     weights : str, optional
         Name of the weights column, if the design is weighted (a Fit does not record it).
+    extra : sentences placed before the cautions (several cutoffs, subgroups, power:
+        ``seamline.export.methods_designs``)
 
     Returns
     -------
@@ -263,6 +266,7 @@ def methods_paragraph(fit, *, diagnostics: Mapping[str, Any] | None = None, weig
             sentence = writer(result)
             if sentence:
                 sentences.append(sentence)
+    sentences.extend(extra)
     sentences.append(CAUTION)
     if getattr(fit, "time_scale", None) is not None:
         sentences.append(TIME_CAUTION)

@@ -40,11 +40,18 @@ PANEL_CALLS: Mapping[str, str] = {
     "donut": "design.donut(outcome=OUTCOME, **without(OPTIONS, 'donut'))",
     "score_profile": "design.score_profile(outcome=OUTCOME, **OPTIONS)",
     "checks": "design.checks(outcome=OUTCOME, **OPTIONS)",
+    # several cutoffs, subgroups (at the headline cutoff) and power, as seamline.notebook.designs_graph
+    "by_cutoff": ("whole.by_cutoff(outcome=OUTCOME, **OPTIONS) if whole.cutoff_layout != 'single' "
+                  "else not_applicable(SINGLE_CUTOFF_REASON)"),
+    "subgroups": ("design.by_group(BOARD['groups'], outcome=OUTCOME, **OPTIONS) if BOARD['groups'] "
+                  "else not_applicable(NO_GROUPS_REASON)"),
+    "power": "power_plan(design)",
 }
 
 _DESIGN_KEYS = ("score", "cutoff", "treated", "outcome", "takeup", "covariates", "cluster", "weights")
 _OPTION_KEYS = ("bandwidth", "kernel", "degree", "bias_degree", "pilot_bandwidth", "variance", "level", "donut",
                 "derivative", "adjust")
+_BOARD_KEYS = ("groups", "effect", "headline_cutoff")     # seamline.notebook.designs_spec
 _PLACEHOLDER = "REPLACE/WITH/the_data_file.csv"
 
 
@@ -161,11 +168,18 @@ def replication_script(spec: Mapping[str, Any], options: Mapping[str, Any], pane
         name=name, version=version, today=today, data_path=repr(path_text), marker=marker,
         placeholder=repr(_PLACEHOLDER),
         design=_block("DESIGN", design, _DESIGN_KEYS), outcome=_literal(outcome, "outcome"),
+        board=_block("BOARD", {key: spec.get(key) for key in _BOARD_KEYS}, _BOARD_KEYS),
+        single_reason=repr(_reason("cutoff_effects")), groups_reason=repr(_reason("group_effects")),
         options=_block("OPTIONS", fit_options, _OPTION_KEYS), calls=calls or "    pass",
         sharp_reason=repr("Sharp design: treatment follows the side of the cutoff exactly, so there is no first "
                           "stage." if design["takeup"] is None else
                           "Take-up equals assignment on every usable row, so the design is sharp and has no first "
                           "stage."))
+
+
+def _reason(node: str) -> str:
+    from ..notebook.designs_graph import not_applicable
+    return not_applicable(node).reason
 
 
 def board_script(board: Any, path: str | os.PathLike[str] | None = None, *,
@@ -215,7 +229,11 @@ import seamline
 {design}
 OUTCOME = {outcome}
 {options}
+# the subgroup column, the effect the power panel plans for, the headline of cumulative cutoffs
+{board}
 SHARP_REASON = {sharp_reason}
+SINGLE_CUTOFF_REASON = {single_reason}
+NO_GROUPS_REASON = {groups_reason}
 
 
 def load_data(path):
@@ -251,9 +269,24 @@ def attempt(compute):
         return {{"error": f"{{type(exc).__name__}}: {{exc}}"}}
 
 
+def power_plan(design):
+    """The Power panel: the power curve, and for BOARD['effect'] the power and the 80% sample size."""
+    curve = design.power_curve(outcome=OUTCOME, **OPTIONS)
+    out = {{"curve": result_numbers(curve), "table": plain(curve.table())}}
+    effect = BOARD["effect"]
+    if effect is not None:
+        out["power"] = result_numbers(design.power(effect, outcome=OUTCOME, **OPTIONS))
+        out["sample_size"] = attempt(lambda: result_numbers(design.sample_size(effect, power=0.8, outcome=OUTCOME,
+                                                                               **OPTIONS)))
+    return out
+
+
 def rebuild(data):
     """Every panel of the board, computed as the board computes it."""
-    design = seamline.Design(data, **DESIGN)
+    whole = seamline.Design(data, **DESIGN)
+    # cumulative cutoffs: every single-cutoff panel reads the headline cutoff's design
+    headline = BOARD["headline_cutoff"] if BOARD["headline_cutoff"] is not None else whole.cutoffs[0]
+    design = whole.at(headline) if whole.cutoff_layout == "cumulative" else whole
     fit = design.fit(OUTCOME, **OPTIONS)
     results = {{"fit": fit}}
 {calls}
@@ -306,6 +339,12 @@ def result_numbers(result):
         if isinstance(value, scalar) or (
                 isinstance(value, tuple) and all(isinstance(v, (*scalar, dict)) for v in value)):
             out[field.name] = plain(value)
+        elif field.name == "pooled" and value is not None:        # several cutoffs: the pooled fit
+            out[field.name] = fit_numbers(value)
+        elif field.name in ("equality", "decomposition") and value is not None:
+            out[field.name] = result_numbers(value) if hasattr(value, "table") else {{
+                f.name: plain(getattr(value, f.name)) for f in dataclasses.fields(value)
+                if isinstance(getattr(value, f.name), scalar)}}
     out["title"] = result.title()
     out["table"] = plain(result.table())
     return out

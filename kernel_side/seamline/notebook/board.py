@@ -54,7 +54,8 @@ from ..estimate.options import resolve
 from .compute import NodeCache, balance_rule, compute_graph, panel_key
 from .exports import CHART_FORMATS, TABLE_FORMATS, export_result, methods_text
 from .reactive import PANELS, DataIdentity, column_node, fingerprints, shared_fingerprints
-from .spec import (DESIGN_KEYS, OPTION_DEFAULTS, REQUIRED_KEYS, SPEC_KEYS, NotApplicable,
+from .designs_spec import cutoff_column, cutoff_layout, cutoff_text
+from .spec import (BOARD_KEYS, DESIGN_KEYS, OPTION_DEFAULTS, REQUIRED_KEYS, SPEC_KEYS, NotApplicable,
                    coerce_value, lookup)
 from .spec import _EXAMPLE_COLUMN
 from . import scheduler
@@ -249,16 +250,16 @@ class Board(Scheduler):
         self._identity = DataIdentity(data)
 
         design = dict(design_kwargs)
-        unknown = sorted(set(design) - set(DESIGN_KEYS))
+        unknown = sorted(set(design) - set(DESIGN_KEYS) - set(BOARD_KEYS))
         if unknown:
             raise InvalidOptionError(f"`design_kwargs` must hold design keys only; got {shown(unknown)}. "
-                                     f"Use keys among {', '.join(DESIGN_KEYS)}.")
+                                     f"Use keys among {', '.join((*DESIGN_KEYS, *BOARD_KEYS))}.")
         for key in ("score", "cutoff", "outcome"):
             if key not in design:
                 raise InvalidOptionError(f"`{key}` must be declared; got nothing. Add it, e.g. "
                                          f"`{key}: {'40' if key == 'cutoff' else _EXAMPLE_COLUMN[key]}`.")
         spec: dict[str, Any] = {"treated": "above", "takeup": None, "covariates": (), "cluster": None,
-                                "weights": None}
+                                "weights": None, **dict.fromkeys(BOARD_KEYS)}
         for key, value in design.items():
             spec[key] = coerce_value(key, value, self._spec_variables.get(key))
         options = dict(fit_options or {})
@@ -326,7 +327,9 @@ class Board(Scheduler):
                            keys=keys)
         graph = compute_graph(score=spec["score"], outcomes=spec["outcome"], outcome=selected,
                               takeup=spec["takeup"], covariates=spec["covariates"], cluster=spec["cluster"],
-                              weights=spec["weights"], adjust=bool(options["adjust"]))
+                              weights=spec["weights"], adjust=bool(options["adjust"]),
+                              cutoff_layout=cutoff_layout(spec), cutoff_column=cutoff_column(spec),
+                              groups=spec["groups"])
         values: dict[str, Any] = {column_node(c): fp for c, fp in prints.items()}
         values.update(spec)
         values.update(options)
@@ -456,7 +459,7 @@ class Board(Scheduler):
     def __repr__(self) -> str:
         state = self.state()
         s = state.spec
-        head = f"<Board {self.name}: {s['score']} at {s['cutoff']:g}, outcome {state.options['outcome']}"
+        head = f"<Board {self.name}: {s['score']} at {cutoff_text(s['cutoff'])}, outcome {state.options['outcome']}"
         fit = state.results.get("fit")
         if fit is not None and not isinstance(fit, NotApplicable) and "fit" not in state.pending:
             lo, hi = fit.robust_conf_int
@@ -628,7 +631,7 @@ class Board(Scheduler):
             elif name in OPTION_DEFAULTS:
                 options[name] = coerce_value(name, value)
                 _validate_options(spec, selected, options)
-            elif name in DESIGN_KEYS:
+            elif name in DESIGN_KEYS or name in BOARD_KEYS:
                 spec[name] = coerce_value(name, value)
                 if selected not in (*spec["outcome"], *spec["covariates"]):
                     selected = spec["outcome"][0]
@@ -681,7 +684,9 @@ class Board(Scheduler):
         return {
             "name": self.name,
             "score": state.spec["score"],
-            "cutoff": state.spec["cutoff"],
+            # cumulative cutoffs as text ("30, 60"), which the front end shows as written
+            "cutoff": cutoff_text(state.spec["cutoff"]) if isinstance(state.spec["cutoff"], tuple)
+            else state.spec["cutoff"],
             "outcome": state.options["outcome"],
             "kind": None if fit is None else fit.kind,
             "estimate": None if fit is None else _json_float(fit.estimate),
@@ -716,7 +721,8 @@ class Board(Scheduler):
         Parameters
         ----------
         what : "estimate", "sensitivity", "balance", "density", "placebo", "donut", "bins",
-            "bandwidths", "first_stage", "methods", or "script": a standalone Python script that
+            "bandwidths", "first_stage", "by_cutoff", "decomposition" (a cutoff column), "subgroups",
+            "power" (the curve), "sample_size", "methods", or "script": a standalone Python script that
             rebuilds every number of the board from the data file ``data_path`` (CSV or Parquet;
             without it, a marked constant to edit), see ``seamline.export.script``
         fmt : tables: "latex" (booktabs), "markdown", "csv", "html", "text";
@@ -798,8 +804,9 @@ _MISSING = object()
 
 
 def _columns(spec: Mapping[str, Any]) -> tuple[str, ...]:
+    # a cutoff column and the groups column are read too (seamline.notebook.designs_spec)
     names = [spec["score"], *spec["outcome"], *(c for c in (spec["takeup"], spec["cluster"], spec["weights"]) if c),
-             *spec["covariates"]]
+             *spec["covariates"], *(c for c in (cutoff_column(spec), spec.get("groups")) if c)]
     return tuple(dict.fromkeys(names))
 
 
@@ -845,7 +852,8 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
           covariates=None, cluster: str | None = None, weights: str | None = None,
           bandwidth="mse", kernel: str = "triangular", degree: int = 1, bias_degree: int | None = None,
           pilot_bandwidth=None, variance: str = "neighbors", level: float = 0.95, donut: float = 0.0,
-          derivative: int = 0, adjust: bool = False, name: str | None = None, data_name: str | None = None,
+          derivative: int = 0, adjust: bool = False, groups: str | None = None, effect: float | None = None,
+          headline_cutoff: float | None = None, name: str | None = None, data_name: str | None = None,
           panels: Iterable[str] | None = None) -> Board:
     """Build a live board from Python (the same board a ``%%cutoff`` cell makes).
 
@@ -855,7 +863,11 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
         Never modified. In-place edits of the columns the board uses are picked up after each
         notebook cell (when running inside IPython).
     score, cutoff, outcome, treated, takeup, covariates, cluster, weights
-        The design, as for ``seamline.Design``.
+        The design, as for ``seamline.Design`` (``cutoff`` may name a column of per-unit cutoffs
+        or list increasing cumulative cutoffs).
+    groups, effect, headline_cutoff
+        A pre-treatment column for the subgroup panel, the effect the power panel plans for, and
+        the cumulative cutoff the headline shows (default the first).
     bandwidth, kernel, degree, bias_degree, pilot_bandwidth, variance, level, donut, derivative, adjust
         Fit options, as for ``Design.fit``.
     name : str, optional
@@ -889,7 +901,8 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
         raise InvalidOptionError(f"`data_name` must name the notebook variable holding `data`; got "
                                  f"{shown(data_name)}, which holds another object. Pass the variable's name.")
     design_kwargs = dict(score=score, cutoff=cutoff, outcome=outcome, treated=treated, takeup=takeup,
-                         covariates=covariates, cluster=cluster, weights=weights)
+                         covariates=covariates, cluster=cluster, weights=weights, groups=groups, effect=effect,
+                         headline_cutoff=headline_cutoff)
     fit_options = dict(bandwidth=bandwidth, kernel=kernel, degree=degree, bias_degree=bias_degree,
                        pilot_bandwidth=pilot_bandwidth, variance=variance, level=level, donut=donut,
                        derivative=derivative, adjust=adjust)

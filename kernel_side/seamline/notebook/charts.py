@@ -54,7 +54,8 @@ __all__ = [
 ]
 
 #: Export names that :func:`chart_for` understands.
-CHART_NAMES = ("estimate", "sensitivity", "balance", "density", "first_stage", "placebo", "donut")
+CHART_NAMES = ("estimate", "sensitivity", "balance", "density", "first_stage", "placebo", "donut",
+               "by_cutoff", "subgroups", "power")      # the last three: charts_designs
 
 WIDTH = 340    # plot area; with axes the chart is about 400 px, so two sit side by side
 HEIGHT = 210
@@ -783,6 +784,9 @@ def chart_for(board, what: str, *, configure: bool = True):
         return _usable(results, key, what, errors if isinstance(errors, Mapping) else None)
 
     fit = usable("fit")
+    if what in ("by_cutoff", "subgroups", "power"):
+        from .charts_designs import designs_chart
+        return designs_chart(results, what, usable, configure=configure)
     if what == "estimate":
         return estimate_chart(usable("bins"), fit, configure=configure)
     if what == "sensitivity":

@@ -43,6 +43,11 @@ checks                main_fit, density, checks_balance,              none: asse
                       score_profile
 ====================  ==============================================  ===============================
 
+Boards with several cutoffs, ``groups`` or an ``effect`` add the nodes of ``designs_graph``
+(cutoff_effects, group_effects, power; its docstring has their table) where they apply. On such
+boards *rows* also hold the cutoff column and ``headline_cutoff``, and every node above reads the
+headline design (``designs_graph.headline_design``).
+
 Panels (``PANEL_NODES``) read one node each and only re-report it: ``fit`` and ``first_stage``
 read ``main_fit``; ``first_stage_bins`` reads ``takeup_bins``; ``bandwidths`` reads
 ``selectors``; ``donut`` reads ``donut_ladder`` (a node name is never a source's name); the others read the node of their own name. Consequences: a level change
@@ -63,6 +68,7 @@ from typing import Any
 from ..errors import SeamlineError, shown
 from ..estimate.design import Design
 from ..results.diagnostics import Checks
+from . import designs_graph
 from .levels import REFERENCE_LEVEL, at_level
 from .reactive import DependencyGraph, PANELS, column_node
 from .spec import Failure, NotApplicable
@@ -72,13 +78,14 @@ __all__ = ["NODES", "PANEL_NODES", "Computation", "NodeCache", "assemble_checks"
 
 #: Intermediate results that call the engine (``design``, ``sample`` and ``selection`` group sources).
 NODES: tuple[str, ...] = ("main_fit", "selectors", "bins", "takeup_bins", "sensitivity", "placebo", "donut_ladder",
-                          "density", "balance", "checks_balance", "score_profile", "checks")
+                          "density", "balance", "checks_balance", "score_profile", "checks", *designs_graph.NODES)
 
 #: The node behind each panel.
 PANEL_NODES: Mapping[str, str] = {
     "fit": "main_fit", "first_stage": "main_fit", "bins": "bins", "first_stage_bins": "takeup_bins",
     "bandwidths": "selectors", "density": "density", "balance": "balance", "sensitivity": "sensitivity",
     "placebo": "placebo", "donut": "donut_ladder", "score_profile": "score_profile", "checks": "checks",
+    **designs_graph.PANEL_NODES,
 }
 
 _DESIGN_KEYS = ("score", "cutoff", "treated", "outcomes", "takeup", "covariates", "cluster", "weights")
@@ -87,7 +94,8 @@ _ESTIMATOR = ("kernel", "degree", "bias_degree", "variance", "derivative")
 
 def compute_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: str | None = None,
                   covariates: Iterable[str] = (), cluster: str | None = None, weights: str | None = None,
-                  adjust: bool = False) -> DependencyGraph:
+                  adjust: bool = False, cutoff_layout: str = "single", cutoff_column: str | None = None,
+                  groups: str | None = None) -> DependencyGraph:
     """The dependency graph of a board's intermediate results for its current declaration
     (the table in this module's docstring).
 
@@ -97,9 +105,9 @@ def compute_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: 
     """
     covariates = tuple(covariates)
     col = column_node
-    used = [score, *outcomes, *(c for c in (takeup, cluster, weights) if c), *covariates]
-    rows = [col(score), *(col(c) for c in (takeup, cluster, weights) if c),
-            "score", "cutoff", "treated", "takeup", "cluster", "weights"]
+    used = [score, *outcomes, *(c for c in (takeup, cluster, weights, cutoff_column) if c), *covariates]
+    rows = [col(score), *(col(c) for c in (takeup, cluster, weights, cutoff_column) if c),
+            "score", "cutoff", "treated", "takeup", "cluster", "weights", "headline_cutoff"]
     covs = [*(col(c) for c in covariates), "covariates"]
     without_donut = [*rows, col(outcome), "outcome", "adjust", *(covs if adjust else [])]
     parents = {
@@ -114,17 +122,23 @@ def compute_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: 
         # Placebo fits use one side's rows without take-up or covariate adjustment.
         "placebo": [*rows, col(outcome), "outcome", "donut", *_ESTIMATOR, "bandwidth", "pilot_bandwidth"],
         "donut_ladder": [*without_donut, *_ESTIMATOR, "bandwidth", "pilot_bandwidth"],
-        "density": [col(score), "score", "cutoff"],
+        "density": [col(score), "score", "cutoff", "headline_cutoff", *(col(c) for c in (cutoff_column,) if c)],
         "balance": [*rows, *covs, *_ESTIMATOR, "donut", "balance_rule"],
         "checks_balance": [*rows, *covs, *_ESTIMATOR, "donut", "pilot_bandwidth"],
-        "score_profile": [col(score), "score", "cutoff", "main_fit"],
+        "score_profile": [col(score), "score", "cutoff", "headline_cutoff",
+                          *(col(c) for c in (cutoff_column,) if c), "main_fit"],
         "checks": ["main_fit", "density", "checks_balance", "score_profile"],
     }
+    parents.update(designs_graph.parents(
+        layout=cutoff_layout, groups=groups, rows=rows,
+        outcome_inputs=[col(outcome), "outcome", "adjust", *(covs if adjust else [])], estimator=_ESTIMATOR))
     return DependencyGraph(parents)
 
 
 def node_key(graph: DependencyGraph, values: Mapping[str, Any], node: str) -> tuple:
     """The cache key of a node: the values of the sources it reads."""
+    if node not in graph.nodes:
+        return (node, "does not apply")     # a designs_graph node this board does not have
     if node == "checks_balance":
         # The checks read balance at the rule "mse" (with the pilot bandwidth, as Design.checks
         # does): without a pilot that is the balance panel's own entry under that rule.
@@ -251,6 +265,8 @@ class Computation:
                 return NotApplicable(sharp_reason(self.spec["takeup"]))
             return fit.first_stage
         value = self.node(PANEL_NODES[panel])
+        if panel in designs_graph.PANEL_NODES:
+            return designs_graph.at_level(self, panel, value, level)
         return value if isinstance(value, (Failure, NotApplicable)) else at_level(value, level)
 
     # ---- the engine calls ----------------------------------------------------------------------
@@ -266,8 +282,16 @@ class Computation:
             raise _Upstream(main)
         return main
 
+    def headline_design(self) -> Design:
+        """The design the single-cutoff nodes read (``designs_graph.headline_design``)."""
+        return designs_graph.headline_design(self.design, self.spec)
+
     def _compute(self, node: str) -> Any:
-        design, opts = self.design, self.options
+        if node in designs_graph.NODES:
+            if node not in self.graph.nodes:
+                return designs_graph.not_applicable(node)
+            return designs_graph.compute(self, node)
+        design, opts = self.headline_design(), self.options
         try:
             if node == "main_fit":
                 return design.fit(**self._kwargs())

@@ -16,6 +16,7 @@ import pandas as pd
 
 from ..errors import InvalidOptionError, shown
 from ..options import check_option
+from .exports_designs import DESIGNS_EXPORTS, designs_table
 from .spec import NotApplicable
 
 __all__ = ["CHART_FORMATS", "EXPORTS", "LABELS", "TABLE_FORMATS", "export_result", "methods_text"]
@@ -26,12 +27,14 @@ LABELS = {
     "balance": "covariate balance", "sensitivity": "bandwidth sensitivity",
     "placebo": "placebo cutoffs", "donut": "donut radii", "score_profile": "score profile",
     "checks": "design checks",
+    "by_cutoff": "effects by cutoff", "subgroups": "subgroup effects", "power": "power and sample size",
 }
 #: Export names -> result keys.
 EXPORTS: dict[str, str] = {
     "estimate": "fit", "first_stage": "first_stage", "bandwidths": "bandwidths",
     "sensitivity": "sensitivity", "balance": "balance", "density": "density", "placebo": "placebo",
     "donut": "donut", "bins": "bins", "score_profile": "score_profile", "checks": "checks",
+    **{name: key for name, (key, _) in DESIGNS_EXPORTS.items()},
 }
 TABLE_FORMATS = ("latex", "markdown", "csv", "html", "text")
 CHART_FORMATS = ("svg", "png")
@@ -47,7 +50,9 @@ def methods_text(fit, results: Mapping[str, Any], errors: Mapping[str, str], wei
     diagnostics = {k: v for k, v in results.items()
                    if k in ("density", "balance", "sensitivity", "placebo", "donut") and v is not None
                    and not isinstance(v, NotApplicable)}
-    return methods_paragraph(fit, diagnostics=diagnostics, weights=weights)
+    from ..export.methods_designs import designs_sentences
+    # several cutoffs, subgroups, power: no sentence where they do not apply
+    return methods_paragraph(fit, diagnostics=diagnostics, weights=weights, extra=designs_sentences(results))
 
 
 def export_result(state, what: str, fmt: str, path: str | Path | None, *, weights: str | None) -> str | bytes:
@@ -80,6 +85,9 @@ def export_result(state, what: str, fmt: str, path: str | Path | None, *, weight
         reason = str(result) if result is not None else state.errors.get(EXPORTS[what], "not computed")
         raise InvalidOptionError(f"`what` must name a panel with a current result; got {shown(what)}, which has "
                                  f"none: {reason}")
+    if what in DESIGNS_EXPORTS:
+        label = DESIGNS_EXPORTS[what][1]
+        return _write(_render_table(designs_table(what, result), fmt, title=f"{state.name}: {label}"), path)
     return _write(_render_table(result, fmt, title=f"{state.name}: {LABELS[EXPORTS[what]]}"), path)
 
 

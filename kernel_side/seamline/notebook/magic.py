@@ -31,14 +31,16 @@ __all__ = ["ParsedSpec", "cutoff", "load_ipython_extension", "parse_spec", "pars
 DESIGN_KEYS = ("score", "cutoff", "treated", "outcome", "takeup", "covariates", "cluster", "weights")
 OPTION_KEYS = ("bandwidth", "kernel", "degree", "bias_degree", "pilot_bandwidth", "variance", "level",
                "donut", "derivative", "adjust")
-KEYS = ("data", *DESIGN_KEYS, *OPTION_KEYS)
+BOARD_KEYS = ("groups", "effect", "headline_cutoff")      # see designs_spec
+KEYS = ("data", *DESIGN_KEYS, *BOARD_KEYS, *OPTION_KEYS)
 REQUIRED = ("data", "score", "cutoff", "outcome")
 _KIND = {
     "data": "data", "score": "column", "takeup": "column?", "cluster": "column?", "weights": "column?",
-    "outcome": "columns", "covariates": "columns?", "cutoff": "number", "level": "level",
+    "outcome": "columns", "covariates": "columns?", "cutoff": "cutoff", "level": "level",
     "donut": "number", "degree": "integer", "bias_degree": "integer?", "derivative": "integer",
     "treated": "choice", "kernel": "choice", "variance": "choice", "bandwidth": "bandwidth",
     "pilot_bandwidth": "bandwidth?", "adjust": "boolean",
+    "groups": "column?", "effect": "number?", "headline_cutoff": "number?",
 }
 _CHOICES = {"treated": SIDES, "kernel": KERNELS, "variance": VARIANCES}
 _EXAMPLES = {
@@ -47,6 +49,7 @@ _EXAMPLES = {
     "cluster": "school", "weights": "sample_weight", "bandwidth": "mse", "kernel": "triangular",
     "degree": "1", "bias_degree": "2", "pilot_bandwidth": "4.0", "variance": "neighbors",
     "level": "0.95", "donut": "0", "derivative": "0", "adjust": "false",
+    "groups": "region", "effect": "0.2", "headline_cutoff": "60",
 }
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*(\.[A-Za-z_][A-Za-z0-9_]*)*$")
 _INTEGER = re.compile(r"^[+-]?\d+$")
@@ -191,6 +194,35 @@ class _Resolver:
         raise _fail(line, f"`{key}` must name a column of the data; got {shown(text)}, which is not a column (nor a "
                           f"notebook variable). {hint}")
 
+    def cutoff(self, text: str, line: int):
+        """A number, a date, a column of per-unit cutoffs, increasing numbers (``30, 60`` or
+        ``[30, 60]``), or a notebook variable -- in that order. A quoted value is a date or a
+        column, never an expression."""
+        if looks_like_date(text):
+            return text.strip().strip("'\"")          # a cutoff date for a date score (seamline.time_score)
+        bracketed = text.strip().startswith("[") and text.strip().endswith("]")
+        items = _split_list(text.strip()[1:-1] if bracketed else text, line, "cutoff")
+        if len(items) > 1 or bracketed:
+            numbers = [None if quoted else _number(item) for item, quoted in items]
+            if any(n is None for n in numbers):
+                raise _fail(line, f"`cutoff` must list numbers when it lists several cutoffs; got {text!r}. "
+                                  "Write e.g. `cutoff: 30, 60` (cumulative cutoffs on one score), or name one "
+                                  "column of per-unit cutoffs.")
+            return numbers
+        (item, quoted), = items
+        if quoted:
+            if looks_like_date(item) or (self.columns is not None and item in self.columns):
+                return item
+            hint = _closest(item, self.columns or []) or "Quote only a column name or a date."
+            raise _fail(line, f"`cutoff` in quotes must name a column of the data (per-unit cutoffs) or a date; "
+                              f"got {text.strip()!r}, which is neither. {hint}")
+        number = _number(item)
+        if number is not None:
+            return number
+        if self.columns is not None and item in self.columns:
+            return item
+        return self.variable("cutoff", item, line, "a number, a column name, increasing numbers")
+
     def resolve(self, key: str, text: str, line: int) -> Any:
         kind = _KIND[key]
         lowered = text.strip().lower()
@@ -207,8 +239,8 @@ class _Resolver:
             if len(items) == 1:
                 return self.column(key, items[0][0], items[0][1], line, single=True)
             return [self.column(key, item, quoted, line, single=False) for item, quoted in items]
-        if key == "cutoff" and looks_like_date(text):
-            return text.strip().strip("'\"")          # a cutoff date for a date score (seamline.time_score)
+        if kind == "cutoff":
+            return self.cutoff(text, line)
         if kind in ("number", "level"):
             number = _number(text[:-1] if kind == "level" and text.endswith("%") else text)
             if number is not None:
@@ -249,7 +281,7 @@ class _Resolver:
         raise AssertionError(kind)   # _KIND and this dispatch must agree
 
 
-_COLUMN_KEYS = ("score", "outcome", "takeup", "covariates", "cluster", "weights")
+_COLUMN_KEYS = ("score", "outcome", "takeup", "covariates", "cluster", "weights", "groups")
 
 
 def _closest(text: str, candidates) -> str:
@@ -322,7 +354,7 @@ def parse_spec(body: str, namespace: dict[str, Any], *, name: str = "board", fir
             value = coerce_value(key, value, resolver.variables.get(key))
         except ValueError as exc:
             raise _fail(line, str(exc)) from None
-        (design if key in DESIGN_KEYS else options)[key] = value
+        (design if key in DESIGN_KEYS or key in BOARD_KEYS else options)[key] = value
         lines[key] = line
     clash = [v for v in resolver.variables.values() if v.split(".")[0] == name]
     if clash:
@@ -373,7 +405,8 @@ def cutoff(line: str, cell: str, *, shell=None):
         %%cutoff tutoring
         data: pupils            # a DataFrame in the notebook
         score: reading_score    # the running variable
-        cutoff: 40              # a number, or the name of a notebook variable
+        cutoff: 40              # a number, a column of per-unit cutoffs, increasing numbers
+                                # (30, 60: cumulative cutoffs), or a notebook variable
         treated: below          # side assigned the treatment (default above)
         outcome: math_gain, attendance
         takeup: attended        # optional: treatment actually received -> fuzzy design
@@ -386,6 +419,9 @@ def cutoff(line: str, cell: str, *, shell=None):
         variance: neighbors     # neighbors | hc0 | hc1 | hc2 | hc3
         level: 0.95
         donut: 0
+        groups: region          # optional: subgroup effects by a pre-treatment column
+        effect: 0.2             # optional: the effect the power panel plans for
+        headline_cutoff: 60     # cumulative cutoffs: the one the headline shows (default the first)
 
     Also: bias_degree, pilot_bandwidth, derivative (1 for a kink design), adjust (true to adjust
     for the covariates). The cell binds NAME to the board (``NAME.fit``, ``NAME.results``,

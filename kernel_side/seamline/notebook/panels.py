@@ -33,7 +33,8 @@ from typing import Any
 import ipywidgets as widgets
 import pandas as pd
 
-from . import charts, static
+from . import charts, panels_designs, static
+from .controls_designs import DesignsControls
 from .static import PANEL_EXPORTS, PANEL_RESULTS, PANELS, error_html, header_html, panel_html
 
 __all__ = ["BoardView", "mimebundle"]
@@ -140,6 +141,7 @@ def _outcomes(state) -> tuple[str, ...]:
 TAB_CHARTS: dict[str, tuple[str, ...]] = {
     "estimate": ("estimate",), "bandwidths": ("sensitivity",), "balance": ("balance",),
     "density": ("density",), "first_stage": ("first_stage",), "placebos": ("placebo", "donut"),
+    **panels_designs.TAB_CHARTS,
 }
 
 
@@ -297,9 +299,10 @@ class BoardView(widgets.VBox):
         self._rule.add_class("seamline-control-bandwidth")
         self._manual.observe(self._manual_changed, names="value")
         self._manual.add_class("seamline-control-manual-bandwidth")
+        self._designs = DesignsControls(self)         # effect (power) and headline cutoff
         box = widgets.Box(
             [self._outcome, self._rule, self._manual, self._kernel, self._degree, self._variance,
-             self._donut, self._level],
+             self._donut, self._level, *self._designs.widgets],
             layout=widgets.Layout(display="flex", flex_flow="row wrap",
                                   border_top="1px solid #e0e0e0", padding="6px 0 4px 0"))
         box.add_class("seamline-controls")
@@ -376,6 +379,7 @@ class BoardView(widgets.VBox):
             level = opts.get("level")
             if level is not None:
                 self._set_choice(self._level, _LEVELS, float(level), f"{100 * float(level):g}%")
+            self._designs.sync(state)
         finally:
             self._syncing = False
 

@@ -42,7 +42,9 @@ __all__ = [
 
 #: The result panels of a board, in the order they are computed (the headline first).
 PANELS: tuple[str, ...] = ("fit", "first_stage", "bins", "first_stage_bins", "bandwidths", "density",
-                           "balance", "sensitivity", "placebo", "donut", "score_profile", "checks")
+                           "balance", "sensitivity", "placebo", "donut", "score_profile",
+                           "by_cutoff", "subgroups", "power",     # designs_graph
+                           "checks")
 
 #: Fit options a board passes to the engine (``level`` only re-reports a fit).
 FIT_OPTIONS: tuple[str, ...] = ("bandwidth", "kernel", "degree", "bias_degree", "pilot_bandwidth",
@@ -428,5 +430,10 @@ def board_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: st
         panel_node("score_profile"): [col(score), "score", "cutoff", "main_fit"],
         # The checks summary gathers every diagnostic: it reads everything but the data's identity.
         panel_node("checks"): [*(col(c) for c in design_columns), *DESIGN_SOURCES, "main_fit", "level"],
+        # several cutoffs, subgroups (at the headline cutoff), power from the main fit (designs_graph)
+        panel_node("by_cutoff"): [*sample, *estimator, "bandwidth", "pilot_bandwidth", "level"],
+        panel_node("subgroups"): [*sample, "groups", "headline_cutoff", *estimator, "bandwidth", "pilot_bandwidth",
+                                  "level"],
+        panel_node("power"): ["main_fit", "effect", "level"],
     }
     return DependencyGraph(parents)

@@ -22,12 +22,16 @@ from ..time_score import is_time_value, looks_like_date
 from ..errors import InvalidOptionError, shown
 from ..options import BANDWIDTH_RULES, KERNELS, SIDES, VARIANCES, check_option
 
-__all__ = ["DESIGN_KEYS", "OPTION_DEFAULTS", "REQUIRED_KEYS", "SPEC_KEYS", "Failure", "NotApplicable",
+__all__ = ["BOARD_KEYS", "DESIGN_KEYS", "OPTION_DEFAULTS", "REQUIRED_KEYS", "SPEC_KEYS", "Failure", "NotApplicable",
            "coerce_value", "lookup"]
 
 #: Keys of the design declaration (names and numbers given to ``seamline.Design``).
 DESIGN_KEYS: tuple[str, ...] = ("score", "cutoff", "treated", "outcome", "takeup", "covariates",
                                 "cluster", "weights")
+#: Keys of the board that are neither given to ``seamline.Design`` nor fit options: the subgroup
+#: column, the effect for power and sample size, and the headline cutoff of cumulative cutoffs
+#: (see ``designs_spec``).
+BOARD_KEYS: tuple[str, ...] = ("groups", "effect", "headline_cutoff")
 #: Fit options and their defaults (the engine's defaults).
 OPTION_DEFAULTS: dict[str, Any] = {
     "bandwidth": "mse", "kernel": "triangular", "degree": 1, "bias_degree": None,
@@ -35,7 +39,7 @@ OPTION_DEFAULTS: dict[str, Any] = {
     "derivative": 0, "adjust": False,
 }
 #: Every key a declaration may hold.
-SPEC_KEYS: tuple[str, ...] = ("data", *DESIGN_KEYS, *OPTION_DEFAULTS)
+SPEC_KEYS: tuple[str, ...] = ("data", *DESIGN_KEYS, *BOARD_KEYS, *OPTION_DEFAULTS)
 #: Keys a declaration must hold.
 REQUIRED_KEYS: tuple[str, ...] = ("data", "score", "cutoff", "outcome")
 
@@ -151,6 +155,11 @@ def coerce_value(key: str, value: Any, variable: str | None = None) -> Any:
     """
     if key == "cutoff" and (looks_like_date(value) or is_time_value(value)):
         return value      # a cutoff date: checked against the score by seamline.Design
+    if key == "cutoff" or key in BOARD_KEYS:
+        from .designs_spec import coerce_designs_value
+        done, value = coerce_designs_value(key, value, variable)   # several cutoffs, groups, effect
+        if done:
+            return value
     if key in ("cutoff", "level", "donut"):
         number = _as_float(key, value, variable, {"cutoff": "40", "level": "0.95", "donut": "0.5"}[key])
         if key == "level" and not 0 < number < 1:

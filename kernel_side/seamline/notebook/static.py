@@ -22,7 +22,7 @@ import pandas as pd
 
 from ..errors import shown
 from ..results.base import CAUTION
-from . import charts
+from . import charts, panels_designs
 
 __all__ = [
     "PANELS",
@@ -43,6 +43,7 @@ PANELS: tuple[tuple[str, str], ...] = (
     ("density", "Density"),
     ("first_stage", "First stage"),
     ("placebos", "Placebos"),
+    *panels_designs.TABS,           # by cutoff, subgroups, power
 )
 
 #: Which board results each panel shows (a change to one of them re-renders the panel).
@@ -54,6 +55,7 @@ PANEL_RESULTS: Mapping[str, tuple[str, ...]] = {
     "density": ("fit", "density", "score_profile"),
     "first_stage": ("fit", "first_stage", "first_stage_bins"),
     "placebos": ("fit", "placebo", "donut"),
+    **panels_designs.RESULTS,
 }
 
 #: The export name behind each panel's table and chart buttons.
@@ -64,12 +66,14 @@ PANEL_EXPORTS: Mapping[str, tuple[str, ...]] = {
     "density": ("density",),
     "first_stage": ("first_stage",),
     "placebos": ("placebo", "donut"),
+    **panels_designs.EXPORTS,
 }
 
 #: The board result behind each export name.
 EXPORT_RESULTS: Mapping[str, str] = {
     "estimate": "fit", "sensitivity": "sensitivity", "balance": "balance", "density": "density",
     "first_stage": "first_stage", "placebo": "placebo", "donut": "donut",
+    **panels_designs.EXPORT_RESULTS,
 }
 
 _esc = html.escape
@@ -132,7 +136,8 @@ def _fit(board):
 def export_available(board, what: str) -> bool:
     """Whether the board has a current result to export under ``what``."""
     key = EXPORT_RESULTS.get(what, what)
-    return charts.not_applicable_reason(_results(board).get(key)) is None
+    value = _results(board).get(key)
+    return charts.not_applicable_reason(value) is None and panels_designs.has_table(value, what)
 
 
 def error_html(message: str, *, title: str = "This panel could not be computed") -> str:
@@ -182,7 +187,7 @@ def _chart_inputs(board, what: str) -> tuple:
     keys = {"estimate": ("fit", "bins"), "sensitivity": ("fit", "sensitivity", "bandwidths"),
             "balance": ("balance",), "density": ("fit", "density"),
             "first_stage": ("fit", "first_stage", "first_stage_bins"),
-            "placebo": ("fit", "placebo"), "donut": ("fit", "donut")}[what]
+            "placebo": ("fit", "placebo"), "donut": ("fit", "donut"), **panels_designs.CHART_INPUTS}[what]
     return tuple(results.get(k) for k in keys)
 
 
@@ -331,6 +336,7 @@ def header_html(board) -> str:
         f"<code>{_esc(fit.outcome)}</code> at <code>{_esc(fit.score)}</code> = "
         f"{_esc(charts._short(fit.cutoff))} (treated side: {_esc(fit.treated)}, "
         f"comparison side: {untreated}) &middot; <span class=\"seamline-status\">{status}</span></div>")
+    parts.append(panels_designs.header_note(board))     # several cutoffs: which one the headline is
     lo, hi = fit.robust_conf_int
     level = f"{100 * fit.level:g}%"
     stale_fit = "fit" in _pending(board)
@@ -394,7 +400,8 @@ _EXPLAIN = {
 
 
 def _explain(panel: str) -> str:
-    return f'<div class="seamline-note" style="{_NOTE}">{_esc(_EXPLAIN[panel])}</div>'
+    text = _EXPLAIN[panel] if panel in _EXPLAIN else panels_designs.EXPLAIN[panel]
+    return f'<div class="seamline-note" style="{_NOTE}">{_esc(text)}</div>'
 
 
 def _result_block(board, key: str, what: str | None, *, extra_tables: Iterable[Any] = ()) -> str:
@@ -529,6 +536,7 @@ def _panel_html(board, panel: str) -> str:
             "density": _density_panel,
             "first_stage": _first_stage_panel,
             "placebos": _placebos_panel,
+            **panels_designs.BODIES,
         }[panel](board)
         errors = [m for m in _panel_errors(board, panel)
                   if _esc(m) not in body]  # result-level errors are already shown in the body
