@@ -119,7 +119,7 @@ def _close_boards():
     ("level", np.float64(1.5), "got 1.5"),
     ("level", np.float32(0.0), "got 0.0"),
     ("cutoff", np.float64(np.inf), "got inf"),
-    ("cutoff", np.array([1.0, 2.0]), "got [1.0, 2.0]"),
+    ("cutoff", np.array([1.0, np.nan]), "got [1.0, nan]"),   # a list of cutoffs must hold numbers
     ("degree", np.float64(1.5), "got 1.5"),
     ("bias_degree", np.float64(2.5), "got 2.5"),
     ("bandwidth", np.array([1.0, 2.0, 3.0]), "got [1.0, 2.0, 3.0]"),

@@ -28,6 +28,7 @@ from collections.abc import Iterable, Mapping
 from dataclasses import replace
 from typing import Any
 
+from ..errors import shown
 from ..estimate.design import Design
 from ..results.designs import CutoffEffects, EffectRow, GroupEffects
 from .designs_spec import headline_of
@@ -83,7 +84,7 @@ def compute(comp, node: str) -> Any:
         if isinstance(fit, Failure):
             return Failure(f"needs the main fit, which failed: {fit.message}", detail=fit.detail, ours=fit.ours)
         return power_report(fit, comp.spec["effect"], REFERENCE_LEVEL)
-    raise AssertionError(f"unknown node {node!r}")   # NODES and this dispatch must agree
+    raise AssertionError(f"unknown node {shown(node)}")   # NODES and this dispatch must agree
 
 
 def _rows_at(rows: tuple[EffectRow, ...], level: float) -> tuple[EffectRow, ...]:

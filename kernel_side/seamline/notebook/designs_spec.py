@@ -17,7 +17,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..errors import InvalidOptionError
+from ..errors import InvalidOptionError, shown
 from ..time_score import looks_like_date
 
 __all__ = ["coerce_designs_value", "cutoff_column", "cutoff_layout", "cutoff_text", "headline_of"]
@@ -35,7 +35,7 @@ def _cutoffs(value: Any, variable: str | None) -> tuple[float, ...] | float:
     values = list(np.ravel(np.asarray(value, dtype=object)))
     if not values or not all(_real(v) for v in values):
         raise InvalidOptionError(f"{_where('cutoff', variable)} must be a number, a column name or increasing "
-                                 f"numbers; got {value!r}. Use e.g. `cutoff: 30, 60`.")
+                                 f"numbers; got {shown(value)}. Use e.g. `cutoff: 30, 60`.")
     numbers = tuple(float(v) for v in values)
     if len(numbers) == 1:
         return numbers[0]
@@ -72,7 +72,7 @@ def coerce_designs_value(key: str, value: Any, variable: str | None = None) -> t
         if isinstance(value, str) and value.strip():
             return True, value.strip()
         raise InvalidOptionError(f"{_where(key, variable)} must name a pre-treatment column of the data; got "
-                                 f"{value!r}. Use e.g. `groups: region`.")
+                                 f"{shown(value)}. Use e.g. `groups: region`.")
     if value is None:
         return True, None
     if isinstance(value, np.ndarray) and value.ndim == 0:
@@ -81,7 +81,7 @@ def coerce_designs_value(key: str, value: Any, variable: str | None = None) -> t
         example = "0.2" if key == "effect" else "60"
         what = ("a finite number in the outcome's units (the effect to plan for)" if key == "effect"
                 else "one of the cumulative cutoffs")
-        raise InvalidOptionError(f"{_where(key, variable)} must be {what}; got {value!r}. Use e.g. "
+        raise InvalidOptionError(f"{_where(key, variable)} must be {what}; got {shown(value)}. Use e.g. "
                                  f"`{key}: {example}`, or leave the key out.")
     return True, float(value)
 

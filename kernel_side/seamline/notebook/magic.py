@@ -205,7 +205,7 @@ class _Resolver:
         if len(items) > 1 or bracketed:
             numbers = [None if quoted else _number(item) for item, quoted in items]
             if any(n is None for n in numbers):
-                raise _fail(line, f"`cutoff` must list numbers when it lists several cutoffs; got {text!r}. "
+                raise _fail(line, f"`cutoff` must list numbers when it lists several cutoffs; got {shown(text)}. "
                                   "Write e.g. `cutoff: 30, 60` (cumulative cutoffs on one score), or name one "
                                   "column of per-unit cutoffs.")
             return numbers
@@ -215,7 +215,7 @@ class _Resolver:
                 return item
             hint = _closest(item, self.columns or []) or "Quote only a column name or a date."
             raise _fail(line, f"`cutoff` in quotes must name a column of the data (per-unit cutoffs) or a date; "
-                              f"got {text.strip()!r}, which is neither. {hint}")
+                              f"got {shown(text.strip())}, which is neither. {hint}")
         number = _number(item)
         if number is not None:
             return number
