@@ -137,6 +137,9 @@ def _sorted_quantile(x_sorted: np.ndarray, q: float) -> float:
     return float(x_sorted[lo] + (pos - lo) * (x_sorted[hi] - x_sorted[lo]))
 
 
+DONUT_PREPARATIONS = 12     # donut preparations kept per design (two ladders of six radii)
+
+
 @dataclass
 class Prepared:
     """Both sides ready for estimation, for one set of variables and one donut radius."""
@@ -225,6 +228,7 @@ class DesignData:
                                         f"[{lo:g}, {hi:g}]; got {shown(cutoff)}. Check the cutoff and its units.")
         self.cutoff = float(cutoff)
         self._cache: dict[tuple, Prepared] = {}
+        self._donuts: list[tuple] = []            # keys of donut preparations, oldest first
         self._sorted: dict[tuple, tuple[np.ndarray, int]] = {}
         self._order: np.ndarray | None = None     # the one sort of the score (``_score_order``)
         self._spreads: dict[int, tuple] = {}      # score spread per sorted row set (keyed by identity)
@@ -249,6 +253,7 @@ class DesignData:
         out.n_rows = int(only.sum())
         out._only, out._parent = only, self
         out._cache, out._sorted, out._order, out._spreads, out._ordered, out._spans = {}, {}, None, {}, None, {}
+        out._donuts = []
         return out
 
     def prepare(self, variables: tuple[str, ...], donut: float = 0.0, neighbors: int = 3) -> Prepared:
@@ -257,7 +262,16 @@ class DesignData:
             base = self._cache.get((variables, 0.0, neighbors)) if donut > 0 else None
             self._cache[key] = (self._prepare(variables, float(donut), neighbors) if base is None
                                 else self._with_donut(base, float(donut)))
+            if donut > 0:
+                self._forget_donuts(key)
         return self._cache[key]
+
+    def _forget_donuts(self, newest: tuple) -> None:
+        """Keep the DONUT_PREPARATIONS most recent donut preparations: a donut ladder's radii follow
+        the bandwidth, so a slider would otherwise keep one full preparation per radius it passed."""
+        self._donuts = [k for k in self._donuts if k != newest and k in self._cache] + [newest]
+        while len(self._donuts) > DONUT_PREPARATIONS:
+            self._cache.pop(self._donuts.pop(0), None)
 
     def sorted_rows(self, variables: tuple[str, ...] = ()) -> tuple[np.ndarray, int]:
         """Rows usable for ``variables`` in ascending score order, and the rows dropped as missing.

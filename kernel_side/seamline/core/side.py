@@ -45,6 +45,7 @@ class Side:
         self.n = len(distance)
         self.moments = SideMoments(distance)
         self._nn: np.ndarray | None = None
+        self._nn_base: tuple[Side, int] | None = None    # (side, start) this one is the tail of
         self._group_starts: np.ndarray | None = None
 
     def without_nearest(self, start: int, values: np.ndarray | None = None) -> "Side":
@@ -59,10 +60,13 @@ class Side:
         """
         if values is None:
             values = self.values[start:] + self.offsets
-        return Side(self.sign, self.distance[start:], values,
+        tail = Side(self.sign, self.distance[start:], values,
                     None if self.weights is None else self.weights[start:],
                     None if self.clusters is None else self.clusters[start:], self.neighbors,
                     None if self.rows is None else self.rows[start:])
+        if start > 0:
+            tail._nn_base = (self, start)
+        return tail
 
     # ---- per-row series, each a function of a row slice -------------------------------------
     def w(self, rows: slice) -> np.ndarray:
@@ -71,8 +75,41 @@ class Side:
     def nn_residuals(self) -> np.ndarray:
         """(n, k) scaled nearest-neighbour residuals; neighbours are searched over the whole side."""
         if self._nn is None:
-            self._nn, _ = neighbor_residuals(self.distance, self.values, self.neighbors)
+            self._nn = self._tail_residuals()
+            if self._nn is None:
+                self._nn, _ = neighbor_residuals(self.distance, self.values, self.neighbors)
         return self._nn
+
+    def _tail_residuals(self) -> np.ndarray | None:
+        """A donut side's residuals from those of the side it is the tail of, when those exist.
+
+        Neighbours of an observation lie within J groups of ties of it (seamline.core.neighbors),
+        so beyond the tail's first J groups they are the same observations as on the full side,
+        and so are the residuals (up to rounding: each side centres its values on its own mean).
+        The first J groups are computed afresh on the tail's first 2J groups, with the tie
+        tolerance of the whole tail. None: compute the whole side directly.
+        """
+        if self._nn_base is None or self.n < 2:
+            return None
+        base, start = self._nn_base
+        if base._nn is None:
+            return None
+        j, d = self.neighbors, self.distance
+        tol = 1e-12 * max(d[-1] - d[0], np.finfo(float).tiny)   # neighbor_residuals' default
+        head = min(self.n, 64 * (j + 1))
+        while True:                                 # enough rows to hold 2J groups (or the side)
+            starts = np.flatnonzero(np.r_[True, np.diff(d[:head]) > tol])
+            if len(starts) > 2 * j or head == self.n:
+                break
+            head = min(self.n, 4 * head)
+        if len(starts) <= 2 * j:
+            return None                             # a side of few groups: compute it whole
+        cut, stop = int(starts[j]), int(starts[2 * j])
+        first, _ = neighbor_residuals(d[:stop], self.values[:stop], j, tol=tol)
+        out = np.empty_like(self.values)
+        out[:cut] = first[:cut]
+        out[cut:] = base._nn[start + cut:]
+        return out
 
     def series(self, kind: str, a: int = -1, b: int = -1):
         """(key, function of rows) for the series the moment engine sums."""

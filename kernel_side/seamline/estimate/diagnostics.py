@@ -329,41 +329,21 @@ def sensitivity(design, bandwidths=None, kernels=None, degrees=None, **fit_optio
 # ---------------------------------------------------------------------------------------------
 def placebo_cutoffs(design, cutoffs=None, **fit_options) -> Placebo:
     """Estimates at fake cutoffs using only the observations on one side of the true cutoff."""
-    from .design import Design
     outcome = design._outcome(fit_options.pop("outcome", None))
     fit_options.pop("adjust", None)
-    x = _clean_score(design)
-    side_scores = {"below": x[x < design.cutoff], "above": x[x >= design.cutoff]}
-    if cutoffs is None:
-        requested = []
-        for part in side_scores.values():
-            # one selection for all quantiles (the same values as one call per quantile)
-            requested += [float(v) for v in np.quantile(part, PLACEBO_QUANTILES)] if len(part) else []
-        user = False
-    else:
-        requested = [float(c) for c in np.atleast_1d(cutoffs)]
-        user = True
+    user = cutoffs is not None
+    ladder = _placebo_ladder(design, None if cutoffs is None else [float(c) for c in np.atleast_1d(cutoffs)])
     rows, fits, skipped = [], [], []
-    for c in requested:
-        if c == design.cutoff:
-            raise InvalidOptionError(f"`cutoffs` must differ from the true cutoff {design.cutoff:g}; got {c:g}. "
-                                     "Placebo cutoffs lie strictly on one side.")
-        side = "above" if c > design.cutoff else "below"
-        score = side_scores[side]
-        n_left, n_right = int(np.sum(score < c)), int(np.sum(score >= c))
+    for c, side, n_left, n_right, (lo, hi) in ladder:
         if min(n_left, n_right) < MIN_PLACEBO_SIDE:
             msg = (f"placebo cutoff {c:g} leaves {n_left} and {n_right} observations on its two sides within the "
                    f"{side} side (at least {MIN_PLACEBO_SIDE} each are needed)")
             if user:
-                lo, hi = (score.min(), score.max())
                 raise OneSidedDataError(f"`cutoffs` must leave at least {MIN_PLACEBO_SIDE} observations on each side "
                                         f"of a placebo; got {msg}. Choose a value well inside [{lo:g}, {hi:g}].")
             skipped.append(msg)
             continue
-        # One side of the design's own validated data, sharing its arrays and its sorted order: a
-        # placebo cutoff costs no copy of the data and no sort (DesignData.one_side).
-        sub = Design(design._data.one_side(side, c), score=design.score, cutoff=c, outcome=outcome,
-                     treated=design.treated, cluster=design.cluster, weights=design.weights)
+        sub = _placebo_design(design, side, c, outcome)
         try:
             f = sub.fit(**fit_options)
         except SeamlineError as exc:
@@ -380,6 +360,54 @@ def placebo_cutoffs(design, cutoffs=None, **fit_options) -> Placebo:
                         "the outcome may jump away from the cutoff too, or the specification is too rigid.")
     return Placebo(rows=tuple(rows), outcome=outcome, skipped=tuple(skipped), fits=tuple(fits),
                    warnings=tuple(warnings))
+
+
+def _placebo_ladder(design, requested: list[float] | None) -> list[tuple]:
+    """(cutoff, side, observations left and right of it within the side, the side's score range)
+    for each placebo cutoff: the requested ones, or by default the quantiles PLACEBO_QUANTILES of
+    each side's scores. Read off the design's sorted score; the default ladder is kept on the
+    design (it depends on the score alone, not on any fit option)."""
+    if requested is None and ("ladder",) in design._placebos:
+        return design._placebos[("ladder",)]
+    xs = _sorted_score(design)
+    split = int(np.searchsorted(xs, design.cutoff, side="left"))
+    side_scores = {"below": xs[:split], "above": xs[split:]}
+    default = requested is None
+    if default:
+        # numpy's quantiles of each side (sorting does not change them)
+        requested = [float(v) for part in side_scores.values() if len(part)
+                     for v in np.quantile(part, PLACEBO_QUANTILES)]
+    ladder = []
+    for c in requested:
+        if c == design.cutoff:
+            raise InvalidOptionError(f"`cutoffs` must differ from the true cutoff {design.cutoff:g}; got {c:g}. "
+                                     "Placebo cutoffs lie strictly on one side.")
+        side = "above" if c > design.cutoff else "below"
+        score = side_scores[side]
+        n_left = int(np.searchsorted(score, c, side="left"))
+        span = (float(score[0]), float(score[-1])) if len(score) else (float("nan"), float("nan"))
+        ladder.append((c, side, n_left, len(score) - n_left, span))
+    if default:
+        design._placebos[("ladder",)] = ladder
+    return ladder
+
+
+def _placebo_design(design, side: str, c: float, outcome: str):
+    """The design of one placebo cutoff, kept on ``design`` (``Design._placebos``) for the next call.
+
+    It is one side of the design's own validated data, sharing its arrays and its sorted order
+    (``DesignData.one_side``: no copy, no sort). Kept, it keeps its prepared sides, their moment
+    tables, neighbour residuals and bandwidth selections, so the next ladder at another bandwidth
+    (a board's slider) costs the placebo fits only, not their preparation.
+    """
+    from .design import Design
+    key = (side, float(c), outcome)
+    sub = design._placebos.get(key)
+    if sub is None:
+        sub = design._placebos[key] = Design(design._data.one_side(side, c), score=design.score, cutoff=c,
+                                             outcome=outcome, treated=design.treated, cluster=design.cluster,
+                                             weights=design.weights)
+    return sub
 
 
 def donut(design, radii=None, **fit_options) -> Donut:
@@ -419,8 +447,14 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
     level = fit_options.get("level", 0.95)
     if ok.all():
         ok = slice(None)        # views, not copies (read only: the user's data is never modified)
-    binned = binned_means(x[ok], y[ok], design.cutoff, method=method, number=number, rule=rule, scale=scale,
-                          weights=None if w is None else w[ok], level=level, order=_sorted_positions(data, ok))
+    # The binned means read the score, the outcome and the bin options only: kept on the design, so
+    # bins at another bandwidth (a board's slider) redraw the fitted curves and nothing else.
+    key = ("binned_means", outcome, method, _frozen_value(number), rule, float(scale), float(level))
+    binned = design._diagnostics.get(key)
+    if binned is None:
+        binned = design._diagnostics[key] = binned_means(
+            x[ok], y[ok], design.cutoff, method=method, number=number, rule=rule, scale=scale,
+            weights=None if w is None else w[ok], level=level, order=_sorted_positions(data, ok))
     fit = design.fit(outcome, **fit_options)
     spec = design._spec(outcome, **_spec_options(fit, fit_options))
     engine, _, _, _ = design._engine(spec)
@@ -483,28 +517,24 @@ def _global_polynomial(x, y, cutoff, degree, points: int = 60) -> pd.DataFrame:
 # ---------------------------------------------------------------------------------------------
 def score_profile(design, **fit_options) -> ScoreProfile:
     """Distinct values and mass points of the score per side, overall and inside the bandwidth."""
-    xs = _sorted_score(design)
-    x = xs - design.cutoff                       # ascending
+    census = _score_census(design)
     try:
         h = design.fit(**fit_options).bandwidth
     except SeamlineError:
         h = (float("nan"), float("nan"))
+    x, split = census["x"], census["split"]
     rows = []
-    split = int(np.searchsorted(x, 0.0, side="left"))
-    # distances from the cutoff, each side monotone, so equal values sit next to each other
-    for side, part, bw in (("below", -x[:split], h[0]), ("above", x[split:], h[1])):
-        for scope, values in (("all", part), ("window", part[part <= bw] if np.isfinite(bw) else part[:0])):
-            counts = _run_lengths(values)
-            mass = counts >= 2
-            rows.append({"side": side, "scope": scope, "observations": int(len(values)),
-                         "distinct_values": int(len(counts)), "mass_points": int(mass.sum()),
-                         "share_at_mass_points": float(counts[mass].sum() / len(values)) if len(values) else 0.0,
-                         "largest_mass": int(counts.max()) if len(counts) else 0})
-    score = _clean_score(design)
-    uniq = xs[np.r_[True, xs[1:] != xs[:-1]]] if len(xs) else xs    # sorted distinct values
-    gaps = np.diff(uniq)
-    resolution = float(gaps[gaps > 0].min()) if np.any(gaps > 0) else 0.0
-    heaping, warnings = _heaping(score, uniq, resolution)
+    # distances from the cutoff, each side monotone, so equal values sit next to each other; the
+    # window of each side is a run of them, found by one search (bisection, not a pass over the side)
+    for side, bw, every in (("below", h[0], census["below"]), ("above", h[1], census["above"])):
+        if not np.isfinite(bw):
+            values = x[:0]
+        elif side == "below":
+            values = -x[int(np.searchsorted(x[:split], -bw, side="left")):split]
+        else:
+            values = x[split:split + int(np.searchsorted(x[split:], bw, side="right"))]
+        rows += [every, _run_row(side, "window", values)]
+    heaping, warnings = census["heaping"], list(census["warnings"])
     window = [r for r in rows if r["scope"] == "window"]
     few = [f"{r['side']} ({r['distinct_values']})" for r in window if r["distinct_values"] < 10]
     if few:
@@ -512,8 +542,38 @@ def score_profile(design, **fit_options) -> ScoreProfile:
                         "the fit extrapolates between mass points: widen the window if the design allows, report "
                         "the mass points, and prefer bias-aware inference for discrete scores (planned). Clustering "
                         "by score value is sometimes used but does not protect coverage (Kolesar & Rothe 2018).")
-    return ScoreProfile(rows=tuple(rows), score=design.score, bandwidth=h, resolution=resolution,
+    return ScoreProfile(rows=tuple(rows), score=design.score, bandwidth=h, resolution=census["resolution"],
                         heaping=tuple(heaping), warnings=tuple(warnings))
+
+
+def _run_row(side: str, scope: str, values: np.ndarray) -> dict:
+    counts = _run_lengths(values)
+    mass = counts >= 2
+    return {"side": side, "scope": scope, "observations": int(len(values)),
+            "distinct_values": int(len(counts)), "mass_points": int(mass.sum()),
+            "share_at_mass_points": float(counts[mass].sum() / len(values)) if len(values) else 0.0,
+            "largest_mass": int(counts.max()) if len(counts) else 0}
+
+
+def _score_census(design) -> dict:
+    """What the score profile reads from the score alone (no fit option): the sorted centred score,
+    each side's overall row, the resolution and the heaping check; kept on the design, so a
+    profile at another bandwidth only counts inside the new window."""
+    found = design._diagnostics.get(("score_census",))
+    if found is not None:
+        return found
+    xs = _sorted_score(design)
+    x = xs - design.cutoff                       # ascending
+    split = int(np.searchsorted(x, 0.0, side="left"))
+    uniq = xs[np.r_[True, xs[1:] != xs[:-1]]] if len(xs) else xs    # sorted distinct values
+    gaps = np.diff(uniq)
+    resolution = float(gaps[gaps > 0].min()) if np.any(gaps > 0) else 0.0
+    heaping, warnings = _heaping(_clean_score(design), uniq, resolution)
+    census = {"x": x, "split": split, "below": _run_row("below", "all", -x[:split]),
+              "above": _run_row("above", "all", x[split:]), "resolution": resolution,
+              "heaping": tuple(heaping), "warnings": tuple(warnings)}
+    design._diagnostics[("score_census",)] = census
+    return census
 
 
 def _sorted_score(design) -> np.ndarray:
