@@ -21,13 +21,13 @@ from ..errors import (InvalidOptionError, OneSidedDataError, SeamlineError, TooF
 from ..options import BIN_METHODS, BIN_RULES, DENSITY_METHODS, check_level, check_option
 from ..results.diagnostics import (Balance, Bins, Checks, DensityTest, Donut, Placebo, ScoreProfile,
                                    Sensitivity, fit_row, holm)
+from .check_rows import ALPHA, check_rows
 from .engine import JumpEngine
 
 SCALE_GRID = (0.5, 0.75, 1.0, 1.25, 1.5, 2.0)          # common practice (METHODS 13.4)
 PLACEBO_QUANTILES = (0.2, 0.4, 0.6, 0.8)                # convention (METHODS 13.2)
 DONUT_FRACTIONS = (0.0, 0.05, 0.1, 0.15, 0.2, 0.25)     # convention: radii as shares of the bandwidth
 MIN_PLACEBO_SIDE = 20                                   # convention: observations needed on each side
-ALPHA = 0.05
 REFERENCE_LEVEL = 0.95      # density tests are computed at this level and re-reported at others
 
 
@@ -559,9 +559,13 @@ def _score_census(design) -> dict:
     """What the score profile reads from the score alone (no fit option): the sorted centred score,
     each side's overall row, the resolution and the heaping check; kept on the design, so a
     profile at another bandwidth only counts inside the new window."""
-    found = design._diagnostics.get(("score_census",))
-    if found is not None:
-        return found
+    census = design._diagnostics.get(("score_census",))
+    if census is None:
+        census = design._diagnostics[("score_census",)] = _census(design)
+    return census
+
+
+def _census(design) -> dict:
     xs = _sorted_score(design)
     x = xs - design.cutoff                       # ascending
     split = int(np.searchsorted(x, 0.0, side="left"))
@@ -569,11 +573,9 @@ def _score_census(design) -> dict:
     gaps = np.diff(uniq)
     resolution = float(gaps[gaps > 0].min()) if np.any(gaps > 0) else 0.0
     heaping, warnings = _heaping(_clean_score(design), uniq, resolution)
-    census = {"x": x, "split": split, "below": _run_row("below", "all", -x[:split]),
-              "above": _run_row("above", "all", x[split:]), "resolution": resolution,
-              "heaping": tuple(heaping), "warnings": tuple(warnings)}
-    design._diagnostics[("score_census",)] = census
-    return census
+    return {"x": x, "split": split, "below": _run_row("below", "all", -x[:split]),
+            "above": _run_row("above", "all", x[split:]), "resolution": resolution,
+            "heaping": tuple(heaping), "warnings": tuple(warnings)}
 
 
 def _sorted_score(design) -> np.ndarray:
@@ -614,55 +616,18 @@ def _heaping(score: np.ndarray, uniq: np.ndarray, resolution: float) -> tuple[li
 
 # ---------------------------------------------------------------------------------------------
 def checks(design, **fit_options) -> Checks:
-    """Gather the flags a careful analyst would raise, each with its evidence (or why it is missing)."""
-    rows, warnings = [], []
-
-    def add(check, status, detail):
-        rows.append({"check": check, "status": status, "detail": detail})
-        if status == "flag":
-            warnings.append(f"{check}: {detail}")
-
-    fit = None
-    try:
-        fit = design.fit(**fit_options)
-    except SeamlineError as exc:
-        add("main estimate", "error", str(exc))
-    try:
-        dens = design.density_test()        # cached on the design: a board's Density panel shares it
-        add("manipulation (density test)", "flag" if dens.p_value < ALPHA else "ok",
-            f"p = {dens.p_value:.3f} ({dens.method}); density {dens.density_below:.4g} below, "
-            f"{dens.density_above:.4g} above")
-    except SeamlineError as exc:
-        add("manipulation (density test)", "error", str(exc))
-    if design.covariates:
+    """Gather the flags a careful analyst would raise, each with its evidence (or why it is missing).
+    The fit, density test, balance and score profile come from the design's caches (a board's
+    panels share them); the rows are built by ``estimate.check_rows``."""
+    def attempt(compute):
         try:
-            bal = design.balance(**{k: v for k, v in fit_options.items() if k != "bandwidth"})
-            worst = min(r["p_value_holm"] for r in bal.rows)
-            status = "flag" if (worst < ALPHA or bal.joint_p_value < ALPHA) else "ok"
-            detail = f"smallest Holm p = {worst:.3f}; joint p = {bal.joint_p_value:.3f}"
-            if status == "flag" and fit_options.get("adjust"):
-                detail += "; covariate adjustment does not repair imbalance"
-            add("covariate balance", status, detail)
+            return compute()
         except SeamlineError as exc:
-            add("covariate balance", "error", str(exc))
-    else:
-        add("covariate balance", "not applicable", "no covariates declared")
-    if fit is not None:
-        if fit.first_stage_f is not None:
-            add("first stage strength", "flag" if fit.first_stage_f < 10 else "ok",
-                f"F = {fit.first_stage_f:.1f} (common practice: F < 10 is weak)")
-        else:
-            add("first stage strength", "not applicable", "sharp design")
-        few = min(fit.n_used)
-        add("observations in the window", "flag" if few < 20 else "ok",
-            f"{fit.n_used[0]} below, {fit.n_used[1]} above")
-    try:
-        prof = design.score_profile(**fit_options)
-        discrete = [w for w in prof.warnings if w.startswith("Few distinct")]
-        heaped = [w for w in prof.warnings if w.startswith("Heaping")]
-        add("discrete score", "flag" if discrete else "ok",
-            discrete[0] if discrete else "enough distinct score values in the window")
-        add("heaping at round values", "flag" if heaped else "ok", heaped[0] if heaped else "no heaping detected")
-    except SeamlineError as exc:
-        add("score profile", "error", str(exc))
-    return Checks(rows=tuple(rows), warnings=tuple(warnings))
+            return str(exc)
+
+    fit = attempt(lambda: design.fit(**fit_options))
+    density = attempt(design.density_test)
+    balance = attempt(lambda: design.balance(**{k: v for k, v in fit_options.items() if k != "bandwidth"})) \
+        if design.covariates else None
+    profile = attempt(lambda: design.score_profile(**fit_options))
+    return check_rows(fit, density, balance, profile, adjust=bool(fit_options.get("adjust")))

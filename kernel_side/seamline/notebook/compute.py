@@ -61,6 +61,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from ..errors import SeamlineError
+from ..estimate.check_rows import check_rows
 from ..estimate.design import Design
 from ..results.diagnostics import Checks
 from .levels import REFERENCE_LEVEL, at_level
@@ -328,9 +329,6 @@ def sharp_reason(takeup: str | None) -> str:
             "Declare `takeup: <column>` for a fuzzy design.")
 
 
-_ALPHA = 0.05
-
-
 def _raise_if_foreign(value: Any) -> None:
     # Design.checks lets anything but a seamline input error propagate: so does the assembly.
     if isinstance(value, Failure) and not value.ours:
@@ -339,8 +337,8 @@ def _raise_if_foreign(value: Any) -> None:
 
 def assemble_checks(fit: Any, density: Any, balance: Any, profile: Any, *, adjust: bool) -> Checks:
     """The design checks summary from results already computed: the rows ``Design.checks`` gives
-    for the same options, without running the fit, the density test, balance or the score profile
-    again.
+    for the same options (both build them with ``estimate.check_rows``), without running the fit,
+    the density test, balance or the score profile again.
 
     Parameters
     ----------
@@ -354,50 +352,12 @@ def assemble_checks(fit: Any, density: Any, balance: Any, profile: Any, *, adjus
     """
     for value in (fit, density, balance, profile):
         _raise_if_foreign(value)
-    rows, warnings = [], []
 
-    def add(check, status, detail):
-        rows.append({"check": check, "status": status, "detail": detail})
-        if status == "flag":
-            warnings.append(f"{check}: {detail}")
+    def given(value: Any) -> Any:      # a Failure becomes the error text Design.checks shows
+        return (value.detail or value.message) if isinstance(value, Failure) else value
 
-    if isinstance(fit, Failure):
-        add("main estimate", "error", fit.detail)
-        fit = None
-    if isinstance(density, Failure):
-        add("manipulation (density test)", "error", density.detail)
-    else:
-        add("manipulation (density test)", "flag" if density.p_value < _ALPHA else "ok",
-            f"p = {density.p_value:.3f} ({density.method}); density {density.density_below:.4g} below, "
-            f"{density.density_above:.4g} above")
-    if isinstance(balance, NotApplicable):
-        add("covariate balance", "not applicable", "no covariates declared")
-    elif isinstance(balance, Failure):
-        add("covariate balance", "error", balance.detail)
-    else:
-        worst = min(r["p_value_holm"] for r in balance.rows)
-        status = "flag" if (worst < _ALPHA or balance.joint_p_value < _ALPHA) else "ok"
-        detail = f"smallest Holm p = {worst:.3f}; joint p = {balance.joint_p_value:.3f}"
-        if status == "flag" and adjust:
-            detail += "; covariate adjustment does not repair imbalance"
-        add("covariate balance", status, detail)
-    if fit is not None:
-        if fit.first_stage_f is not None:
-            add("first stage strength", "flag" if fit.first_stage_f < 10 else "ok",
-                f"F = {fit.first_stage_f:.1f} (common practice: F < 10 is weak)")
-        else:
-            add("first stage strength", "not applicable", "sharp design")
-        few = min(fit.n_used)
-        add("observations in the window", "flag" if few < 20 else "ok", f"{fit.n_used[0]} below, {fit.n_used[1]} above")
-    if isinstance(profile, Failure):
-        add("score profile", "error", profile.detail)
-    else:
-        discrete = [w for w in profile.warnings if w.startswith("Few distinct")]
-        heaped = [w for w in profile.warnings if w.startswith("Heaping")]
-        add("discrete score", "flag" if discrete else "ok",
-            discrete[0] if discrete else "enough distinct score values in the window")
-        add("heaping at round values", "flag" if heaped else "ok", heaped[0] if heaped else "no heaping detected")
-    return Checks(rows=tuple(rows), warnings=tuple(warnings))
+    return check_rows(given(fit), given(density), None if isinstance(balance, NotApplicable) else given(balance),
+                      given(profile), adjust=adjust)
 
 
 def panel_order(wanted: Iterable[str], panels: Iterable[str]) -> list[str]:
