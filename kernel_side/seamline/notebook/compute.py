@@ -39,9 +39,19 @@ checks_balance        as balance with the rule "mse" and the pilot    ``Design.b
                       bandwidth (what Design.checks reads; shares
                       balance's entry when both coincide)
 score_profile         the score column, score, cutoff, main_fit       ``Design.score_profile``
-checks                main_fit, density, checks_balance,              none: assembled from the nodes
-                      score_profile
+checks                main_fit, density, checks_balance,              none: the nodes' results, rows
+                      score_profile                                   by ``estimate.check_rows``
 ====================  ==============================================  ===============================
+
+Inside the engine calls, the parts that read no fit option are kept on the Design (so they outlive
+the node keys above): ``Design.bins`` keeps its binned means per outcome and bin options (a new
+bandwidth redraws the fitted curves only); ``Design.score_profile`` keeps the score's census
+(overall counts, resolution, heaping; a new bandwidth counts inside the new window only);
+``Design.placebo_cutoffs`` keeps the ladder of placebo cutoffs and each cutoff's design with its
+prepared sides, moment tables, neighbour residuals and selections (a new bandwidth costs the
+placebo fits only); a donut side takes its neighbour residuals from the full side's beyond its
+first J groups of ties. ``tests/notebook/test_live_graph.py`` (``PART_CHANGES``) counts them per
+change.
 
 Panels (``PANEL_NODES``) read one node each and only re-report it: ``fit`` and ``first_stage``
 read ``main_fit``; ``first_stage_bins`` reads ``takeup_bins``; ``bandwidths`` reads
