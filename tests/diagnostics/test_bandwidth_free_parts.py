@@ -71,7 +71,7 @@ def test_the_kept_parts_are_computed_once(monkeypatch):
     for h in (0.2, 0.3, 0.4):
         d.bins(bandwidth=h), d.score_profile(bandwidth=h), d.placebo_cutoffs(bandwidth=h)
     assert counts["binned"] == 1 and counts["census"] == 1
-    assert len(made) == 3 * 8 and len(d._placebos) == 8 + 1     # eight designs and the ladder, kept
+    assert len(made) == 3 * 8 and len(d._placebos) == 8         # the eight designs, kept
     d.bins(level=0.9)                                  # another level: its own binned means
     assert counts["binned"] == 2
 
@@ -98,3 +98,22 @@ def test_donut_preparations_are_bounded():
         d.fit(bandwidth=0.5, donut=0.001 * (k + 1))
     donuts = [key for key in d._data._cache if key[1] > 0]
     assert len(donuts) == seamline.data.DONUT_PREPARATIONS
+
+
+@pytest.mark.parametrize("decimals", [None, 2])
+def test_placebo_fits_equal_fits_on_the_side_rows(decimals):
+    # the placebo sides take their neighbour residuals from the design's own sides: the result is
+    # the fit of a design holding only that side's rows (a fact of the trade: a placebo cutoff
+    # uses one side's observations)
+    data = frame(decimals=decimals)
+    d = design(data)
+    d.fit()                                            # the design's sides and residuals exist first
+    result = d.placebo_cutoffs(bandwidth=0.2)
+    for row, got in zip(result.rows, result.fits):
+        rows = data[data.x >= 0] if row["side"] == "above" else data[data.x < 0]
+        want = seamline.Design(rows, score="x", cutoff=row["cutoff"], outcome="y").fit(
+            bandwidth=0.2, pilot_bandwidth=got.pilot_bandwidth)
+        np.testing.assert_allclose(got.estimate, want.estimate, **TIGHT)
+        np.testing.assert_allclose([got.std_error, got.robust_std_error], [want.std_error, want.robust_std_error],
+                                   **TIGHT)
+        assert got.n_used == want.n_used

@@ -45,7 +45,7 @@ class Side:
         self.n = len(distance)
         self.moments = SideMoments(distance)
         self._nn: np.ndarray | None = None
-        self._nn_base: tuple[Side, int] | None = None    # (side, start) this one is the tail of
+        self._nn_base: tuple[Side, int, bool] | None = None   # what this side is cut from (cut_from)
         self._group_starts: np.ndarray | None = None
 
     def without_nearest(self, start: int, values: np.ndarray | None = None) -> "Side":
@@ -65,8 +65,14 @@ class Side:
                     None if self.clusters is None else self.clusters[start:], self.neighbors,
                     None if self.rows is None else self.rows[start:])
         if start > 0:
-            tail._nn_base = (self, start)
+            tail.cut_from(self, start, reversed_=False)
         return tail
+
+    def cut_from(self, base: "Side", start: int, reversed_: bool) -> None:
+        """Declare this side a run of ``base``'s observations, so it can take its neighbour
+        residuals from base's: row i is base row ``start + i`` (a tail, to base's far end), or,
+        reversed, base row ``start - 1 - i`` (base's first ``start`` rows in reverse order)."""
+        self._nn_base = (base, start, reversed_)
 
     # ---- per-row series, each a function of a row slice -------------------------------------
     def w(self, rows: slice) -> np.ndarray:
@@ -81,18 +87,20 @@ class Side:
         return self._nn
 
     def _tail_residuals(self) -> np.ndarray | None:
-        """A donut side's residuals from those of the side it is the tail of, when those exist.
+        """Residuals from those of the side this one is cut from (a donut's tail, a placebo
+        cutoff's side), when those exist.
 
         Neighbours of an observation lie within J groups of ties of it (seamline.core.neighbors),
-        so beyond the tail's first J groups they are the same observations as on the full side,
+        so beyond this side's first J groups they are the same observations as on the base side
+        (whose run ends where this side ends: at base's far end, or reversed, at its first row),
         and so are the residuals (up to rounding: each side centres its values on its own mean).
-        The first J groups are computed afresh on the tail's first 2J groups, with the tie
-        tolerance of the whole tail. None: compute the whole side directly.
+        The first J groups are computed afresh on this side's first 2J groups, with the tie
+        tolerance of the whole side. None: compute the whole side directly.
         """
         if self._nn_base is None or self.n < 2:
             return None
-        base, start = self._nn_base
-        if base._nn is None:
+        base, start, reversed_ = self._nn_base
+        if base._nn is None or self.values.shape[1] != base.values.shape[1]:
             return None
         j, d = self.neighbors, self.distance
         tol = 1e-12 * max(d[-1] - d[0], np.finfo(float).tiny)   # neighbor_residuals' default
@@ -108,7 +116,7 @@ class Side:
         first, _ = neighbor_residuals(d[:stop], self.values[:stop], j, tol=tol)
         out = np.empty_like(self.values)
         out[:cut] = first[:cut]
-        out[cut:] = base._nn[start + cut:]
+        out[cut:] = base._nn[:start - cut][::-1] if reversed_ else base._nn[start + cut:]
         return out
 
     def series(self, kind: str, a: int = -1, b: int = -1):

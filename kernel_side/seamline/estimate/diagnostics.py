@@ -367,8 +367,8 @@ def _placebo_ladder(design, requested: list[float] | None) -> list[tuple]:
     for each placebo cutoff: the requested ones, or by default the quantiles PLACEBO_QUANTILES of
     each side's scores. Read off the design's sorted score; the default ladder is kept on the
     design (it depends on the score alone, not on any fit option)."""
-    if requested is None and ("ladder",) in design._placebos:
-        return design._placebos[("ladder",)]
+    if requested is None and ("placebo ladder",) in design._diagnostics:
+        return design._diagnostics[("placebo ladder",)]
     xs = _sorted_score(design)
     split = int(np.searchsorted(xs, design.cutoff, side="left"))
     side_scores = {"below": xs[:split], "above": xs[split:]}
@@ -388,7 +388,7 @@ def _placebo_ladder(design, requested: list[float] | None) -> list[tuple]:
         span = (float(score[0]), float(score[-1])) if len(score) else (float("nan"), float("nan"))
         ladder.append((c, side, n_left, len(score) - n_left, span))
     if default:
-        design._placebos[("ladder",)] = ladder
+        design._diagnostics[("placebo ladder",)] = ladder
     return ladder
 
 
