@@ -15,7 +15,7 @@ import pandas as pd
 import pytest
 
 import seamline
-from seamline.estimate import diagnostics
+from seamline.estimate import diagnostics, score_profile
 
 TIGHT = dict(rtol=1e-11, atol=1e-13)   # neighbour residuals of a donut side round differently
 
@@ -54,7 +54,7 @@ def test_a_second_bandwidth_equals_a_fresh_design(name, decimals):
 
 def test_the_kept_parts_are_computed_once(monkeypatch):
     counts = {"binned": 0, "census": 0, "placebo designs": 0}
-    real_binned, real_census, real_placebo = diagnostics.binned_means, diagnostics._census, diagnostics._placebo_design
+    real_binned, real_census, real_placebo = diagnostics.binned_means, score_profile._census, diagnostics._placebo_design
 
     def count(key, real):
         def counted(*args, **kwargs):
@@ -63,7 +63,7 @@ def test_the_kept_parts_are_computed_once(monkeypatch):
         return counted
 
     monkeypatch.setattr(diagnostics, "binned_means", count("binned", real_binned))
-    monkeypatch.setattr(diagnostics, "_census", count("census", real_census))
+    monkeypatch.setattr(score_profile, "_census", count("census", real_census))
     d = design(frame())
     made = []
     monkeypatch.setattr(diagnostics, "_placebo_design",

@@ -21,7 +21,7 @@ import seamline
 from seamline.data import DesignData
 from seamline.demo_data import sharp_scenario
 from seamline.estimate import design as design_module
-from seamline.estimate import diagnostics
+from seamline.estimate import diagnostics, score_profile
 from seamline.estimate.design import Design
 from seamline.notebook.board import boards
 from seamline.notebook.compute import compute_graph
@@ -85,7 +85,7 @@ def calls(monkeypatch):
     wrap(diagnostics, "density_test", "density", False)
     # the parts of diagnostics that read no fit option, kept on the Design (every real computation)
     wrap(diagnostics, "binned_means", "binned means", False)
-    wrap(diagnostics, "_census", "score census", False)
+    wrap(score_profile, "_census", "score census", False)
     wrap(DesignData, "one_side", "placebo designs", False)
     return counts
 

@@ -55,8 +55,9 @@ class Side:
         still sorted. ``values``: the remaining rows' variables, uncentred, as a fresh array (the new
         side centres them on its own mean); by default they are rebuilt from this side's centred
         values and offsets, which equals reading them afresh up to rounding in the last digit.
-        The result equals a Side prepared from scratch on the remaining rows; moment tables and
-        neighbour residuals are rebuilt for it on demand (both depend on which rows remain).
+        The result equals a Side prepared from scratch on the remaining rows; its moment tables
+        are rebuilt on demand (they depend on which rows remain), its neighbour residuals are
+        this side's beyond the first J groups of ties (``cut_from``).
         """
         if values is None:
             values = self.values[start:] + self.offsets
