@@ -15,6 +15,7 @@ import pandas as pd
 import pytest
 
 import seamline
+from seamline.core.side import Side
 from seamline.estimate import diagnostics, score_profile
 
 TIGHT = dict(rtol=1e-11, atol=1e-13)   # neighbour residuals of a donut side round differently
@@ -117,3 +118,19 @@ def test_placebo_fits_equal_fits_on_the_side_rows(decimals):
         np.testing.assert_allclose([got.std_error, got.robust_std_error], [want.std_error, want.robust_std_error],
                                    **TIGHT)
         assert got.n_used == want.n_used
+
+
+@pytest.mark.parametrize("decimals", [None, 2])
+def test_donut_and_placebo_sides_hold_the_values_a_gather_gives(decimals):
+    # their values are sliced from the variables in the sorted order: bit for bit the rows' values
+    data = frame(decimals=decimals)
+    d = design(data)
+    prepared = d._data
+    for source in (prepared, prepared.one_side("above", 0.4), prepared.one_side("below", -0.3)):
+        source.prepare(("y",))
+        for radius in (0.0, 0.02, 0.1):
+            got = source.prepare(("y",), radius)
+            for side in (got.below, got.above):
+                gathered = Side(side.sign, side.distance, data["y"].to_numpy()[side.rows][:, None].copy())
+                np.testing.assert_array_equal(side.values, gathered.values)
+                np.testing.assert_array_equal(side.offsets, gathered.offsets)
