@@ -137,6 +137,9 @@ def _sorted_quantile(x_sorted: np.ndarray, q: float) -> float:
     return float(x_sorted[lo] + (pos - lo) * (x_sorted[hi] - x_sorted[lo]))
 
 
+DONUT_PREPARATIONS = 6      # donut preparations kept per design (one ladder's five radii and one more)
+
+
 @dataclass
 class Prepared:
     """Both sides ready for estimation, for one set of variables and one donut radius."""
@@ -225,6 +228,7 @@ class DesignData:
                                         f"[{lo:g}, {hi:g}]; got {shown(cutoff)}. Check the cutoff and its units.")
         self.cutoff = float(cutoff)
         self._cache: dict[tuple, Prepared] = {}
+        self._donuts: list[tuple] = []            # keys of donut preparations, oldest first
         self._sorted: dict[tuple, tuple[np.ndarray, int]] = {}
         self._order: np.ndarray | None = None     # the one sort of the score (``_score_order``)
         self._spreads: dict[int, tuple] = {}      # score spread per sorted row set (keyed by identity)
@@ -232,6 +236,8 @@ class DesignData:
         self._spans: dict[tuple, tuple[int, int]] = {}   # a one-sided copy's run of the parent's order
         self._only: np.ndarray | None = None      # row filter of a one-sided copy (``one_side``)
         self._parent: DesignData | None = None    # whose sorted rows a one-sided copy reuses
+        self._sides: dict[str, tuple] = {}        # what one-sided copies of each side share
+        self._columns: dict[str, np.ndarray] = {}  # variables in the sorted order, for those copies
 
     def one_side(self, side: str, cutoff: float) -> "DesignData":
         """The same validated columns restricted to one side of this design's cutoff, with a new cutoff.
@@ -240,15 +246,23 @@ class DesignData:
         its sorted order from this design's (a subsequence of a sorted order is sorted), so a placebo
         cutoff costs no sort. Prepared sides equal those of a design built from the side's rows.
         """
-        x = self.arrays[self.score_name]
-        only = (x >= self.cutoff) if side == "above" else (x < self.cutoff)   # NaN scores fall out
-        if self._only is not None:
-            only &= self._only
+        shared = self._sides.get(side)
+        if shared is None:
+            # Every copy of one side (the placebo cutoffs of a ladder) keeps the same rows, so they
+            # share the row filter, the sorted rows and their runs of this design's order.
+            x = self.arrays[self.score_name]
+            only = (x >= self.cutoff) if side == "above" else (x < self.cutoff)   # NaN scores fall out
+            if self._only is not None:
+                only &= self._only
+            shared = self._sides[side] = (only, int(only.sum()), {}, {})
+        only, n_rows, sorted_rows, spans = shared
         out = copy.copy(self)
         out.cutoff = float(cutoff)
-        out.n_rows = int(only.sum())
+        out.n_rows = n_rows
         out._only, out._parent = only, self
-        out._cache, out._sorted, out._order, out._spreads, out._ordered, out._spans = {}, {}, None, {}, None, {}
+        out._cache, out._order, out._spreads, out._ordered = {}, None, {}, None
+        out._sorted, out._spans = sorted_rows, spans
+        out._donuts, out._sides, out._columns = [], {}, {}
         return out
 
     def prepare(self, variables: tuple[str, ...], donut: float = 0.0, neighbors: int = 3) -> Prepared:
@@ -257,7 +271,16 @@ class DesignData:
             base = self._cache.get((variables, 0.0, neighbors)) if donut > 0 else None
             self._cache[key] = (self._prepare(variables, float(donut), neighbors) if base is None
                                 else self._with_donut(base, float(donut)))
+            if donut > 0:
+                self._forget_donuts(key)
         return self._cache[key]
+
+    def _forget_donuts(self, newest: tuple) -> None:
+        """Keep the DONUT_PREPARATIONS most recent donut preparations: a donut ladder's radii follow
+        the bandwidth, so a slider would otherwise keep one full preparation per radius it passed."""
+        self._donuts = [k for k in self._donuts if k != newest and k in self._cache] + [newest]
+        while len(self._donuts) > DONUT_PREPARATIONS:
+            self._cache.pop(self._donuts.pop(0), None)
 
     def sorted_rows(self, variables: tuple[str, ...] = ()) -> tuple[np.ndarray, int]:
         """Rows usable for ``variables`` in ascending score order, and the rows dropped as missing.
@@ -313,6 +336,21 @@ class DesignData:
             return self._parent._ordered_score()[span[0]:span[1]].copy()
         return self.arrays[self.score_name][rows]
 
+    def _ordered_values(self, variables: tuple[str, ...], span: slice, part: slice, start: int) -> np.ndarray:
+        """A one-sided copy's side values, sliced from the variables in this design's sorted order
+        (gathered once, kept) instead of gathered row by row: ``arrays[v][order[span][part][start:]]``."""
+        order = self._score_order()
+        out = None
+        for j, v in enumerate(variables):
+            column = self._columns.get(v)
+            if column is None:
+                column = self._columns[v] = self.arrays[v][order]
+            piece = column[span][part][start:]
+            if out is None:
+                out = np.empty((len(piece), len(variables)), order="F")   # columns contiguous
+            out[:, j] = piece
+        return out
+
     def _ordered_score(self) -> np.ndarray:
         """The score in the design's sorted order (built once, for one-sided copies to slice)."""
         if self._ordered is None:
@@ -352,27 +390,75 @@ class DesignData:
             # above: a view (already >= 0); below: reversed and negated, a new array
             dist = x_sorted[part] if sign > 0 else -x_sorted[part]
             src = rows[part]
+            start = 0
             if donut > 0:
                 start = int(np.searchsorted(dist, donut, side="left"))
                 n_donut += start
                 src, dist = src[start:], dist[start:]
             self._check_side(len(src), sign, donut)
-            sides.append(Side(sign, dist, self._gather(variables, src), *self._row_arrays(src), neighbors,
-                              rows=src))
+            span = self._spans.get(variables)
+            values = self._gather(variables, src) if span is None or not variables else \
+                self._parent._ordered_values(variables, slice(*span), part, start)
+            sides.append(Side(sign, dist, values, *self._row_arrays(src), neighbors, rows=src))
         del x_sorted
+        if donut == 0 and self._spans.get(variables) is not None:
+            self._parent._lend_residuals(variables, neighbors, self._spans[variables], split, sides)
         return self._finish(sides, variables, n_dropped, n_donut, score_sd, score_scale)
+
+    def _lend_residuals(self, variables, neighbors, span: tuple[int, int], split: int, sides: list[Side]) -> None:
+        """Let the sides of a one-sided copy (a placebo cutoff) take their neighbour residuals from
+        this design's prepared side they are cut from (``Side.cut_from``).
+
+        The copy keeps positions ``span`` of this design's sorted order and splits them at
+        ``split``: its above side is positions [span[0] + split, span[1]) ascending, its below side
+        [span[0], span[0] + split) descending. Each lies inside one of this design's sides (at the
+        same variables, no donut, sorted in the same order), either as a tail of it (same
+        direction, to its far end) or as its head reversed (from its first row, at the cutoff).
+        """
+        own = self._cache.get((variables, 0.0, neighbors))
+        if own is None or self.sorted_rows(variables)[0] is not self._score_order():
+            return
+        below, above = own.below, own.above
+        cut, total = below.n, below.n + above.n          # this design's split in its sorted order
+        for side, (a, b), ascending in ((sides[0], (span[0], span[0] + split), False),
+                                        (sides[1], (span[0] + split, span[1]), True)):
+            if b <= a:
+                continue
+            if a >= cut and ascending and b == total:            # a tail of the above side
+                side.cut_from(above, a - cut, reversed_=False)
+            elif a == cut and not ascending and b <= total:      # the above side's head, reversed
+                side.cut_from(above, b - cut, reversed_=True)
+            elif b == cut and ascending and a >= 0:              # the below side's head, reversed
+                side.cut_from(below, cut - a, reversed_=True)
+            elif a == 0 and not ascending and b <= cut:          # a tail of the below side
+                side.cut_from(below, cut - b, reversed_=False)
 
     def _with_donut(self, base: Prepared, donut: float) -> Prepared:
         """``base`` (no donut) without the rows closer than ``donut`` to the cutoff: no sort, no search
         beyond one per side; the score's spread is that of all usable rows, as in ``_prepare``."""
         sides, n_donut = [], 0
-        for side in (base.below, base.above):
+        run = self._run_of_order(base.variables)
+        split = base.below.n
+        for side, part in ((base.below, slice(split - 1, None, -1) if split else slice(0, 0)),
+                           (base.above, slice(split, None))):
             start = int(np.searchsorted(side.distance, donut, side="left"))
             n_donut += start
             self._check_side(side.n - start, side.sign, donut)
-            src = side.rows[start:]
-            sides.append(side.without_nearest(start, self._gather(base.variables, src)))
+            variables = base.variables
+            values = self._gather(variables, side.rows[start:]) if run is None or not variables else \
+                run[0]._ordered_values(variables, run[1], part, start)
+            sides.append(side.without_nearest(start, values))
         return self._finish(sides, base.variables, base.n_dropped, n_donut, base.score_sd, base.score_scale)
+
+    def _run_of_order(self, variables: tuple[str, ...]) -> tuple["DesignData", slice] | None:
+        """(design, positions) such that this design's sorted rows for ``variables`` are the
+        positions of that design's score order (its own when nothing is dropped, a one-sided
+        copy's parent's when its rows are a run of it), or None: then values are gathered."""
+        rows = self.sorted_rows(variables)[0]
+        if self._parent is None:
+            return (self, slice(0, len(rows))) if rows is self._score_order() else None
+        span = self._spans.get(variables)
+        return None if span is None else (self._parent, slice(*span))
 
     def _check_side(self, n_side: int, sign: int, donut: float) -> None:
         if n_side == 0:

@@ -18,9 +18,10 @@ import pandas as pd
 import pytest
 
 import seamline
+from seamline.data import DesignData
 from seamline.demo_data import sharp_scenario
 from seamline.estimate import design as design_module
-from seamline.estimate import diagnostics
+from seamline.estimate import diagnostics, score_profile
 from seamline.estimate.design import Design
 from seamline.notebook.board import boards
 from seamline.notebook.compute import compute_graph
@@ -34,6 +35,7 @@ TIGHT = dict(rtol=1e-9, atol=1e-12)   # re-reported intervals equal direct ones 
 METHODS = ("fit", "bandwidths", "bins", "sensitivity", "placebo_cutoffs", "donut", "balance", "score_profile",
            "checks", "by_cutoff", "by_group")
 FIT_DIAGNOSTICS = {"bins", "sensitivity", "placebo_cutoffs", "donut", "score_profile"}
+PARTS = ("binned means", "score census", "placebo designs")   # see PART_CHANGES
 
 
 @pytest.fixture(autouse=True)
@@ -81,6 +83,10 @@ def calls(monkeypatch):
     wrap(Design, "_fit", "fits", False)
     wrap(design_module, "mse_selection", "selections", False)
     wrap(diagnostics, "density_test", "density", False)
+    # the parts of diagnostics that read no fit option, kept on the Design (every real computation)
+    wrap(diagnostics, "binned_means", "binned means", False)
+    wrap(score_profile, "_census", "score census", False)
+    wrap(DesignData, "one_side", "placebo designs", False)
     return counts
 
 
@@ -143,12 +149,44 @@ def test_each_change_makes_exactly_its_engine_calls(label, scenario, calls):
     calls.clear()
     _apply(b, data, change)
     b.wait()
-    made = {name for name, n in calls.items() if n} - {"fits", "selections"}
+    made = {name for name, n in calls.items() if n} - {"fits", "selections", *PARTS}
     if not expected:
         assert calls["fits"] == calls["selections"] == 0, "nothing may be fitted or selected"
     assert made == expected, f"{label}: extra {made - expected}, missing {expected - made}"
     assert calls["checks"] == 0, "the checks summary is assembled, never recomputed"
     assert calls["density"] <= 1 and calls["balance"] <= 2
+
+
+# The parts of the diagnostics that read no fit option (kept on the Design): how many times each
+# change computes them (binned means of the outcome; the score's census behind the score profile;
+# the designs of the 8 placebo cutoffs, with their prepared sides and neighbour residuals). Asserted
+# part by part, so panels added elsewhere do not disturb these rows.
+PART_CHANGES = {
+    "level": {"binned means": 0, "score census": 0, "placebo designs": 0},
+    "bandwidth (manual)": {"binned means": 0, "score census": 0, "placebo designs": 0},
+    "bandwidth (another rule)": {"binned means": 0, "score census": 0, "placebo designs": 0},
+    "kernel": {"binned means": 0, "score census": 0, "placebo designs": 0},
+    "variance": {"binned means": 0, "score census": 0, "placebo designs": 0},
+    "donut": {"binned means": 0, "score census": 0, "placebo designs": 0},
+    # a new outcome: its own binned means and placebo designs; the score is the same
+    "outcome": {"binned means": 1, "score census": 0, "placebo designs": 8},
+    # a new cutoff: a new Design, so everything once
+    "cutoff": {"binned means": 1, "score census": 1, "placebo designs": 8},
+    # an edited covariate rebuilds the Design, but bins, profile and placebo read no covariate
+    "column: covariate": {"binned means": 0, "score census": 0, "placebo designs": 0},
+}
+
+
+@pytest.mark.parametrize("label", list(PART_CHANGES))
+def test_each_change_recomputes_only_the_diagnostic_parts_it_reaches(label, scenario, calls):
+    s, data = scenario
+    b = _board(s, data)
+    change, _ = CHANGES[label]
+    calls.clear()
+    _apply(b, data, change)
+    b.wait()
+    for part, expected in PART_CHANGES[label].items():
+        assert calls[part] == expected, f"{label}: {part} computed {calls[part]} times, expected {expected}"
 
 
 def test_nothing_runs_twice_when_panels_share_a_result(scenario, calls):
@@ -157,6 +195,7 @@ def test_nothing_runs_twice_when_panels_share_a_result(scenario, calls):
     # One density test serves the density panel and the checks; one balance serves both at "mse".
     assert calls["density"] == 1 and calls["balance"] == 1 and calls["checks"] == 0
     assert calls["bandwidths"] == 1 and calls["donut"] == 1 and calls["placebo_cutoffs"] == 1
+    assert calls["binned means"] == 1 and calls["score census"] == 1 and calls["placebo designs"] == 8
 
 
 def test_switching_back_is_a_cache_hit(scenario, calls):

@@ -13,7 +13,7 @@ CHUNK = 1 << 16
 
 
 def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int = 3,
-                       rel_tol: float = 1e-12) -> tuple[np.ndarray, np.ndarray]:
+                       rel_tol: float = 1e-12, tol: float | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Scaled nearest-neighbour residuals for observations on one side of the cutoff.
 
     Parameters
@@ -23,6 +23,7 @@ def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int 
     neighbors : J, the number of neighbours (3 is the literature default).
     rel_tol : distances closer than ``rel_tol * range(x)`` count as ties, so that floating-point
         noise in discrete scores does not break ties arbitrarily.
+    tol : an absolute tie tolerance instead (a part of a side computed with the whole side's).
 
     Returns
     -------
@@ -36,7 +37,8 @@ def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int 
     n = len(x)
     if n < 2:
         return np.full_like(vals, np.nan), np.zeros(n, dtype=int)
-    tol = rel_tol * max(x[-1] - x[0], np.finfo(float).tiny)
+    if tol is None:
+        tol = rel_tol * max(x[-1] - x[0], np.finfo(float).tiny)
     # Where a new group of (near-)equal values starts, found chunk by chunk: no full-length gaps array.
     new_group = np.empty(n, dtype=bool)
     new_group[0] = True

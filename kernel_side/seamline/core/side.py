@@ -45,6 +45,7 @@ class Side:
         self.n = len(distance)
         self.moments = SideMoments(distance)
         self._nn: np.ndarray | None = None
+        self._nn_base: tuple[Side, int, bool] | None = None   # what this side is cut from (cut_from)
         self._group_starts: np.ndarray | None = None
 
     def without_nearest(self, start: int, values: np.ndarray | None = None) -> "Side":
@@ -54,15 +55,25 @@ class Side:
         still sorted. ``values``: the remaining rows' variables, uncentred, as a fresh array (the new
         side centres them on its own mean); by default they are rebuilt from this side's centred
         values and offsets, which equals reading them afresh up to rounding in the last digit.
-        The result equals a Side prepared from scratch on the remaining rows; moment tables and
-        neighbour residuals are rebuilt for it on demand (both depend on which rows remain).
+        The result equals a Side prepared from scratch on the remaining rows; its moment tables
+        are rebuilt on demand (they depend on which rows remain), its neighbour residuals are
+        this side's beyond the first J groups of ties (``cut_from``).
         """
         if values is None:
             values = self.values[start:] + self.offsets
-        return Side(self.sign, self.distance[start:], values,
+        tail = Side(self.sign, self.distance[start:], values,
                     None if self.weights is None else self.weights[start:],
                     None if self.clusters is None else self.clusters[start:], self.neighbors,
                     None if self.rows is None else self.rows[start:])
+        if start > 0:
+            tail.cut_from(self, start, reversed_=False)
+        return tail
+
+    def cut_from(self, base: "Side", start: int, reversed_: bool) -> None:
+        """Declare this side a run of ``base``'s observations, so it can take its neighbour
+        residuals from base's: row i is base row ``start + i`` (a tail, to base's far end), or,
+        reversed, base row ``start - 1 - i`` (base's first ``start`` rows in reverse order)."""
+        self._nn_base = (base, start, reversed_)
 
     # ---- per-row series, each a function of a row slice -------------------------------------
     def w(self, rows: slice) -> np.ndarray:
@@ -71,8 +82,43 @@ class Side:
     def nn_residuals(self) -> np.ndarray:
         """(n, k) scaled nearest-neighbour residuals; neighbours are searched over the whole side."""
         if self._nn is None:
-            self._nn, _ = neighbor_residuals(self.distance, self.values, self.neighbors)
+            self._nn = self._tail_residuals()
+            if self._nn is None:
+                self._nn, _ = neighbor_residuals(self.distance, self.values, self.neighbors)
         return self._nn
+
+    def _tail_residuals(self) -> np.ndarray | None:
+        """Residuals from those of the side this one is cut from (a donut's tail, a placebo
+        cutoff's side), when those exist.
+
+        Neighbours of an observation lie within J groups of ties of it (seamline.core.neighbors),
+        so beyond this side's first J groups they are the same observations as on the base side
+        (whose run ends where this side ends: at base's far end, or reversed, at its first row),
+        and so are the residuals (up to rounding: each side centres its values on its own mean).
+        The first J groups are computed afresh on this side's first 2J groups, with the tie
+        tolerance of the whole side. None: compute the whole side directly.
+        """
+        if self._nn_base is None or self.n < 2:
+            return None
+        base, start, reversed_ = self._nn_base
+        if base._nn is None or self.values.shape[1] != base.values.shape[1]:
+            return None
+        j, d = self.neighbors, self.distance
+        tol = 1e-12 * max(d[-1] - d[0], np.finfo(float).tiny)   # neighbor_residuals' default
+        head = min(self.n, 64 * (j + 1))
+        while True:                                 # enough rows to hold 2J groups (or the side)
+            starts = np.flatnonzero(np.r_[True, np.diff(d[:head]) > tol])
+            if len(starts) > 2 * j or head == self.n:
+                break
+            head = min(self.n, 4 * head)
+        if len(starts) <= 2 * j:
+            return None                             # a side of few groups: compute it whole
+        cut, stop = int(starts[j]), int(starts[2 * j])
+        first, _ = neighbor_residuals(d[:stop], self.values[:stop], j, tol=tol)
+        out = np.empty_like(self.values)
+        out[:cut] = first[:cut]
+        out[cut:] = base._nn[:start - cut][::-1] if reversed_ else base._nn[start + cut:]
+        return out
 
     def series(self, kind: str, a: int = -1, b: int = -1):
         """(key, function of rows) for the series the moment engine sums."""

@@ -28,6 +28,7 @@ REFERENCE_LEVEL = 0.95
 FIT_CACHE = 512         # fits kept per design (small records)
 ENGINE_CACHE = 16       # fitted engines kept per design (they may hold window arrays)
 DIAGNOSTIC_CACHE = 64   # diagnostic results kept per design (frozen; each holds a few tables)
+PLACEBO_DESIGNS = 8     # placebo-cutoff designs kept per design: one ladder (each holds a side's preparation)
 
 
 class Bounded(OrderedDict):
@@ -117,6 +118,9 @@ class Design:
         self._fits: Bounded = Bounded(FIT_CACHE)
         self._engines: Bounded = Bounded(ENGINE_CACHE)
         self._diagnostics: Bounded = Bounded(DIAGNOSTIC_CACHE)
+        # Placebo-cutoff designs by (side, cutoff, outcome), with their prepared sides
+        # (estimate.diagnostics._placebo_design).
+        self._placebos: Bounded = Bounded(PLACEBO_DESIGNS)
 
     def _init_data(self, data, score, cutoff, takeup, cluster, weights, score_unit) -> None:
         """Read the user's data: the declared columns, the cutoff layout, the validated arrays."""

@@ -1,7 +1,8 @@
 """Validity diagnostics of a cutoff design: manipulation, balance, sensitivity, placebos, donut,
 binned scatter, score profile, and a design-level checks summary (METHODS sections 8, 9, 13).
 
-Each function takes a Design and returns a frozen result from seamline.results.diagnostics. Row-level
+Each function takes a Design and returns a frozen result from seamline.results.diagnostics (the
+score profile lives in seamline.estimate.score_profile; the checks' rows in .check_rows). Row-level
 estimates are ordinary ``design.fit`` calls, so every number here equals the fit a user would run.
 """
 from __future__ import annotations
@@ -21,13 +22,15 @@ from ..errors import (InvalidOptionError, OneSidedDataError, SeamlineError, TooF
 from ..options import BIN_METHODS, BIN_RULES, DENSITY_METHODS, check_level, check_option
 from ..results.diagnostics import (Balance, Bins, Checks, DensityTest, Donut, Placebo, ScoreProfile,
                                    Sensitivity, fit_row, holm)
+from .check_rows import ALPHA, check_rows
 from .engine import JumpEngine
+# score_profile is looked up here by Design._diagnostic and cache_key, like every diagnostic
+from .score_profile import _clean_score, _sorted_score, score_profile  # noqa: F401
 
 SCALE_GRID = (0.5, 0.75, 1.0, 1.25, 1.5, 2.0)          # common practice (METHODS 13.4)
 PLACEBO_QUANTILES = (0.2, 0.4, 0.6, 0.8)                # convention (METHODS 13.2)
 DONUT_FRACTIONS = (0.0, 0.05, 0.1, 0.15, 0.2, 0.25)     # convention: radii as shares of the bandwidth
 MIN_PLACEBO_SIDE = 20                                   # convention: observations needed on each side
-ALPHA = 0.05
 REFERENCE_LEVEL = 0.95      # density tests are computed at this level and re-reported at others
 
 
@@ -84,11 +87,6 @@ def _same(a, b) -> bool:
         return type(a) is type(b) and bool(a == b)
     except (TypeError, ValueError):
         return False
-
-
-def _clean_score(design) -> np.ndarray:
-    x = design._data.arrays[design.score]
-    return x[~np.isnan(x)]
 
 
 # ---------------------------------------------------------------------------------------------
@@ -329,41 +327,21 @@ def sensitivity(design, bandwidths=None, kernels=None, degrees=None, **fit_optio
 # ---------------------------------------------------------------------------------------------
 def placebo_cutoffs(design, cutoffs=None, **fit_options) -> Placebo:
     """Estimates at fake cutoffs using only the observations on one side of the true cutoff."""
-    from .design import Design
     outcome = design._outcome(fit_options.pop("outcome", None))
     fit_options.pop("adjust", None)
-    x = _clean_score(design)
-    side_scores = {"below": x[x < design.cutoff], "above": x[x >= design.cutoff]}
-    if cutoffs is None:
-        requested = []
-        for part in side_scores.values():
-            # one selection for all quantiles (the same values as one call per quantile)
-            requested += [float(v) for v in np.quantile(part, PLACEBO_QUANTILES)] if len(part) else []
-        user = False
-    else:
-        requested = [float(c) for c in np.atleast_1d(cutoffs)]
-        user = True
+    user = cutoffs is not None
+    ladder = _placebo_ladder(design, None if cutoffs is None else [float(c) for c in np.atleast_1d(cutoffs)])
     rows, fits, skipped = [], [], []
-    for c in requested:
-        if c == design.cutoff:
-            raise InvalidOptionError(f"`cutoffs` must differ from the true cutoff {design.cutoff:g}; got {c:g}. "
-                                     "Placebo cutoffs lie strictly on one side.")
-        side = "above" if c > design.cutoff else "below"
-        score = side_scores[side]
-        n_left, n_right = int(np.sum(score < c)), int(np.sum(score >= c))
+    for c, side, n_left, n_right, (lo, hi) in ladder:
         if min(n_left, n_right) < MIN_PLACEBO_SIDE:
             msg = (f"placebo cutoff {c:g} leaves {n_left} and {n_right} observations on its two sides within the "
                    f"{side} side (at least {MIN_PLACEBO_SIDE} each are needed)")
             if user:
-                lo, hi = (score.min(), score.max())
                 raise OneSidedDataError(f"`cutoffs` must leave at least {MIN_PLACEBO_SIDE} observations on each side "
                                         f"of a placebo; got {msg}. Choose a value well inside [{lo:g}, {hi:g}].")
             skipped.append(msg)
             continue
-        # One side of the design's own validated data, sharing its arrays and its sorted order: a
-        # placebo cutoff costs no copy of the data and no sort (DesignData.one_side).
-        sub = Design(design._data.one_side(side, c), score=design.score, cutoff=c, outcome=outcome,
-                     treated=design.treated, cluster=design.cluster, weights=design.weights)
+        sub = _placebo_design(design, side, c, outcome)
         try:
             f = sub.fit(**fit_options)
         except SeamlineError as exc:
@@ -380,6 +358,54 @@ def placebo_cutoffs(design, cutoffs=None, **fit_options) -> Placebo:
                         "the outcome may jump away from the cutoff too, or the specification is too rigid.")
     return Placebo(rows=tuple(rows), outcome=outcome, skipped=tuple(skipped), fits=tuple(fits),
                    warnings=tuple(warnings))
+
+
+def _placebo_ladder(design, requested: list[float] | None) -> list[tuple]:
+    """(cutoff, side, observations left and right of it within the side, the side's score range)
+    for each placebo cutoff: the requested ones, or by default the quantiles PLACEBO_QUANTILES of
+    each side's scores. Read off the design's sorted score; the default ladder is kept on the
+    design (it depends on the score alone, not on any fit option)."""
+    if requested is None and ("placebo ladder",) in design._diagnostics:
+        return design._diagnostics[("placebo ladder",)]
+    xs = _sorted_score(design)
+    split = int(np.searchsorted(xs, design.cutoff, side="left"))
+    side_scores = {"below": xs[:split], "above": xs[split:]}
+    default = requested is None
+    if default:
+        # numpy's quantiles of each side (sorting does not change them)
+        requested = [float(v) for part in side_scores.values() if len(part)
+                     for v in np.quantile(part, PLACEBO_QUANTILES)]
+    ladder = []
+    for c in requested:
+        if c == design.cutoff:
+            raise InvalidOptionError(f"`cutoffs` must differ from the true cutoff {design.cutoff:g}; got {c:g}. "
+                                     "Placebo cutoffs lie strictly on one side.")
+        side = "above" if c > design.cutoff else "below"
+        score = side_scores[side]
+        n_left = int(np.searchsorted(score, c, side="left"))
+        span = (float(score[0]), float(score[-1])) if len(score) else (float("nan"), float("nan"))
+        ladder.append((c, side, n_left, len(score) - n_left, span))
+    if default:
+        design._diagnostics[("placebo ladder",)] = ladder
+    return ladder
+
+
+def _placebo_design(design, side: str, c: float, outcome: str):
+    """The design of one placebo cutoff, kept on ``design`` (``Design._placebos``) for the next call.
+
+    It is one side of the design's own validated data, sharing its arrays and its sorted order
+    (``DesignData.one_side``: no copy, no sort). Kept, it keeps its prepared sides, their moment
+    tables, neighbour residuals and bandwidth selections, so the next ladder at another bandwidth
+    (a board's slider) costs the placebo fits only, not their preparation.
+    """
+    from .design import Design
+    key = (side, float(c), outcome)
+    sub = design._placebos.get(key)
+    if sub is None:
+        sub = design._placebos[key] = Design(design._data.one_side(side, c), score=design.score, cutoff=c,
+                                             outcome=outcome, treated=design.treated, cluster=design.cluster,
+                                             weights=design.weights)
+    return sub
 
 
 def donut(design, radii=None, **fit_options) -> Donut:
@@ -419,8 +445,14 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
     level = fit_options.get("level", 0.95)
     if ok.all():
         ok = slice(None)        # views, not copies (read only: the user's data is never modified)
-    binned = binned_means(x[ok], y[ok], design.cutoff, method=method, number=number, rule=rule, scale=scale,
-                          weights=None if w is None else w[ok], level=level, order=_sorted_positions(data, ok))
+    # The binned means read the score, the outcome and the bin options only: kept on the design, so
+    # bins at another bandwidth (a board's slider) redraw the fitted curves and nothing else.
+    key = ("binned_means", outcome, method, _frozen_value(number), rule, float(scale), float(level))
+    binned = design._diagnostics.get(key)
+    if binned is None:
+        binned = design._diagnostics[key] = binned_means(
+            x[ok], y[ok], design.cutoff, method=method, number=number, rule=rule, scale=scale,
+            weights=None if w is None else w[ok], level=level, order=_sorted_positions(data, ok))
     fit = design.fit(outcome, **fit_options)
     spec = design._spec(outcome, **_spec_options(fit, fit_options))
     engine, _, _, _ = design._engine(spec)
@@ -481,128 +513,19 @@ def _global_polynomial(x, y, cutoff, degree, points: int = 60) -> pd.DataFrame:
 
 
 # ---------------------------------------------------------------------------------------------
-def score_profile(design, **fit_options) -> ScoreProfile:
-    """Distinct values and mass points of the score per side, overall and inside the bandwidth."""
-    xs = _sorted_score(design)
-    x = xs - design.cutoff                       # ascending
-    try:
-        h = design.fit(**fit_options).bandwidth
-    except SeamlineError:
-        h = (float("nan"), float("nan"))
-    rows = []
-    split = int(np.searchsorted(x, 0.0, side="left"))
-    # distances from the cutoff, each side monotone, so equal values sit next to each other
-    for side, part, bw in (("below", -x[:split], h[0]), ("above", x[split:], h[1])):
-        for scope, values in (("all", part), ("window", part[part <= bw] if np.isfinite(bw) else part[:0])):
-            counts = _run_lengths(values)
-            mass = counts >= 2
-            rows.append({"side": side, "scope": scope, "observations": int(len(values)),
-                         "distinct_values": int(len(counts)), "mass_points": int(mass.sum()),
-                         "share_at_mass_points": float(counts[mass].sum() / len(values)) if len(values) else 0.0,
-                         "largest_mass": int(counts.max()) if len(counts) else 0})
-    score = _clean_score(design)
-    uniq = xs[np.r_[True, xs[1:] != xs[:-1]]] if len(xs) else xs    # sorted distinct values
-    gaps = np.diff(uniq)
-    resolution = float(gaps[gaps > 0].min()) if np.any(gaps > 0) else 0.0
-    heaping, warnings = _heaping(score, uniq, resolution)
-    window = [r for r in rows if r["scope"] == "window"]
-    few = [f"{r['side']} ({r['distinct_values']})" for r in window if r["distinct_values"] < 10]
-    if few:
-        warnings.append(f"Few distinct score values inside the bandwidth: {', '.join(few)}. With a discrete score "
-                        "the fit extrapolates between mass points: widen the window if the design allows, report "
-                        "the mass points, and prefer bias-aware inference for discrete scores (planned). Clustering "
-                        "by score value is sometimes used but does not protect coverage (Kolesar & Rothe 2018).")
-    return ScoreProfile(rows=tuple(rows), score=design.score, bandwidth=h, resolution=resolution,
-                        heaping=tuple(heaping), warnings=tuple(warnings))
-
-
-def _sorted_score(design) -> np.ndarray:
-    """Every non-missing score in ascending order, from the design's one sort when it covers them."""
-    data = design._data
-    if data.weights is None and data.cluster_codes is None:
-        return data.arrays[design.score][data.sorted_rows()[0]]
-    return np.sort(_clean_score(design))
-
-
-def _run_lengths(monotone: np.ndarray) -> np.ndarray:
-    """Sizes of the runs of equal values of a sorted (ascending or descending) array."""
-    if len(monotone) == 0:
-        return np.zeros(0, dtype=np.int64)
-    starts = np.flatnonzero(np.r_[True, monotone[1:] != monotone[:-1]])
-    return np.diff(np.append(starts, len(monotone)))
-
-
-def _heaping(score: np.ndarray, uniq: np.ndarray, resolution: float) -> tuple[list[dict], list[str]]:
-    """Share of observations at round values against what a smooth score would put there."""
-    out, warnings = [], []
-    if len(score) < 200 or len(uniq) < 20:
-        return out, warnings
-    on_grid = resolution > 0 and np.allclose(uniq / resolution, np.round(uniq / resolution), atol=1e-6)
-    steps = [resolution * 5, resolution * 10] if on_grid else [10.0 ** np.floor(np.log10(np.std(score)))]
-    for step in steps:
-        at = np.isclose(score / step, np.round(score / step), atol=1e-9, rtol=0)
-        share = float(at.mean())
-        expected = (resolution / step) if on_grid else 0.0
-        out.append({"step": float(step), "share": share, "expected": expected})
-        if share > max(2.0 * expected, 0.05) and share - expected > 0.02:
-            warnings.append(f"Heaping: {share:.1%} of scores sit at multiples of {step:g} (about {expected:.1%} "
-                            "expected). Heaped values near the cutoff can bias estimates; compare donut estimates "
-                            "and consider excluding the heaps (Barreca, Lindo & Waddell 2016).")
-            break
-    return out, warnings
-
-
-# ---------------------------------------------------------------------------------------------
 def checks(design, **fit_options) -> Checks:
-    """Gather the flags a careful analyst would raise, each with its evidence (or why it is missing)."""
-    rows, warnings = [], []
-
-    def add(check, status, detail):
-        rows.append({"check": check, "status": status, "detail": detail})
-        if status == "flag":
-            warnings.append(f"{check}: {detail}")
-
-    fit = None
-    try:
-        fit = design.fit(**fit_options)
-    except SeamlineError as exc:
-        add("main estimate", "error", str(exc))
-    try:
-        dens = design.density_test()        # cached on the design: a board's Density panel shares it
-        add("manipulation (density test)", "flag" if dens.p_value < ALPHA else "ok",
-            f"p = {dens.p_value:.3f} ({dens.method}); density {dens.density_below:.4g} below, "
-            f"{dens.density_above:.4g} above")
-    except SeamlineError as exc:
-        add("manipulation (density test)", "error", str(exc))
-    if design.covariates:
+    """Gather the flags a careful analyst would raise, each with its evidence (or why it is missing).
+    The fit, density test, balance and score profile come from the design's caches (a board's
+    panels share them); the rows are built by ``estimate.check_rows``."""
+    def attempt(compute):
         try:
-            bal = design.balance(**{k: v for k, v in fit_options.items() if k != "bandwidth"})
-            worst = min(r["p_value_holm"] for r in bal.rows)
-            status = "flag" if (worst < ALPHA or bal.joint_p_value < ALPHA) else "ok"
-            detail = f"smallest Holm p = {worst:.3f}; joint p = {bal.joint_p_value:.3f}"
-            if status == "flag" and fit_options.get("adjust"):
-                detail += "; covariate adjustment does not repair imbalance"
-            add("covariate balance", status, detail)
+            return compute()
         except SeamlineError as exc:
-            add("covariate balance", "error", str(exc))
-    else:
-        add("covariate balance", "not applicable", "no covariates declared")
-    if fit is not None:
-        if fit.first_stage_f is not None:
-            add("first stage strength", "flag" if fit.first_stage_f < 10 else "ok",
-                f"F = {fit.first_stage_f:.1f} (common practice: F < 10 is weak)")
-        else:
-            add("first stage strength", "not applicable", "sharp design")
-        few = min(fit.n_used)
-        add("observations in the window", "flag" if few < 20 else "ok",
-            f"{fit.n_used[0]} below, {fit.n_used[1]} above")
-    try:
-        prof = design.score_profile(**fit_options)
-        discrete = [w for w in prof.warnings if w.startswith("Few distinct")]
-        heaped = [w for w in prof.warnings if w.startswith("Heaping")]
-        add("discrete score", "flag" if discrete else "ok",
-            discrete[0] if discrete else "enough distinct score values in the window")
-        add("heaping at round values", "flag" if heaped else "ok", heaped[0] if heaped else "no heaping detected")
-    except SeamlineError as exc:
-        add("score profile", "error", str(exc))
-    return Checks(rows=tuple(rows), warnings=tuple(warnings))
+            return str(exc)
+
+    fit = attempt(lambda: design.fit(**fit_options))
+    density = attempt(design.density_test)
+    balance = attempt(lambda: design.balance(**{k: v for k, v in fit_options.items() if k != "bandwidth"})) \
+        if design.covariates else None
+    profile = attempt(lambda: design.score_profile(**fit_options))
+    return check_rows(fit, density, balance, profile, adjust=bool(fit_options.get("adjust")))

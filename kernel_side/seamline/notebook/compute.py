@@ -39,14 +39,24 @@ checks_balance        as balance with the rule "mse" and the pilot    ``Design.b
                       bandwidth (what Design.checks reads; shares
                       balance's entry when both coincide)
 score_profile         the score column, score, cutoff, main_fit       ``Design.score_profile``
-checks                main_fit, density, checks_balance,              none: assembled from the nodes
-                      score_profile
+checks                main_fit, density, checks_balance,              none: the nodes' results, rows
+                      score_profile                                   by ``estimate.check_rows``
 ====================  ==============================================  ===============================
 
 Boards with several cutoffs, ``groups`` or an ``effect`` add the nodes of ``designs_graph``
 (cutoff_effects, group_effects, power; its docstring has their table) where they apply. On such
 boards *rows* also hold the cutoff column and ``headline_cutoff``, and every node above reads the
 headline design (``designs_graph.headline_design``).
+
+Inside the engine calls, the parts that read no fit option are kept on the Design (so they outlive
+the node keys above): ``Design.bins`` keeps its binned means per outcome and bin options (a new
+bandwidth redraws the fitted curves only); ``Design.score_profile`` keeps the score's census
+(overall counts, resolution, heaping; a new bandwidth counts inside the new window only);
+``Design.placebo_cutoffs`` keeps the ladder of placebo cutoffs and each cutoff's design with its
+prepared sides, moment tables, neighbour residuals and selections (a new bandwidth costs the
+placebo fits only); a donut side takes its neighbour residuals from the full side's beyond its
+first J groups of ties. ``tests/notebook/test_live_graph.py`` (``PART_CHANGES``) counts them per
+change.
 
 Panels (``PANEL_NODES``) read one node each and only re-report it: ``fit`` and ``first_stage``
 read ``main_fit``; ``first_stage_bins`` reads ``takeup_bins``; ``bandwidths`` reads
@@ -66,6 +76,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from ..errors import SeamlineError, shown
+from ..estimate.check_rows import check_rows
 from ..estimate.design import Design
 from ..results.diagnostics import Checks
 from . import designs_graph
@@ -352,9 +363,6 @@ def sharp_reason(takeup: str | None) -> str:
             "Declare `takeup: <column>` for a fuzzy design.")
 
 
-_ALPHA = 0.05
-
-
 def _raise_if_foreign(value: Any) -> None:
     # Design.checks lets anything but a seamline input error propagate: so does the assembly.
     if isinstance(value, Failure) and not value.ours:
@@ -363,8 +371,8 @@ def _raise_if_foreign(value: Any) -> None:
 
 def assemble_checks(fit: Any, density: Any, balance: Any, profile: Any, *, adjust: bool) -> Checks:
     """The design checks summary from results already computed: the rows ``Design.checks`` gives
-    for the same options, without running the fit, the density test, balance or the score profile
-    again.
+    for the same options (both build them with ``estimate.check_rows``), without running the fit,
+    the density test, balance or the score profile again.
 
     Parameters
     ----------
@@ -378,50 +386,12 @@ def assemble_checks(fit: Any, density: Any, balance: Any, profile: Any, *, adjus
     """
     for value in (fit, density, balance, profile):
         _raise_if_foreign(value)
-    rows, warnings = [], []
 
-    def add(check, status, detail):
-        rows.append({"check": check, "status": status, "detail": detail})
-        if status == "flag":
-            warnings.append(f"{check}: {detail}")
+    def given(value: Any) -> Any:      # a Failure becomes the error text Design.checks shows
+        return (value.detail or value.message) if isinstance(value, Failure) else value
 
-    if isinstance(fit, Failure):
-        add("main estimate", "error", fit.detail)
-        fit = None
-    if isinstance(density, Failure):
-        add("manipulation (density test)", "error", density.detail)
-    else:
-        add("manipulation (density test)", "flag" if density.p_value < _ALPHA else "ok",
-            f"p = {density.p_value:.3f} ({density.method}); density {density.density_below:.4g} below, "
-            f"{density.density_above:.4g} above")
-    if isinstance(balance, NotApplicable):
-        add("covariate balance", "not applicable", "no covariates declared")
-    elif isinstance(balance, Failure):
-        add("covariate balance", "error", balance.detail)
-    else:
-        worst = min(r["p_value_holm"] for r in balance.rows)
-        status = "flag" if (worst < _ALPHA or balance.joint_p_value < _ALPHA) else "ok"
-        detail = f"smallest Holm p = {worst:.3f}; joint p = {balance.joint_p_value:.3f}"
-        if status == "flag" and adjust:
-            detail += "; covariate adjustment does not repair imbalance"
-        add("covariate balance", status, detail)
-    if fit is not None:
-        if fit.first_stage_f is not None:
-            add("first stage strength", "flag" if fit.first_stage_f < 10 else "ok",
-                f"F = {fit.first_stage_f:.1f} (common practice: F < 10 is weak)")
-        else:
-            add("first stage strength", "not applicable", "sharp design")
-        few = min(fit.n_used)
-        add("observations in the window", "flag" if few < 20 else "ok", f"{fit.n_used[0]} below, {fit.n_used[1]} above")
-    if isinstance(profile, Failure):
-        add("score profile", "error", profile.detail)
-    else:
-        discrete = [w for w in profile.warnings if w.startswith("Few distinct")]
-        heaped = [w for w in profile.warnings if w.startswith("Heaping")]
-        add("discrete score", "flag" if discrete else "ok",
-            discrete[0] if discrete else "enough distinct score values in the window")
-        add("heaping at round values", "flag" if heaped else "ok", heaped[0] if heaped else "no heaping detected")
-    return Checks(rows=tuple(rows), warnings=tuple(warnings))
+    return check_rows(given(fit), given(density), None if isinstance(balance, NotApplicable) else given(balance),
+                      given(profile), adjust=adjust)
 
 
 def panel_order(wanted: Iterable[str], panels: Iterable[str]) -> list[str]:

@@ -208,6 +208,11 @@ class BoardView(widgets.VBox):
         self._panels: dict[str, widgets.HTML] = {}
         self._charts: dict[str, list[tuple[str, widgets.Output]]] = {}
         self._export_rows: dict[str, widgets.HBox] = {}
+        self._export_bars: dict[str, tuple[widgets.VBox, widgets.VBox]] = {}
+        # One layout and one style for every export button: each widget is a comm the front end
+        # opens, so a view of six tabs sends about a third fewer of them.
+        self._button_layout = widgets.Layout(width="auto", height="26px", margin="0 2px")
+        self._button_style = widgets.ButtonStyle()
         boxes = []
         for key, _title in PANELS:
             body = widgets.HTML(layout=widgets.Layout(width="100%"))
@@ -221,7 +226,9 @@ class BoardView(widgets.VBox):
             self._charts[key] = outputs
             out = widgets.VBox()
             out.add_class("seamline-export-result")
-            bar = self._export_bar(key, out)
+            bar = widgets.VBox(layout=widgets.Layout(border_top="1px solid #eee", padding="4px 0 0 0"))
+            bar.add_class("seamline-export")     # its buttons are made when the tab is first shown
+            self._export_bars[key] = (bar, out)
             row = widgets.HBox([c for _w, c in outputs], layout=widgets.Layout(flex_flow="row wrap"))
             box = widgets.VBox([row, body, bar, out], layout=widgets.Layout(padding="6px 4px"))
             box.add_class(_css(key))
@@ -426,14 +433,17 @@ class BoardView(widgets.VBox):
             self._manual.disabled = False
 
     # ---- exports --------------------------------------------------------------------------
-    def _export_bar(self, panel: str, out: widgets.VBox) -> widgets.Box:
+    def _export_bar(self, panel: str) -> None:
+        """Fill a tab's export bar (once, when the tab is first rendered)."""
+        bar, out = self._export_bars[panel]
+        if bar.children:
+            return
         rows = []
         for what in PANEL_EXPORTS[panel]:
             label = widgets.HTML(f'<span style="font-size:12px;color:#555">Export {html.escape(what.replace("_", " "))}:</span>')
             buttons = [label]
             for title, fmt in _FORMATS:
-                button = widgets.Button(description=title,
-                                        layout=widgets.Layout(width="auto", height="26px", margin="0 2px"),
+                button = widgets.Button(description=title, layout=self._button_layout, style=self._button_style,
                                         tooltip=f"{title} of the {what.replace('_', ' ')} "
                                                 f"{'chart' if fmt in ('svg', 'png') else 'table'}")
                 button.add_class("seamline-export-button")
@@ -443,9 +453,7 @@ class BoardView(widgets.VBox):
             row = widgets.HBox(buttons, layout=widgets.Layout(align_items="center", flex_flow="row wrap"))
             self._export_rows[what] = row
             rows.append(row)
-        bar = widgets.VBox(rows, layout=widgets.Layout(border_top="1px solid #eee", padding="4px 0 0 0"))
-        bar.add_class("seamline-export")
-        return bar
+        bar.children = rows
 
     def _export(self, what: str, fmt: str, out: widgets.VBox) -> None:
         """Run ``board.export(what, fmt)`` and show the text and a download link (or the error)."""
@@ -512,6 +520,7 @@ class BoardView(widgets.VBox):
                 if part == "header":
                     continue
                 self._dirty.discard(part)
+                self._export_bar(part)
                 self._draw_charts(part, state)
                 for what in PANEL_EXPORTS.get(part, ()):
                     # Export buttons only where there is something to export (not on a sharp design's
@@ -586,6 +595,11 @@ class BoardView(widgets.VBox):
     def _on_progress(self, done: int, total: int, label: str) -> None:
         """Board callback while results are recomputed: advance the progress bar."""
         try:
+            # Shown while the panels the user waits for are recomputing; while the board fills
+            # hidden tabs in the background the bar stays hidden and nothing is sent for it.
+            waiting = str(getattr(self.board, "status", "")) == "recomputing"
+            if not waiting and self._progress.layout.visibility == "hidden":
+                return
             with self._progress.hold_sync():
                 if label == "done" or total <= 0:
                     self._progress.value = self._progress.max
@@ -594,7 +608,8 @@ class BoardView(widgets.VBox):
                 self._progress.value = min(int(done), self._progress.max)
                 self._progress.description = "recomputing"
                 self._progress.tooltip = f"computing the {label}"
-                self._progress.layout.visibility = "visible"
+                if waiting:
+                    self._progress.layout.visibility = "visible"
         except Exception:  # noqa: BLE001 - a progress display must never fail a recompute
             pass
 
