@@ -342,7 +342,8 @@ def test_each_change_on_a_board_with_several_cutoffs_makes_exactly_its_engine_ca
     calls.clear()
     _apply(b, data, change)
     b.wait()
-    made = {name for name, n in calls.items() if n} - {"fits", "selections"}
+    # the bandwidth-free parts inside the engine calls are counted by PART_CHANGES on a single board
+    made = {name for name, n in calls.items() if n} - {"fits", "selections"} - set(PARTS)
     if not expected:
         assert calls["fits"] == calls["selections"] == 0, "nothing may be fitted or selected"
     assert made == expected, f"{label}: extra {made - expected}, missing {expected - made}"
