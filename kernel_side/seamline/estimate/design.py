@@ -524,11 +524,18 @@ class Design:
         from . import diagnostics
         key = diagnostics.cache_key(name, args, kwargs)
         if key is None:  # an argument that cannot be a key (e.g. an unhashable object): no caching
-            return getattr(diagnostics, name)(self, *args, **kwargs)
+            return self._with_time_scale(getattr(diagnostics, name)(self, *args, **kwargs))
         found = self._diagnostics.get(key)
         if found is None:
-            found = self._diagnostics[key] = getattr(diagnostics, name)(self, *args, **kwargs)
+            found = self._diagnostics[key] = self._with_time_scale(getattr(diagnostics, name)(self, *args, **kwargs))
         return found
+
+    def _with_time_scale(self, result):
+        """A date score's result carries the TimeScale, so tables and charts built from the result
+        alone can speak in dates and durations."""
+        if self.time_scale is not None and getattr(result, "time_scale", self.time_scale) is None:
+            return replace(result, time_scale=self.time_scale)
+        return result
 
     def density_test(self, method: str = "local-cdf", **options):
         """Manipulation test of the score's density at the cutoff.
