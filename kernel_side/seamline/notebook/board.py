@@ -456,7 +456,9 @@ class Board(Scheduler):
     def __repr__(self) -> str:
         state = self.state()
         s = state.spec
-        head = f"<Board {self.name}: {s['score']} at {s['cutoff']:g}, outcome {state.options['outcome']}"
+        cutoff = s["cutoff"]
+        cutoff = f"{cutoff:g}" if isinstance(cutoff, (int, float)) else str(cutoff)   # a date cutoff: as given
+        head = f"<Board {self.name}: {s['score']} at {cutoff}, outcome {state.options['outcome']}"
         fit = state.results.get("fit")
         if fit is not None and not isinstance(fit, NotApplicable) and "fit" not in state.pending:
             lo, hi = fit.robust_conf_int

@@ -21,7 +21,8 @@ from typing import Any
 import pandas as pd
 
 from ..results.base import CAUTION
-from . import charts
+from ..time_score import TIME_CAUTION
+from . import charts, time_axes
 
 __all__ = [
     "PANELS",
@@ -328,7 +329,7 @@ def header_html(board) -> str:
     parts.append(
         f'<div style="font-size:14px"><b>{_esc(name)}</b>: {kind} cutoff design &mdash; '
         f"<code>{_esc(fit.outcome)}</code> at <code>{_esc(fit.score)}</code> = "
-        f"{_esc(charts._short(fit.cutoff))} (treated side: {_esc(fit.treated)}, "
+        f"{_esc(time_axes.cutoff_text(time_axes.scale_of(fit), fit.cutoff))} (treated side: {_esc(fit.treated)}, "
         f"comparison side: {untreated}) &middot; <span class=\"seamline-status\">{status}</span></div>")
     lo, hi = fit.robust_conf_int
     level = f"{100 * fit.level:g}%"
@@ -341,8 +342,10 @@ def header_html(board) -> str:
         f"<b>{_esc(_number(fit.estimate))}</b> (se {_esc(_number(fit.std_error))}); robust {level} CI "
         f"<b>[{_esc(_number(lo))}, {_esc(_number(hi))}]</b>, {_esc(_p_text(fit.robust_p_value))}</div>")
     h_below, h_above = fit.bandwidth
-    bw = charts._bandwidth_text(fit.bandwidth)
-    donut = (f"; {_count(fit.n_donut)} inside the donut of radius {_esc(charts._short(fit.donut))}"
+    dates = time_axes.scale_of(fit)     # a date score: bandwidth and radius in its unit
+    bw = charts._bandwidth_text(fit.bandwidth, dates)
+    radius = charts._short(fit.donut) if dates is None else dates.length(float(fit.donut))
+    donut = (f"; {_count(fit.n_donut)} inside the donut of radius {_esc(radius)}"
              if getattr(fit, "donut", 0) else "")
     parts.append(
         f'<div style="font-size:12px;color:var(--jp-ui-font-color2, #555)">'
@@ -361,6 +364,9 @@ def header_html(board) -> str:
     if stale_fit:
         parts.append("</div>")
     parts.append(f'<div class="seamline-caution" style="{_NOTE}">{_esc(CAUTION)}</div>')
+    if dates is not None:
+        parts.append(f'<div class="seamline-caution seamline-time-caution" style="{_NOTE}">'
+                     f"{_esc(TIME_CAUTION)}</div>")
     parts.append(_checks_html(board))
     parts.append(_warnings_html(_design_warnings(board, fit)))
     parts.extend(error_html(m) for m in _panel_errors(board, "header"))
