@@ -119,13 +119,17 @@ def dated(chart, scale, alt):
 
 
 def _rewrite(chart, scale, alt, converted) -> None:
+    data = _set(chart, "data")
     for child in _set(chart, "layer") or ():
+        if isinstance(data, pd.DataFrame) and _set(child, "data") is None:
+            child.data = data        # a layer inherits its parent's frame: convert it as its own
         _rewrite(child, scale, alt, converted)
     encoding = _set(chart, "encoding")
-    data = _set(chart, "data")
     if encoding is None or not isinstance(data, pd.DataFrame):
         return
     x = _set(encoding, "x")
+    if _set(x, "type") == "temporal" or str(_set(x, "shorthand") or "").endswith(":T"):
+        return                       # already dated
     fields = [f for f in (_field(x), _field(_set(encoding, "x2"))) if f and f in data.columns]
     if not fields:
         return
