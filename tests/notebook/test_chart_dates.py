@@ -201,3 +201,14 @@ def test_board_header_and_tables_state_dates_and_units(date_board):
     assert all(str(d).endswith(("days", "day")) for d in donut["radius_duration"])
     assert "bandwidth (days)" in html and "Cutoff date" in html
     assert repr(date_board).startswith("<Board visits: visit at 2024-07-01")
+
+
+def test_a_board_with_a_date_cutoff_on_a_numeric_score_shows_the_named_error():
+    frame = visits(n=400)
+    frame["days"] = (frame["visit"] - CUTOFF).dt.days
+    board = Board("wrong", {"score": "days", "cutoff": "2024-07-01", "outcome": "y"}, {}, data=frame)
+    board.wait()
+    message = board.errors["fit"]
+    assert "`cutoff` must be a number for the numeric score 'days'" in message
+    assert "declare a date column as the score" in message
+    assert "must be a number for the numeric score" in static.header_html(board)   # the kernel keeps working

@@ -567,7 +567,13 @@ class Design:
     def _distance(self, value, argument: str) -> float:
         """A date (or a number already in score units) as the distance from a date score's cutoff."""
         if isinstance(value, str) or is_time_value(value):
-            scale, stamp = self.time_scale, pd.Timestamp(value)
+            scale = self.time_scale
+            try:
+                stamp = pd.Timestamp(value)
+            except ValueError:
+                raise CutoffTypeError(f"`{argument}` must be dates (or distances in {scale.unit}) for the date score "
+                                      f"{self.score!r}; got {value!r}. Write dates as ISO dates, e.g. "
+                                      "[\"2024-03-01\"].") from None
             if stamp.tzinfo is None and scale.cutoff.tzinfo is not None:
                 stamp = stamp.tz_localize(scale.cutoff.tzinfo)
             try:
