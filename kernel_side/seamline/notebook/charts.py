@@ -696,7 +696,8 @@ def placebo_chart(placebo, *, cutoff: float | None = None, score: str | None = N
     table = placebo.table()
     low, high = _ci_columns(table)
     treated = treated or getattr(placebo, "treated", None) or "above"
-    score = score or getattr(placebo, "score", None) or "score"
+    dates = time_axes.scale_of(placebo)
+    score = score or getattr(placebo, "score", None) or ("date" if dates is not None else "score")
     if cutoff is None:
         cutoff = getattr(placebo, "true_cutoff", None)
         if cutoff is None:
@@ -715,7 +716,6 @@ def placebo_chart(placebo, *, cutoff: float | None = None, score: str | None = N
     outcome = getattr(placebo, "outcome", None)
     layers = _estimate_path(alt, data, "at", f"placebo cutoff ({score})", color,
                             f"jump in {outcome}" if outcome else "estimate")
-    dates = time_axes.scale_of(placebo)
     if cutoff is not None:
         label = "true cutoff" if dates is None else f"true cutoff {time_axes.cutoff_text(dates, cutoff)}"
         layers.append(_cutoff_rule(alt, float(cutoff), label=label))

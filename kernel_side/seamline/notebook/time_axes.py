@@ -148,7 +148,9 @@ def _rewrite(chart, scale, alt, converted) -> None:
     chart.data = frame
     spec = x.to_dict(validate=False)
     options = {"title": spec["title"]} if "title" in spec else {}
-    encoding.x = alt.X(f"{fields[0]}:T", scale=alt.Scale(type="utc", nice=False),
+    # "nice" as the numeric axis had it (layers that did not say leave it to the shared scale)
+    nice = {"nice": bool(spec["scale"]["nice"])} if "nice" in spec.get("scale", {}) else {}
+    encoding.x = alt.X(f"{fields[0]}:T", scale=alt.Scale(type="utc", **nice),
                        axis=alt.Axis(format=axis_format(scale), labelOverlap=True, tickCount=5), **options)
     if len(fields) > 1:
         encoding.x2 = alt.X2(f"{fields[1]}:T")
