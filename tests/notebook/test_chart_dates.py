@@ -200,6 +200,7 @@ def test_board_header_and_tables_state_dates_and_units(date_board):
     donut = date_board.results["donut"].table()
     assert all(str(d).endswith(("days", "day")) for d in donut["radius_duration"])
     assert "bandwidth (days)" in html and "Cutoff date" in html
+    assert "Bandwidth selectors (days)" in static.panel_html(date_board, "bandwidths", charts=False)
     assert repr(date_board).startswith("<Board visits: visit at 2024-07-01")
 
 

@@ -154,14 +154,14 @@ def _warnings_html(warnings: Iterable[str]) -> str:
             f'<ul style="margin:2px 0 0 0;padding-left:18px">{body}</ul></div>')
 
 
-def _table_html(obj) -> str:
+def _table_html(obj, title: str = "") -> str:
     """HTML of a result table through the result's own (escaping) renderer."""
     if obj is None:
         return ""
     if isinstance(obj, pd.DataFrame):
         from ..export.render import to_html
         from ..export.table_model import from_dataframe
-        return to_html(from_dataframe(obj, title=""))
+        return to_html(from_dataframe(obj, title=title))
     render = getattr(obj, "_repr_html_", None)
     if render is None:
         return f"<pre>{_esc(str(obj))}</pre>"
@@ -440,9 +440,22 @@ def _estimate_panel(board) -> str:
     return f'<div style="{_ROW}">{"".join(pieces)}</div>'
 
 
+class _Titled:
+    """A plain table shown under a title (e.g. the selectors' bandwidths with their unit)."""
+
+    def __init__(self, frame: pd.DataFrame, title: str):
+        self.frame, self.title = frame, title
+
+    def _repr_html_(self) -> str:
+        return _table_html(self.frame, self.title)
+
+
 def _bandwidths_panel(board) -> str:
     selectors = _results(board).get("bandwidths")
-    extra = [selectors] if isinstance(selectors, pd.DataFrame) else []
+    dates = time_axes.scale_of(_fit(board))
+    if isinstance(selectors, pd.DataFrame) and dates is not None:
+        selectors = _Titled(selectors, f"Bandwidth selectors ({dates.unit})")
+    extra = [selectors] if isinstance(selectors, (pd.DataFrame, _Titled)) else []
     return _result_block(board, "sensitivity", "sensitivity", extra_tables=extra)
 
 
