@@ -117,6 +117,13 @@ def test_tooltips_show_the_dates_of_the_table(dated):
     fields = [t["field"] for t in layer["encoding"]["tooltip"]]
     assert "at__date" in fields
     assert sorted(r["at__date"] for r in rows) == sorted(placebo.table()["cutoff_date"])
+    dots = [(layer, rows) for layer, rows in x_layers(charts.estimate_chart(design.bins(), fit))
+            if layer["mark"]["type"] == "circle"][0]
+    tips = {t.get("title", t["field"]): t["field"] for t in dots[0]["encoding"]["tooltip"]}
+    assert tips["bin from"] == "left__date" and tips["bin to"] == "right__date"
+    bins = design.bins().table()
+    want = {(CUTOFF + pd.to_timedelta(v, unit="D")).date().isoformat() for v in bins["left"]}
+    assert {r["left__date"] for r in dots[1]} <= want
 
 
 def test_a_time_zone_score_shows_its_own_wall_clock_dates():

@@ -364,7 +364,7 @@ def estimate_chart(bins, fit=None, *, global_polynomial: bool = False, y_title: 
     subtitle.append(f"dots: bin means with {_pct(level)} CIs; lines: local polynomial fits with bands"
                     + ("; " + notes[0] if notes else ""))
     chart = alt.layer(*layers).properties(width=WIDTH, height=HEIGHT, title=_title(alt, title, subtitle))
-    return _configure(time_axes.dated(chart, dates, alt), configure=configure)
+    return _configure(time_axes.dated(chart, dates, alt, ("left", "right")), configure=configure)
 
 
 def _y_domain(series, pad: float = 0.06) -> list[float] | None:
@@ -630,8 +630,8 @@ def density_chart(density, *, score: str | None = None, treated: str | None = No
     layers = [
         alt.Chart(hist).mark_rect(opacity=0.28, stroke="white", strokeWidth=0.5).encode(
             x=alt.X("left:Q", title=f"{score}", scale=alt.Scale(zero=False, nice=False)),
-            x2="right:Q", y=alt.Y("density:Q", title="density" if dates is None else f"density (per {dates.unit[:-1]})"),
-            y2=alt.datum(0), color=color,
+            x2="right:Q", y2=alt.datum(0), color=color,
+            y=alt.Y("density:Q", title="density" if dates is None else f"density (per {dates.unit[:-1]})"),
             tooltip=[alt.Tooltip("left:Q", title="bin from"), alt.Tooltip("right:Q", title="bin to"),
                      alt.Tooltip("count:Q", title="observations")]),
     ]

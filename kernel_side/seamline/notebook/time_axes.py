@@ -103,27 +103,28 @@ def _set(obj, name: str):
     return None if value is None or type(value).__name__ == "UndefinedType" else value
 
 
-def dated(chart, scale, alt):
+def dated(chart, scale, alt, tooltip_fields: tuple[str, ...] = ()):
     """``chart`` with its score axis (x, x2) drawn as dates of ``scale``; the chart is not modified.
 
     Every sub-chart whose x channel reads a field of its own data frame gets that field (and its
     x2 field) as timestamps, a temporal x on a UTC scale with ISO ticks, and tooltips on those fields
-    replaced by the date written out. Layers that share a frame object share one converted copy.
+    replaced by the date written out. ``tooltip_fields`` are further score columns (e.g. a bin's
+    edges) whose tooltips show dates too. Layers that share a frame object share one converted copy.
     """
     if scale is None:
         return chart
     chart = chart.copy(deep=True)
     converted: dict[int, pd.DataFrame] = {}
-    _rewrite(chart, scale, alt, converted)
+    _rewrite(chart, scale, alt, converted, tuple(tooltip_fields))
     return chart
 
 
-def _rewrite(chart, scale, alt, converted) -> None:
+def _rewrite(chart, scale, alt, converted, extra=()) -> None:
     data = _set(chart, "data")
     for child in _set(chart, "layer") or ():
         if isinstance(data, pd.DataFrame) and _set(child, "data") is None:
             child.data = data        # a layer inherits its parent's frame: convert it as its own
-        _rewrite(child, scale, alt, converted)
+        _rewrite(child, scale, alt, converted, extra)
     encoding = _set(chart, "encoding")
     if encoding is None or not isinstance(data, pd.DataFrame):
         return
@@ -156,7 +157,11 @@ def _rewrite(chart, scale, alt, converted) -> None:
         encoding.x2 = alt.X2(f"{fields[1]}:T")
     tooltips = _set(encoding, "tooltip")
     if isinstance(tooltips, (list, tuple)):
-        encoding.tooltip = [_date_tooltip(t, fields, alt) for t in tooltips]
+        shown = [f for f in extra if f in frame.columns and f not in fields]
+        for f in shown:
+            if f + _DATE_SUFFIX not in frame.columns:
+                frame[f + _DATE_SUFFIX] = _labels(scale, data[f])
+        encoding.tooltip = [_date_tooltip(t, [*fields, *shown], alt) for t in tooltips]
 
 
 def _date_tooltip(tooltip, fields, alt):
