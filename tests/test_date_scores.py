@@ -74,7 +74,9 @@ def test_diagnostics_equal_those_on_the_distance():
     assert (a.statistic, a.p_value) == pytest.approx((b.statistic, b.p_value), rel=TOL)
     pd.testing.assert_frame_equal(dated.bins().table(), plain.bins().table(), rtol=TOL)
     pd.testing.assert_frame_equal(dated.balance().table(), plain.balance().table(), rtol=TOL)
-    pd.testing.assert_frame_equal(dated.donut().table(), plain.donut().table(), rtol=TOL)
+    donut = dated.donut().table()
+    pd.testing.assert_frame_equal(donut.drop(columns="radius_duration"), plain.donut().table(), rtol=TOL)
+    assert list(donut["radius_duration"]) == [f"{r:.4g} {'day' if r == 1 else 'days'}" for r in donut["radius"]]
     placebo = dated.placebo_cutoffs().table()
     pd.testing.assert_frame_equal(placebo.drop(columns="cutoff_date"), plain.placebo_cutoffs().table(), rtol=TOL)
 
@@ -164,6 +166,32 @@ def test_a_score_mixing_dates_and_other_values_is_refused():
     mixed.loc[7, "visit_date"] = "n/a"
     with pytest.raises(ColumnTypeError, match=r"must hold dates only; got a mix of dates and str .*'n/a' at row 7"):
         seamline.Design(mixed, score="visit_date", cutoff="2024-07-01", outcome="y")
+
+
+def test_a_score_mixing_numbers_and_dates_is_named_a_mix_whatever_comes_first():
+    df = visits(n=300)
+    mixed = df.assign(visit_date=df["visit_date"].astype(object))
+    mixed.loc[0, "visit_date"] = 3.5
+    with pytest.raises(ColumnTypeError, match=r"must hold dates only; got a mix of dates and float .*3.5 at row 0"):
+        seamline.Design(mixed, score="visit_date", cutoff="2024-07-01", outcome="y")
+
+
+def test_a_score_mixing_time_zones_is_refused():
+    df = visits(n=300)
+    mixed = df.assign(visit_date=df["visit_date"].astype(object))
+    mixed.loc[0, "visit_date"] = pd.Timestamp("2024-01-01", tz="UTC")
+    with pytest.raises(ColumnTypeError, match=r"must use one time zone; got \['None', 'UTC'\].*utc=True"):
+        seamline.Design(mixed, score="visit_date", cutoff="2024-07-01", outcome="y")
+
+
+def test_placebo_cutoffs_that_are_not_dates_are_refused():
+    design = seamline.Design(visits(), score="visit_date", cutoff="2024-07-01", outcome="y")
+    with pytest.raises(CutoffTypeError, match=r"`cutoffs` must be dates .* got 'soon'. Write dates as ISO dates"):
+        design.placebo_cutoffs(["soon"])
+    # a date is the same placebo as its distance in days (pandas' own date arithmetic)
+    by_date = design.placebo_cutoffs(["2024-05-01"]).table()
+    by_days = design.placebo_cutoffs([(pd.Timestamp("2024-05-01") - CUTOFF).days]).table()
+    pd.testing.assert_frame_equal(by_date, by_days)
 
 
 def test_units_are_checked():

@@ -58,8 +58,9 @@ def is_time_column(column: pd.Series) -> bool:
         return True
     if column.dtype != object:
         return False
-    sample = column.dropna()
-    return len(sample) > 0 and is_time_value(sample.iloc[0])
+    # any date makes it a date score, so a column mixing numbers and dates is named as a mix
+    # (by _as_datetimes) rather than failing later as a numeric score with a date cutoff
+    return bool(column.dropna().map(is_time_value).any())
 
 
 def _time_zone(value) -> Any:

@@ -270,8 +270,9 @@ class Design:
 
     def _bandwidths_for(self, spec: FitSpec, prep: Prepared, fuzzy: bool, n_main: int):
         rule = spec.bandwidth
-        if isinstance(rule, tuple) and spec.pilot_bandwidth is not None:
-            return rule, spec.pilot_bandwidth, "manual", []  # nothing to select
+        if isinstance(rule, tuple) and (spec.pilot_bandwidth is not None or self.cluster is not None):
+            b = spec.pilot_bandwidth if spec.pilot_bandwidth is not None else rule  # clustered: b = h below
+            return rule, b, "manual", []  # nothing to select
         sel, lam = self._selection(spec, prep, fuzzy, n_main)
         warnings = list(sel.warnings)
         b = (sel.b_common, sel.b_common)
@@ -291,6 +292,14 @@ class Design:
             h = rule
         if spec.pilot_bandwidth is not None:
             b = spec.pilot_bandwidth
+        elif self.cluster is not None:
+            # Clustered samples: the bias fit uses the main bandwidth (b = h). Calonico, Cattaneo and
+            # Farrell (2018, JASA, "On the effect of bias estimation on coverage accuracy in
+            # nonparametric inference") show that rho = h/b = 1 gives the robust bias-corrected interval
+            # good coverage. The MSE pilot, selected from CR0 cluster sums, came out small in our
+            # clustered Monte Carlo, so few clusters carried the bias fit and intervals under-covered
+            # (tests/benchmarks/validate_clusters.py). A pilot the user gives is kept.
+            b = h
         return h, b, ("manual" if isinstance(rule, tuple) else rule), warnings
 
     # ---- the public API ------------------------------------------------------------------------
@@ -307,7 +316,8 @@ class Design:
             (Imbens-Kalyanaraman 2012), a number, or a pair (below, above) in score units.
         kernel : "triangular", "uniform" or "epanechnikov".
         degree : polynomial degree on each side (0-3); bias_degree : degree of the bias fit (default
-            degree + 1); pilot_bandwidth : bandwidth of the bias fit (default: its MSE-optimal rule).
+            degree + 1); pilot_bandwidth : bandwidth of the bias fit (default: its MSE-optimal rule;
+            with ``cluster``, the main bandwidth, b = h, after Calonico, Cattaneo and Farrell 2018).
         variance : "neighbors" (3 nearest neighbours), "hc0", "hc1", "hc2" or "hc3"; a design with
             ``cluster`` always uses the cluster-robust variance.
         level : confidence level; donut : exclude observations closer than this to the cutoff;
@@ -518,11 +528,18 @@ class Design:
         from . import diagnostics
         key = diagnostics.cache_key(name, args, kwargs)
         if key is None:  # an argument that cannot be a key (e.g. an unhashable object): no caching
-            return getattr(diagnostics, name)(self, *args, **kwargs)
+            return self._with_time_scale(getattr(diagnostics, name)(self, *args, **kwargs))
         found = self._diagnostics.get(key)
         if found is None:
-            found = self._diagnostics[key] = getattr(diagnostics, name)(self, *args, **kwargs)
+            found = self._diagnostics[key] = self._with_time_scale(getattr(diagnostics, name)(self, *args, **kwargs))
         return found
+
+    def _with_time_scale(self, result):
+        """A date score's result carries the TimeScale, so tables and charts built from the result
+        alone can speak in dates and durations."""
+        if self.time_scale is not None and getattr(result, "time_scale", self.time_scale) is None:
+            return replace(result, time_scale=self.time_scale)
+        return result
 
     def density_test(self, method: str = "local-cdf", **options):
         """Manipulation test of the score's density at the cutoff.
@@ -554,7 +571,13 @@ class Design:
     def _distance(self, value, argument: str) -> float:
         """A date (or a number already in score units) as the distance from a date score's cutoff."""
         if isinstance(value, str) or is_time_value(value):
-            scale, stamp = self.time_scale, pd.Timestamp(value)
+            scale = self.time_scale
+            try:
+                stamp = pd.Timestamp(value)
+            except ValueError:
+                raise CutoffTypeError(f"`{argument}` must be dates (or distances in {scale.unit}) for the date score "
+                                      f"{self.score!r}; got {value!r}. Write dates as ISO dates, e.g. "
+                                      "[\"2024-03-01\"].") from None
             if stamp.tzinfo is None and scale.cutoff.tzinfo is not None:
                 stamp = stamp.tz_localize(scale.cutoff.tzinfo)
             try:

@@ -71,6 +71,8 @@ COLUMN_LABELS: Mapping[str, str] = {
     "cutoff": "Cutoff",
     "side": "Side",
     "radius": "Donut radius",
+    "cutoff_date": "Cutoff date",           # date scores: the placebo cutoff written as a date
+    "radius_duration": "Donut radius (duration)",
     "covariate": "Covariate",
     "mean_below": "Mean (below)",
     "mean_above": "Mean (above)",

@@ -60,26 +60,28 @@ def _percent(level: float) -> str:
 def _bandwidth_sentence(fit) -> str:
     rule, h = fit.bandwidth_rule, fit.bandwidth
     scale = getattr(fit, "time_scale", None)
-    units = f" (in units of {fit.score})" if scale is None else f" ({scale.unit} from the cutoff date)"
+    units = f" (in units of {fit.score})" if scale is None else ""   # a date score: the unit follows each length
     if rule == "mse":
         return (f"The bandwidth is the common mean-squared-error-optimal bandwidth of Calonico, Cattaneo and "
-                f"Titiunik (2014), {_pair(h)}{units}.")
+                f"Titiunik (2014), {_pair(h, _unit(scale))}{units}.")
     if rule == "mse-split":
         return (f"The bandwidths are mean-squared-error optimal for each side separately (Calonico, Cattaneo "
-                f"and Titiunik 2014): {_pair(h)}{units}.")
+                f"and Titiunik 2014): {_pair(h, _unit(scale))}{units}.")
     if rule == "coverage":
         return (f"The bandwidth minimises the coverage error of the robust confidence interval (Calonico, "
-                f"Cattaneo and Farrell 2020): {_pair(h)}{units}.")
+                f"Cattaneo and Farrell 2020): {_pair(h, _unit(scale))}{units}.")
     if rule == "ik":
-        return f"The bandwidth is the Imbens and Kalyanaraman (2012) bandwidth, {_pair(h)}{units}."
-    return f"The bandwidth is fixed by the analyst at {_pair(h)}{units}."
+        return f"The bandwidth is the Imbens and Kalyanaraman (2012) bandwidth, {_pair(h, _unit(scale))}{units}."
+    return f"The bandwidth is fixed by the analyst at {_pair(h, _unit(scale))}{units}."
 
 
 def _design_sentence(fit) -> str:
     what = "change in the slope" if fit.derivative == 1 else "jump"
     side = ("at or above the cutoff" if fit.treated == "above" else "below the cutoff")
     # The cutoff is written as the tables' titles write it (``:g``).
-    text = (f"We estimate the {what} in {fit.outcome} at the cutoff {fit.score} = {fit.cutoff_label}, "
+    scale = getattr(fit, "time_scale", None)
+    dated = "" if scale is None else f" (a date score, measured in {scale.unit} from the cutoff date)"
+    text = (f"We estimate the {what} in {fit.outcome} at the cutoff {fit.score} = {fit.cutoff_label}{dated}, "
             f"where units with a score {side} are assigned to treatment")
     if fit.kind == "fuzzy" and fit.first_stage is not None:
         text += (f". Take-up ({fit.first_stage.outcome}) is partial, so the design is fuzzy: the estimate is the "
@@ -99,11 +101,18 @@ def _estimator_sentence(fit) -> str:
     return text + "."
 
 
+def _unit(scale) -> str:
+    """" days" after a length of a date score (``_pair(h, _unit(scale))`` -> "41.5 days on both sides")."""
+    return "" if scale is None else f" {scale.unit}"
+
+
 def _bias_sentence(fit) -> str:
     name = _DEGREE_NAMES.get(fit.bias_degree, f"degree-{fit.bias_degree}")
+    same = (" (equal to the main bandwidth, the default with clusters; Calonico, Cattaneo and Farrell 2018)"
+            if getattr(fit, "n_clusters", None) and tuple(fit.pilot_bandwidth) == tuple(fit.bandwidth) else "")
     return (f"The bias correction uses a {name} fit (degree {fit.bias_degree}) with pilot bandwidth "
-            f"{_pair(fit.pilot_bandwidth)}, and inference uses robust bias-corrected confidence intervals "
-            f"(Calonico, Cattaneo and Titiunik 2014).")
+            f"{_pair(fit.pilot_bandwidth, _unit(getattr(fit, 'time_scale', None)))}{same}, and inference uses "
+            f"robust bias-corrected confidence intervals (Calonico, Cattaneo and Titiunik 2014).")
 
 
 def _variance_sentence(fit, weights: str | None) -> str:

@@ -34,6 +34,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import shown
+from . import time_axes
 
 __all__ = [
     "CHART_NAMES",
@@ -303,6 +304,7 @@ def estimate_chart(bins, fit=None, *, global_polynomial: bool = False, y_title: 
     names = _side_names(treated)
     scale = _side_scale(alt, treated)
     level = _level(bins, _level(fit))
+    dates = time_axes.scale_of(bins, fit)    # a date score: dates on the x axis (time_axes.dated)
 
     dots = table.copy()
     x_pos = dots["score_mean"].where(np.isfinite(dots["score_mean"]), (dots["left"] + dots["right"]) / 2)
@@ -354,17 +356,17 @@ def estimate_chart(bins, fit=None, *, global_polynomial: bool = False, y_title: 
 
     what = "Take-up" if y_title and "take-up" in y_title.lower() else str(outcome)
     if title is None:
-        title = f"{what} around the cutoff {score} = {_short(cutoff)}"
+        title = f"{what} around the cutoff {score} = {time_axes.cutoff_text(dates, cutoff)}"
     subtitle = []
     if fit is not None:
         lo_ci, hi_ci = fit.robust_conf_int
         subtitle.append(
             f"jump {number(fit.estimate)}; robust {_pct(fit.level)} CI [{number(lo_ci)}, {number(hi_ci)}]; "
-            f"bandwidth {_bandwidth_text(fit.bandwidth)} (shaded)")
+            f"bandwidth {_bandwidth_text(fit.bandwidth, dates)} (shaded)")
     subtitle.append(f"dots: bin means with {_pct(level)} CIs; lines: local polynomial fits with bands"
                     + ("; " + notes[0] if notes else ""))
     chart = alt.layer(*layers).properties(width=WIDTH, height=HEIGHT, title=_title(alt, title, subtitle))
-    return _configure(chart, configure=configure)
+    return _configure(time_axes.dated(chart, dates, alt, ("left", "right")), configure=configure)
 
 
 def _y_domain(series, pad: float = 0.06) -> list[float] | None:
@@ -384,11 +386,12 @@ def _cutoff_from_bins(table: pd.DataFrame) -> float:
     return float(table["right"].max())
 
 
-def _bandwidth_text(bandwidth) -> str:
+def _bandwidth_text(bandwidth, dates=None) -> str:
     h_below, h_above = (float(h) for h in bandwidth)
     if h_below == h_above:
-        return number(h_below)
-    return f"{number(h_below)} below, {number(h_above)} above"
+        return time_axes.length_text(dates, h_below, number)
+    return (f"{time_axes.length_text(dates, h_below, number)} below, "
+            f"{time_axes.length_text(dates, h_above, number)} above")
 
 
 def first_stage_chart(bins, fit, *, configure: bool = True):
@@ -464,7 +467,11 @@ def sensitivity_chart(sensitivity, *, fit=None, bandwidths: pd.DataFrame | None 
                        scale=alt.Scale(range=[TREATED, UNTREATED, MUTED, INK]))
              if several else alt.value(TREATED))
     x_title = "bandwidth below the cutoff" if asymmetric else "bandwidth"
-    x_title += f" ({_attr((fit, sensitivity), 'score', 'score units')} units)" if fit is not None else ""
+    dates = time_axes.scale_of(sensitivity, fit)
+    if dates is not None:
+        x_title += f" ({dates.unit})"
+    elif fit is not None:
+        x_title += f" ({_attr((fit, sensitivity), 'score', 'score units')} units)"
     x_enc = alt.X("h:Q", title=x_title, scale=alt.Scale(zero=False, nice=True))
     y_title = f"jump in {_attr((sensitivity, fit), 'outcome', 'the outcome')}"
     tooltip = [alt.Tooltip("label:N", title="bandwidth"), alt.Tooltip("h:Q", format=".4g"),
@@ -621,10 +628,12 @@ def density_chart(density, *, score: str | None = None, treated: str | None = No
     cutoff = getattr(density, "cutoff", None)
     if cutoff is None:
         cutoff = _cutoff_from_bins(hist)
+    dates = time_axes.scale_of(density)
     layers = [
         alt.Chart(hist).mark_rect(opacity=0.28, stroke="white", strokeWidth=0.5).encode(
             x=alt.X("left:Q", title=f"{score}", scale=alt.Scale(zero=False, nice=False)),
-            x2="right:Q", y=alt.Y("density:Q", title="density"), y2=alt.datum(0), color=color,
+            x2="right:Q", y2=alt.datum(0), color=color,
+            y=alt.Y("density:Q", title="density" if dates is None else f"density (per {dates.unit[:-1]})"),
             tooltip=[alt.Tooltip("left:Q", title="bin from"), alt.Tooltip("right:Q", title="bin to"),
                      alt.Tooltip("count:Q", title="observations")]),
     ]
@@ -645,7 +654,7 @@ def density_chart(density, *, score: str | None = None, treated: str | None = No
     subtitle = [method_text, f"bars: histogram; lines: fitted density with {_pct(_level(density))} band; "
                 "a jump hints at sorting"]
     chart = alt.layer(*layers).properties(width=WIDTH, height=HEIGHT, title=_title(alt, title, subtitle))
-    return _configure(chart, configure=configure)
+    return _configure(time_axes.dated(chart, dates, alt), configure=configure)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -689,7 +698,8 @@ def placebo_chart(placebo, *, cutoff: float | None = None, score: str | None = N
     table = placebo.table()
     low, high = _ci_columns(table)
     treated = treated or getattr(placebo, "treated", None) or "above"
-    score = score or getattr(placebo, "score", None) or "score"
+    dates = time_axes.scale_of(placebo)
+    score = score or getattr(placebo, "score", None) or ("date" if dates is not None else "score")
     if cutoff is None:
         cutoff = getattr(placebo, "true_cutoff", None)
         if cutoff is None:
@@ -709,14 +719,15 @@ def placebo_chart(placebo, *, cutoff: float | None = None, score: str | None = N
     layers = _estimate_path(alt, data, "at", f"placebo cutoff ({score})", color,
                             f"jump in {outcome}" if outcome else "estimate")
     if cutoff is not None:
-        layers.append(_cutoff_rule(alt, float(cutoff), label="true cutoff"))
+        label = "true cutoff" if dates is None else f"true cutoff {time_axes.cutoff_text(dates, cutoff)}"
+        layers.append(_cutoff_rule(alt, float(cutoff), label=label))
     level = _level(placebo)
     chart = alt.layer(*layers).properties(
         width=WIDTH, height=HEIGHT,
         title=_title(alt, "Placebo cutoffs",
                      [f"estimate and robust {_pct(level)} CI at cutoffs where no jump is expected",
                       "each side uses only its own observations"]))
-    return _configure(chart, configure=configure)
+    return _configure(time_axes.dated(chart, dates, alt), configure=configure)
 
 
 def donut_chart(donut, *, fit=None, configure: bool = True):
@@ -740,7 +751,10 @@ def donut_chart(donut, *, fit=None, configure: bool = True):
     data = _records(_finite(table.assign(radius=table["radius"], lo=table[low], hi=table[high]),
                             ["radius", "estimate"])[["radius", "estimate", "lo", "hi"]])
     outcome = _attr((donut, fit), "outcome", None)
-    layers = _estimate_path(alt, data, "radius", f"donut radius ({score} units excluded each side)",
+    dates = time_axes.scale_of(donut, fit)
+    radius_title = time_axes.unit_title(dates, f"donut radius ({score} units excluded each side)",
+                                        "donut radius excluded each side")
+    layers = _estimate_path(alt, data, "radius", radius_title,
                             alt.value(TREATED), f"jump in {outcome}" if outcome else "estimate")
     level = _level(donut, _level(fit))
     chart = alt.layer(*layers).properties(

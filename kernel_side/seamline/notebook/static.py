@@ -22,7 +22,8 @@ import pandas as pd
 
 from ..errors import shown
 from ..results.base import CAUTION
-from . import charts, panels_designs
+from ..time_score import TIME_CAUTION
+from . import charts, panels_designs, time_axes
 
 __all__ = [
     "PANELS",
@@ -159,14 +160,14 @@ def _warnings_html(warnings: Iterable[str]) -> str:
             f'<ul style="margin:2px 0 0 0;padding-left:18px">{body}</ul></div>')
 
 
-def _table_html(obj) -> str:
+def _table_html(obj, title: str = "") -> str:
     """HTML of a result table through the result's own (escaping) renderer."""
     if obj is None:
         return ""
     if isinstance(obj, pd.DataFrame):   # a plain frame (the bandwidth rules): reader labels too
         from ..export.labels import labelled_model
         from ..export.render import to_html
-        return to_html(labelled_model(obj, title=""))
+        return to_html(labelled_model(obj, title=title))
     render = getattr(obj, "_repr_html_", None)
     if render is None:
         return f"<pre>{_esc(str(obj))}</pre>"
@@ -334,7 +335,7 @@ def header_html(board) -> str:
     parts.append(
         f'<div style="font-size:14px"><b>{_esc(name)}</b>: {kind} cutoff design &mdash; '
         f"<code>{_esc(fit.outcome)}</code> at <code>{_esc(fit.score)}</code> = "
-        f"{_esc(charts._short(fit.cutoff))} (treated side: {_esc(fit.treated)}, "
+        f"{_esc(time_axes.cutoff_text(time_axes.scale_of(fit), fit.cutoff))} (treated side: {_esc(fit.treated)}, "
         f"comparison side: {untreated}) &middot; <span class=\"seamline-status\">{status}</span></div>")
     parts.append(panels_designs.header_note(board))     # several cutoffs: which one the headline is
     lo, hi = fit.robust_conf_int
@@ -348,8 +349,10 @@ def header_html(board) -> str:
         f"<b>{_esc(_number(fit.estimate))}</b> (se {_esc(_number(fit.std_error))}); robust {level} CI "
         f"<b>[{_esc(_number(lo))}, {_esc(_number(hi))}]</b>, {_esc(_p_text(fit.robust_p_value))}</div>")
     h_below, h_above = fit.bandwidth
-    bw = charts._bandwidth_text(fit.bandwidth)
-    donut = (f"; {_count(fit.n_donut)} inside the donut of radius {_esc(charts._short(fit.donut))}"
+    dates = time_axes.scale_of(fit)     # a date score: bandwidth and radius in its unit
+    bw = charts._bandwidth_text(fit.bandwidth, dates)
+    radius = charts._short(fit.donut) if dates is None else dates.length(float(fit.donut))
+    donut = (f"; {_count(fit.n_donut)} inside the donut of radius {_esc(radius)}"
              if getattr(fit, "donut", 0) else "")
     parts.append(
         f'<div style="font-size:12px;color:var(--jp-ui-font-color2, #555)">'
@@ -368,6 +371,9 @@ def header_html(board) -> str:
     if stale_fit:
         parts.append("</div>")
     parts.append(f'<div class="seamline-caution" style="{_NOTE}">{_esc(CAUTION)}</div>')
+    if dates is not None:
+        parts.append(f'<div class="seamline-caution seamline-time-caution" style="{_NOTE}">'
+                     f"{_esc(TIME_CAUTION)}</div>")
     parts.append(_checks_html(board))
     parts.append(_warnings_html(_design_warnings(board, fit)))
     parts.extend(error_html(m) for m in _panel_errors(board, "header"))
@@ -442,9 +448,22 @@ def _estimate_panel(board) -> str:
     return f'<div style="{_ROW}">{"".join(pieces)}</div>'
 
 
+class _Titled:
+    """A plain table shown under a title (e.g. the selectors' bandwidths with their unit)."""
+
+    def __init__(self, frame: pd.DataFrame, title: str):
+        self.frame, self.title = frame, title
+
+    def _repr_html_(self) -> str:
+        return _table_html(self.frame, self.title)
+
+
 def _bandwidths_panel(board) -> str:
     selectors = _results(board).get("bandwidths")
-    extra = [selectors] if isinstance(selectors, pd.DataFrame) else []
+    dates = time_axes.scale_of(_fit(board))
+    if isinstance(selectors, pd.DataFrame) and dates is not None:
+        selectors = _Titled(selectors, f"Bandwidth selectors ({dates.unit})")
+    extra = [selectors] if isinstance(selectors, (pd.DataFrame, _Titled)) else []
     return _result_block(board, "sensitivity", "sensitivity", extra_tables=extra)
 
 

@@ -53,6 +53,7 @@ class DensityTest(Reported):
     tie_share: float
     estimate: object = field(repr=False)   # the core DensityEstimate with grid and histogram arrays
     warnings: tuple[str, ...] = ()
+    time_scale: object = None      # a date score's TimeScale (set by Design; None: numeric score)
 
     def table(self) -> pd.DataFrame:
         e = self.estimate
@@ -125,12 +126,14 @@ class Sensitivity(Reported):
     selected: tuple[float, float]
     fits: tuple[Fit, ...] = field(repr=False, default=())
     warnings: tuple[str, ...] = ()
+    time_scale: object = None      # a date score's TimeScale (bandwidths are then in its unit)
 
     def table(self) -> pd.DataFrame:
         return _frame(list(self.rows), ["label"])
 
     def title(self) -> str:
-        return f"Bandwidth sensitivity: {self.outcome}"
+        unit = "" if self.time_scale is None else f" (bandwidths in {self.time_scale.unit})"
+        return f"Bandwidth sensitivity: {self.outcome}{unit}"
 
     def notes(self) -> list[str]:
         return ["Rows \"0.5 x selected\" ... \"2 x selected\" scale the selected bandwidth; named rows use that "
@@ -148,6 +151,7 @@ class Placebo(Reported):
     fits: tuple[Fit, ...] = field(repr=False, default=())
     warnings: tuple[str, ...] = ()
     cutoff_dates: tuple[str, ...] = ()     # a date score's placebo cutoffs as dates (row order)
+    time_scale: object = None
 
     def table(self) -> pd.DataFrame:
         frame = _frame(list(self.rows), ["cutoff", "side"])
@@ -173,9 +177,13 @@ class Donut(Reported):
     outcome: str
     fits: tuple[Fit, ...] = field(repr=False, default=())
     warnings: tuple[str, ...] = ()
+    time_scale: object = None      # a date score's TimeScale: radii are then durations in its unit
 
     def table(self) -> pd.DataFrame:
-        return _frame(list(self.rows), ["radius", "n_excluded"])
+        frame = _frame(list(self.rows), ["radius", "n_excluded"])
+        if self.time_scale is not None:
+            frame.insert(1, "radius_duration", [self.time_scale.length(r) for r in frame["radius"]])
+        return frame
 
     def title(self) -> str:
         return f"Donut estimates: {self.outcome}"
@@ -199,6 +207,7 @@ class Bins(Reported):
     global_frame: pd.DataFrame | None = field(repr=False, default=None)
     fit: Fit | None = field(repr=False, default=None)
     warnings: tuple[str, ...] = ()
+    time_scale: object = None      # a date score's TimeScale (set by Design; None: numeric score)
 
     def table(self) -> pd.DataFrame:
         b = self.binned

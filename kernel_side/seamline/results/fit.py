@@ -161,9 +161,10 @@ class Fit(Reported):
 
     def specification(self) -> pd.DataFrame:
         """The options and counts behind the numbers, one row per item (below, above)."""
+        unit = "" if self.time_scale is None else f" ({self.time_scale.unit})"
         items = [
-            ("bandwidth", *self.bandwidth),
-            ("pilot (bias) bandwidth", *self.pilot_bandwidth),
+            (f"bandwidth{unit}", *self.bandwidth),
+            (f"pilot (bias) bandwidth{unit}", *self.pilot_bandwidth),
             ("observations used", *self.n_used),
             ("observations on the side", *self.n_total),
         ]
