@@ -7,7 +7,7 @@ may appear, raw or LaTeX/Markdown-escaped. The board's static copy (what a saved
 the command-line report show) and its methods paragraph state the usual caution exactly once.
 
 Data: the package's invented demo scenarios (a sharp design with covariates and clusters, a fuzzy
-design). These are presentation checks; the numbers are checked elsewhere against direct calls.
+design, cutoffs that differ by district with subgroups, two cumulative cutoffs). These are presentation checks; the numbers are checked elsewhere against direct calls.
 """
 from __future__ import annotations
 
@@ -15,6 +15,7 @@ import pandas as pd
 import pytest
 
 import seamline
+from seamline.demo_cutoffs import cumulative_grants_scenario, district_cutoffs_scenario
 from seamline.demo_data import fuzzy_scenario, sharp_scenario
 from seamline.notebook.board import boards
 from seamline.notebook.exports import EXPORTS, TABLE_FORMATS
@@ -29,6 +30,11 @@ def board_list():
     sharp, fuzzy = sharp_scenario(n=2000, seed=4), fuzzy_scenario(n=3000, seed=4)
     made = [seamline.board(sharp.data, name="sharp_board", **sharp.design_kwargs()).wait(),
             seamline.board(fuzzy.data, name="fuzzy_board", **fuzzy.design_kwargs()).wait()]
+    districts, grants = district_cutoffs_scenario(3000, seed=4), cumulative_grants_scenario(3000, seed=4)
+    made += [seamline.board(districts.data, name="district_board", groups="owner", effect=0.5,
+                            **districts.design_kwargs()).wait(),
+             seamline.board(grants.data, name="grants_board", groups="cooperative",
+                            **grants.design_kwargs()).wait()]
     yield made
     for b in boards():
         if id(b) not in live:
@@ -37,6 +43,8 @@ def board_list():
 
 def _current(board, what):
     result = board.results.get(EXPORTS[what])
+    if what == "decomposition" and getattr(result, "decomposition", None) is None:
+        return None                      # cumulative cutoffs have no pooled estimate to decompose
     return None if result is None or isinstance(result, NotApplicable) else result
 
 

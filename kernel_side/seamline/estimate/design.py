@@ -576,7 +576,7 @@ class Design:
                 stamp = pd.Timestamp(value)
             except ValueError:
                 raise CutoffTypeError(f"`{argument}` must be dates (or distances in {scale.unit}) for the date score "
-                                      f"{self.score!r}; got {value!r}. Write dates as ISO dates, e.g. "
+                                      f"{shown(self.score)}; got {shown(value)}. Write dates as ISO dates, e.g. "
                                       "[\"2024-03-01\"].") from None
             if stamp.tzinfo is None and scale.cutoff.tzinfo is not None:
                 stamp = stamp.tz_localize(scale.cutoff.tzinfo)
