@@ -54,7 +54,8 @@ from ..estimate.options import resolve
 from .compute import NodeCache, balance_rule, compute_graph, panel_key
 from .exports import CHART_FORMATS, TABLE_FORMATS, export_result, methods_text
 from .reactive import PANELS, DataIdentity, column_node, fingerprints, shared_fingerprints
-from .spec import (DESIGN_KEYS, OPTION_DEFAULTS, REQUIRED_KEYS, SPEC_KEYS, NotApplicable,
+from .inference_keys import INFERENCE_DEFAULTS
+from .spec import (DESIGN_KEYS, FIT_DEFAULTS, OPTION_DEFAULTS, REQUIRED_KEYS, SPEC_KEYS, NotApplicable,
                    coerce_value, lookup)
 from .spec import _EXAMPLE_COLUMN
 from . import scheduler
@@ -812,7 +813,7 @@ def _check_selected(spec: Mapping[str, Any], outcome: Any) -> str:
 
 
 def _validate_options(spec: Mapping[str, Any], selected: str, options: Mapping[str, Any]) -> None:
-    resolve(selected, has_covariates=bool(spec["covariates"]), **options)
+    resolve(selected, has_covariates=bool(spec["covariates"]), **{k: v for k, v in options.items() if k in FIT_DEFAULTS})
 
 
 def _sources_changed(old: Inputs, new: Inputs) -> set[str]:
@@ -846,7 +847,7 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
           bandwidth="mse", kernel: str = "triangular", degree: int = 1, bias_degree: int | None = None,
           pilot_bandwidth=None, variance: str = "neighbors", level: float = 0.95, donut: float = 0.0,
           derivative: int = 0, adjust: bool = False, name: str | None = None, data_name: str | None = None,
-          panels: Iterable[str] | None = None) -> Board:
+          panels: Iterable[str] | None = None, **inference) -> Board:
     """Build a live board from Python (the same board a ``%%cutoff`` cell makes).
 
     Parameters
@@ -858,6 +859,9 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
         The design, as for ``seamline.Design``.
     bandwidth, kernel, degree, bias_degree, pilot_bandwidth, variance, level, donut, derivative, adjust
         Fit options, as for ``Design.fit``.
+    smoothness, window, statistic, permutations, seed
+        Settings of the bias-aware interval and the local randomization tab (keyword only; see
+        ``seamline.notebook.inference_keys``).
     name : str, optional
         Shown in views (default "board<N>").
     data_name : str, optional
@@ -893,6 +897,11 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
     fit_options = dict(bandwidth=bandwidth, kernel=kernel, degree=degree, bias_degree=bias_degree,
                        pilot_bandwidth=pilot_bandwidth, variance=variance, level=level, donut=donut,
                        derivative=derivative, adjust=adjust)
+    unknown = sorted(set(inference) - set(INFERENCE_DEFAULTS))
+    if unknown:
+        raise InvalidOptionError(f"`board` got unknown settings {unknown!r}; use the design keys, the fit "
+                                 f"options or {', '.join(INFERENCE_DEFAULTS)}. Check the spelling.")
+    fit_options.update(inference)
     b = Board(name or f"board{next(_NAMES)}", design_kwargs, fit_options, data=data, data_name=data_name,
               namespace=namespace, panels=panels)
     if shell is not None and hasattr(shell, "events"):

@@ -52,7 +52,8 @@ __all__ = [
 ]
 
 #: Export names that :func:`chart_for` understands.
-CHART_NAMES = ("estimate", "sensitivity", "balance", "density", "first_stage", "placebo", "donut")
+CHART_NAMES = ("estimate", "sensitivity", "balance", "density", "first_stage", "placebo", "donut",
+               "bias_aware_sensitivity", "windows")   # the last two: charts_inference.py
 
 WIDTH = 340    # plot area; with axes the chart is about 400 px, so two sit side by side
 HEIGHT = 210
@@ -781,6 +782,9 @@ def chart_for(board, what: str, *, configure: bool = True):
         return _usable(results, key, what, errors if isinstance(errors, Mapping) else None)
 
     fit = usable("fit")
+    if what in ("bias_aware_sensitivity", "windows"):
+        from . import charts_inference
+        return charts_inference.chart_for(results, what, usable, configure=configure)
     if what == "estimate":
         return estimate_chart(usable("bins"), fit, configure=configure)
     if what == "sensitivity":

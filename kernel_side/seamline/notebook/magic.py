@@ -31,7 +31,9 @@ __all__ = ["ParsedSpec", "cutoff", "load_ipython_extension", "parse_spec", "pars
 DESIGN_KEYS = ("score", "cutoff", "treated", "outcome", "takeup", "covariates", "cluster", "weights")
 OPTION_KEYS = ("bandwidth", "kernel", "degree", "bias_degree", "pilot_bandwidth", "variance", "level",
                "donut", "derivative", "adjust")
-KEYS = ("data", *DESIGN_KEYS, *OPTION_KEYS)
+# Inference settings (notebook/inference_keys.py parses and checks their values).
+INFERENCE_KEYS = ("smoothness", "window", "statistic", "permutations", "seed")
+KEYS = ("data", *DESIGN_KEYS, *OPTION_KEYS, *INFERENCE_KEYS)
 REQUIRED = ("data", "score", "cutoff", "outcome")
 _KIND = {
     "data": "data", "score": "column", "takeup": "column?", "cluster": "column?", "weights": "column?",
@@ -39,6 +41,7 @@ _KIND = {
     "donut": "number", "degree": "integer", "bias_degree": "integer?", "derivative": "integer",
     "treated": "choice", "kernel": "choice", "variance": "choice", "bandwidth": "bandwidth",
     "pilot_bandwidth": "bandwidth?", "adjust": "boolean",
+    **{key: "inference" for key in INFERENCE_KEYS},
 }
 _CHOICES = {"treated": SIDES, "kernel": KERNELS, "variance": VARIANCES}
 _EXAMPLES = {
@@ -47,6 +50,7 @@ _EXAMPLES = {
     "cluster": "school", "weights": "sample_weight", "bandwidth": "mse", "kernel": "triangular",
     "degree": "1", "bias_degree": "2", "pilot_bandwidth": "4.0", "variance": "neighbors",
     "level": "0.95", "donut": "0", "derivative": "0", "adjust": "false",
+    "smoothness": "0.5", "window": "2.5", "statistic": "rank sum", "permutations": "10000", "seed": "20260314",
 }
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*(\.[A-Za-z_][A-Za-z0-9_]*)*$")
 _INTEGER = re.compile(r"^[+-]?\d+$")
@@ -194,6 +198,13 @@ class _Resolver:
     def resolve(self, key: str, text: str, line: int) -> Any:
         kind = _KIND[key]
         lowered = text.strip().lower()
+        if kind == "inference":
+            from .inference_keys import parse_text
+            value = parse_text(key, text)
+            if isinstance(value, str) and key != "statistic" and _NAME.match(text) and \
+                    text.split(".")[0] in self.namespace:
+                return self.variable(key, text, line, "a value of this setting")
+            return value
         if kind.endswith("?") and lowered in _NONE and (self.columns is None or text not in self.columns):
             return None
         kind = kind.rstrip("?")

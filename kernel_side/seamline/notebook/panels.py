@@ -33,7 +33,7 @@ from typing import Any
 import ipywidgets as widgets
 import pandas as pd
 
-from . import charts, static
+from . import charts, panels_inference, static
 from .static import PANEL_EXPORTS, PANEL_RESULTS, PANELS, error_html, header_html, panel_html
 
 __all__ = ["BoardView", "mimebundle"]
@@ -138,8 +138,9 @@ def _outcomes(state) -> tuple[str, ...]:
 
 #: The charts each tab draws (export names understood by ``charts.chart_for``).
 TAB_CHARTS: dict[str, tuple[str, ...]] = {
-    "estimate": ("estimate",), "bandwidths": ("sensitivity",), "balance": ("balance",),
+    "estimate": ("estimate", "bias_aware_sensitivity"), "bandwidths": ("sensitivity",), "balance": ("balance",),
     "density": ("density",), "first_stage": ("first_stage",), "placebos": ("placebo", "donut"),
+    "local_randomization": ("windows",),
 }
 
 
@@ -285,6 +286,8 @@ class BoardView(widgets.VBox):
                                                description="donut", style=_CONTROL, layout=lay,
                                                continuous_update=False)
         self._level = widgets.Dropdown(options=_LEVELS, description="CI level", style=_CONTROL, layout=lay)
+        self._smoothness = panels_inference.smoothness_control(lay)     # M of the bias-aware interval
+        self._smoothness.observe(self._changed("smoothness"), names="value")
         for control, name in ((self._outcome, "outcome"), (self._kernel, "kernel"),
                               (self._degree, "degree"), (self._variance, "variance"),
                               (self._donut, "donut"), (self._level, "level")):
@@ -296,7 +299,7 @@ class BoardView(widgets.VBox):
         self._manual.add_class("seamline-control-manual-bandwidth")
         box = widgets.Box(
             [self._outcome, self._rule, self._manual, self._kernel, self._degree, self._variance,
-             self._donut, self._level],
+             self._donut, self._level, self._smoothness],
             layout=widgets.Layout(display="flex", flex_flow="row wrap",
                                   border_top="1px solid #e0e0e0", padding="6px 0 4px 0"))
         box.add_class("seamline-controls")
@@ -373,6 +376,8 @@ class BoardView(widgets.VBox):
             level = opts.get("level")
             if level is not None:
                 self._set_choice(self._level, _LEVELS, float(level), f"{100 * float(level):g}%")
+            if "smoothness" in opts:
+                self._smoothness.value = panels_inference.smoothness_text(opts["smoothness"])
         finally:
             self._syncing = False
 
@@ -424,7 +429,7 @@ class BoardView(widgets.VBox):
         for what in PANEL_EXPORTS[panel]:
             label = widgets.HTML(f'<span style="font-size:12px;color:#555">Export {html.escape(what.replace("_", " "))}:</span>')
             buttons = [label]
-            for title, fmt in _FORMATS:
+            for title, fmt in _FORMATS if what in charts.CHART_NAMES else _FORMATS[:3]:   # tables only
                 button = widgets.Button(description=title,
                                         layout=widgets.Layout(width="auto", height="26px", margin="0 2px"),
                                         tooltip=f"{title} of the {what.replace('_', ' ')} "

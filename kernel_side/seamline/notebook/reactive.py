@@ -42,7 +42,8 @@ __all__ = [
 
 #: The result panels of a board, in the order they are computed (the headline first).
 PANELS: tuple[str, ...] = ("fit", "first_stage", "bins", "first_stage_bins", "bandwidths", "density",
-                           "balance", "sensitivity", "placebo", "donut", "score_profile", "checks")
+                           "balance", "sensitivity", "placebo", "donut", "score_profile", "checks",
+                           "bias_aware", "weak_iv", "local_randomization")
 
 #: Fit options a board passes to the engine (``level`` only re-reports a fit).
 FIT_OPTIONS: tuple[str, ...] = ("bandwidth", "kernel", "degree", "bias_degree", "pilot_bandwidth",
@@ -428,5 +429,11 @@ def board_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: st
         panel_node("score_profile"): [col(score), "score", "cutoff", "main_fit"],
         # The checks summary gathers every diagnostic: it reads everything but the data's identity.
         panel_node("checks"): [*(col(c) for c in design_columns), *DESIGN_SOURCES, "main_fit", "level"],
+        # Inference beyond the robust interval (issue 9; compute_inference.py has the board's own table).
+        panel_node("bias_aware"): [*row_inputs, col(outcome), "outcome", "kernel", "degree", "derivative",
+                                   "smoothness", "level"],
+        panel_node("weak_iv"): ["main_fit", "level"],
+        panel_node("local_randomization"): [*row_inputs, col(outcome), "outcome", *(col(c) for c in covariates),
+                                            "covariates", "window", "statistic", "permutations", "seed", "level"],
     }
     return DependencyGraph(parents)
