@@ -11,6 +11,7 @@ from collections.abc import Mapping
 from typing import Any
 
 from ..results.fit import CAUTION
+from ..results.inference import window_text   # the window as the result's own title prints it
 from ..time_score import TIME_CAUTION
 from .table_model import format_number
 
@@ -226,14 +227,6 @@ _DIAGNOSTIC_WRITERS = {
 }
 
 
-def window_text(window, cutoff: float) -> str:
-    """A window "[low, high]" with enough decimals to show its half-width to three significant
-    digits (38.04 to 41.96, not 38 to 42)."""
-    import math
-    low, high = window
-    half = max(abs(high - cutoff), abs(cutoff - low), 1e-300)
-    decimals = max(0, min(10, 2 - math.floor(math.log10(half))))
-    return f"[{low:.{decimals}f}, {high:.{decimals}f}]"
 
 
 def _end(value: float) -> str:

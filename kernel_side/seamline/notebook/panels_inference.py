@@ -99,7 +99,7 @@ def estimate_inference_html(board) -> str:
             parts.append(f'<div class="seamline-weak-iv" style="font-size:13px;margin:2px 0 6px 0">'
                          f"{100 * weak.level:g}% weak-instrument-robust set <b>{_esc(_set_text(weak.intervals))}</b> "
                          f"beside the Wald (robust ratio) interval [{_esc(_end(lo))}, {_esc(_end(hi))}]; "
-                         f"first-stage F = {_esc(_number(weak.first_stage_f))}.</div>"
+                         f"robust first-stage F (squared robust t of the take-up jump) = {_esc(_number(weak.first_stage_f))}.</div>"
                          f'<div class="seamline-weak-iv-shape" style="{s._NOTE}">{_esc(weak.explanation)}</div>')
             parts.append(_table(weak))
             parts.append(s._warnings_html(weak.warnings))
