@@ -290,3 +290,60 @@ def test_replication_script_rebuilds_the_inference_numbers(tmp_path, fuzzy, fuzz
     lr = design.local_randomization(window=0.1, seed=SEED)
     assert numbers["local_randomization"]["p_value"] == lr.p_value
     assert numbers["local_randomization"]["table"][0]["ci_low"] == lr.conf_int[0]
+
+
+# ---- where the nodes run, and the "not yet current" state ---------------------------------------------
+def test_weak_iv_set_runs_only_on_fuzzy_boards_and_only_when_its_inputs_change(sharp, fuzzy, monkeypatch):
+    from seamline.results.fit import Fit
+    calls = []
+    real = Fit.weak_iv_conf_set
+    monkeypatch.setattr(Fit, "weak_iv_conf_set", lambda self, level=None: calls.append(level) or real(self, level))
+    sharp_only = Board("sharp-only", sharp.design_kwargs(), {"window": 2.0, "seed": 1}, data=sharp.data.copy())
+    fuzzy_only = None
+    try:
+        sharp_only.wait()
+        assert calls == []                           # sharp: NotApplicable without an engine call
+        fuzzy_only = Board("fuzzy-only", fuzzy.design_kwargs(), {"window": 0.1, "seed": 1},
+                           data=fuzzy.data.copy()).wait()
+        assert calls == [0.95]
+        fuzzy_only.set_option("donut", 0.0)          # unchanged value: nothing runs
+        fuzzy_only.set_option("smoothness", 3.0)     # the bias-aware bound is not an input of the set
+        fuzzy_only.wait()
+        assert calls == [0.95]
+        fuzzy_only.set_option("level", 0.9)
+        fuzzy_only.wait()
+        assert calls == [0.95, 0.9]
+    finally:
+        sharp_only.close()
+        if fuzzy_only is not None:
+            fuzzy_only.close()
+
+
+def test_randomization_tab_says_when_it_is_not_yet_current(sharp, monkeypatch):
+    import threading
+    release, entered = threading.Event(), threading.Event()
+    real = Design.local_randomization
+
+    def held(self, *args, **kwargs):
+        if kwargs.get("window") == 2.5:
+            entered.set()
+            release.wait(20)
+        return real(self, *args, **kwargs)
+
+    monkeypatch.setattr(Design, "local_randomization", held)
+    board = Board("pending", sharp.design_kwargs(), {"window": 2.0, "seed": 1}, data=sharp.data.copy())
+    try:
+        board.wait()
+        board.set_option("window", 2.5)
+        threading.Thread(target=lambda: board.wait("local_randomization"), daemon=True).start()
+        assert entered.wait(10)
+        state = board.state()
+        assert "local_randomization" in state.pending and "fit" not in state.pending
+        page = static.panel_html(state, "local_randomization", charts=False)
+        assert "Updating the local randomization panel" in _text(page) and "opacity:0.45" in page
+        assert "[38.00, 42.00]" in _text(page)      # the previous numbers, dimmed
+        release.set()
+        assert board.wait().results["local_randomization"].window == (37.5, 42.5)
+    finally:
+        release.set()
+        board.close()
