@@ -347,3 +347,24 @@ def test_randomization_tab_says_when_it_is_not_yet_current(sharp, monkeypatch):
     finally:
         release.set()
         board.close()
+
+
+def test_randomization_tab_controls_set_the_window_and_statistic(sharp):
+    board = Board("tab-controls", {**sharp.design_kwargs(), "covariates": COVARIATES}, {"seed": 1},
+                  data=sharp.data.copy())
+    view = BoardView(board)
+    try:
+        tab = view._tabs.children[[k for k, _ in static.PANELS].index("local_randomization")]
+        assert view._lr_controls in tab.children and view._window.value == "by balance"
+        view._window.value = "37.5, 42.5"
+        view._statistic.value = "rank sum"
+        lr = board.results["local_randomization"]
+        want = Design(sharp.data, **{**sharp.design_kwargs(), "covariates": COVARIATES}).local_randomization(
+            window=(37.5, 42.5), statistic="rank sum", seed=1)
+        assert (lr.window, lr.statistic, lr.p_value) == (want.window, "rank sum", want.p_value)
+        view._window.value = "a few"                 # rejected beside the controls, the board unchanged
+        assert board.options["window"] == (37.5, 42.5) and "window" in view._message.value
+        assert view._window.value == "37.5, 42.5"
+    finally:
+        view.close()
+        board.close()

@@ -222,7 +222,8 @@ class BoardView(widgets.VBox):
             out.add_class("seamline-export-result")
             bar = self._export_bar(key, out)
             row = widgets.HBox([c for _w, c in outputs], layout=widgets.Layout(flex_flow="row wrap"))
-            box = widgets.VBox([row, body, bar, out], layout=widgets.Layout(padding="6px 4px"))
+            top = [self._lr_controls] if key == "local_randomization" else []
+            box = widgets.VBox([*top, row, body, bar, out], layout=widgets.Layout(padding="6px 4px"))
             box.add_class(_css(key))
             boxes.append(box)
         self._tabs = widgets.Tab(children=boxes, titles=[title for _k, title in PANELS])
@@ -288,6 +289,10 @@ class BoardView(widgets.VBox):
         self._level = widgets.Dropdown(options=_LEVELS, description="CI level", style=_CONTROL, layout=lay)
         self._smoothness = panels_inference.smoothness_control(lay)     # M of the bias-aware interval
         self._smoothness.observe(self._changed("smoothness"), names="value")
+        # the Local randomization tab's own controls (shown in that tab, not in this row)
+        self._lr_controls, self._window, self._statistic = panels_inference.randomization_controls(lay)
+        self._window.observe(self._changed("window"), names="value")
+        self._statistic.observe(self._changed("statistic"), names="value")
         for control, name in ((self._outcome, "outcome"), (self._kernel, "kernel"),
                               (self._degree, "degree"), (self._variance, "variance"),
                               (self._donut, "donut"), (self._level, "level")):
@@ -378,6 +383,10 @@ class BoardView(widgets.VBox):
                 self._set_choice(self._level, _LEVELS, float(level), f"{100 * float(level):g}%")
             if "smoothness" in opts:
                 self._smoothness.value = panels_inference.smoothness_text(opts["smoothness"])
+            if "window" in opts:
+                self._window.value = panels_inference.window_text(opts["window"])
+            if opts.get("statistic") in self._statistic.options:
+                self._statistic.value = opts["statistic"]
         finally:
             self._syncing = False
 

@@ -13,7 +13,8 @@ from typing import Any
 
 from . import compute_inference as inference
 
-__all__ = ["estimate_inference_html", "local_randomization_html", "smoothness_control", "smoothness_text"]
+__all__ = ["estimate_inference_html", "local_randomization_html", "randomization_controls", "smoothness_control",
+           "smoothness_text", "window_text"]
 
 _esc = html.escape
 
@@ -144,3 +145,29 @@ def smoothness_control(layout):
                        tooltip="Bound on the outcome's curvature for the bias-aware interval")
     box.add_class("seamline-control-smoothness")
     return box
+
+
+def window_text(value: Any) -> str:
+    """The window option as the tab's control shows it."""
+    if value is None:
+        return "by balance"
+    if isinstance(value, tuple):
+        return ", ".join(f"{v:g}" for v in value)
+    return f"{value:g}"
+
+
+def randomization_controls(layout):
+    """The Local randomization tab's own controls: the window (text: "by balance", a half-width or
+    "low, high") and the statistic. Returns (box, window, statistic); the view observes them."""
+    import ipywidgets as widgets
+    from ..core.randomization import STATISTICS
+    window = widgets.Text(value="by balance", description="window", continuous_update=False,
+                          style={"description_width": "95px"}, layout=layout,
+                          tooltip='"by balance", a half-width, or two scores "low, high"')
+    window.add_class("seamline-control-window")
+    statistic = widgets.Dropdown(options=list(STATISTICS), value=STATISTICS[0], description="statistic",
+                                 style={"description_width": "95px"}, layout=layout)
+    statistic.add_class("seamline-control-statistic")
+    box = widgets.HBox([window, statistic], layout=widgets.Layout(flex_flow="row wrap"))
+    box.add_class("seamline-randomization-controls")
+    return box, window, statistic
