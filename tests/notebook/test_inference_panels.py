@@ -257,6 +257,8 @@ def test_methods_paragraph_cites_and_prints_the_window(sharp_board, fuzzy_board)
     assert "seed None" not in text
     fuzzy_text = fuzzy_board.methods_paragraph()
     assert "Feir, Lemieux and Marmer (2016)" in fuzzy_text and "one bounded interval" in fuzzy_text
+    assert "the effect of assignment to treatment, not of take-up" in fuzzy_text
+    assert "not of take-up" not in text
 
 
 def test_a_drawn_seed_is_recorded_in_methods_and_script(sharp):

@@ -261,11 +261,14 @@ def _local_randomization_sentence(r) -> str:
     how = ("chosen by covariate balance as the largest window in which it and every smaller window have a "
            f"smallest balance p-value of at least {r.balance_threshold:g}" if r.window_rule == "covariate balance"
            else "set by the analyst")
+    fuzzy = any(w.startswith("The design is fuzzy") for w in r.warnings)
+    assigned = " (the effect of assignment to treatment, not of take-up)" if fuzzy else ""
     method = ("exact over all assignments" if r.exact else
               f"from {r.assignments:,} random assignments with seed {r.seed}")
     return (f"Treating units in the window {window_text(r.window, r.cutoff)} of {r.score} ({how}; "
             f"{_count(r.n_below)} below and {_count(r.n_above)} above the cutoff) as randomly assigned "
-            f"(Cattaneo, Frandsen and Titiunik 2015), the difference in mean outcomes is {_n(r.estimate)}, "
+            f"(Cattaneo, Frandsen and Titiunik 2015), the difference in mean outcomes is {_n(r.estimate)}"
+            f"{assigned}, "
             f"with a randomization {_p(r.p_value)} for the {r.statistic} statistic ({method}) and a "
             f"{_percent(r.level)} interval of [{_n(r.conf_int[0])}, {_n(r.conf_int[1])}] under a constant "
             "additive effect.")

@@ -196,8 +196,9 @@ class Board(Scheduler):
         ``takeup``, ``covariates``, ``cluster``, ``weights`` -- as for ``seamline.Design``.
     fit_options : dict, optional
         Options of ``Design.fit`` (bandwidth, kernel, degree, bias_degree, pilot_bandwidth,
-        variance, level, donut, derivative, adjust) and ``outcome`` to select one of several
-        outcomes.
+        variance, level, donut, derivative, adjust), ``outcome`` to select one of several
+        outcomes, and the inference settings (smoothness, window, statistic, permutations, seed;
+        ``inference_keys``).
     data : DataFrame, optional
         The data (never modified). Required unless ``data_name`` and ``namespace`` are given.
     data_name : str, optional
@@ -717,7 +718,10 @@ class Board(Scheduler):
         Parameters
         ----------
         what : "estimate", "sensitivity", "balance", "density", "placebo", "donut", "bins",
-            "bandwidths", "first_stage", "methods", or "script": a standalone Python script that
+            "bandwidths", "first_stage", the inference tables "intervals", "bias_aware",
+            "bias_aware_sensitivity", "weak_iv", "local_randomization", "windows",
+            "randomization_sensitivity" (``compute_inference.EXPORTS``; charts of
+            "bias_aware_sensitivity" and "windows"), "methods", or "script": a standalone Python script that
             rebuilds every number of the board from the data file ``data_path`` (CSV or Parquet;
             without it, a marked constant to edit), see ``seamline.export.script``
         fmt : tables: "latex" (booktabs), "markdown", "csv", "html", "text";
