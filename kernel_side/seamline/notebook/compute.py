@@ -43,6 +43,9 @@ checks                main_fit, density, checks_balance,              none: asse
                       score_profile
 ====================  ==============================================  ===============================
 
+The inference nodes ``bias_aware``, ``weak_iv`` and ``local_randomization`` (the only ones that
+read ``level``) have their table in ``compute_inference.py``.
+
 Panels (``PANEL_NODES``) read one node each and only re-report it: ``fit`` and ``first_stage``
 read ``main_fit``; ``first_stage_bins`` reads ``takeup_bins``; ``bandwidths`` reads
 ``selectors``; ``donut`` reads ``donut_ladder`` (a node name is never a source's name); the others read the node of their own name. Consequences: a level change
