@@ -59,7 +59,8 @@ def sharp_data():
 
 CASES = {
     # name: (data and design, fit options, panels, file suffix)
-    "sharp": (sharp_data, {"outcome": "math_gain"}, ALL_PANELS, ".csv"),
+    # a fixed seed: the randomization p-values are then the direct call's, draw for draw
+    "sharp": (sharp_data, {"outcome": "math_gain", "seed": 7}, ALL_PANELS, ".csv"),
     "clustered": (lambda: (sharp_data()[0], {**sharp_data()[1], "cluster": "school"}),
                   {"outcome": "attendance", "kernel": "epanechnikov", "variance": "hc1"},
                   ("fit", "sensitivity", "placebo", "bandwidths"), ".parquet"),
@@ -76,9 +77,11 @@ CASES = {
 
 def direct(design, options: dict, panel: str):
     """The panel computed by direct Design calls (the board's recipe, written out here)."""
-    opts = {k: v for k, v in options.items() if k != "outcome"}
+    inference = {k: options[k] for k in INFERENCE if k in options}
+    opts = {k: v for k, v in options.items() if k != "outcome" and k not in INFERENCE}
     outcome = options["outcome"]
     fit = design.fit(outcome, **opts)
+    level = opts.get("level", 0.95)
     calls = {
         "fit": lambda: fit,
         "first_stage": lambda: fit.first_stage,
@@ -96,8 +99,17 @@ def direct(design, options: dict, panel: str):
         "score_profile": lambda: design.score_profile(outcome=outcome, **opts),
         "checks": lambda: design.checks(outcome=outcome, **opts),
         "power": lambda: design.power_curve(outcome=outcome, **opts),
+        "bias_aware": lambda: design.bias_aware(outcome, smoothness=inference.get("smoothness"),
+                                                kernel=opts.get("kernel", "triangular"), degree=opts.get("degree", 1),
+                                                level=level),
+        "weak_iv": lambda: fit.weak_iv_conf_set(level),
+        "local_randomization": lambda: design.local_randomization(
+            outcome, **{k: v for k, v in inference.items() if k != "smoothness"}, level=level),
     }
     return calls[panel]()
+
+
+INFERENCE = ("smoothness", "window", "statistic", "permutations", "seed")
 
 
 def check_fit(record: dict, fit) -> None:
@@ -134,12 +146,12 @@ def test_script_reproduces_direct_design_calls(case, tmp_path):
     assert set(numbers) == {"board", "seamline_version", "written_by_version", "data", *panels}
 
     design = seamline.Design(data, **spec)
-    opts = {k: v for k, v in options.items() if k != "outcome"}
+    opts = {k: v for k, v in options.items() if k != "outcome" and k not in INFERENCE}
     check_fit(numbers["fit"], design.fit(options["outcome"], **opts))
     for panel in panels:
         if panel == "fit":
             continue
-        if panel.startswith("first_stage") and design.takeup is None:   # sharp: the panel does not apply
+        if (panel.startswith("first_stage") or panel == "weak_iv") and design.takeup is None:   # sharp: the panel does not apply
             assert numbers[panel]["applies"] is False and "Sharp design" in numbers[panel]["reason"]
             continue
         if panel in ("by_cutoff", "subgroups"):     # one cutoff, no groups declared: they do not apply
@@ -158,6 +170,8 @@ def test_script_reproduces_direct_design_calls(case, tmp_path):
             assert numbers[panel]["statistic"] == expected.statistic
         if panel == "balance":
             assert numbers[panel]["joint_p_value"] == plain(expected.joint_p_value)
+        if panel == "local_randomization":
+            assert numbers[panel]["p_value"] == expected.p_value and numbers[panel]["seed"] == 7
 
 
 def test_without_data_path_the_constant_is_marked_and_checked(tmp_path):

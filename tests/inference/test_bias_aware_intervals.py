@@ -127,6 +127,15 @@ def test_sensitivity_table_grows_with_the_bound_at_fixed_bandwidth():
     assert (row["ci_low"], row["ci_high"]) == pytest.approx(res.conf_int, rel=1e-9)
 
 
+def test_sensitivity_row_at_the_bound_is_the_main_interval_with_clusters():
+    # The row at multiple 1 must use the main result's (cluster-robust) variance, not the search's.
+    frame = sharp_frame(curvature=1.0).assign(group=lambda f: np.arange(len(f)) % 40)
+    res = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="group").bias_aware(smoothness=2.0)
+    row = res.sensitivity[res.sensitivity["multiple"] == 1.0].iloc[0]
+    assert row["std_error_fixed_bandwidth"] == pytest.approx(res.std_error, rel=1e-12)
+    assert (row["ci_low_fixed_bandwidth"], row["ci_high_fixed_bandwidth"]) == pytest.approx(res.conf_int, rel=1e-9)
+
+
 def test_rule_of_thumb_bound_is_the_largest_quartic_curvature():
     frame = sharp_frame(curvature=2.0)
     res = seamline.Design(frame, score="x", cutoff=0.0, outcome="y").bias_aware()

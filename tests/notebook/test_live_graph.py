@@ -33,7 +33,7 @@ TIGHT = dict(rtol=1e-9, atol=1e-12)   # re-reported intervals equal direct ones 
 # another); "fits" counts every real (uncached) fit, "selections" every bandwidth selection and
 # "density" every density test, wherever they are called from.
 METHODS = ("fit", "bandwidths", "bins", "sensitivity", "placebo_cutoffs", "donut", "balance", "score_profile",
-           "checks", "by_cutoff", "by_group")
+           "checks", "by_cutoff", "by_group", "bias_aware", "local_randomization")
 FIT_DIAGNOSTICS = {"bins", "sensitivity", "placebo_cutoffs", "donut", "score_profile"}
 PARTS = ("binned means", "score census", "placebo designs")   # see PART_CHANGES
 
@@ -92,42 +92,56 @@ def calls(monkeypatch):
 
 # change -> (how to apply it, the calls it must make; every other counted call must be zero)
 ALL_BUT_DENSITY = {"fit", "bandwidths", "balance", *FIT_DIAGNOSTICS}
+# The inference nodes (notebook/compute_inference.py): the bias-aware interval reads the rows, the outcome,
+# kernel, degree, smoothness and level; local randomization the rows, the outcome, the covariates, its own
+# settings and level. Both read level because their intervals cannot be re-reported by scaling (a folded
+# normal quantile, an inverted randomization test); neither reads the bandwidth, pilot, variance, donut or
+# adjustment (their panels say what they ignore). The weak-IV set is a Fit method, not counted here.
+INFERENCE = {"bias_aware", "local_randomization"}
 CHANGES = {
-    "level": (("level", 0.9), set()),
+    "level": (("level", 0.9), INFERENCE),
     "bandwidth (manual)": (("bandwidth", 3.0), {"fit", *FIT_DIAGNOSTICS}),
     "bandwidth (another rule)": (("bandwidth", "coverage"), {"fit", "balance", *FIT_DIAGNOSTICS}),
-    "kernel": (("kernel", "uniform"), ALL_BUT_DENSITY),
-    "degree": (("degree", 2), ALL_BUT_DENSITY),
+    "kernel": (("kernel", "uniform"), ALL_BUT_DENSITY | {"bias_aware"}),
+    "degree": (("degree", 2), ALL_BUT_DENSITY | {"bias_aware"}),
     "bias_degree": (("bias_degree", 3), ALL_BUT_DENSITY),
     # the checks' balance uses the pilot bandwidth (as Design.checks does), the panel's does not
     "pilot_bandwidth": (("pilot_bandwidth", 9.0), {"fit", "balance", *FIT_DIAGNOSTICS}),
     "variance": (("variance", "hc1"), ALL_BUT_DENSITY),
     # the donut ladder re-selects its own radii, so the donut option does not touch it
     "donut": (("donut", 0.5), ALL_BUT_DENSITY - {"donut"}),
+    # a kink has no bias-aware interval: the node says so without calling the engine
     "derivative": (("derivative", 1), ALL_BUT_DENSITY),
     # placebo fits and balance never adjust, so adjusting touches neither
     "adjust": (("adjust", True), ALL_BUT_DENSITY - {"placebo_cutoffs", "balance"}),
-    "outcome": (("outcome", "attendance"), ALL_BUT_DENSITY - {"balance"}),
-    "score": (("score", "score_copy"), ALL_BUT_DENSITY | {"density"}),
-    "cutoff": (("cutoff", 41.0), ALL_BUT_DENSITY | {"density"}),
-    "treated": (("treated", "above"), ALL_BUT_DENSITY),
-    "takeup": (("takeup", "enrolled"), ALL_BUT_DENSITY),
-    "covariates": (("covariates", ("age", "prior_math")), {"balance"}),
-    "cluster": (("cluster", None), ALL_BUT_DENSITY),
-    "weights": (("weights", None), ALL_BUT_DENSITY),
-    "column: outcome": (("edit", "math_gain"), ALL_BUT_DENSITY - {"balance"}),
-    "column: covariate": (("edit", "age"), {"balance"}),
-    "column: score": (("edit", "reading_score"), ALL_BUT_DENSITY | {"density"}),
+    "outcome": (("outcome", "attendance"), ALL_BUT_DENSITY - {"balance"} | INFERENCE),
+    "score": (("score", "score_copy"), ALL_BUT_DENSITY | {"density"} | INFERENCE),
+    "cutoff": (("cutoff", 41.0), ALL_BUT_DENSITY | {"density"} | INFERENCE),
+    "treated": (("treated", "above"), ALL_BUT_DENSITY | INFERENCE),
+    "takeup": (("takeup", "enrolled"), ALL_BUT_DENSITY | INFERENCE),
+    # the window is chosen by covariate balance, so local randomization reads the covariates
+    "covariates": (("covariates", ("age", "prior_math")), {"balance", "local_randomization"}),
+    "cluster": (("cluster", None), ALL_BUT_DENSITY | INFERENCE),
+    "weights": (("weights", None), ALL_BUT_DENSITY | INFERENCE),
+    "smoothness": (("smoothness", 0.5), {"bias_aware"}),
+    "window": (("window", 2.0), {"local_randomization"}),
+    "statistic": (("statistic", "rank sum"), {"local_randomization"}),
+    "permutations": (("permutations", 2000), {"local_randomization"}),
+    "seed": (("seed", 99), {"local_randomization"}),
+    "column: outcome": (("edit", "math_gain"), ALL_BUT_DENSITY - {"balance"} | INFERENCE),
+    "column: covariate": (("edit", "age"), {"balance", "local_randomization"}),
+    "column: score": (("edit", "reading_score"), ALL_BUT_DENSITY | {"density"} | INFERENCE),
     "column: unused": (("edit", "free_lunch_unused"), set()),
     # the power panel re-reads the main fit it has (no engine call); subgroups need `groups`
     "effect": (("effect", 0.5), set()),
     "groups": (("groups", "free_lunch"), {"by_group"}),
 }
+SEED = 20260314     # the board's local randomization seed (a drawn one could not be compared)
 
 
 def _board(s, data):
     kwargs = {**s.design_kwargs(), "covariates": ["age", "prior_math", "free_lunch"]}
-    return seamline.board(data, **kwargs).wait()
+    return seamline.board(data, **kwargs, seed=SEED).wait()
 
 
 def _apply(board, data, change):
@@ -209,19 +223,24 @@ def test_switching_back_is_a_cache_hit(scenario, calls):
     assert sum(calls.values()) == 0
 
 
-def test_the_graph_is_acyclic_and_level_is_no_source():
+def test_the_graph_is_acyclic_and_level_is_a_source_of_the_inference_nodes_only():
     graph = compute_graph(score="x", outcomes=["y"], outcome="y", covariates=["c"], takeup="t")
-    assert "level" not in graph.sources
+    # Every other result is computed at 0.95 and re-reported; the inference intervals cannot be.
+    assert {n for n in graph.nodes - graph.sources if "level" in graph.sources_of(n)} == {
+        "bias_aware", "weak_iv", "local_randomization"}
     assert graph.stale_after({"bandwidth"}) >= {"main_fit", "bins", "sensitivity", "placebo", "donut_ladder"}
     assert not graph.stale_after({"bandwidth"}) & {"density", "selectors", "balance", "checks_balance"}
-    assert graph.stale_after({"column:c"}) == {"design", "balance", "checks_balance", "checks"}
+    assert graph.stale_after({"column:c"}) == {"design", "balance", "checks_balance", "checks",
+                                               "local_randomization"}
 
 
 # ---- every panel against the direct Design call ----------------------------------------------------
-def _expected(data, spec, options):
+def _expected(data, spec, options, inference=None):
     """Every panel computed directly with seamline.Design for the given declaration and options."""
     design = Design(data, **spec)
     kw = dict(options)
+    inference = {"smoothness": None, "window": None, "statistic": "difference in means", "permutations": 10_000,
+                 "seed": SEED, **(inference or {})}
     level = kw["level"]
     rule = kw["bandwidth"] if isinstance(kw["bandwidth"], str) else "mse"
     fit = design.fit(**kw)
@@ -242,7 +261,14 @@ def _expected(data, spec, options):
             "outcome", "bandwidth", "pilot_bandwidth", "adjust")})
     # the power panel's curve: Design.power_curve with the board's options (the board passes its main fit)
     out["power"] = design.power_curve(**kw)
+    if kw["derivative"] == 0:
+        out["bias_aware"] = design.bias_aware(kw["outcome"], smoothness=inference["smoothness"], kernel=kw["kernel"],
+                                              degree=kw["degree"], level=level)
+    if spec.get("covariates") or inference["window"] is not None:
+        out["local_randomization"] = design.local_randomization(
+            kw["outcome"], **{k: v for k, v in inference.items() if k != "smoothness"}, level=level)
     if fit.first_stage is not None:
+        out["weak_iv"] = fit.weak_iv_conf_set(level)
         out["first_stage"] = fit.first_stage
         out["first_stage_bins"] = design.bins(spec["takeup"], **{
             **{k: v for k, v in kw.items() if k not in ("outcome", "adjust")},
@@ -268,6 +294,7 @@ SETTINGS = [
     ("pilot_bandwidth", 9.0), ("variance", "hc2"), ("level", 0.9), ("donut", 0.5), ("derivative", 1),
     ("adjust", True), ("outcome", "attendance"), ("score", "score_copy"), ("cutoff", 41.0), ("treated", "above"),
     ("takeup", "enrolled"), ("covariates", ("age",)), ("cluster", None), ("weights", None),
+    ("smoothness", 0.5), ("window", 2.0), ("statistic", "Kolmogorov-Smirnov"),
 ]
 
 
@@ -281,11 +308,14 @@ def test_every_panel_equals_the_direct_design_call_after_a_setting(name, value, 
     options = {"outcome": spec["outcome"][0], "bandwidth": "mse", "kernel": "triangular", "degree": 1,
                "bias_degree": None, "pilot_bandwidth": None, "variance": "neighbors", "level": 0.95,
                "donut": 0.0, "derivative": 0, "adjust": False}
+    inference = {}
     if name in options:
         options[name] = value
+    elif name in ("smoothness", "window", "statistic"):
+        inference[name] = value
     else:
         spec[name] = list(value) if isinstance(value, tuple) else value
-    expected = _expected(data, spec, options)
+    expected = _expected(data, spec, options, inference)
     for panel in b.panels:
         got = b.results[panel]
         if panel not in expected:

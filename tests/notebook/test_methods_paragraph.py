@@ -151,6 +151,8 @@ def test_diagnostic_sentences_match_their_tables(sharp):
     # every number in the paragraph is one the tables or notes show
     shown = " ".join([b.fit.to_markdown(), density.to_markdown(), balance.to_markdown(), sens.to_markdown(),
                       b.results["placebo"].to_markdown(), b.results["donut"].to_markdown(),
-                      b.export("bandwidths", "markdown")])
+                      b.export("bandwidths", "markdown"),
+                      # the inference panels (issue 9): bias-aware interval, randomization and its windows
+                      *(b.export(what, "markdown") for what in ("bias_aware", "local_randomization", "windows"))])
     missing = [n for n in _numbers(text) if n.replace(",", "") not in shown and n not in shown]
     assert missing == [], f"numbers in the paragraph that no table shows: {missing}"

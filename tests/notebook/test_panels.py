@@ -28,7 +28,8 @@ from seamline.notebook.panels import BoardView, mimebundle  # noqa: E402
 PANEL_CLASSES = ["seamline-panel-estimate", "seamline-panel-bandwidths", "seamline-panel-balance",
                  "seamline-panel-density", "seamline-panel-first-stage", "seamline-panel-placebos",
                  # several cutoffs, subgroups, power (panels_designs): on every board, saying where they apply
-                 "seamline-panel-by-cutoff", "seamline-panel-subgroups", "seamline-panel-power"]
+                 "seamline-panel-by-cutoff", "seamline-panel-subgroups", "seamline-panel-power",
+                 "seamline-panel-local-randomization"]
 HOSTILE = "<img src=x onerror=alert(1)>"
 
 
@@ -101,20 +102,20 @@ def _count_updates(view) -> dict[str, list]:
 # ---------------------------------------------------------------------------------------------
 # Structure and content
 # ---------------------------------------------------------------------------------------------
-def test_view_is_a_vbox_with_header_controls_and_nine_tabs(shared_board):
+def test_view_is_a_vbox_with_header_controls_and_its_tabs(shared_board):
     view = BoardView(shared_board)
     assert isinstance(view, widgets.VBox) and "seamline-board" in view._dom_classes
     assert list(view._tabs.titles) == ["Estimate", "Bandwidths", "Balance", "Density", "First stage",
-                                       "Placebos", "By cutoff", "Subgroups", "Power"]
+                                       "Placebos", "By cutoff", "Subgroups", "Power", "Local randomization"]
     for css in PANEL_CLASSES:
         assert len(_with_class(view, css)) == 1, css
     for css in ("seamline-header-box", "seamline-controls", "seamline-progress", "seamline-tabs"):
         assert _with_class(view, css), css
-    assert len(_with_class(view, "seamline-export")) == 9
+    assert len(_with_class(view, "seamline-export")) == len(static.PANELS)
     controls = {c for w in _walk(view._controls) for c in w._dom_classes if c.startswith("seamline-control-")}
     assert controls == {f"seamline-control-{n}" for n in (
         "outcome", "bandwidth", "manual-bandwidth", "kernel", "degree", "variance", "donut", "level",
-        "effect", "headline-cutoff")}
+        "smoothness", "effect", "headline-cutoff")}
 
 
 def test_header_shows_the_design_counts_and_headline(shared_board):
@@ -261,8 +262,10 @@ def test_panels_for_maps_results_to_panels(shared_board):
     assert view.panels_for({"density", "score_profile"}) == ["header", "density"]
     assert view.panels_for({"placebo"}) == ["header", "placebos"]
     assert view.panels_for({"first_stage_bins"}) == ["header", "first_stage"]
+    assert view.panels_for({"bias_aware"}) == view.panels_for({"weak_iv"}) == ["header", "estimate"]
+    assert view.panels_for({"local_randomization"}) == ["header", "local_randomization"]
     everything = ["header", "estimate", "bandwidths", "balance", "density", "first_stage", "placebos",
-                  "by_cutoff", "subgroups", "power"]
+                  "by_cutoff", "subgroups", "power", "local_randomization"]
     assert view.panels_for({"fit"}) == ["header", "estimate", "bandwidths", "density", "first_stage",
                                         "placebos", "by_cutoff"]
     assert view.panels_for(set()) == everything
@@ -280,7 +283,9 @@ def test_progress_bar_shows_while_recomputing(sharp_board):
     assert working and all(vis == "visible" for _, vis, _ in working)
     # the headline first, then the open tab's results, then the rest once the board is idle
     labels = [label for label, _, _ in working]
-    assert labels[:2] == ["main estimate", "binned means"] and labels[-1] == "design checks"
+    # the last is the last panel, in PANELS order, that a degree change touches (local randomization
+    # reads no degree, so the weak-instrument set, NotApplicable on this sharp board, comes last)
+    assert labels[:2] == ["main estimate", "binned means"] and labels[-1] == "weak-instrument-robust set"
     view._on_change(sharp_board, {"status"})
     assert view._progress.layout.visibility == "hidden"
 
@@ -424,10 +429,11 @@ def test_methods_paragraph_button(shared_board):
 def test_static_html_is_self_contained(shared_board):
     page = static.static_html(shared_board)
     for css in ("estimate", "bandwidths", "balance", "density", "first-stage", "placebos", "by-cutoff",
-                "subgroups", "power"):
+                "subgroups", "power", "local-randomization"):
         assert f'class="seamline-static-{css}"' in page
-    # six single-cutoff charts and the power curve (by cutoff and subgroups do not apply here)
-    assert page.count("<svg") == 7
+    # six diagnostic charts, the power curve, the bias-aware interval against M and the balance over
+    # windows (by cutoff and subgroups do not apply here)
+    assert page.count("<svg") == 9
     assert "<script" not in page.lower() and "<style" not in page.lower()
     assert shared_board.fit._repr_html_() in page
     assert re.findall(r"(?:src|href)=\"(https?:[^\"]*)", page) == []

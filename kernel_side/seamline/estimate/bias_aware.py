@@ -224,17 +224,19 @@ def bias_aware(design, outcome=None, *, smoothness=None, bandwidth="optimal", ke
         bandwidth_rule=bandwidth_rule, n_used=m.n_used, kernel=kernel, degree=degree,
         variance="cluster" if clustered else "neighbors", score=design.score, cutoff=design.cutoff,
         treated=design.treated, warnings=tuple(warnings),
-        sensitivity_fn=lambda: _sensitivity(problem, smoothness, h, fuzzy))
+        sensitivity_fn=lambda: _sensitivity(problem, smoothness, h, fuzzy, clustered))
 
 
-def _sensitivity(problem: _Problem, smoothness, h_main: tuple[float, float], fuzzy: bool) -> pd.DataFrame:
-    """Intervals at multiples of the bound: bandwidth re-optimised, and fixed at the main choice."""
+def _sensitivity(problem: _Problem, smoothness, h_main: tuple[float, float], fuzzy: bool,
+                 clustered: bool = False) -> pd.DataFrame:
+    """Intervals at multiples of the bound: bandwidth re-optimised, and fixed at the main choice
+    (with the main result's variance, so the row at multiple 1 is the main interval)."""
     rows = []
-    fixed = problem.moments(h_main)
+    fixed = problem.moments(h_main, cluster=clustered)
     for k in SMOOTHNESS_MULTIPLES:
         bound = (smoothness[0] * k, smoothness[1] * k) if fuzzy else smoothness * k
         common, _ = problem.optimal_bandwidth(bound)
-        m = problem.moments((common, common))
+        m = problem.moments((common, common), cluster=clustered)
         row = {"multiple": k, "smoothness": bound[0] if fuzzy else bound, "bandwidth": common}
         for label, mm in (("", m), ("_fixed_bandwidth", fixed)):
             if fuzzy:

@@ -237,7 +237,7 @@ def local_randomization(design, outcome=None, *, window=None, statistic="differe
                         "reported is their hull.")
     if not main["exact"]:
         warnings.append(f"Monte Carlo p-value from {main['assignments']:,} random assignments (simulation "
-                        f"standard error {main['p_value_std_error']:.2g}); pass seed=... to reproduce it.")
+                        f"standard error {main['p_value_std_error']:.2g}) with seed {seed}; the same seed reproduces it.")
     if design.takeup:
         warnings.append(f"The design is fuzzy: this is the effect of being assigned (the side of the cutoff) on "
                         f"{outcome!r}, not of take-up.")

@@ -106,12 +106,25 @@ COLUMN_LABELS: Mapping[str, str] = {
     "n_window_above": "Inside the bandwidth (above)",
     "status": "Status",
     "detail": "Detail",
+    # bias-aware intervals, weak-IV-robust sets, local randomization (issue 9)
+    "max_bias": "Worst-case bias",
+    "smoothness": "Smoothness bound M",
+    "smoothness_multiple": "Multiple of M",
+    "critical_value": "Critical value",
+    "set": "Confidence set",
+    "inference": "Inference",
+    "half_width": "Half-width",
+    "balance_p_value": "Smallest balance p-value",
+    "least_balanced": "Least balanced covariate",
+    "chosen": "Chosen window",
 }
 
 #: Pairs of bound columns shown as one interval column; the label takes the confidence level.
 INTERVAL_COLUMNS: Mapping[tuple[str, str], str] = {
     ("ci_low", "ci_high"): "{level} CI",
     ("robust_ci_low", "robust_ci_high"): "Robust {level} CI",
+    ("ci_low_fixed_bandwidth", "ci_high_fixed_bandwidth"): "{level} CI at the chosen bandwidth",
+    ("neyman_ci_low", "neyman_ci_high"): "Neyman {level} CI",
 }
 
 #: Coded cell values -> words (bandwidth rules in the sensitivity and bandwidth tables).

@@ -11,6 +11,7 @@ from collections.abc import Iterable, Mapping
 from typing import Any
 
 from ..results.fit import CAUTION
+from ..results.inference import window_text   # the window as the result's own title prints it
 from ..time_score import TIME_CAUTION
 from .table_model import format_number
 
@@ -235,6 +236,57 @@ _DIAGNOSTIC_WRITERS = {
 }
 
 
+
+
+def _end(value: float) -> str:
+    return "minus infinity" if value == float("-inf") else "plus infinity" if value == float("inf") else _n(value)
+
+
+def _set(intervals) -> str:
+    return " and ".join(f"[{_end(lo)}, {_end(hi)}]" for lo, hi in intervals)
+
+
+def _bias_aware_sentence(b) -> str:
+    bound = f"M = {_n(b.smoothness)}" + (f" on the outcome and {_n(b.takeup_smoothness)} on take-up"
+                                         if b.takeup_smoothness is not None else "")
+    rule = (" (a rule of thumb: the largest curvature of a global quartic fitted on each side)"
+            if b.smoothness_rule == "rule of thumb" else "")
+    interval = (f"[{_n(b.conf_int[0])}, {_n(b.conf_int[1])}]" if b.kind == "sharp" or len(b.intervals) == 1
+                else _set(b.intervals))
+    return (f"A bias-aware {_percent(b.level)} confidence interval (Armstrong and Kolesár 2018, 2020), valid "
+            f"for any regression function whose first-order expansion at the cutoff errs by at most M x^2 / 2 "
+            f"on each side, with {bound}{rule}, is {interval} (worst-case bias {_n(b.max_bias)}, bandwidth "
+            f"{_pair(b.bandwidth)}, chosen to minimise the interval's length).")
+
+
+def _weak_iv_sentence(w) -> str:
+    from ..results.inference import SHAPE_WORDS
+    return (f"The weak-instrument-robust {_percent(w.level)} confidence set of Feir, Lemieux and Marmer (2016), "
+            f"which inverts the robust bias-corrected test of no jump in the outcome minus the effect times "
+            f"take-up, is {_set(w.intervals)}: {SHAPE_WORDS[w.shape]}")
+
+
+def _local_randomization_sentence(r) -> str:
+    how = ("chosen by covariate balance as the largest window in which it and every smaller window have a "
+           f"smallest balance p-value of at least {r.balance_threshold:g}" if r.window_rule == "covariate balance"
+           else "set by the analyst")
+    fuzzy = any(w.startswith("The design is fuzzy") for w in r.warnings)
+    assigned = " (the effect of assignment to treatment, not of take-up)" if fuzzy else ""
+    method = ("exact over all assignments" if r.exact else
+              f"from {r.assignments:,} random assignments with seed {r.seed}")
+    return (f"Treating units in the window {window_text(r.window, r.cutoff)} of {r.score} ({how}; "
+            f"{_count(r.n_below)} below and {_count(r.n_above)} above the cutoff) as randomly assigned "
+            f"(Cattaneo, Frandsen and Titiunik 2015), the difference in mean outcomes is {_n(r.estimate)}"
+            f"{assigned}, "
+            f"with a randomization {_p(r.p_value)} for the {r.statistic} statistic ({method}) and a "
+            f"{_percent(r.level)} interval of [{_n(r.conf_int[0])}, {_n(r.conf_int[1])}] under a constant "
+            "additive effect.")
+
+
+_DIAGNOSTIC_WRITERS.update({"bias_aware": _bias_aware_sentence, "weak_iv": _weak_iv_sentence,
+                            "local_randomization": _local_randomization_sentence})
+
+
 def methods_paragraph(fit, *, diagnostics: Mapping[str, Any] | None = None, weights: str | None = None,
                       extra: Iterable[str] = ()) -> str:
     """Describe a fit and its diagnostics in prose, with the numbers the tables show.
@@ -245,7 +297,8 @@ def methods_paragraph(fit, *, diagnostics: Mapping[str, Any] | None = None, weig
         The main estimate.
     diagnostics : mapping, optional
         Any of "density" (DensityTest), "balance" (Balance), "sensitivity" (Sensitivity),
-        "placebo" (Placebo), "donut" (Donut); each present result adds its sentence.
+        "placebo" (Placebo), "donut" (Donut), "bias_aware" (BiasAwareInterval), "weak_iv" (WeakIVSet),
+        "local_randomization" (LocalRandomization); each present result adds its sentence.
     weights : str, optional
         Name of the weights column, if the design is weighted (a Fit does not record it).
     extra : sentences placed before the cautions (several cutoffs, subgroups, power:

@@ -46,7 +46,19 @@ PANEL_CALLS: Mapping[str, str] = {
     "subgroups": ("design.by_group(BOARD['groups'], outcome=OUTCOME, **OPTIONS) if BOARD['groups'] "
                   "else not_applicable(NO_GROUPS_REASON)"),
     "power": "power_plan(design)",
+    # inference beyond the robust interval (issue 9), as notebook/compute_inference.py computes it
+    "bias_aware": ("design.bias_aware(OUTCOME, smoothness=INFERENCE['smoothness'], kernel=OPTIONS['kernel'], "
+                   "degree=OPTIONS['degree'], level=OPTIONS['level']) if OPTIONS['derivative'] == 0 else "
+                   "not_applicable('The bias-aware interval covers the jump in level, not a kink.')"),
+    "weak_iv": ("fit.weak_iv_conf_set(OPTIONS['level']) if fit.first_stage is not None "
+                "else not_applicable(SHARP_REASON)"),
+    "local_randomization": ("design.local_randomization(OUTCOME, **without(INFERENCE, 'smoothness'), "
+                            "level=OPTIONS['level']) if INFERENCE['window'] is not None or DESIGN['covariates'] "
+                            "else not_applicable('No window is given and no covariates are declared to choose one.')"),
 }
+#: Settings of the inference panels and their defaults (notebook/inference_keys.py).
+_INFERENCE_DEFAULTS: Mapping[str, Any] = {"smoothness": None, "window": None, "statistic": "difference in means",
+                                          "permutations": 10_000, "seed": None}
 
 _DESIGN_KEYS = ("score", "cutoff", "treated", "outcome", "takeup", "covariates", "cluster", "weights")
 _OPTION_KEYS = ("bandwidth", "kernel", "degree", "bias_degree", "pilot_bandwidth", "variance", "level", "donut",
@@ -150,6 +162,7 @@ def replication_script(spec: Mapping[str, Any], options: Mapping[str, Any], pane
         (design["covariates"],) if isinstance(design["covariates"], str) else tuple(design["covariates"]))
     given = dict(options)
     outcome = given.pop("outcome", None) or design["outcome"][0]
+    inference = {**_INFERENCE_DEFAULTS, **{k: given.pop(k) for k in _INFERENCE_DEFAULTS if k in given}}
     # Every option is written out, defaults included, so the script says what it computes.
     fit_options = {**_fit_defaults(), **given}
     unknown_options = sorted(set(fit_options) - set(_OPTION_KEYS))
@@ -170,7 +183,9 @@ def replication_script(spec: Mapping[str, Any], options: Mapping[str, Any], pane
         design=_block("DESIGN", design, _DESIGN_KEYS), outcome=_literal(outcome, "outcome"),
         board=_block("BOARD", {key: spec.get(key) for key in _BOARD_KEYS}, _BOARD_KEYS),
         single_reason=repr(_reason("cutoff_effects")), groups_reason=repr(_reason("group_effects")),
-        options=_block("OPTIONS", fit_options, _OPTION_KEYS), calls=calls or "    pass",
+        options=_block("OPTIONS", fit_options, _OPTION_KEYS) + "\n" + _block("INFERENCE", inference,
+                                                                            _INFERENCE_DEFAULTS),
+        calls=calls or "    pass",
         sharp_reason=repr("Sharp design: treatment follows the side of the cutoff exactly, so there is no first "
                           "stage." if design["takeup"] is None else
                           "Take-up equals assignment on every usable row, so the design is sharp and has no first "
@@ -189,7 +204,12 @@ def board_script(board: Any, path: str | os.PathLike[str] | None = None, *,
     What ``Board.export("script", path=None, data_path=None)`` returns; written to ``path`` when
     given (replaced if it exists).
     """
-    text = replication_script(board.spec, board.options, board.panels, data_path=data_path,
+    options = dict(board.options)
+    if options.get("seed", 0) is None and "local_randomization" in board.panels:
+        # a drawn seed is recorded on the result: write it, so the script redraws the same assignments
+        drawn = board.results["local_randomization"]
+        options["seed"] = getattr(drawn, "seed", None)
+    text = replication_script(board.spec, options, board.panels, data_path=data_path,
                               name=getattr(board, "name", "board"))
     if path is not None:
         with open(path, "w", encoding="utf-8", newline="") as handle:

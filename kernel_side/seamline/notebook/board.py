@@ -55,7 +55,8 @@ from .compute import NodeCache, balance_rule, compute_graph, panel_key
 from .exports import CHART_FORMATS, TABLE_FORMATS, export_result, methods_text
 from .reactive import PANELS, DataIdentity, column_node, fingerprints, shared_fingerprints
 from .designs_spec import cutoff_column, cutoff_layout, cutoff_text
-from .spec import (BOARD_KEYS, DESIGN_KEYS, OPTION_DEFAULTS, REQUIRED_KEYS, SPEC_KEYS, NotApplicable,
+from .inference_keys import INFERENCE_DEFAULTS
+from .spec import (BOARD_KEYS, DESIGN_KEYS, FIT_DEFAULTS, OPTION_DEFAULTS, REQUIRED_KEYS, SPEC_KEYS, NotApplicable,
                    coerce_value, lookup)
 from .spec import _EXAMPLE_COLUMN
 from . import scheduler
@@ -196,8 +197,9 @@ class Board(Scheduler):
         ``takeup``, ``covariates``, ``cluster``, ``weights`` -- as for ``seamline.Design``.
     fit_options : dict, optional
         Options of ``Design.fit`` (bandwidth, kernel, degree, bias_degree, pilot_bandwidth,
-        variance, level, donut, derivative, adjust) and ``outcome`` to select one of several
-        outcomes.
+        variance, level, donut, derivative, adjust), ``outcome`` to select one of several
+        outcomes, and the inference settings (smoothness, window, statistic, permutations, seed;
+        ``inference_keys``).
     data : DataFrame, optional
         The data (never modified). Required unless ``data_name`` and ``namespace`` are given.
     data_name : str, optional
@@ -722,7 +724,10 @@ class Board(Scheduler):
         ----------
         what : "estimate", "sensitivity", "balance", "density", "placebo", "donut", "bins",
             "bandwidths", "first_stage", "by_cutoff", "decomposition" (a cutoff column), "subgroups",
-            "power" (the curve), "sample_size", "methods", or "script": a standalone Python script that
+            "power" (the curve), "sample_size", the inference tables "intervals", "bias_aware",
+            "bias_aware_sensitivity", "weak_iv", "local_randomization", "windows",
+            "randomization_sensitivity" (``compute_inference.EXPORTS``; charts of
+            "bias_aware_sensitivity" and "windows"), "methods", or "script": a standalone Python script that
             rebuilds every number of the board from the data file ``data_path`` (CSV or Parquet;
             without it, a marked constant to edit), see ``seamline.export.script``
         fmt : tables: "latex" (booktabs), "markdown", "csv", "html", "text";
@@ -819,7 +824,7 @@ def _check_selected(spec: Mapping[str, Any], outcome: Any) -> str:
 
 
 def _validate_options(spec: Mapping[str, Any], selected: str, options: Mapping[str, Any]) -> None:
-    resolve(selected, has_covariates=bool(spec["covariates"]), **options)
+    resolve(selected, has_covariates=bool(spec["covariates"]), **{k: v for k, v in options.items() if k in FIT_DEFAULTS})
 
 
 def _sources_changed(old: Inputs, new: Inputs) -> set[str]:
@@ -854,7 +859,7 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
           pilot_bandwidth=None, variance: str = "neighbors", level: float = 0.95, donut: float = 0.0,
           derivative: int = 0, adjust: bool = False, groups: str | None = None, effect: float | None = None,
           headline_cutoff: float | None = None, name: str | None = None, data_name: str | None = None,
-          panels: Iterable[str] | None = None) -> Board:
+          panels: Iterable[str] | None = None, **inference) -> Board:
     """Build a live board from Python (the same board a ``%%cutoff`` cell makes).
 
     Parameters
@@ -870,6 +875,9 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
         the cumulative cutoff the headline shows (default the first).
     bandwidth, kernel, degree, bias_degree, pilot_bandwidth, variance, level, donut, derivative, adjust
         Fit options, as for ``Design.fit``.
+    smoothness, window, statistic, permutations, seed
+        Settings of the bias-aware interval and the local randomization tab (keyword only; see
+        ``seamline.notebook.inference_keys``).
     name : str, optional
         Shown in views (default "board<N>").
     data_name : str, optional
@@ -906,6 +914,11 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
     fit_options = dict(bandwidth=bandwidth, kernel=kernel, degree=degree, bias_degree=bias_degree,
                        pilot_bandwidth=pilot_bandwidth, variance=variance, level=level, donut=donut,
                        derivative=derivative, adjust=adjust)
+    unknown = sorted(set(inference) - set(INFERENCE_DEFAULTS))
+    if unknown:
+        raise InvalidOptionError(f"`board` got unknown settings {shown(unknown)}; use the design keys, the fit "
+                                 f"options or {', '.join(INFERENCE_DEFAULTS)}. Check the spelling.")
+    fit_options.update(inference)
     b = Board(name or f"board{next(_NAMES)}", design_kwargs, fit_options, data=data, data_name=data_name,
               namespace=namespace, panels=panels)
     if shell is not None and hasattr(shell, "events"):

@@ -56,7 +56,8 @@ __all__ = [
 
 #: Export names that :func:`chart_for` understands.
 CHART_NAMES = ("estimate", "sensitivity", "balance", "density", "first_stage", "placebo", "donut",
-               "by_cutoff", "subgroups", "power")      # the last three: charts_designs
+               "by_cutoff", "subgroups", "power",      # charts_designs
+               "bias_aware_sensitivity", "windows")   # charts_inference.py
 
 WIDTH = 340    # plot area; with axes the chart is about 400 px, so two sit side by side
 HEIGHT = 210
@@ -801,6 +802,9 @@ def chart_for(board, what: str, *, configure: bool = True):
     if what in ("by_cutoff", "subgroups", "power"):
         from .charts_designs import designs_chart
         return designs_chart(results, what, usable, configure=configure)
+    if what in ("bias_aware_sensitivity", "windows"):
+        from . import charts_inference
+        return charts_inference.chart_for(results, what, usable, configure=configure)
     if what == "estimate":
         return estimate_chart(usable("bins"), fit, configure=configure)
     if what == "sensitivity":

@@ -57,6 +57,8 @@ prepared sides, moment tables, neighbour residuals and selections (a new bandwid
 placebo fits only); a donut side takes its neighbour residuals from the full side's beyond its
 first J groups of ties. ``tests/notebook/test_live_graph.py`` (``PART_CHANGES``) counts them per
 change.
+The inference nodes ``bias_aware``, ``weak_iv`` and ``local_randomization`` (the only ones that
+read ``level``) have their table in ``compute_inference.py``.
 
 Panels (``PANEL_NODES``) read one node each and only re-report it: ``fit`` and ``first_stage``
 read ``main_fit``; ``first_stage_bins`` reads ``takeup_bins``; ``bandwidths`` reads
@@ -82,14 +84,16 @@ from ..results.diagnostics import Checks
 from . import designs_graph
 from .levels import REFERENCE_LEVEL, at_level
 from .reactive import DependencyGraph, PANELS, column_node
-from .spec import Failure, NotApplicable
+from .spec import FIT_DEFAULTS, Failure, NotApplicable
+from . import compute_inference as inference   # the inference nodes (issue 9): their own module
 
 __all__ = ["NODES", "PANEL_NODES", "Computation", "NodeCache", "assemble_checks", "compute_graph",
            "failure", "node_key", "panel_key", "panel_order"]
 
 #: Intermediate results that call the engine (``design``, ``sample`` and ``selection`` group sources).
 NODES: tuple[str, ...] = ("main_fit", "selectors", "bins", "takeup_bins", "sensitivity", "placebo", "donut_ladder",
-                          "density", "balance", "checks_balance", "score_profile", "checks", *designs_graph.NODES)
+                          "density", "balance", "checks_balance", "score_profile", "checks", *designs_graph.NODES,
+                          *inference.INFERENCE_NODES)
 
 #: The node behind each panel.
 PANEL_NODES: Mapping[str, str] = {
@@ -97,6 +101,7 @@ PANEL_NODES: Mapping[str, str] = {
     "bandwidths": "selectors", "density": "density", "balance": "balance", "sensitivity": "sensitivity",
     "placebo": "placebo", "donut": "donut_ladder", "score_profile": "score_profile", "checks": "checks",
     **designs_graph.PANEL_NODES,
+    **inference.INFERENCE_PANEL_NODES,
 }
 
 _DESIGN_KEYS = ("score", "cutoff", "treated", "outcomes", "takeup", "covariates", "cluster", "weights")
@@ -139,6 +144,7 @@ def compute_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: 
         "score_profile": [col(score), "score", "cutoff", "headline_cutoff",
                           *(col(c) for c in (cutoff_column,) if c), "main_fit"],
         "checks": ["main_fit", "density", "checks_balance", "score_profile"],
+        **inference.inference_parents(rows=rows, outcome_column=col(outcome), covariates=covs),
     }
     parents.update(designs_graph.parents(
         layout=cutoff_layout, groups=groups, rows=rows,
@@ -160,8 +166,12 @@ def node_key(graph: DependencyGraph, values: Mapping[str, Any], node: str) -> tu
 
 
 def panel_key(graph: DependencyGraph, values: Mapping[str, Any], panel: str, level: float) -> tuple:
-    """What a panel's result is for: its node's key and the level it is reported at."""
-    return (node_key(graph, values, PANEL_NODES[panel]), level)
+    """What a panel's result is for: its node's key and the level it is reported at (inference
+    panels: and the options their caveats read, ``compute_inference.CAVEAT_SOURCES``)."""
+    key = (node_key(graph, values, PANEL_NODES[panel]), level)
+    if panel in inference.CAVEAT_SOURCES:
+        key += tuple((name, values.get(name)) for name in inference.CAVEAT_SOURCES[panel])
+    return key
 
 
 def balance_rule(bandwidth: Any) -> str:
@@ -265,6 +275,8 @@ class Computation:
 
     def _panel(self, panel: str) -> Any:
         level = self.options["level"]
+        if panel in inference.INFERENCE_PANEL_NODES:
+            return inference.inference_panel(self, panel)
         if panel in ("fit", "first_stage"):
             main = self.node("main_fit")
             if isinstance(main, Failure):
@@ -282,7 +294,8 @@ class Computation:
 
     # ---- the engine calls ----------------------------------------------------------------------
     def _kwargs(self, *drop: str) -> dict[str, Any]:
-        kwargs = {"outcome": self.selected, **self.options, "level": REFERENCE_LEVEL}
+        fit_options = {k: v for k, v in self.options.items() if k in FIT_DEFAULTS}
+        kwargs = {"outcome": self.selected, **fit_options, "level": REFERENCE_LEVEL}
         for name in drop:
             kwargs.pop(name, None)
         return kwargs
@@ -304,6 +317,8 @@ class Computation:
             return designs_graph.compute(self, node)
         design, opts = self.headline_design(), self.options
         try:
+            if node in inference.INFERENCE_NODES:
+                return inference.compute_inference(self, node)
             if node == "main_fit":
                 return design.fit(**self._kwargs())
             if node == "selectors":

@@ -28,6 +28,8 @@ LABELS = {
     "placebo": "placebo cutoffs", "donut": "donut radii", "score_profile": "score profile",
     "checks": "design checks",
     "by_cutoff": "effects by cutoff", "subgroups": "subgroup effects", "power": "power and sample size",
+    "bias_aware": "bias-aware interval", "weak_iv": "weak-instrument-robust set",
+    "local_randomization": "local randomization",
 }
 #: Export names -> result keys.
 EXPORTS: dict[str, str] = {
@@ -48,7 +50,8 @@ def methods_text(fit, results: Mapping[str, Any], errors: Mapping[str, str], wei
         raise InvalidOptionError(f"`board` must have a current main fit to describe; got none: "
                                  f"{errors.get('fit', 'not computed')}. Fix the error first.")
     diagnostics = {k: v for k, v in results.items()
-                   if k in ("density", "balance", "sensitivity", "placebo", "donut") and v is not None
+                   if k in ("density", "balance", "sensitivity", "placebo", "donut", "bias_aware", "weak_iv",
+                            "local_randomization") and v is not None
                    and not isinstance(v, NotApplicable)}
     from ..export.methods_designs import designs_sentences
     # several cutoffs, subgroups, power: no sentence where they do not apply
@@ -73,8 +76,17 @@ def export_result(state, what: str, fmt: str, path: str | Path | None, *, weight
         else:
             text += "\n"
         return _write(text, path)
-    if what not in EXPORTS:
-        names = ", ".join(f'"{n}"' for n in (*EXPORTS, "methods"))
+    from . import compute_inference as inference
+    if what in inference.EXPORTS and fmt not in CHART_FORMATS:
+        result = inference.export_source(state.results, what)
+        if result is None or isinstance(result, NotApplicable):
+            key = inference.EXPORTS[what][0]
+            reason = str(result) if result is not None else state.errors.get(key, "not computed")
+            raise InvalidOptionError(f"`what` must name a panel with a current result; got {shown(what)}, which has "
+                                     f"none: {reason}")
+        return _write(_render_table(result, fmt, title=None), path)
+    if what not in EXPORTS and not (what in inference.EXPORTS and fmt in CHART_FORMATS):
+        names = ", ".join(f'"{n}"' for n in (*EXPORTS, *inference.EXPORTS, "methods"))
         raise InvalidOptionError(f"`what` must be one of {names}; got {shown(what)}. Pick a table or chart name.")
     if fmt in CHART_FORMATS:
         from . import charts

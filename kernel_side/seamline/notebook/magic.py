@@ -32,7 +32,9 @@ DESIGN_KEYS = ("score", "cutoff", "treated", "outcome", "takeup", "covariates", 
 OPTION_KEYS = ("bandwidth", "kernel", "degree", "bias_degree", "pilot_bandwidth", "variance", "level",
                "donut", "derivative", "adjust")
 BOARD_KEYS = ("groups", "effect", "headline_cutoff")      # see designs_spec
-KEYS = ("data", *DESIGN_KEYS, *BOARD_KEYS, *OPTION_KEYS)
+# Inference settings (notebook/inference_keys.py parses and checks their values).
+INFERENCE_KEYS = ("smoothness", "window", "statistic", "permutations", "seed")
+KEYS = ("data", *DESIGN_KEYS, *BOARD_KEYS, *OPTION_KEYS, *INFERENCE_KEYS)
 REQUIRED = ("data", "score", "cutoff", "outcome")
 _KIND = {
     "data": "data", "score": "column", "takeup": "column?", "cluster": "column?", "weights": "column?",
@@ -41,6 +43,7 @@ _KIND = {
     "treated": "choice", "kernel": "choice", "variance": "choice", "bandwidth": "bandwidth",
     "pilot_bandwidth": "bandwidth?", "adjust": "boolean",
     "groups": "column?", "effect": "number?", "headline_cutoff": "number?",
+    **{key: "inference" for key in INFERENCE_KEYS},
 }
 _CHOICES = {"treated": SIDES, "kernel": KERNELS, "variance": VARIANCES}
 _EXAMPLES = {
@@ -50,6 +53,7 @@ _EXAMPLES = {
     "degree": "1", "bias_degree": "2", "pilot_bandwidth": "4.0", "variance": "neighbors",
     "level": "0.95", "donut": "0", "derivative": "0", "adjust": "false",
     "groups": "region", "effect": "0.2", "headline_cutoff": "60",
+    "smoothness": "0.5", "window": "2.5", "statistic": "rank sum", "permutations": "10000", "seed": "20260314",
 }
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*(\.[A-Za-z_][A-Za-z0-9_]*)*$")
 _INTEGER = re.compile(r"^[+-]?\d+$")
@@ -226,6 +230,13 @@ class _Resolver:
     def resolve(self, key: str, text: str, line: int) -> Any:
         kind = _KIND[key]
         lowered = text.strip().lower()
+        if kind == "inference":
+            from .inference_keys import parse_text
+            value = parse_text(key, text)
+            if isinstance(value, str) and key != "statistic" and _NAME.match(text) and \
+                    text.split(".")[0] in self.namespace:
+                return self.variable(key, text, line, "a value of this setting")
+            return value
         if kind.endswith("?") and lowered in _NONE and (self.columns is None or text not in self.columns):
             return None
         kind = kind.rstrip("?")

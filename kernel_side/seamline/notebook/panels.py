@@ -33,7 +33,7 @@ from typing import Any
 import ipywidgets as widgets
 import pandas as pd
 
-from . import charts, panels_designs, static
+from . import charts, panels_designs, panels_inference, static
 from .controls_designs import DesignsControls
 from .static import PANEL_EXPORTS, PANEL_RESULTS, PANELS, error_html, header_html, panel_html
 
@@ -139,9 +139,10 @@ def _outcomes(state) -> tuple[str, ...]:
 
 #: The charts each tab draws (export names understood by ``charts.chart_for``).
 TAB_CHARTS: dict[str, tuple[str, ...]] = {
-    "estimate": ("estimate",), "bandwidths": ("sensitivity",), "balance": ("balance",),
+    "estimate": ("estimate", "bias_aware_sensitivity"), "bandwidths": ("sensitivity",), "balance": ("balance",),
     "density": ("density",), "first_stage": ("first_stage",), "placebos": ("placebo", "donut"),
     **panels_designs.TAB_CHARTS,
+    "local_randomization": ("windows",),
 }
 
 
@@ -230,7 +231,8 @@ class BoardView(widgets.VBox):
             bar.add_class("seamline-export")     # its buttons are made when the tab is first shown
             self._export_bars[key] = (bar, out)
             row = widgets.HBox([c for _w, c in outputs], layout=widgets.Layout(flex_flow="row wrap"))
-            box = widgets.VBox([row, body, bar, out], layout=widgets.Layout(padding="6px 4px"))
+            top = [self._lr_controls] if key == "local_randomization" else []
+            box = widgets.VBox([*top, row, body, bar, out], layout=widgets.Layout(padding="6px 4px"))
             box.add_class(_css(key))
             boxes.append(box)
         self._tabs = widgets.Tab(children=boxes, titles=[title for _k, title in PANELS])
@@ -297,6 +299,12 @@ class BoardView(widgets.VBox):
                                                description="donut", style=_CONTROL, layout=lay,
                                                continuous_update=False)
         self._level = widgets.Dropdown(options=_LEVELS, description="CI level", style=_CONTROL, layout=lay)
+        self._smoothness = panels_inference.smoothness_control(lay)     # M of the bias-aware interval
+        self._smoothness.observe(self._changed("smoothness"), names="value")
+        # the Local randomization tab's own controls (shown in that tab, not in this row)
+        self._lr_controls, self._window, self._statistic = panels_inference.randomization_controls(lay)
+        self._window.observe(self._changed("window"), names="value")
+        self._statistic.observe(self._changed("statistic"), names="value")
         for control, name in ((self._outcome, "outcome"), (self._kernel, "kernel"),
                               (self._degree, "degree"), (self._variance, "variance"),
                               (self._donut, "donut"), (self._level, "level")):
@@ -309,7 +317,7 @@ class BoardView(widgets.VBox):
         self._designs = DesignsControls(self)         # effect (power) and headline cutoff
         box = widgets.Box(
             [self._outcome, self._rule, self._manual, self._kernel, self._degree, self._variance,
-             self._donut, self._level, *self._designs.widgets],
+             self._donut, self._level, self._smoothness, *self._designs.widgets],
             layout=widgets.Layout(display="flex", flex_flow="row wrap",
                                   border_top="1px solid #e0e0e0", padding="6px 0 4px 0"))
         box.add_class("seamline-controls")
@@ -387,6 +395,12 @@ class BoardView(widgets.VBox):
             if level is not None:
                 self._set_choice(self._level, _LEVELS, float(level), f"{100 * float(level):g}%")
             self._designs.sync(state)
+            if "smoothness" in opts:
+                self._smoothness.value = panels_inference.smoothness_text(opts["smoothness"])
+            if "window" in opts:
+                self._window.value = panels_inference.window_text(opts["window"])
+            if opts.get("statistic") in self._statistic.options:
+                self._statistic.value = opts["statistic"]
         finally:
             self._syncing = False
 
@@ -442,7 +456,7 @@ class BoardView(widgets.VBox):
         for what in PANEL_EXPORTS[panel]:
             label = widgets.HTML(f'<span style="font-size:12px;color:#555">Export {html.escape(what.replace("_", " "))}:</span>')
             buttons = [label]
-            for title, fmt in _FORMATS:
+            for title, fmt in _FORMATS if what in charts.CHART_NAMES else _FORMATS[:3]:   # tables only
                 button = widgets.Button(description=title, layout=self._button_layout, style=self._button_style,
                                         tooltip=f"{title} of the {what.replace('_', ' ')} "
                                                 f"{'chart' if fmt in ('svg', 'png') else 'table'}")

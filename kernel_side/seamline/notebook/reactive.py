@@ -44,7 +44,8 @@ __all__ = [
 PANELS: tuple[str, ...] = ("fit", "first_stage", "bins", "first_stage_bins", "bandwidths", "density",
                            "balance", "sensitivity", "placebo", "donut", "score_profile",
                            "by_cutoff", "subgroups", "power",     # designs_graph
-                           "checks")
+                           "checks",
+                           "bias_aware", "weak_iv", "local_randomization")   # compute_inference
 
 #: Fit options a board passes to the engine (``level`` only re-reports a fit).
 FIT_OPTIONS: tuple[str, ...] = ("bandwidth", "kernel", "degree", "bias_degree", "pilot_bandwidth",
@@ -435,5 +436,11 @@ def board_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: st
         panel_node("subgroups"): [*sample, "groups", "headline_cutoff", *estimator, "bandwidth", "pilot_bandwidth",
                                   "level"],
         panel_node("power"): ["main_fit", "effect", "level"],
+        # Inference beyond the robust interval (issue 9; compute_inference.py has the board's own table).
+        panel_node("bias_aware"): [*row_inputs, col(outcome), "outcome", "kernel", "degree", "derivative",
+                                   "smoothness", "level"],
+        panel_node("weak_iv"): ["main_fit", "level"],
+        panel_node("local_randomization"): [*row_inputs, col(outcome), "outcome", *(col(c) for c in covariates),
+                                            "covariates", "window", "statistic", "permutations", "seed", "level"],
     }
     return DependencyGraph(parents)

@@ -21,8 +21,9 @@ import pandas as pd
 from ..time_score import is_time_value, looks_like_date
 from ..errors import InvalidOptionError, shown
 from ..options import BANDWIDTH_RULES, KERNELS, SIDES, VARIANCES, check_option
+from .inference_keys import INFERENCE_DEFAULTS, coerce_inference
 
-__all__ = ["BOARD_KEYS", "DESIGN_KEYS", "OPTION_DEFAULTS", "REQUIRED_KEYS", "SPEC_KEYS", "Failure", "NotApplicable",
+__all__ = ["BOARD_KEYS", "DESIGN_KEYS", "FIT_DEFAULTS", "OPTION_DEFAULTS", "REQUIRED_KEYS", "SPEC_KEYS", "Failure", "NotApplicable",
            "coerce_value", "lookup"]
 
 #: Keys of the design declaration (names and numbers given to ``seamline.Design``).
@@ -33,11 +34,14 @@ DESIGN_KEYS: tuple[str, ...] = ("score", "cutoff", "treated", "outcome", "takeup
 #: (see ``designs_spec``).
 BOARD_KEYS: tuple[str, ...] = ("groups", "effect", "headline_cutoff")
 #: Fit options and their defaults (the engine's defaults).
-OPTION_DEFAULTS: dict[str, Any] = {
+FIT_DEFAULTS: dict[str, Any] = {
     "bandwidth": "mse", "kernel": "triangular", "degree": 1, "bias_degree": None,
     "pilot_bandwidth": None, "variance": "neighbors", "level": 0.95, "donut": 0.0,
     "derivative": 0, "adjust": False,
 }
+#: Every board option: the fit options, then the inference settings (``inference_keys``), which
+#: only the inference panels read and which are never passed to ``Design.fit``.
+OPTION_DEFAULTS: dict[str, Any] = {**FIT_DEFAULTS, **INFERENCE_DEFAULTS}
 #: Every key a declaration may hold.
 SPEC_KEYS: tuple[str, ...] = ("data", *DESIGN_KEYS, *BOARD_KEYS, *OPTION_DEFAULTS)
 #: Keys a declaration must hold.
@@ -153,6 +157,8 @@ def coerce_value(key: str, value: Any, variable: str | None = None) -> Any:
     InvalidOptionError
         With the key, the variable, the value and how to fix it.
     """
+    if key in INFERENCE_DEFAULTS:
+        return coerce_inference(key, value, variable)
     if key == "cutoff" and (looks_like_date(value) or is_time_value(value)):
         return value      # a cutoff date: checked against the score by seamline.Design
     if key == "cutoff" or key in BOARD_KEYS:

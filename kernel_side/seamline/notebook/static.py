@@ -23,7 +23,7 @@ import pandas as pd
 from ..errors import shown
 from ..results.base import CAUTION
 from ..time_score import TIME_CAUTION
-from . import charts, panels_designs, time_axes
+from . import charts, panels_designs, panels_inference, time_axes
 
 __all__ = [
     "PANELS",
@@ -45,29 +45,32 @@ PANELS: tuple[tuple[str, str], ...] = (
     ("first_stage", "First stage"),
     ("placebos", "Placebos"),
     *panels_designs.TABS,           # by cutoff, subgroups, power
+    ("local_randomization", "Local randomization"),
 )
 
 #: Which board results each panel shows (a change to one of them re-renders the panel).
 PANEL_RESULTS: Mapping[str, tuple[str, ...]] = {
     "header": ("fit", "checks"),
-    "estimate": ("fit", "bins"),
+    "estimate": ("fit", "bins", "bias_aware", "weak_iv"),
     "bandwidths": ("fit", "sensitivity", "bandwidths"),
     "balance": ("balance",),
     "density": ("fit", "density", "score_profile"),
     "first_stage": ("fit", "first_stage", "first_stage_bins"),
     "placebos": ("fit", "placebo", "donut"),
     **panels_designs.RESULTS,
+    "local_randomization": ("local_randomization",),
 }
 
 #: The export name behind each panel's table and chart buttons.
 PANEL_EXPORTS: Mapping[str, tuple[str, ...]] = {
-    "estimate": ("estimate",),
+    "estimate": ("estimate", "intervals", "bias_aware_sensitivity", "weak_iv"),
     "bandwidths": ("sensitivity",),
     "balance": ("balance",),
     "density": ("density",),
     "first_stage": ("first_stage",),
     "placebos": ("placebo", "donut"),
     **panels_designs.EXPORTS,
+    "local_randomization": ("local_randomization", "windows", "randomization_sensitivity"),
 }
 
 #: The board result behind each export name.
@@ -75,6 +78,10 @@ EXPORT_RESULTS: Mapping[str, str] = {
     "estimate": "fit", "sensitivity": "sensitivity", "balance": "balance", "density": "density",
     "first_stage": "first_stage", "placebo": "placebo", "donut": "donut",
     **panels_designs.EXPORT_RESULTS,
+    # inference tables (compute_inference.EXPORTS) read these results
+    "intervals": "fit", "bias_aware": "bias_aware", "bias_aware_sensitivity": "bias_aware", "weak_iv": "weak_iv",
+    "local_randomization": "local_randomization", "windows": "local_randomization",
+    "randomization_sensitivity": "local_randomization",
 }
 
 _esc = html.escape
@@ -188,7 +195,8 @@ def _chart_inputs(board, what: str) -> tuple:
     keys = {"estimate": ("fit", "bins"), "sensitivity": ("fit", "sensitivity", "bandwidths"),
             "balance": ("balance",), "density": ("fit", "density"),
             "first_stage": ("fit", "first_stage", "first_stage_bins"),
-            "placebo": ("fit", "placebo"), "donut": ("fit", "donut"), **panels_designs.CHART_INPUTS}[what]
+            "placebo": ("fit", "placebo"), "donut": ("fit", "donut"), **panels_designs.CHART_INPUTS,
+            "bias_aware_sensitivity": ("fit", "bias_aware"), "windows": ("fit", "local_randomization")}[what]
     return tuple(results.get(k) for k in keys)
 
 
@@ -402,6 +410,11 @@ _EXPLAIN = {
     "placebos": ("Placebo cutoffs, where nothing happens, should show no jump. The donut drops the "
                  "observations closest to the cutoff: a stable estimate suggests no heaping or "
                  "sorting right at the cutoff."),
+    "local_randomization": ("Units in a small window around the cutoff are analysed as a randomized "
+                            "experiment (Cattaneo, Frandsen and Titiunik 2015): the p-value comes from "
+                            "re-assigning treatment within the window. The window is the largest one in "
+                            "which the covariates stay balanced; the estimate is the window's average "
+                            "effect, not the effect at the cutoff."),
 }
 
 
@@ -445,7 +458,7 @@ def _estimate_panel(board) -> str:
     pieces = [_chart_or_error(board, "estimate")]
     tables = _table_html(fit) + (_table_html(specification) if specification is not None else "")
     pieces.append(f'<div class="seamline-tables" style="{_TABLES}">{tables}</div>')
-    return f'<div style="{_ROW}">{"".join(pieces)}</div>'
+    return f'<div style="{_ROW}">{"".join(pieces)}</div>' + panels_inference.estimate_inference_html(board)
 
 
 class _Titled:
@@ -556,6 +569,7 @@ def _panel_html(board, panel: str) -> str:
             "first_stage": _first_stage_panel,
             "placebos": _placebos_panel,
             **panels_designs.BODIES,
+            "local_randomization": panels_inference.local_randomization_html,
         }[panel](board)
         errors = [m for m in _panel_errors(board, panel)
                   if _esc(m) not in body]  # result-level errors are already shown in the body

@@ -19,6 +19,15 @@ def _fmt_set(intervals: tuple[tuple[float, float], ...]) -> str:
     return " U ".join(f"[{end(lo)}, {end(hi)}]" for lo, hi in intervals)
 
 
+def window_text(window, cutoff: float) -> str:
+    """A window "[low, high]" with enough decimals to show its half-width to three significant
+    digits (38.04 to 41.96, not 38 to 42)."""
+    low, high = window
+    half = max(abs(high - cutoff), abs(cutoff - low), 1e-300)
+    decimals = max(0, min(10, 2 - int(np.floor(np.log10(half)))))
+    return f"[{low:.{decimals}f}, {high:.{decimals}f}]"
+
+
 def set_shape(intervals: tuple[tuple[float, float], ...]) -> str:
     """"interval", "two rays", "half-line", "whole line" or "union of intervals"."""
     if len(intervals) == 1:
@@ -258,8 +267,8 @@ class LocalRandomization(Reported):
              "n_below": self.n_below, "n_above": self.n_above}])
 
     def title(self) -> str:
-        lo, hi = self.window
-        return (f"Local randomization: {self.outcome} in the window [{lo:.4g}, {hi:.4g}] of {self.score} "
+        return (f"Local randomization: {self.outcome} in the window {window_text(self.window, self.cutoff)} of "
+                f"{self.score} "
                 f"around {self.cutoff:g} (treated {self.treated})")
 
     def notes(self) -> list[str]:
