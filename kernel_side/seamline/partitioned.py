@@ -159,9 +159,9 @@ def _check_parquet_schemas(files: list[str], roles: dict[str, str]) -> None:
         if len(where) == len(files):
             raise ColumnNotFoundError(f"`{role}` column {shown(name)} is not in the Parquet files (e.g. {shown(where[0])}). "
                                       "Check the spelling against the files' schema.")
-        shown = ", ".join(repr(w) for w in where[:3]) + (" ..." if len(where) > 3 else "")
+        files_missing = ", ".join(shown(w) for w in where[:3]) + (" ..." if len(where) > 3 else "")
         raise ColumnNotFoundError(f"`{role}` column {shown(name)} must be in every Parquet file; got it missing from "
-                                  f"{len(where)} of {len(files)} files ({shown}). Rewrite those files with the "
+                                  f"{len(where)} of {len(files)} files ({files_missing}). Rewrite those files with the "
                                   "column, or select the files that have it with a narrower path or glob.")
 
 
