@@ -345,14 +345,18 @@ def test_a_level_change_equals_the_interval_rebuilt_by_hand(scenario):
 # groups: the headline cutoff moves every single-cutoff panel and the subgroups (which are taken at
 # the headline cutoff) but never the cutoff-specific effects; the level and the effect compute nothing.
 SINGLE_PANELS = ALL_BUT_DENSITY | {"density"}
+# The inference nodes (compute_inference) read the level and the rows of the headline design, and the
+# window chosen by covariate balance reads the covariates.
+INFERENCE_NODES = {"bias_aware", "local_randomization"}
 DESIGNS_CHANGES = {
-    "level": (("level", 0.9), set()),
+    "level": (("level", 0.9), INFERENCE_NODES),
     "effect": (("effect", 0.4), set()),
-    "headline_cutoff": (("headline_cutoff", 60.0), SINGLE_PANELS | {"by_group"}),
+    "headline_cutoff": (("headline_cutoff", 60.0), SINGLE_PANELS | {"by_group"} | INFERENCE_NODES),
     "bandwidth (manual)": (("bandwidth", 6.0), {"fit", *FIT_DIAGNOSTICS, "by_cutoff", "by_group"}),
     "groups": (("groups", None), set()),
-    "column: outcome": (("edit", "investment"), ALL_BUT_DENSITY - {"balance"} | {"by_cutoff", "by_group"}),
-    "column: covariate": (("edit", "farm_size"), {"balance"}),
+    "column: outcome": (("edit", "investment"), ALL_BUT_DENSITY - {"balance"} | {"by_cutoff", "by_group"}
+                        | INFERENCE_NODES),
+    "column: covariate": (("edit", "farm_size"), {"balance", "local_randomization"}),
 }
 
 

@@ -18,6 +18,7 @@ from typing import Any
 
 import pandas as pd
 
+from ..results.base import CAUTION
 from .table_model import TableModel, from_dataframe
 
 __all__ = [
@@ -293,7 +294,9 @@ def result_model(result: Any, *, join_intervals: bool = True, title: str | None 
     -------
     TableModel
     """
-    notes = [*result.notes(), *(f"Warning: {w}" for w in (getattr(result, "warnings", ()) or ()))]
+    # the caution is stated once per board and once in the methods paragraph, never under a table
+    notes = [n for n in (str(n).replace(CAUTION, "").strip() for n in result.notes()) if n]
+    notes += [f"Warning: {w}" for w in (getattr(result, "warnings", ()) or ())]
     return labelled_model(result.table(), title=result.title() if title is None else title, notes=notes,
                           level=_level_of(result), join_intervals=join_intervals, decimals=decimals,
                           overrides=RESULT_LABELS.get(type(result).__name__))

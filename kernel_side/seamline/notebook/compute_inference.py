@@ -34,6 +34,7 @@ from typing import Any, Mapping
 
 import pandas as pd
 
+from ..errors import shown
 from .spec import Failure, NotApplicable
 
 __all__ = ["CAVEAT_SOURCES", "INFERENCE_NODES", "INFERENCE_PANEL_NODES", "InferenceTable", "caveats",
@@ -85,7 +86,7 @@ def compute_inference(comp, node: str) -> Any:
                                  "or `window: 37.5, 42.5`, or declare pre-treatment `covariates:`.")
         return design.local_randomization(comp.selected, window=opts["window"], statistic=opts["statistic"],
                                           permutations=opts["permutations"], seed=opts["seed"], level=level)
-    raise AssertionError(f"unknown inference node {node!r}")
+    raise AssertionError(f"unknown inference node {shown(node)}")
 
 
 def caveats(panel: str, spec: Mapping[str, Any], options: Mapping[str, Any]) -> tuple[str, ...]:
@@ -100,7 +101,7 @@ def caveats(panel: str, spec: Mapping[str, Any], options: Mapping[str, Any]) -> 
                          "robust intervals beside it do.")
         if options["variance"] != "neighbors" and not spec["cluster"]:
             notes.append(f"The bias-aware standard error uses the nearest-neighbour variance, not the board's "
-                         f"{options['variance']!r}.")
+                         f"{shown(options['variance'])}.")
         notes.append("Its bandwidth is its own (the one that minimises the interval's length under the bound), "
                      "not the board's bandwidth.")
     if panel == "local_randomization":

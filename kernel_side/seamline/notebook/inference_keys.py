@@ -20,7 +20,7 @@ from typing import Any
 import numpy as np
 
 from ..core.randomization import STATISTICS
-from ..errors import InvalidOptionError
+from ..errors import InvalidOptionError, shown
 
 __all__ = ["INFERENCE_DEFAULTS", "INFERENCE_EXAMPLES", "coerce_inference", "parse_text", "MIN_PERMUTATIONS"]
 
@@ -98,7 +98,7 @@ def coerce_inference(key: str, value: Any, variable: str | None = None) -> Any:
             return float(value)
         raise InvalidOptionError(f"{where} must be a positive number (the bound M on the curvature of the "
                                  "outcome, in outcome units per squared score unit), two of them for a fuzzy "
-                                 f"board (outcome, take-up), or `rule of thumb`; got {value!r}. Use e.g. "
+                                 f"board (outcome, take-up), or `rule of thumb`; got {shown(value)}. Use e.g. "
                                  "`smoothness: 0.5`.")
     if key == "window":
         if value is None:
@@ -110,7 +110,7 @@ def coerce_inference(key: str, value: Any, variable: str | None = None) -> Any:
             return (float(value[0]), float(value[1]))
         raise InvalidOptionError(f"{where} must be `by balance`, a positive half-width (the window is cutoff "
                                  "minus to plus it) or two scores `low, high` with low below high; got "
-                                 f"{value!r}. Use e.g. `window: 2.5` or `window: 37.5, 42.5`.")
+                                 f"{shown(value)}. Use e.g. `window: 2.5` or `window: 37.5, 42.5`.")
     if key == "statistic":
         if isinstance(value, str):
             lowered = " ".join(value.strip().lower().split())
@@ -118,7 +118,7 @@ def coerce_inference(key: str, value: Any, variable: str | None = None) -> Any:
                 if lowered in (name.lower(), name.lower().replace("-", " ")):
                     return name
         choices = ", ".join(STATISTICS)
-        raise InvalidOptionError(f"{where} must be one of {choices}; got {value!r}. Use e.g. "
+        raise InvalidOptionError(f"{where} must be one of {choices}; got {shown(value)}. Use e.g. "
                                  "`statistic: rank sum`.")
     if key in ("permutations", "seed"):
         if key == "seed" and value is None:
@@ -131,7 +131,7 @@ def coerce_inference(key: str, value: Any, variable: str | None = None) -> Any:
         what = (f"a whole number of at least {MIN_PERMUTATIONS} (random assignments drawn when a window has "
                 "too many to enumerate)" if key == "permutations" else "a whole number of at least 0, or `none` "
                 "to draw one (it is recorded)")
-        raise InvalidOptionError(f"{where} must be {what}; got {value!r}. Use e.g. "
+        raise InvalidOptionError(f"{where} must be {what}; got {shown(value)}. Use e.g. "
                                  f"`{key}: {INFERENCE_EXAMPLES[key]}`.")
-    raise InvalidOptionError(f"`key` must be one of {', '.join(INFERENCE_DEFAULTS)}; got {key!r}. "
+    raise InvalidOptionError(f"`key` must be one of {', '.join(INFERENCE_DEFAULTS)}; got {shown(key)}. "
                              "Check the spelling of the setting.")
