@@ -247,10 +247,9 @@ def bin_constants(score, outcome, cutoff: float, side: str, *, weights=None,
 
 
 def _side_constants(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: float, side: str,
-                    degree: int, order: np.ndarray | None = None) -> BinConstants:
-    """Spacings constants of one side in input order; ``order`` sorts ``x`` (sorted here if None)."""
-    if order is None:
-        order = np.argsort(x)
+                    degree: int) -> BinConstants:
+    """Spacings constants of one side's observations given in input order."""
+    order = np.argsort(x)
     return sorted_constants(x[order], y[order], None if w is None else w[order], order, cutoff,
                             side, degree)
 
