@@ -151,6 +151,7 @@ class SortedSample:
     w : weights in that order, or None.
     positions : input position of each sorted observation (ties in any order unless ``stable``).
     split : number of observations below the cutoff (they come first).
+    source_y : the outcomes in input order (``positions`` index it).
     stable : whether tied scores keep their input order (a stable sort).
     """
 
@@ -159,6 +160,7 @@ class SortedSample:
     w: np.ndarray | None
     positions: np.ndarray
     split: int
+    source_y: np.ndarray
     stable: bool
 
     def side(self, index: int) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray]:
@@ -194,7 +196,7 @@ def sorted_sample(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: fl
         raise OneSidedDataError(
             f"`score` must have observations on both sides of the cutoff; got none {empty} {cutoff:g}. "
             "Check the cutoff value or the sample filter.")
-    return SortedSample(xs, y[order], None if w is None else w[order], order, split, stable)
+    return SortedSample(xs, y[order], None if w is None else w[order], order, split, y, stable)
 
 
 def run_starts(xs: np.ndarray) -> np.ndarray:
@@ -250,81 +252,70 @@ def _side_constants(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: 
                     degree: int) -> BinConstants:
     """Spacings constants of one side's observations given in input order."""
     order = np.argsort(x)
-    return sorted_constants(x[order], y[order], None if w is None else w[order], order, cutoff,
+    return sorted_constants(x[order], y[order], None if w is None else w[order], order, y, cutoff,
                             side, degree)
 
 
 def sorted_constants(xs: np.ndarray, ys: np.ndarray, ws: np.ndarray | None, positions: np.ndarray,
-                     cutoff: float, side: str, degree: int = PILOT_DEGREE) -> BinConstants:
+                     source_y: np.ndarray, cutoff: float, side: str,
+                     degree: int = PILOT_DEGREE) -> BinConstants:
     """Spacings constants of one side from its observations in ascending score order.
 
+    ``positions`` are the observations' positions in ``source_y`` (the outcome in input order).
     The sums follow the side's scores in ascending order with ties in input order (a stable sort).
     Only the trapezoid of sigma^2 depends on the order within ties, through the first and last
-    member of each run of equal scores, so those are found as the least and greatest input
-    position (``positions``) in the run and no stable sort is needed.
+    member of each run of equal scores: the members with the least and the greatest input
+    position. Their residuals are their outcomes (read at those positions) minus the pilot at the
+    run's score, so no stable sort is needed and no per-row residual is kept.
     """
     n = xs.size
     far = float(xs[0]) if side == "below" else float(xs[-1])
     span = abs(far - cutoff)
     support = (far, cutoff) if side == "below" else (cutoff, far)
     starts = run_starts(xs)
+    ties = len(starts) < n
     deg = max(0, min(degree, len(starts) - 1, n - 2))
     if span == 0.0:
         deg = 0
-    sigma2, slope2 = _pilot_squares(xs, ys, ws, cutoff, span if span > 0 else 1.0, side, deg)
-    int_slope2_f = float(np.mean(slope2))
-    if len(starts) == n:                 # no ties: every run is one observation
-        gaps = np.diff(xs)
-        int_sigma2 = float(np.sum(0.5 * (sigma2[:-1] + sigma2[1:]) * gaps))
-        nearest = sigma2[-1] if side == "below" else sigma2[0]
+    to_t = (cutoff, 2.0 / (span if span > 0 else 1.0), 1.0 if side == "below" else -1.0)
+    power = _pilot_power(xs, ys, ws, to_t, deg)
+    sums = _residual_sums(xs, ys, power, to_t, trapezoid=not ties)
+    if ties:
+        at_run = np.empty(len(starts))              # the pilot at each run's score
+        for rows, t in _t_chunks(xs[starts], to_t):
+            _horner(power, t, at_run[rows])
+        first = (source_y[np.minimum.reduceat(positions, starts)] - at_run) ** 2
+        last = (source_y[np.maximum.reduceat(positions, starts)] - at_run) ** 2
+        int_sigma2 = float(np.sum(0.5 * (last[:-1] + first[1:]) * np.diff(xs[starts])))
+        nearest = last[-1] if side == "below" else first[0]
     else:
-        first, last = _run_ends(positions, starts)
-        gaps = np.diff(xs[starts])
-        int_sigma2 = float(np.sum(0.5 * (sigma2[last[:-1]] + sigma2[first[1:]]) * gaps))
-        nearest = sigma2[last[-1]] if side == "below" else sigma2[first[0]]
+        int_sigma2 = sums["trapezoid"]
+        nearest = sums["last"] if side == "below" else sums["first"]
     # the support runs to the cutoff: add the stretch between the nearest observation and c
     int_sigma2 += float(nearest * (cutoff - xs[-1] if side == "below" else xs[0] - cutoff))
-    if n >= 3:
-        spacing = gaps if len(starts) == n else np.diff(xs)
-        int_slope2_over_f = float(n * np.sum(slope2[1:-1] * spacing[:-1] * spacing[1:]))
-    else:
-        int_slope2_over_f = 0.0
-    average_variance = float(np.mean(sigma2))
+    average_variance = sums["sigma2"] / n
     return BinConstants(
-        bias_equal_width=span ** 2 / 12.0 * int_slope2_f,
+        bias_equal_width=span ** 2 / 12.0 * (sums["slope2"] / n),
         variance_equal_width=int_sigma2 / span if span > 0 else 0.0,
-        bias_equal_count=int_slope2_over_f / 12.0,
+        bias_equal_count=n * sums["slope2_spacings"] / 12.0,
         variance_equal_count=average_variance,
         average_variance=average_variance,
         support=support, n=int(n), pilot_degree=int(deg))
 
 
-def _run_ends(positions: np.ndarray, starts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Sorted positions of the first and last member of each run of ties in a stable order: the
-    members with the least and the greatest input position (positions are distinct)."""
-    lengths = np.diff(np.r_[starts, positions.size])
-    least = np.minimum.reduceat(positions, starts)
-    greatest = np.maximum.reduceat(positions, starts)
-    return (np.flatnonzero(positions == np.repeat(least, lengths)),
-            np.flatnonzero(positions == np.repeat(greatest, lengths)))
-
-
-def _pilot_squares(x, y, w, cutoff: float, scale: float, side: str, deg: int) -> tuple[np.ndarray, np.ndarray]:
-    """Squared residuals and squared slopes of the weighted global polynomial of degree ``deg``.
+def _pilot_power(x, y, w, to_t: tuple[float, float, float], deg: int) -> np.ndarray:
+    """Power coefficients in t of the weighted global polynomial of degree ``deg`` on one side.
 
     The polynomial is fitted in the Legendre basis of t in [-1, 1] (the side's span mapped onto
     it), whose Gram matrix is well conditioned, so the normal equations lose no accuracy that
     matters (the same fit as least squares on powers of the score, up to rounding) and the fit
-    costs a few passes over the data instead of a factorisation of the n x (deg + 1) basis. The
-    fitted polynomial is then evaluated by Horner's rule on its power coefficients in t (bounded
-    by a few times the Legendre ones on [-1, 1], so nothing is lost) in one more pass.
+    costs one pass over the data instead of a factorisation of the n x (deg + 1) basis. Its power
+    coefficients in t are bounded by a few times the Legendre ones on [-1, 1], so evaluating them
+    by Horner's rule loses nothing either.
     """
-    n = x.size
-    # u = (x - c)/span lies in [-1, 0] below the cutoff and [0, 1] above; t maps it onto [-1, 1]
-    to_t = (cutoff, 2.0 / scale, 1.0 if side == "below" else -1.0)
     gram = np.zeros((deg + 1, deg + 1))
     rhs = np.zeros(deg + 1)
-    for rows, basis in _legendre_chunks(x, to_t, deg):      # pass 1: normal equations
+    for rows, basis in _legendre_chunks(x, to_t, deg):
         weighted = basis if w is None else basis * w[rows]
         gram += weighted @ basis.T
         rhs += weighted @ y[rows]
@@ -332,22 +323,47 @@ def _pilot_squares(x, y, w, cutoff: float, scale: float, side: str, deg: int) ->
         coef = np.linalg.solve(gram, rhs)
     except np.linalg.LinAlgError:      # e.g. zero weights leaving too few distinct scores
         full = np.concatenate([b.copy() for _, b in _legendre_chunks(x, to_t, deg)], axis=1)
-        sw = np.ones(n) if w is None else np.sqrt(w)
+        sw = np.ones(x.size) if w is None else np.sqrt(w)
         coef = np.linalg.lstsq((full * sw).T, y * sw, rcond=None)[0]
-    power = np.polynomial.legendre.leg2poly(coef)
+    return np.polynomial.legendre.leg2poly(coef)
+
+
+def _residual_sums(xs, ys, power: np.ndarray, to_t: tuple[float, float, float],
+                   trapezoid: bool) -> dict[str, float]:
+    """Sums over one sorted side of the pilot's squared residuals sigma^2 and squared slopes
+    mu'^2, chunk by chunk (no full-length array): sum sigma^2, sum mu'^2, sum_k mu'(X_k)^2 D_(k-1)
+    D_k (interior k), and, if ``trapezoid`` (no ties), sum_k (sigma^2_k + sigma^2_(k+1))/2 D_k with
+    the first and last sigma^2."""
+    n = xs.size
     slope_power = np.polynomial.polynomial.polyder(power) * to_t[1]      # dt/dx = 2 / span
-    sigma2 = np.empty(n)
-    slope2 = np.zeros(n) if deg == 0 else np.empty(n)
-    value = np.empty(min(CHUNK, n))
-    for rows, t in _t_chunks(x, to_t):                                     # pass 2: residuals, slope
-        acc = value[:t.size]
-        _horner(power, t, acc)
-        np.subtract(y[rows], acc, out=acc)
-        np.square(acc, out=sigma2[rows])
-        if deg >= 1:
-            _horner(slope_power, t, acc)
-            np.square(acc, out=slope2[rows])
-    return sigma2, slope2
+    out = {"sigma2": 0.0, "slope2": 0.0, "slope2_spacings": 0.0, "trapezoid": 0.0}
+    buffers = np.empty((2, min(CHUNK, n)))
+    previous = 0.0
+    for rows, t in _t_chunks(xs, to_t):
+        a, b = rows.start, rows.stop
+        s2, g2 = buffers[0, :b - a], buffers[1, :b - a]
+        _horner(power, t, s2)
+        np.subtract(ys[rows], s2, out=s2)
+        np.square(s2, out=s2)
+        out["sigma2"] += float(np.sum(s2))
+        if trapezoid:
+            if a == 0:
+                out["first"] = float(s2[0])
+            else:                       # the pair straddling the chunk boundary
+                out["trapezoid"] += 0.5 * (previous + float(s2[0])) * float(xs[a] - xs[a - 1])
+            out["trapezoid"] += float(np.sum(0.5 * (s2[:-1] + s2[1:]) * (xs[a + 1:b] - xs[a:b - 1])))
+            previous = float(s2[-1])
+        if len(power) > 1:
+            _horner(slope_power, t, g2)
+            np.square(g2, out=g2)
+            out["slope2"] += float(np.sum(g2))
+            lo, hi = max(a, 1), min(b, n - 1)           # interior rows: both spacings exist
+            if hi > lo:                 # (np.dot would call a threaded BLAS for a plain sum)
+                product = (xs[lo:hi] - xs[lo - 1:hi - 1]) * (xs[lo + 1:hi + 1] - xs[lo:hi])
+                product *= g2[lo - a:hi - a]
+                out["slope2_spacings"] += float(np.sum(product))
+    out["last"] = previous
+    return out
 
 
 def _horner(coef: np.ndarray, t: np.ndarray, out: np.ndarray) -> None:
@@ -515,7 +531,7 @@ def selection(sample: SortedSample, cutoff: float, method: str, rule: str, scale
               number) -> BinSelection:
     """select_bin_number on a sorted sample and validated options."""
     fixed = check_number_pair(number, sample.counts)
-    consts = [sorted_constants(*sample.side(i), cutoff, s) for i, s in enumerate(SIDES)]
+    consts = [sorted_constants(*sample.side(i), sample.source_y, cutoff, s) for i, s in enumerate(SIDES)]
     imse, mimic, chosen = [], [], []
     for k in consts:
         j_imse, j_mv = _rule_numbers(k, method)

@@ -151,6 +151,15 @@ def _run_sums(values: np.ndarray, starts: np.ndarray, nonempty: np.ndarray, j: i
     return out
 
 
+def _squared_deviations(ys, mean, count, ws=None) -> np.ndarray:
+    """(w (y - bin mean))^2 row by row, in one new array."""
+    out = np.repeat(mean, count)
+    np.subtract(ys, out, out=out)
+    if ws is not None:
+        out *= ws
+    return np.square(out, out=out)
+
+
 def _side_means(xs, ys, ws, bounds: np.ndarray) -> tuple[np.ndarray, ...]:
     """count, weight sum, mean, score mean and standard error of each bin of one sorted side."""
     j = bounds.size - 1
@@ -162,15 +171,13 @@ def _side_means(xs, ys, ws, bounds: np.ndarray) -> tuple[np.ndarray, ...]:
             wsum = count.astype(float)
             mean = _run_sums(ys, starts, nonempty, j) / wsum
             score_mean = _run_sums(xs, starts, nonempty, j) / wsum
-            resid = ys - np.repeat(mean, count)
-            ss = _run_sums(resid * resid, starts, nonempty, j)
+            ss = _run_sums(_squared_deviations(ys, mean, count), starts, nonempty, j)
             m = wsum
         else:
             wsum = _run_sums(ws, starts, nonempty, j)
             mean = _run_sums(ws * ys, starts, nonempty, j) / wsum
             score_mean = _run_sums(ws * xs, starts, nonempty, j) / wsum
-            resid = ws * (ys - np.repeat(mean, count))
-            ss = _run_sums(resid * resid, starts, nonempty, j)
+            ss = _run_sums(_squared_deviations(ys, mean, count, ws), starts, nonempty, j)
             # small-sample factor m/(m-1) over observations that carry weight, so that without
             # weights this is exactly s/sqrt(count)
             m = _run_sums((ws > 0).astype(float), starts, nonempty, j)
