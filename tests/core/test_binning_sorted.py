@@ -112,3 +112,18 @@ def test_assignment_built_on_first_use_equals_a_search_per_score():
                         9 + np.clip(np.searchsorted(edges_above, x, side="right") - 1, 0, 5))
     np.testing.assert_array_equal(res.assignment, expected)
     assert not res.assignment.flags.writeable
+
+
+@pytest.mark.parametrize("number", [(12, 9), (2500, 2600)])
+def test_standard_errors_equal_a_groupby_with_few_or_many_bins(number):
+    # Reference: pandas groupby of the outcome by the reported assignment (standard error of the
+    # mean, ddof 1); few bins are summed bin by bin, many through one repeat of the means.
+    import pandas as pd
+    rng = np.random.default_rng(6)
+    x = rng.uniform(-1, 1, 12000)
+    y = np.sin(3 * x) + rng.normal(0, 0.2, x.size)
+    res = binned_means(x, y, 0.0, number=number, method="equal-count", order=np.argsort(x))
+    grouped = pd.Series(y).groupby(res.assignment).agg(["mean", "sem", "size"])
+    np.testing.assert_array_equal(res.count, grouped["size"])
+    np.testing.assert_allclose(res.mean, grouped["mean"], rtol=RTOL)
+    np.testing.assert_allclose(res.std_error, grouped["sem"], rtol=1e-10)

@@ -151,13 +151,28 @@ def _run_sums(values: np.ndarray, starts: np.ndarray, nonempty: np.ndarray, j: i
     return out
 
 
-def _squared_deviations(ys, mean, count, ws=None) -> np.ndarray:
-    """(w (y - bin mean))^2 row by row, in one new array."""
-    out = np.repeat(mean, count)
-    np.subtract(ys, out, out=out)
-    if ws is not None:
-        out *= ws
-    return np.square(out, out=out)
+def _squared_deviations(ys, mean, bounds: np.ndarray, ws=None) -> np.ndarray:
+    """sum (w (y - bin mean))^2 over each bin's run of sorted rows.
+
+    Bin by bin on slices when there are few bins (np.repeat of the means over millions of rows
+    costs more than the sums); with many small bins, one repeat and one reduceat."""
+    j = bounds.size - 1
+    count = np.diff(bounds)
+    if j > 2000:
+        dev = np.repeat(mean, count)
+        np.subtract(ys, dev, out=dev)
+        if ws is not None:
+            dev *= ws
+        np.square(dev, out=dev)
+        nonempty = count > 0
+        return _run_sums(dev, bounds[:-1][nonempty], nonempty, j)
+    out = np.zeros(j)
+    for k in np.flatnonzero(count):
+        dev = ys[bounds[k]:bounds[k + 1]] - mean[k]
+        if ws is not None:
+            dev *= ws[bounds[k]:bounds[k + 1]]
+        out[k] = np.sum(np.square(dev, out=dev))
+    return out
 
 
 def _side_means(xs, ys, ws, bounds: np.ndarray) -> tuple[np.ndarray, ...]:
@@ -171,13 +186,13 @@ def _side_means(xs, ys, ws, bounds: np.ndarray) -> tuple[np.ndarray, ...]:
             wsum = count.astype(float)
             mean = _run_sums(ys, starts, nonempty, j) / wsum
             score_mean = _run_sums(xs, starts, nonempty, j) / wsum
-            ss = _run_sums(_squared_deviations(ys, mean, count), starts, nonempty, j)
+            ss = _squared_deviations(ys, mean, bounds)
             m = wsum
         else:
             wsum = _run_sums(ws, starts, nonempty, j)
             mean = _run_sums(ws * ys, starts, nonempty, j) / wsum
             score_mean = _run_sums(ws * xs, starts, nonempty, j) / wsum
-            ss = _run_sums(_squared_deviations(ys, mean, count, ws), starts, nonempty, j)
+            ss = _squared_deviations(ys, mean, bounds, ws)
             # small-sample factor m/(m-1) over observations that carry weight, so that without
             # weights this is exactly s/sqrt(count)
             m = _run_sums((ws > 0).astype(float), starts, nonempty, j)
