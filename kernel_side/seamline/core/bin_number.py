@@ -174,8 +174,9 @@ class SortedSample:
 
 
 def sorted_sample(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: float,
-                  order: np.ndarray | None = None) -> SortedSample:
-    """Gather validated arrays along ``order`` (positions sorting ``x``; a stable sort if None)."""
+                  order: np.ndarray | None = None, sorted_x: np.ndarray | None = None) -> SortedSample:
+    """Gather validated arrays along ``order`` (positions sorting ``x``; a stable sort if None).
+    ``sorted_x``: ``x[order]`` if the caller keeps it (read, never written), not gathered again."""
     stable = order is None
     if stable:
         order = np.argsort(x, kind="stable")
@@ -185,7 +186,11 @@ def sorted_sample(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: fl
             raise InvalidOptionError(
                 f"`order` must hold one integer position per observation; got shape {order.shape} "
                 f"for {x.size} observations. Pass np.argsort(score), or leave `order` unset.")
-    xs = x[order]
+    xs = x[order] if sorted_x is None or order is None else np.asarray(sorted_x, dtype=float)
+    if xs.shape != x.shape:
+        raise InvalidOptionError(
+            f"`sorted_score` must hold the {x.size} scores in `order`; got shape {xs.shape}. Pass "
+            "score[order], or leave it unset.")
     if xs.size > 1 and not np.all(xs[1:] >= xs[:-1]):
         raise InvalidOptionError(
             "`order` must sort `score` ascending; it does not. Pass np.argsort(score), or leave "

@@ -206,7 +206,7 @@ def _side_means(xs, ys, ws, bounds: np.ndarray) -> tuple[np.ndarray, ...]:
 def binned_means(score, outcome, cutoff: float, *, method: str = "equal-width",
                  number: int | tuple[int, int] | None = None, rule: str = "imse",
                  scale: float = 1.0, weights=None, level: float = 0.95,
-                 order: np.ndarray | None = None) -> BinnedMeans:
+                 order: np.ndarray | None = None, sorted_score: np.ndarray | None = None) -> BinnedMeans:
     """Binned means of the outcome with confidence intervals, bins never straddling the cutoff.
 
     Parameters
@@ -224,6 +224,8 @@ def binned_means(score, outcome, cutoff: float, *, method: str = "equal-width",
     order : optional positions that sort ``score`` ascending (ties in any order), e.g. a design's
         own sort, so that nothing is sorted again (equal-count bins on tied scores still order
         each run of ties by input position).
+    sorted_score : optional ``score[order]``, if the caller keeps it (a design does), so that it is
+        not gathered again; only read.
 
     Returns
     -------
@@ -252,7 +254,7 @@ def binned_means(score, outcome, cutoff: float, *, method: str = "equal-width",
     method = check_option("method", method, BIN_METHODS)
     rule = check_option("rule", rule, BIN_RULES)
     scale = check_scale(scale)
-    sample = sorted_sample(x, y, w, cutoff, order)
+    sample = sorted_sample(x, y, w, cutoff, order, sorted_score)
     chosen = selection(sample, cutoff, method, rule, scale, number)
     z = float(stats.norm.ppf(0.5 + level / 2.0))
     sides, lefts, rights, parts, positions = [], [], [], [], []
