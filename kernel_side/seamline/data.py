@@ -334,6 +334,8 @@ class DesignData:
         span = self._spans.get(variables)
         if span is not None:
             return self._parent._ordered_score()[span[0]:span[1]].copy()
+        if self._parent is None and rows is self._score_order():
+            return self._ordered_score().copy()      # gathered once, kept for the binned means
         return self.arrays[self.score_name][rows]
 
     def _ordered_values(self, variables: tuple[str, ...], span: slice, part: slice, start: int) -> np.ndarray:
@@ -352,7 +354,8 @@ class DesignData:
         return out
 
     def _ordered_score(self) -> np.ndarray:
-        """The score in the design's sorted order (built once, for one-sided copies to slice)."""
+        """The score in the design's sorted order (built once: the preparation copies it, one-sided
+        copies slice it, the binned means read it)."""
         if self._ordered is None:
             self._ordered = self.arrays[self.score_name][self._score_order()]
         return self._ordered

@@ -450,9 +450,12 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
     key = ("binned_means", outcome, method, _frozen_value(number), rule, float(scale), float(level))
     binned = design._diagnostics.get(key)
     if binned is None:
+        order = _sorted_positions(data, ok)
+        # every row in the design's one sort: its sorted score is kept (the fit's preparation made it)
+        sorted_score = data._ordered_score() if order is not None and order is data._score_order() else None
         binned = design._diagnostics[key] = binned_means(
             x[ok], y[ok], design.cutoff, method=method, number=number, rule=rule, scale=scale,
-            weights=None if w is None else w[ok], level=level, order=_sorted_positions(data, ok))
+            weights=None if w is None else w[ok], level=level, order=order, sorted_score=sorted_score)
     fit = design.fit(outcome, **fit_options)
     spec = design._spec(outcome, **_spec_options(fit, fit_options))
     engine, _, _, _ = design._engine(spec)
