@@ -424,8 +424,8 @@ def cutoff(line: str, cell: str, *, shell=None):
         effect: 0.2             # optional: the effect the power panel plans for
         headline_cutoff: 60     # cumulative cutoffs: the one the headline shows (default the first)
 
-    Also: bias_degree, pilot_bandwidth, derivative (1 for a kink design), adjust (true to adjust
-    for the covariates). The cell binds NAME to the board (``NAME.fit``, ``NAME.results``,
+    Also: bias_degree, pilot_bandwidth (a number, two numbers, nearer-half or two-step), derivative
+    (1 for a kink design), adjust (true to adjust for the covariates). The cell binds NAME to the board (``NAME.fit``, ``NAME.results``,
     ``NAME.refresh()``, ``NAME.pause()``, ``NAME.export(...)``); after every cell the board
     recomputes what changed in its data or in the notebook variables it names. Values are never
     evaluated; errors name the line (the ``%%cutoff`` line is line 1).
