@@ -3,9 +3,10 @@
 All selectors work on a linear combination ``lam`` of the side variables, so one code path serves
 sharp outcomes, fuzzy designs (lam = outcome - tau * take-up; the 1/jump factor cancels in the
 arg-min) and covariate adjustment (lam = outcome - gamma' covariates).
-References: Calonico, Cattaneo & Titiunik (2014) for the MSE plug-in structure, Imbens &
-Kalyanaraman (2012) for IK, Calonico, Cattaneo & Farrell (2020) for the coverage-error rate
-(METHODS sections 3, 4.6, 5). Pilot choices marked (convention) are ours where the papers leave room.
+References: Calonico, Cattaneo & Titiunik (2014) for the MSE plug-in structure and the two-step
+pilot of the bias bandwidth, Imbens & Kalyanaraman (2012) for IK, Calonico, Cattaneo & Farrell
+(2020) for the coverage-error rate (METHODS sections 3, 4.6, 5; METHODS-II 26.2). Pilot choices
+marked (convention) are ours where the papers leave room.
 """
 from __future__ import annotations
 
@@ -97,7 +98,9 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
     """MSE-optimal bandwidths for the nu-th derivative jump with an order-p fit (METHODS 4.6).
 
     Steps: (1) variance pilot c = C_NR(K) * min(sd, IQR/1.349) * n^(-1/5) (convention);
-    (2) pilot for mu^(q+1) from an order-(q+1) polynomial on the nearer half of each side; (3) bias bandwidth b,
+    (2) pilot for mu^(q+1): an order-(q+1) polynomial on the nearer half of each side (pilot_rule
+    "nearer-half", our convention) or the published two-step sequence ("two-step", with a regulariser
+    in b; ``_two_step_curvature``); (3) bias bandwidth b,
     MSE-optimal for the (p+1)-th derivative with an order-q fit; (4) mu^(p+1)(b); (5) h from
     h = [(1+2nu) V / (2(p+1-nu)(B^2 + R))]^(1/(2p+3)) n^(-1/(2p+3)), with one refinement step
     that re-evaluates V and the bias constants at the new h.
