@@ -78,6 +78,7 @@ bench: venv
 validate: venv
 	$(PY) tests/benchmarks/validate_monte_carlo.py sweep 10
 	$(PY) tests/benchmarks/validate_monte_carlo.py table
+	$(PY) tests/benchmarks/validate_monte_carlo.py intervals 1000 500 2000
 	$(PY) tests/benchmarks/validate_clusters.py
 
 mutations: venv

@@ -222,6 +222,7 @@ def test_all_zero_weights():
         ("fit", "kernel", "gaussian"),
         ("fit", "variance", "hc4"),
         ("fit", "bandwidth", "silverman"),
+        ("fit", "pilot_bandwidth", "twostep"),
         ("design", "treated", "left"),
     ],
 )

@@ -70,7 +70,7 @@ CASES = {
     "fuzzy": (lambda: (lambda f: (f.data, {"score": f.score, "cutoff": f.cutoff, "outcome": ("food_security",),
                                            "treated": f.treated, "takeup": f.takeup,
                                            "covariates": tuple(f.covariates)}))(fuzzy_scenario(n=3000, seed=11)),
-              {"outcome": "food_security", "bandwidth": "mse-split"},
+              {"outcome": "food_security", "bandwidth": "mse-split", "pilot_bandwidth": "two-step"},
               ("fit", "first_stage", "first_stage_bins", "bins", "checks", "score_profile"), ".parquet"),
 }
 

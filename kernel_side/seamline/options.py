@@ -12,6 +12,7 @@ from .errors import InvalidOptionError, shown
 
 Kernel = Literal["triangular", "uniform", "epanechnikov"]
 BandwidthRule = Literal["mse", "mse-split", "coverage", "ik"]
+PilotRule = Literal["nearer-half", "two-step"]   # rules for the pilot (bias) bandwidth; see core.bandwidth
 Variance = Literal["neighbors", "hc0", "hc1", "hc2", "hc3"]
 Side = Literal["above", "below"]
 DensityMethod = Literal["local-cdf", "binned"]
@@ -24,6 +25,7 @@ SmoothnessClass = Literal["taylor", "holder"]   # bias-aware intervals (Armstron
 
 KERNELS: tuple[str, ...] = get_args(Kernel)
 BANDWIDTH_RULES: tuple[str, ...] = get_args(BandwidthRule)
+PILOT_RULES: tuple[str, ...] = get_args(PilotRule)
 VARIANCES: tuple[str, ...] = get_args(Variance)
 SIDES: tuple[str, ...] = get_args(Side)
 DENSITY_METHODS: tuple[str, ...] = get_args(DensityMethod)

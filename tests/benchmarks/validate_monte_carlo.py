@@ -5,6 +5,10 @@ Kalyanaraman 2012), as written out in tests/reference/test_monte_carlo.py. Three
 
     validate_monte_carlo.py table [replications]   coverage, bias, SE/SD and median bandwidth per
                                                    model, n and rule (default 1000 replications)
+    validate_monte_carlo.py intervals [replications] [n ...]
+                                                   robust coverage and mean interval length per pilot
+                                                   (bias) bandwidth rule and ratio rho = h/b, Models 1-3
+                                                   (default 1000 replications at n = 500 and 2000)
     validate_monte_carlo.py measure                the larger runs whose results the Monte Carlo
                                                    tests record (tests/reference/test_monte_carlo.py,
                                                    the placebo test in tests/diagnostics)
@@ -12,7 +16,7 @@ Kalyanaraman 2012), as written out in tests/reference/test_monte_carlo.py. Three
                                                    seed shift (SEAMLINE_MC_SEED = 1..seeds, default 10)
                                                    and prints which tests pass for which seed
 
-`make validate` runs `sweep` and then `table`.
+`make validate` runs `sweep`, then `table`, then `intervals`.
 """
 from __future__ import annotations
 
@@ -97,6 +101,57 @@ def table(reps: int) -> None:
     print("Monte Carlo SE of a 95% coverage rate at this many replications:", f"{np.sqrt(0.95 * 0.05 / reps):.4f}")
 
 
+# Candidates for the robust interval at estimated bandwidths (issue 9): (label, fit options, b = h?).
+# "b = h" refits at the selected h with the bias fit at h too (rho = 1, Calonico, Cattaneo & Farrell 2018).
+INTERVAL_RULES = (
+    ("nearer-half pilot (default)", {}, False),
+    ("nearer-half, coverage h", {"bandwidth": "coverage"}, False),
+    ("nearer-half, b = h", {}, True),
+    ("nearer-half, coverage h, b = h", {"bandwidth": "coverage"}, True),
+    ("two-step pilot (CCT 2014)", {"pilot_bandwidth": "two-step"}, False),
+    ("two-step, coverage h", {"pilot_bandwidth": "two-step", "bandwidth": "coverage"}, False),
+    ("two-step, b = h", {"pilot_bandwidth": "two-step"}, True),
+    ("two-step, coverage h, b = h", {"pilot_bandwidth": "two-step", "bandwidth": "coverage"}, True),
+    ("nearer-half, HC3 variance", {"variance": "hc3"}, False),   # not a pilot rule: the variance's share
+)
+
+
+def interval_rows(model: int, n: int, reps: int, seed: int, options: dict, same_b: bool) -> np.ndarray:
+    """Rows of (robust low, robust high, h, b) for one candidate; same seeds for every candidate."""
+    rng = np.random.default_rng(seed)
+    rows = []
+    for _ in range(reps):
+        design = seamline.Design(draw(model, n, rng), score="x", cutoff=0.0, outcome="y")
+        f = design.fit(**options)
+        if same_b:
+            f = design.fit(bandwidth=f.bandwidth, pilot_bandwidth=f.bandwidth)
+        rows.append((*f.robust_conf_int, f.bandwidth[0], f.pilot_bandwidth[0]))
+    return np.array(rows)
+
+
+def intervals(reps: int, sizes: tuple[int, ...]) -> None:
+    """Robust coverage, mean length (and its ratio to the default's), median h and b per candidate."""
+    print("cov = robust 95% coverage, len = mean length (x default), h / b = median bandwidth / pilot")
+    for n in sizes:
+        print(f"\nn = {n}, {reps} draws per model")
+        print(f"{'rule':>31} | " + " | ".join(f"M{m} {'cov':>5} {'len':>6} {'(x)':>5} {'h':>6} {'b':>6}"
+                                                for m in (1, 2, 3)) + " | min cov")
+        base = {}
+        for label, options, same_b in INTERVAL_RULES:
+            cells, covs = [], []
+            for model in (1, 2, 3):
+                tau = MODELS[model][2]
+                a = interval_rows(model, n, reps, 1000 * model + n, options, same_b)
+                cov = np.mean((a[:, 0] <= tau) & (tau <= a[:, 1]))
+                length = np.mean(a[:, 1] - a[:, 0])
+                base.setdefault(model, length)
+                covs.append(cov)
+                cells.append(f"   {cov:5.3f} {length:6.4f} {length / base[model]:5.2f} "
+                             f"{np.median(a[:, 2]):6.4f} {np.median(a[:, 3]):6.4f}")
+            print(f"{label:>31} | " + " | ".join(cells) + f" | {min(covs):.3f}", flush=True)
+    print("Monte Carlo SE of a 95% coverage rate at this many replications:", f"{np.sqrt(0.95 * 0.05 / reps):.4f}")
+
+
 def sweep(seeds: int) -> int:
     """The in-suite Monte Carlo tests under other seeds: a band set in advance should hold for most."""
     failures = 0
@@ -118,6 +173,9 @@ if __name__ == "__main__":
     command = sys.argv[1] if len(sys.argv) > 1 else "table"
     if command == "measure":
         measure()
+    elif command == "intervals":
+        intervals(int(sys.argv[2]) if len(sys.argv) > 2 else 1000,
+                  tuple(int(v) for v in sys.argv[3:]) or (500, 2000))
     elif command == "sweep":
         sys.exit(1 if sweep(int(sys.argv[2]) if len(sys.argv) > 2 else 10) else 0)
     else:

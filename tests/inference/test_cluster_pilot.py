@@ -43,6 +43,13 @@ def test_a_pilot_the_user_gives_is_kept(frame):
     assert fit.pilot_bandwidth == (0.6, 0.6) and fit.bandwidth != (0.6, 0.6)
 
 
+def test_a_pilot_rule_the_user_names_is_used_with_clusters(frame):
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="g")
+    fit = design.fit(pilot_bandwidth="two-step")
+    assert fit.pilot_rule == "two-step" and fit.pilot_bandwidth != fit.bandwidth
+    assert design.fit().pilot_rule == "main bandwidth"
+
+
 def test_unclustered_fits_keep_their_own_pilot_rule(frame):
     plain = seamline.Design(frame, score="x", cutoff=0.0, outcome="y").fit()
     assert plain.pilot_bandwidth[0] > plain.bandwidth[0] * 1.05      # the pilot's own MSE rule, not h

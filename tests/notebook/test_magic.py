@@ -77,6 +77,8 @@ bias-degree: 3
     ("bandwidth: mse-split", "bandwidth", "mse-split", None),
     ("adjust: yes", "adjust", True, None),
     ("pilot_bandwidth: auto", "pilot_bandwidth", None, None),
+    ("pilot_bandwidth: Two-Step", "pilot_bandwidth", "two-step", None),
+    ("pilot_bandwidth: 4, 5", "pilot_bandwidth", (4.0, 5.0), None),
     ("level: 0.99", "level", 0.99, None),
 ])
 def test_option_values(ns, line, key, value, variable):

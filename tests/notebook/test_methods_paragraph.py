@@ -100,6 +100,16 @@ def test_each_bandwidth_rule_and_its_values(design, rule, phrase):
             assert format_number(float(value), 3) in text     # the Bandwidths table's digits
 
 
+def test_the_two_step_pilot_rule_is_named(sharp):
+    kwargs = {**sharp.design_kwargs(), "cluster": None}
+    design = seamline.Design(sharp.data, **kwargs)
+    fit = design.fit(pilot_bandwidth="two-step")
+    text = methods_paragraph(fit)
+    assert f"pilot bandwidth {format_number(fit.pilot_bandwidth[0], 3)} on both sides, selected as MSE-optimal" in text
+    assert "two-step procedure of Calonico, Cattaneo and Titiunik (2014)" in text
+    assert "two-step" not in methods_paragraph(design.fit())      # the default pilot is not called that
+
+
 def test_variance_donut_and_degree_wording(sharp):
     kwargs = {**sharp.design_kwargs(), "cluster": None}
     fit = seamline.Design(sharp.data, **kwargs).fit(variance="hc1", donut=0.5, degree=2)

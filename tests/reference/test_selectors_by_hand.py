@@ -10,6 +10,8 @@ triangular kernel, neighbour variance):
 - variance pilot c = C_NR(K) min(sd, IQR/1.349) n^(-1/5), C_NR(K) = (8 sqrt(pi) R(K) / (3 mu_2(K)^2))^(1/5)
   (Silverman 1986's normal-reference constant; a convention for the pilot);
 - curvature pilot: a degree-(q+1) polynomial fitted by least squares to the nearer half of each side;
+- pilot_bandwidth="two-step": the curvature from an order-(q+1) local fit at its own MSE bandwidth
+  (from a global order-(q+2) polynomial), plus a regulariser (test_two_step_pilot_rule);
 - pilot (bias) bandwidth b: MSE-optimal for the (p+1)-th derivative with a degree-q fit
   (Calonico, Cattaneo & Titiunik 2014, Econometrica 82(6), section 3 structure);
 - h: the MSE-optimal plug-in with the regulariser R = lead^2 Var(curvature) and one refinement;
@@ -166,6 +168,51 @@ def test_pilot_bandwidth_rule(case):
     got_split = design.fit(bandwidth="mse-split").pilot_bandwidth
     assert got_split == pytest.approx(tuple(b_split), rel=RTOL_EXACT)
     assert max(b_split) < min(s.d[-1] for s in sides)  # no cap or floor was active: the formula decided
+
+
+def test_two_step_pilot_rule(case):
+    """pilot_bandwidth="two-step" (Calonico, Cattaneo & Titiunik 2014, Econometrica 82(6); step order
+    from memory, METHODS-II 26.2), with r = q + 1:
+    (1) mu^(r+1) per side from a degree-(r+1) polynomial fitted by least squares to the whole side;
+    (2) d = [ (2r+1) V_d / (2 B_d^2) ]^(1/(2r+3)) n^(-1/(2r+3)), V_d = n c^(2r+1) (Var_- + Var_+) of the
+        degree-r estimate of mu^(r) at the variance pilot c, B_d = r!/(r+1)! (lead_+ mu_+ - lead_- mu_-);
+    (3) mu^(r) and its variance from the degree-r fit at d on each side;
+    (4) b = [ (2p+3) V_b / (2 (q-p) (B_b^2 + R_b)) ]^(1/(2q+3)) n^(-1/(2q+3)) as in the default rule,
+        with the regulariser R_b = sum over sides of ((p+1)!/(q+1)! lead_b)^2 Var(mu^(r))."""
+    frame, sides, design = case
+    n = len(frame)
+    c = variance_pilot(frame)
+    r = Q + 1
+    far = []
+    for side in sides:
+        coef = np.linalg.lstsq(np.vander(side.x, r + 2, increasing=True), side.y, rcond=None)[0]
+        far.append(factorial(r + 1) * coef[r + 1])
+    v_d, bias_d = 0.0, []
+    for side, m in zip(sides, far):
+        wts, lead = side.fit(c, r, r)
+        v_d += n * c ** (2 * r + 1) * side.variance(wts)
+        bias_d.append(factorial(r) / factorial(r + 1) * lead * m)
+    expo_d = 1.0 / (2 * r + 3)
+    d = ((2 * r + 1) * v_d / (2 * (bias_d[1] - bias_d[0]) ** 2)) ** expo_d * n ** -expo_d
+    curv = []
+    for side in sides:
+        wts, _ = side.fit(d, r, r)
+        curv.append((float(wts @ side.y), side.variance(wts)))
+    v_b, bias_b, reg_b = 0.0, [], 0.0
+    for side, (m, var_m) in zip(sides, curv):
+        wts, lead = side.fit(c, Q, P + 1)
+        v_b += n * c ** (1 + 2 * (P + 1)) * side.variance(wts)
+        scale = factorial(P + 1) / factorial(Q + 1) * lead
+        bias_b.append(scale * m)
+        reg_b += scale ** 2 * var_m
+    expo = 1.0 / (2 * Q + 3)
+    b = ((3 + 2 * P) * v_b / (2 * (Q - P) * ((bias_b[1] - bias_b[0]) ** 2 + reg_b))) ** expo * n ** -expo
+    fit = design.fit(pilot_bandwidth="two-step")
+    assert fit.pilot_bandwidth == pytest.approx((b, b), rel=RTOL_EXACT)
+    assert d < min(s.d[-1] for s in sides) and b < min(s.d[-1] for s in sides)  # no cap was active
+    want = h_from_pilot(sides, n, fit.pilot_bandwidth, c, common=True)
+    assert fit.bandwidth == pytest.approx(want, rel=RTOL_EXACT)  # h follows from this b as in the default
+    assert b != pytest.approx(design.fit().pilot_bandwidth[0], rel=1e-3)  # really a different rule
 
 
 def test_mse_rule(case):

@@ -3,9 +3,10 @@
 All selectors work on a linear combination ``lam`` of the side variables, so one code path serves
 sharp outcomes, fuzzy designs (lam = outcome - tau * take-up; the 1/jump factor cancels in the
 arg-min) and covariate adjustment (lam = outcome - gamma' covariates).
-References: Calonico, Cattaneo & Titiunik (2014) for the MSE plug-in structure, Imbens &
-Kalyanaraman (2012) for IK, Calonico, Cattaneo & Farrell (2020) for the coverage-error rate
-(METHODS sections 3, 4.6, 5). Pilot choices marked (convention) are ours where the papers leave room.
+References: Calonico, Cattaneo & Titiunik (2014) for the MSE plug-in structure and the two-step
+pilot of the bias bandwidth, Imbens & Kalyanaraman (2012) for IK, Calonico, Cattaneo & Farrell
+(2020) for the coverage-error rate (METHODS sections 3, 4.6, 5; METHODS-II 26.2). Pilot choices
+marked (convention) are ours where the papers leave room.
 """
 from __future__ import annotations
 
@@ -52,9 +53,10 @@ def _floor(side: Side, h: float, needed: int, kernel: str) -> float:
 PILOT_SHARE = 0.5
 
 
-def _global_derivative(side: Side, order: int, lam: np.ndarray, degree: int) -> float:
+def _global_derivative(side: Side, order: int, lam: np.ndarray, degree: int,
+                       share: float = PILOT_SHARE) -> float:
     """order-th derivative at the cutoff of a polynomial of ``degree`` fitted to the nearer part of the side."""
-    rows = max(int(np.ceil(PILOT_SHARE * side.n)), 1)
+    rows = max(int(np.ceil(share * side.n)), 1)
     degree = min(degree, side.distinct_within(rows) - 1)
     if degree < order:
         return 0.0  # (convention) too few distinct values for the pilot: treat the curvature as unknown-zero
@@ -63,13 +65,42 @@ def _global_derivative(side: Side, order: int, lam: np.ndarray, degree: int) -> 
     return float(fit.derivative(order) @ lam)
 
 
+def _two_step_curvature(sides: tuple[Side, Side], *, q: int, kernel: str, lam: np.ndarray,
+                        variance_fn: VarianceFn, c: float, n: float, top: float
+                        ) -> tuple[list[float], list[float]]:
+    """mu^(q+1) on each side and its variance, by the published two-step pilot (CCT 2014, METHODS-II 26.2).
+
+    (from memory: the step order of the published selector) A global polynomial of order q+2 on each
+    whole side gives mu^(q+2); with it, a bandwidth d MSE-optimal for the (q+1)-th derivative jump with
+    order-(q+1) local fits; mu^(q+1) is then the order-(q+1) local fit at d. The variance of that estimate
+    is returned for the regularisation term of b.
+    """
+    r = q + 1
+    far = [_global_derivative(s, r + 1, lam, r + 1, share=1.0) for s in sides]
+    fits_d = [fit_side(s, c, c, r, r, r, kernel) for s in sides]
+    v_d = sum(n * c ** (1 + 2 * r) * variance_fn(f, lam) for f in fits_d)
+    bias_d = [factorial(r) / factorial(r + 1) * _lead(f) * m for f, m in zip(fits_d, far)]
+    bias2 = (bias_d[1] - bias_d[0]) ** 2
+    expo = 1.0 / (2 * r + 3)
+    d = top if not (bias2 > 0 and v_d > 0) else min(((2 * r + 1) * v_d / (2 * bias2)) ** expo * n ** -expo, top)
+    d = max(d, *(_floor(s, 0.0, r + 1, kernel) for s in sides))
+    est, var = [], []
+    for s in sides:
+        f = fit_side(s, d, d, r, r, r, kernel)
+        est.append(float(f.estimate @ lam))
+        var.append(variance_fn(f, lam))
+    return est, var
+
+
 def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: str,
                   lam: np.ndarray, variance_fn: VarianceFn, score_scale: float,
-                  n_total: int) -> Selection:
+                  n_total: int, pilot_rule: str = "nearer-half") -> Selection:
     """MSE-optimal bandwidths for the nu-th derivative jump with an order-p fit (METHODS 4.6).
 
     Steps: (1) variance pilot c = C_NR(K) * min(sd, IQR/1.349) * n^(-1/5) (convention);
-    (2) pilot for mu^(q+1) from an order-(q+1) polynomial on the nearer half of each side; (3) bias bandwidth b,
+    (2) pilot for mu^(q+1): an order-(q+1) polynomial on the nearer half of each side (pilot_rule
+    "nearer-half", our convention) or the published two-step sequence ("two-step", with a regulariser
+    in b; ``_two_step_curvature``); (3) bias bandwidth b,
     MSE-optimal for the (p+1)-th derivative with an order-q fit; (4) mu^(p+1)(b); (5) h from
     h = [(1+2nu) V / (2(p+1-nu)(B^2 + R))]^(1/(2p+3)) n^(-1/(2p+3)), with one refinement step
     that re-evaluates V and the bias constants at the new h.
@@ -89,10 +120,17 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
     c = min(max(c, *(_floor(s, 0.0, q + 1, kernel) for s in sides)), top)
 
     # (1)-(3): bias bandwidth b for the (p+1)-th derivative, order q
-    curv_q = [_global_derivative(s, q + 1, lam, q + 1) for s in sides]
+    if pilot_rule == "two-step":
+        curv_q, curv_var = _two_step_curvature(sides, q=q, kernel=kernel, lam=lam, variance_fn=variance_fn,
+                                               c=c, n=n, top=top)
+    else:
+        curv_q, curv_var = [_global_derivative(s, q + 1, lam, q + 1) for s in sides], [0.0, 0.0]
     fits_b = [fit_side(s, c, c, q, q, p + 1, kernel) for s in sides]
     v_b = [n * c ** (1 + 2 * (p + 1)) * variance_fn(f, lam) for f in fits_b]
-    bias_b = [factorial(p + 1) / factorial(q + 1) * _lead(f) * m for f, m in zip(fits_b, curv_q)]
+    scale_bb = factorial(p + 1) / factorial(q + 1)
+    bias_b = [scale_bb * _lead(f) * m for f, m in zip(fits_b, curv_q)]
+    # regulariser: the variance of the estimated bias term (zero for the nearer-half pilot, which has none)
+    reg_b = [(scale_bb * _lead(f)) ** 2 * v for f, v in zip(fits_b, curv_var)]
     expo_b = 1.0 / (2 * q + 3)
 
     def b_rule(v: float, bias2: float) -> float:
@@ -100,8 +138,9 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
             return top
         return float(((3 + 2 * p) * v / (2 * (q - p) * bias2)) ** expo_b * n ** -expo_b)
 
-    b_common = min(b_rule(sum(v_b), (bias_b[1] - bias_b[0]) ** 2), top)
-    b_split = tuple(min(b_rule(v, bb ** 2), s.distance[-1]) for v, bb, s in zip(v_b, bias_b, sides))
+    b_common = min(b_rule(sum(v_b), (bias_b[1] - bias_b[0]) ** 2 + sum(reg_b)), top)
+    b_split = tuple(min(b_rule(v, bb ** 2 + rb), s.distance[-1])
+                    for v, bb, rb, s in zip(v_b, bias_b, reg_b, sides))
     b_common = max(b_common, *(_floor(s, 0.0, q + 1, kernel) for s in sides))
     b_split = tuple(_floor(s, bb, q + 1, kernel) for s, bb in zip(sides, b_split))
 

@@ -25,6 +25,7 @@ WEAK_F = 10.0           # common practice (Staiger & Stock 1997): F < 10 flags a
 FEW_CLUSTERS = 30       # Cameron & Miller (2015): cluster-robust inference is fragile with few clusters
 FEW_DISTINCT = 10       # convention: warn when a side has fewer distinct score values in the window
 REFERENCE_LEVEL = 0.95
+DEFAULT_PILOT_RULE = "nearer-half"   # pilot (bias) bandwidth rule of unclustered fits without a manual pilot
 FIT_CACHE = 512         # fits kept per design (small records)
 ENGINE_CACHE = 16       # fitted engines kept per design (they may hold window arrays)
 DIAGNOSTIC_CACHE = 64   # diagnostic results kept per design (frozen; each holds a few tables)
@@ -226,8 +227,9 @@ class Design:
 
     def _selection(self, spec: FitSpec, prep: Prepared, fuzzy: bool, n_main: int) -> tuple[Selection, np.ndarray]:
         """MSE selection for the spec's target (outcome, fuzzy ratio, or covariate-adjusted outcome)."""
+        pilot_rule = spec.pilot_bandwidth if isinstance(spec.pilot_bandwidth, str) else DEFAULT_PILOT_RULE
         key = (prep.variables, spec.donut, spec.kernel, spec.degree, spec.bias_degree, spec.derivative,
-               spec.variance)
+               spec.variance, pilot_rule)
         if key in self._selections:
             return self._selections[key]
         n_vars = len(prep.variables)
@@ -250,7 +252,7 @@ class Design:
             lam = pilot._full(main)
         sel = mse_selection(prep.below, prep.above, p=p, q=q, nu=nu, kernel=spec.kernel, lam=lam,
                             variance_fn=self._variance_fn(spec), score_scale=prep.score_scale,
-                            n_total=prep.n_total)
+                            n_total=prep.n_total, pilot_rule=pilot_rule)
         self._selections[key] = (sel, lam)
         return sel, lam
 
@@ -265,13 +267,17 @@ class Design:
         # kernel), the order-q pilot fits (with kernel), and the variances (squared kernel, and for
         # HC the squared residual polynomial); a later, larger request rebuilds the tables
         degree = max(2 * q + 4, 2 * q + 2 + kdeg, 2 * q + 2 * kdeg + (2 * q if hc else 0))
+        if (spec.pilot_bandwidth if isinstance(spec.pilot_bandwidth, str) else DEFAULT_PILOT_RULE) == "two-step":
+            r = q + 1  # the two-step pilot's global order-(r+1) fit and local order-r fits
+            degree = max(degree, 2 * r + 4, 2 * r + 2 + kdeg, 2 * r + 2 * kdeg + (2 * r if hc else 0))
         for side in (prep.below, prep.above):
             side.warm(spec.variance, degree)
 
     def _bandwidths_for(self, spec: FitSpec, prep: Prepared, fuzzy: bool, n_main: int):
         rule = spec.bandwidth
-        if isinstance(rule, tuple) and (spec.pilot_bandwidth is not None or self.cluster is not None):
-            b = spec.pilot_bandwidth if spec.pilot_bandwidth is not None else rule  # clustered: b = h below
+        manual_b = isinstance(spec.pilot_bandwidth, tuple)
+        if isinstance(rule, tuple) and (manual_b or self.cluster is not None):
+            b = spec.pilot_bandwidth if manual_b else rule  # clustered: b = h below
             return rule, b, "manual", []  # nothing to select
         sel, lam = self._selection(spec, prep, fuzzy, n_main)
         warnings = list(sel.warnings)
@@ -290,9 +296,9 @@ class Design:
             h = (hik, hik)
         else:
             h = rule
-        if spec.pilot_bandwidth is not None:
+        if manual_b:
             b = spec.pilot_bandwidth
-        elif self.cluster is not None:
+        elif self.cluster is not None and spec.pilot_bandwidth is None:
             # Clustered samples: the bias fit uses the main bandwidth (b = h). Calonico, Cattaneo and
             # Farrell (2018, JASA, "On the effect of bias estimation on coverage accuracy in
             # nonparametric inference") show that rho = h/b = 1 gives the robust bias-corrected interval
@@ -301,6 +307,14 @@ class Design:
             # (tests/benchmarks/validate_clusters.py). A pilot the user gives is kept.
             b = h
         return h, b, ("manual" if isinstance(rule, tuple) else rule), warnings
+
+    def _pilot_rule(self, spec: FitSpec) -> str:
+        """How the fit's pilot (bias) bandwidth is chosen (mirrors ``_bandwidths_for``)."""
+        if isinstance(spec.pilot_bandwidth, tuple):
+            return "manual"
+        if self.cluster is not None and (spec.pilot_bandwidth is None or isinstance(spec.bandwidth, tuple)):
+            return "main bandwidth"
+        return spec.pilot_bandwidth or DEFAULT_PILOT_RULE
 
     # ---- the public API ------------------------------------------------------------------------
     def fit(self, outcome=None, *, bandwidth="mse", kernel="triangular", degree=1, bias_degree=None,
@@ -316,8 +330,12 @@ class Design:
             (Imbens-Kalyanaraman 2012), a number, or a pair (below, above) in score units.
         kernel : "triangular", "uniform" or "epanechnikov".
         degree : polynomial degree on each side (0-3); bias_degree : degree of the bias fit (default
-            degree + 1); pilot_bandwidth : bandwidth of the bias fit (default: its MSE-optimal rule;
-            with ``cluster``, the main bandwidth, b = h, after Calonico, Cattaneo and Farrell 2018).
+            degree + 1); pilot_bandwidth : bandwidth of the bias fit: a number or pair, or a rule for
+            its MSE-optimal choice, "nearer-half" (default: curvature from a polynomial on the half of
+            each side nearer the cutoff; our convention) or "two-step" (the bias-bandwidth selector of
+            Calonico, Cattaneo and Titiunik 2014: curvature from a local fit at its own MSE bandwidth,
+            with a regulariser). With ``cluster`` the default is the main bandwidth, b = h, after
+            Calonico, Cattaneo and Farrell 2018.
         variance : "neighbors" (3 nearest neighbours), "hc0", "hc1", "hc2" or "hc3"; a design with
             ``cluster`` always uses the cluster-robust variance.
         level : confidence level; donut : exclude observations closer than this to the cutoff;
@@ -383,7 +401,8 @@ class Design:
                       derivative=spec.derivative, variance=variance_name, n_clusters=prep.n_clusters,
                       donut=spec.donut, treated=self.treated, cutoff=self.cutoff, score=self.score,
                       adjusted=spec.adjust, covariates=variables[n_main:], time_scale=self.time_scale,
-                      cluster_variance=spec.cluster_variance if clustered else None)
+                      cluster_variance=spec.cluster_variance if clustered else None,
+                      pilot_rule=self._pilot_rule(spec))
         gamma = () if engine.adjustment is None else tuple(engine.adjustment.gamma[:, 0])
         if self.takeup and not fuzzy and spec.outcome != self.takeup:
             warnings.append(f"Take-up column {self.takeup!r} equals assignment on every row: the design is "

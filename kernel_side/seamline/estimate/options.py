@@ -7,7 +7,8 @@ from numbers import Real
 import numpy as np
 
 from ..errors import InvalidBandwidthError, InvalidOptionError, shown
-from ..options import BANDWIDTH_RULES, CLUSTER_VARIANCES, KERNELS, VARIANCES, check_level, check_option
+from ..options import (BANDWIDTH_RULES, CLUSTER_VARIANCES, KERNELS, PILOT_RULES, VARIANCES, check_level,
+                       check_option)
 
 
 @dataclass(frozen=True)
@@ -17,7 +18,7 @@ class FitSpec:
     kernel: str
     degree: int
     bias_degree: int
-    pilot_bandwidth: tuple[float, float] | None
+    pilot_bandwidth: str | tuple[float, float] | None   # a pilot rule name, a manual pair, or None (default)
     variance: str
     level: float
     donut: float
@@ -68,7 +69,18 @@ def resolve(outcome: str, *, bandwidth, kernel, degree, bias_degree, pilot_bandw
                                      f"derivative={derivative}. Use bandwidth=\"mse\".")
     else:
         bandwidth = _positive_pair("bandwidth", bandwidth)
-    pilot = None if pilot_bandwidth is None else _positive_pair("pilot_bandwidth", pilot_bandwidth)
+    if pilot_bandwidth is None:
+        pilot = None
+    elif isinstance(pilot_bandwidth, str):
+        try:
+            pilot = check_option("pilot_bandwidth", pilot_bandwidth, PILOT_RULES)
+        except InvalidOptionError:
+            rules = ", ".join(f'"{a}"' for a in PILOT_RULES)
+            raise InvalidOptionError(f"`pilot_bandwidth` must be one of {rules}, a positive number or a pair "
+                                     f"(below, above); got {shown(pilot_bandwidth)}. Pass e.g. "
+                                     "pilot_bandwidth=\"two-step\" or pilot_bandwidth=2.5.") from None
+    else:
+        pilot = _positive_pair("pilot_bandwidth", pilot_bandwidth)
     level = check_level(level)
     if not (isinstance(donut, Real) and np.isfinite(donut) and donut >= 0):
         raise InvalidOptionError(f"`donut` must be a non-negative radius in score units; got {shown(donut)}. "

@@ -111,6 +111,9 @@ def _bias_sentence(fit) -> str:
     name = _DEGREE_NAMES.get(fit.bias_degree, f"degree-{fit.bias_degree}")
     same = (" (equal to the main bandwidth, the default with clusters; Calonico, Cattaneo and Farrell 2018)"
             if getattr(fit, "n_clusters", None) and tuple(fit.pilot_bandwidth) == tuple(fit.bandwidth) else "")
+    if getattr(fit, "pilot_rule", None) == "two-step":
+        same = (", selected as MSE-optimal for the bias term by the two-step procedure of Calonico, Cattaneo "
+                "and Titiunik (2014)")
     return (f"The bias correction uses a {name} fit (degree {fit.bias_degree}) with pilot bandwidth "
             f"{_pair(fit.pilot_bandwidth, _unit(getattr(fit, 'time_scale', None)))}{same}, and inference uses "
             f"robust bias-corrected confidence intervals (Calonico, Cattaneo and Titiunik 2014).")

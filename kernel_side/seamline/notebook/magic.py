@@ -23,7 +23,7 @@ from typing import Any
 
 from ..time_score import looks_like_date
 from ..errors import DesignSpecError, shown
-from ..options import BANDWIDTH_RULES, KERNELS, SIDES, VARIANCES
+from ..options import BANDWIDTH_RULES, KERNELS, PILOT_RULES, SIDES, VARIANCES
 
 __all__ = ["ParsedSpec", "cutoff", "load_ipython_extension", "parse_spec", "parse_name"]
 
@@ -271,7 +271,8 @@ class _Resolver:
             hint = f"Did you mean `{key}: {close[0]}`?" if close else "Pick one of the listed values."
             raise _fail(line, f"`{key}` must be one of {', '.join(allowed)}; got {shown(text)}. {hint}")
         if kind == "bandwidth":
-            if lowered in BANDWIDTH_RULES:
+            rules = PILOT_RULES if key == "pilot_bandwidth" else BANDWIDTH_RULES
+            if lowered in rules:
                 return lowered
             parts = [p for p in re.split(r"[,\s]+", text.strip()) if p]
             numbers = [_number(p) for p in parts]
@@ -279,9 +280,9 @@ class _Resolver:
                 return numbers[0] if len(numbers) == 1 else tuple(numbers)
             if _NAME.match(text) and text.split(".")[0] in self.namespace:
                 return self.variable(key, text, line, "a rule or a number")
-            close = difflib.get_close_matches(lowered, BANDWIDTH_RULES, n=1, cutoff=0.5)
+            close = difflib.get_close_matches(lowered, rules, n=1, cutoff=0.5)
             hint = f" Did you mean `{key}: {close[0]}`?" if close else ""
-            raise _fail(line, f"`{key}` must be one of {', '.join(BANDWIDTH_RULES)}, a number or two numbers "
+            raise _fail(line, f"`{key}` must be one of {', '.join(rules)}, a number or two numbers "
                               f"(below, above); got {shown(text)}.{hint or ' Write e.g. `bandwidth: 2.5, 3`.'}")
         if kind == "boolean":
             if lowered in _TRUE:
@@ -434,8 +435,8 @@ def cutoff(line: str, cell: str, *, shell=None):
         effect: 0.2             # optional: the effect the power panel plans for
         headline_cutoff: 60     # cumulative cutoffs: the one the headline shows (default the first)
 
-    Also: bias_degree, pilot_bandwidth, derivative (1 for a kink design), adjust (true to adjust
-    for the covariates). The cell binds NAME to the board (``NAME.fit``, ``NAME.results``,
+    Also: bias_degree, pilot_bandwidth (a number, two numbers, nearer-half or two-step), derivative
+    (1 for a kink design), adjust (true to adjust for the covariates). The cell binds NAME to the board (``NAME.fit``, ``NAME.results``,
     ``NAME.refresh()``, ``NAME.pause()``, ``NAME.export(...)``); after every cell the board
     recomputes what changed in its data or in the notebook variables it names. Values are never
     evaluated; errors name the line (the ``%%cutoff`` line is line 1).

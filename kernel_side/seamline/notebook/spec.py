@@ -20,7 +20,7 @@ import pandas as pd
 
 from ..time_score import is_time_value, looks_like_date
 from ..errors import InvalidOptionError, shown
-from ..options import BANDWIDTH_RULES, KERNELS, SIDES, VARIANCES, check_option
+from ..options import BANDWIDTH_RULES, KERNELS, PILOT_RULES, SIDES, VARIANCES, check_option
 from .inference_keys import INFERENCE_DEFAULTS, coerce_inference
 
 __all__ = ["BOARD_KEYS", "DESIGN_KEYS", "FIT_DEFAULTS", "OPTION_DEFAULTS", "REQUIRED_KEYS", "SPEC_KEYS", "Failure", "NotApplicable",
@@ -202,6 +202,14 @@ def coerce_value(key: str, value: Any, variable: str | None = None) -> Any:
                                          "`bandwidth: 2.5`.") from None
         return _as_pair_or_number(key, value, variable)
     if key == "pilot_bandwidth":
+        if isinstance(value, str):
+            try:
+                return check_option(key, value, PILOT_RULES)
+            except InvalidOptionError:
+                rules = ", ".join(f'"{a}"' for a in PILOT_RULES)
+                raise InvalidOptionError(f"{_where(key, variable)} must be one of {rules}, a number or two "
+                                         f"numbers; got {shown(value)}. Use e.g. `pilot_bandwidth: two-step` "
+                                         "or `pilot_bandwidth: 4.0`.") from None
         return None if value is None else _as_pair_or_number(key, value, variable)
     if key == "adjust":
         if isinstance(value, (bool, np.bool_)):

@@ -78,6 +78,9 @@ class Fit(Reported):
     # robust intervals (None: normal critical values).
     cluster_variance: str | None = None
     dof: tuple[float | None, float | None] = (None, None)
+    # How b was chosen: "nearer-half" or "two-step" (selected), "main bandwidth" (b = h, clustered
+    # default) or "manual" (given by the user).
+    pilot_rule: str | None = None
 
     # ---- how the score reads -----------------------------------------------------------------
     @property
