@@ -9,6 +9,10 @@ beside its target (invented data: seamline.demo_data.sharp_scenario, score, outc
   L5. 30 changes in a row, settled after the last (the last value wins)  <= 8x
   L6. n = 1e5 with the widget view: view built / bandwidth change to fresh panels  <= 0.5 s / <= 0.3 s
   L7. n = 1e7: bandwidth change -> headline                           <= 100 ms
+"All panels" in L1-L3 and L5 are the panels issue 8 set targets for; the inference panels added
+later (bias-aware interval, weak-instrument-robust set, local randomization: permutation tests
+and a bandwidth search, computed in the background after the others) are timed on lines of
+their own ("+ inference panels"), with no target.
 Where a figure misses, the slowest computations behind it are listed: the diagnostics' own cost
 (density test, binned means, placebo, donut, balance, score profile) is cut in the engine (issue 8
 item 4), not by the board.
@@ -145,6 +149,14 @@ def _line(label: str, seconds: float, fit: float, target: float, costs: "_Costs 
         print(f"{'':49s}slowest: {costs.slowest(fit)}")
 
 
+# Panels added after issue 8's targets were set (see the module docstring).
+INFERENCE_PANELS = ("bias_aware", "weak_iv", "local_randomization")
+
+
+def _extra(label: str, seconds: float, fit: float) -> None:
+    print(f"{label:46s} {seconds * 1e3:9.1f} ms = {seconds / fit:6.2f}x fit (no target)")
+
+
 def _reference_fit(data, kwargs) -> float:
     seamline.Design(data, **kwargs).fit()          # warm imports and caches of the process
     return statistics.median(timed(lambda: seamline.Design(data, **kwargs).fit(), 1) for _ in range(3))
@@ -161,10 +173,13 @@ def live_board(n: int) -> None:
     b = make_board(data, **kwargs)                  # returns once the headline is there
     t_head = time.perf_counter() - t0
     costs = _Costs(b)
-    b.wait()
+    core = [p for p in b.panels if p not in INFERENCE_PANELS]
+    b.wait(*core)
     t_all = time.perf_counter() - t0
     _line("[L1] first board: headline", t_head, fit, 3)
     _line("[L1] first board: all panels", t_all, fit, 30, costs)
+    b.wait()
+    _extra("[L1] + inference panels", time.perf_counter() - t0, fit)
     h = b.results["fit"].bandwidth[0]
     returns = []
 
@@ -173,13 +188,21 @@ def live_board(n: int) -> None:
         start = time.perf_counter()
         b.set_option(name, value)
         returns.append(time.perf_counter() - start)
-        b.wait(*panels)
+        b.wait(*(panels or core))
         return time.perf_counter() - start
+
+    def settle(label, start):
+        b.wait()
+        _extra(label, time.perf_counter() - start, fit)
 
     _line("[L2] bandwidth change -> headline", change("bandwidth", round(1.1 * h, 4), "fit"), fit, 0.5)
     b.wait()
+    start = time.perf_counter()
     _line("[L2] bandwidth change -> all panels", change("bandwidth", round(1.2 * h, 4)), fit, 5, costs, always=True)
+    settle("[L2] + inference panels", start)
+    start = time.perf_counter()
     _line("[L3] level change -> all panels", change("level", 0.9), fit, 0.3, costs)
+    settle("[L3] + inference panels", start)
     values = [round(h * (0.8 + 0.02 * i), 4) for i in range(30)]
     costs.reset()
     for value in values:
@@ -187,7 +210,7 @@ def live_board(n: int) -> None:
         b.set_option("bandwidth", value)
         returns.append(time.perf_counter() - start)
     start = time.perf_counter()
-    b.wait()
+    b.wait(*core)
     last_wins = b.results["fit"].bandwidth == (values[-1], values[-1])
     _line(f"[L5] 30 changes, settled after the last (last wins: {last_wins})", time.perf_counter() - start,
           fit, 8, costs)
