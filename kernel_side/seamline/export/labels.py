@@ -277,7 +277,7 @@ def _level_of(result: Any) -> float | None:
 
 
 def result_model(result: Any, *, join_intervals: bool = True, title: str | None = None,
-                 decimals: int = 3) -> TableModel:
+                 decimals: int = 3, caution: bool = True) -> TableModel:
     """The export model of any result (``table()``, ``title()``, ``notes()``, ``warnings``), labelled.
 
     Parameters
@@ -289,13 +289,17 @@ def result_model(result: Any, *, join_intervals: bool = True, title: str | None 
     title : str, optional
         Replaces the result's own title.
     decimals : int, default 3
+    caution : bool, default True
+        False on a board, which states the caution once (header and methods paragraph), not
+        under every table.
 
     Returns
     -------
     TableModel
     """
-    # the caution is stated once per board and once in the methods paragraph, never under a table
-    notes = [n for n in (str(n).replace(CAUTION, "").strip() for n in result.notes()) if n]
+    notes = [str(n) for n in result.notes()]
+    if not caution:
+        notes = [n for n in (n.replace(CAUTION, "").strip() for n in notes) if n]
     notes += [f"Warning: {w}" for w in (getattr(result, "warnings", ()) or ())]
     return labelled_model(result.table(), title=result.title() if title is None else title, notes=notes,
                           level=_level_of(result), join_intervals=join_intervals, decimals=decimals,
@@ -331,7 +335,7 @@ def export_table(result: Any, fmt: str, *, title: str | None = None) -> str:
     if isinstance(result, pd.DataFrame):
         model = labelled_model(result, title=title or "", join_intervals=join)
     else:
-        model = result_model(result, join_intervals=join, title=title)
+        model = result_model(result, join_intervals=join, title=title, caution=False)
     if fmt == "text":
         grid = [[model.display(i, j) for j in range(len(model.columns))] for i in range(len(model.rows))]
         lines = [model.title] if model.title else []

@@ -40,7 +40,7 @@ def _table(result) -> str:
     """A labelled table (reader labels, the level in interval columns) as HTML."""
     from ..export.labels import result_model
     from ..export.render import to_html
-    return to_html(result_model(result))
+    return to_html(result_model(result, caution=False))   # the board states the caution once
 
 
 def _missing(board, key: str, what: str) -> str | None:
