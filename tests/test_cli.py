@@ -112,6 +112,11 @@ BAD_SPECS = [
     ("score: reading_score\ncutoff: 40\noutcome: math_gain\n", "must declare data, score, cutoff, outcome"),
     ("data: invented.csv\nscore: reading_score\ncutoff: 400\noutcome: math_gain\n",
      "line 3: `cutoff` must lie within the range of score"),
+    ("data: invented.csv\nscore: reading_score\ncutoff: 40\noutcome: math_gain\nscore_unit: fortnights\n",
+     "line 5: `score_unit` must be one of days, hours, weeks, months, years; got 'fortnights'"),
+    ("data: invented.csv\nscore: reading_score\ncutoff: 40\noutcome: math_gain\nscore_unit: weeks\n",
+     "line 5: `score_unit` applies to date or time scores only; got 'weeks' for the numeric score "
+     "'reading_score'. Remove it, or declare a date or datetime column as the score."),
 ]
 
 

@@ -264,3 +264,37 @@ def test_a_board_with_cumulative_cutoffs_groups_and_an_effect_is_rebuilt(tmp_pat
     assert numbers["power"]["sample_size"]["n_total"] == report.sample.n_total
     assert numbers["power"]["power"]["power"] == report.power.power
     board.close()
+
+
+def visits_data(n: int = 2500, seed: int = 4) -> pd.DataFrame:
+    """Invented visits around a cutoff date (seeded; demo data only)."""
+    rng = np.random.default_rng(seed)
+    hours = rng.integers(-300 * 24, 300 * 24, n)
+    days = hours / 24
+    y = 0.4 * (days >= 0) + 0.003 * days + rng.normal(0, 1, n)
+    return pd.DataFrame({"visit": pd.Timestamp("2024-07-01") + pd.to_timedelta(hours, unit="h"), "y": y,
+                         "z": rng.normal(size=n)})
+
+
+@pytest.mark.parametrize(("suffix", "cutoff"), [(".csv", "2024-07-01"), (".parquet", pd.Timestamp("2024-07-01"))])
+def test_a_weeks_board_on_a_date_score_is_rebuilt(suffix, cutoff, tmp_path):
+    # Reference: the board's own panels (checked against Design(score_unit="weeks") in
+    # tests/notebook/test_chart_dates.py); the script must rebuild the same floats from the file.
+    data = visits_data()
+    board = seamline.board(data, score="visit", cutoff=cutoff, outcome="y", covariates=["z"], score_unit="weeks",
+                           name="visits", panels=["fit", "bandwidths", "placebo", "donut", "density"])
+    data_path = tmp_path / f"visits{suffix}"
+    data.to_csv(data_path, index=False) if suffix == ".csv" else data.to_parquet(data_path, index=False)
+    script = tmp_path / "replicate.py"
+    text = board_script(board, script, data_path=data_path)
+    assert "'score_unit': 'weeks'," in text and "'cutoff': '2024-07-01'," in text
+    out = tmp_path / "numbers.json"
+    result = run_script(script, "--json", str(out))
+    assert result.returncode == 0, result.stderr
+    numbers = json.loads(out.read_text(encoding="utf-8"))
+    check_fit(numbers["fit"], board.fit)
+    for panel in ("bandwidths", "placebo", "donut", "density"):
+        value = board.results[panel]
+        assert numbers[panel]["table"] == records(value if isinstance(value, pd.DataFrame) else value.table()), panel
+    assert board.results["placebo"].table()["cutoff_date"].notna().all()      # a date board's placebo table
+    board.close()

@@ -181,7 +181,7 @@ def reject_time_cutoff(cutoff: Any, score: str, unit: str | None) -> float:
     """The cutoff of a numeric score as a float; dates, date strings and a unit are errors here."""
     if unit is not None:
         raise InvalidOptionError(f"`score_unit` applies to date or time scores only; got {shown(unit)} for the "
-                                 f"numeric score {shown(score)}. Leave it out.")
+                                 f"numeric score {shown(score)}. Remove it, or declare a date or datetime column as the score.")
     if is_time_value(cutoff):
         raise CutoffTypeError(f"`cutoff` must be a number for the numeric score {shown(score)}; got {shown(cutoff)}. Give "
                               "the cutoff in the score's units, or declare a date column as the score.")

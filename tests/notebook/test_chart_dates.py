@@ -220,3 +220,39 @@ def test_a_board_with_a_date_cutoff_on_a_numeric_score_shows_the_named_error():
     assert "`cutoff` must be a number for the numeric score 'days'" in message
     assert "declare a date column as the score" in message
     assert "must be a number for the numeric score" in static.header_html(board)   # the kernel keeps working
+
+
+def test_a_weeks_board_reports_in_weeks_and_equals_the_weeks_design(date_board):
+    # Reference: Design(score_unit="weeks") on the same data, and the definition of a week (7 days) --
+    # the same fit on a score divided by 7 has bandwidths divided by 7 (the MSE-optimal bandwidth is
+    # equivariant to rescaling the score, common practice).
+    board = Board("weekly", {"score": "visit", "cutoff": "2024-07-01", "outcome": "y", "covariates": ["z"],
+                             "takeup": "took", "score_unit": "weeks"}, {}, data=visits())
+    board.wait()
+    fit, days = board.results["fit"], date_board.results["fit"]
+    direct = seamline.Design(visits(), score="visit", cutoff="2024-07-01", outcome="y", covariates=["z"],
+                             takeup="took", score_unit="weeks").fit()
+    np.testing.assert_allclose(fit.bandwidth, direct.bandwidth, rtol=1e-12)
+    np.testing.assert_allclose(fit.estimate, direct.estimate, rtol=1e-12)
+    np.testing.assert_allclose(np.asarray(fit.bandwidth) * 7, days.bandwidth, rtol=1e-12)
+    np.testing.assert_allclose(fit.estimate, days.estimate, rtol=1e-9)
+    html = static.static_html(board)
+    assert f"Bandwidth {charts.number(fit.bandwidth[0])} weeks" in html and "bandwidth (weeks)" in html
+    assert "Bandwidth selectors (weeks)" in static.panel_html(board, "bandwidths", charts=False)
+    assert all(str(d).endswith(("weeks", "week")) for d in board.results["donut"].table()["radius_duration"])
+    assert "measured in weeks" in board.methods_paragraph()
+    board.set_option("score_unit", "days")    # the control: the same numbers as the days board
+    np.testing.assert_allclose(board.results["fit"].bandwidth, days.bandwidth, rtol=1e-12)
+    board.close()
+
+
+def test_a_score_unit_on_a_numeric_score_board_says_to_remove_it():
+    frame = visits(n=400)
+    frame["days"] = (frame["visit"] - CUTOFF).dt.days
+    board = Board("numeric", {"score": "days", "cutoff": 0, "outcome": "y", "score_unit": "weeks"}, {}, data=frame)
+    board.wait()
+    assert "`score_unit` applies to date or time scores only" in board.errors["fit"]
+    assert "Remove it, or declare a date or datetime column as the score" in board.errors["fit"]
+    with pytest.raises(seamline.errors.InvalidOptionError, match=r"`score_unit` must be one of \"days\", \"hours\""):
+        board.set_option("score_unit", "fortnights")
+    board.close()

@@ -234,6 +234,29 @@ def test_the_graph_is_acyclic_and_level_is_a_source_of_the_inference_nodes_only(
                                                "local_randomization"}
 
 
+def test_a_score_unit_change_rebuilds_what_a_cutoff_change_rebuilds(scenario, calls):
+    # score_unit rescales every distance from the cutoff, so it reaches exactly what the cutoff reaches:
+    # a new Design and every node (a numeric score takes no unit, hence a date copy of the score here).
+    s, data = scenario
+    dated = data.assign(visit=pd.Timestamp("2024-07-01") + pd.to_timedelta((data[s.score] - s.cutoff) * 86400.0,
+                                                                           unit="s"))
+    kwargs = {**s.design_kwargs(), "score": "visit", "cutoff": "2024-07-01",
+              "covariates": ["age", "prior_math", "free_lunch"]}
+    b = seamline.board(dated, **kwargs, seed=SEED).wait()
+    calls.clear()
+    b.set_option("score_unit", "weeks")
+    b.wait()
+    made = {name for name, n in calls.items() if n} - {"fits", "selections", *PARTS}
+    assert made == CHANGES["cutoff"][1]
+    assert {part: calls[part] for part in PARTS} == PART_CHANGES["cutoff"]
+    calls.clear()
+    b.set_option("score_unit", None)          # back to days: every node is a cache hit
+    b.wait()
+    assert sum(calls.values()) == 0
+    graph = compute_graph(score="x", outcomes=["y"], outcome="y", covariates=["c"], takeup="t")
+    assert graph.stale_after({"score_unit"}) == graph.stale_after({"cutoff"})
+
+
 # ---- every panel against the direct Design call ----------------------------------------------------
 def _expected(data, spec, options, inference=None):
     """Every panel computed directly with seamline.Design for the given declaration and options."""

@@ -131,6 +131,28 @@ def test_pointed_errors(ns, body, pattern):
         parse_spec(body, ns)
 
 
+def test_a_score_unit_for_a_date_score(ns):
+    visits = pd.DataFrame({"visit": pd.Timestamp("2024-07-01") + pd.to_timedelta(np.arange(-60, 60), unit="D"),
+                           "y": np.arange(120.0)})
+    body = "data: visits\nscore: visit\ncutoff: 2024-07-01\noutcome: y\nScore unit: Weeks\n"
+    spec = parse_spec(body, {**ns, "visits": visits})
+    assert spec.design_kwargs["score_unit"] == "weeks" and spec.lines["score_unit"] == 6
+    assert parse_spec(body.replace("Weeks", "unit"), {**ns, "visits": visits, "unit": "months"}
+                      ).design_kwargs["score_unit"] == "months"
+    with pytest.raises(DesignSpecError, match=r"^line 6: `score_unit` must be one of days, hours, weeks, months, "
+                                              r"years; got 'fortnights'"):
+        parse_spec(body.replace("Weeks", "fortnights"), {**ns, "visits": visits})
+
+
+def test_a_score_unit_on_a_numeric_score_points_at_its_line(ns):
+    from seamline.notebook.magic import build_board
+    spec = parse_spec(BASE + "score_unit: days\n", ns)
+    with pytest.raises(DesignSpecError, match=r"^line 6: `score_unit` applies to date or time scores only; got "
+                                              r"'days' for the numeric score 'reading_score'. Remove it, or "
+                                              r"declare a date or datetime column as the score."):
+        build_board(spec, ns)
+
+
 def test_nothing_is_ever_evaluated(ns, tmp_path):
     marker = tmp_path / "ran"
     attempts = [f"cutoff: open({str(marker)!r}, 'w')", "cutoff: __import__('os').getcwd()",

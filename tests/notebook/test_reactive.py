@@ -187,7 +187,9 @@ def test_every_panel_is_in_the_graph_and_keys_use_only_its_sources():
         assert panel_node(p) in graph.nodes
     values = {s: f"v-{s}" for s in graph.sources}
     key = graph.key(panel_node("density"), values)
-    assert [name for name, _ in key[1:]] == sorted(["column:score", "score", "cutoff", "treated", "level"])
+    # score_unit: a date score's distances are in that unit, so the density test reads it like the cutoff
+    assert [name for name, _ in key[1:]] == sorted(["column:score", "score", "cutoff", "score_unit", "treated",
+                                                    "level"])
     # the main fit is cached without the level, so a new level re-reports it
     assert "level" not in dict(graph.key("main_fit", values)[1:])
 

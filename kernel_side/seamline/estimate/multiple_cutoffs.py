@@ -55,9 +55,13 @@ def plan_cutoffs(frame: pd.DataFrame, score: str, cutoff, columns: tuple[str, ..
     if not is_column and (time_score or is_time_value(cutoff) or looks_like_date(cutoff)):
         # One cutoff date, or a date/number mismatch that the data layer names (seamline.time_score).
         return CutoffPlan("single", (0.0,), None, score, cutoff, frame)
-    if score_unit is not None:
+    if score_unit is not None and time_score:
         raise InvalidOptionError(f"`score_unit` applies to date or time scores with one cutoff date only; got "
                                  f"{shown(score_unit)} for score {shown(score)}. Leave it out.")
+    if score_unit is not None:
+        raise InvalidOptionError(f"`score_unit` applies to date or time scores only; got {shown(score_unit)} for the "
+                                 f"numeric score {shown(score)}. Remove it, or declare a date or datetime column "
+                                 "as the score.")
     if isinstance(cutoff, str):
         return _column_plan(frame, score, cutoff, columns)
     if isinstance(cutoff, (list, tuple, np.ndarray, pd.Series)) and np.ndim(cutoff) > 0:

@@ -17,6 +17,7 @@ from collections.abc import Iterable, Mapping
 from typing import Any
 
 from ..errors import InvalidOptionError, as_python, shown
+from ..time_score import is_time_value, looks_like_date
 
 __all__ = ["PANEL_CALLS", "board_script", "replication_script"]
 
@@ -60,7 +61,8 @@ PANEL_CALLS: Mapping[str, str] = {
 _INFERENCE_DEFAULTS: Mapping[str, Any] = {"smoothness": None, "window": None, "statistic": "difference in means",
                                           "permutations": 10_000, "seed": None}
 
-_DESIGN_KEYS = ("score", "cutoff", "treated", "outcome", "takeup", "covariates", "cluster", "weights")
+_DESIGN_KEYS = ("score", "cutoff", "treated", "outcome", "takeup", "covariates", "cluster", "weights",
+                "score_unit")
 _OPTION_KEYS = ("bandwidth", "kernel", "degree", "bias_degree", "pilot_bandwidth", "variance", "level", "donut",
                 "derivative", "adjust")
 _BOARD_KEYS = ("groups", "effect", "headline_cutoff")     # seamline.notebook.designs_spec
@@ -70,6 +72,9 @@ _PLACEHOLDER = "REPLACE/WITH/the_data_file.csv"
 def _literal(value: Any, where: str) -> str:
     """Python source for a plain value (numbers, text, None, booleans, tuples and lists of them)."""
     value = as_python(value)
+    if is_time_value(value):
+        # a cutoff date as ISO text (with its UTC offset when it has one): Design reads it back exactly
+        return repr(_time_text(value))
     if value is None or isinstance(value, (bool, str)):
         return repr(value)
     if isinstance(value, numbers.Integral):
@@ -85,6 +90,12 @@ def _literal(value: Any, where: str) -> str:
         return "(" + ", ".join(items) + ("," if len(items) == 1 else "") + ")"
     raise InvalidOptionError(f"`{where}` must be a number, text or a list of them to write into a script; got "
                              f"{shown(value)}. Replace it by a plain value.")
+
+
+def _time_text(value: Any) -> str:
+    import pandas as pd
+    stamp = pd.Timestamp(value)
+    return stamp.date().isoformat() if stamp == stamp.normalize() and stamp.tzinfo is None else stamp.isoformat()
 
 
 def _fit_defaults() -> dict[str, Any]:
@@ -156,7 +167,8 @@ def replication_script(spec: Mapping[str, Any], options: Mapping[str, Any], pane
     if unknown:
         raise InvalidOptionError(f"`panels` must be among fit, {', '.join(PANEL_CALLS)}; got {shown(unknown)}. "
                                  "Pass the board's panels.")
-    design = {"treated": "above", "takeup": None, "covariates": (), "cluster": None, "weights": None, **spec}
+    design = {"treated": "above", "takeup": None, "covariates": (), "cluster": None, "weights": None,
+              "score_unit": None, **spec}
     design["outcome"] = (design["outcome"],) if isinstance(design["outcome"], str) else tuple(design["outcome"])
     design["covariates"] = () if design["covariates"] is None else (
         (design["covariates"],) if isinstance(design["covariates"], str) else tuple(design["covariates"]))
@@ -181,6 +193,7 @@ def replication_script(spec: Mapping[str, Any], options: Mapping[str, Any], pane
         name=name, version=version, today=today, data_path=repr(path_text), marker=marker,
         placeholder=repr(_PLACEHOLDER),
         design=_block("DESIGN", design, _DESIGN_KEYS), outcome=_literal(outcome, "outcome"),
+        date_score=repr(is_time_value(design["cutoff"]) or looks_like_date(design["cutoff"])),
         board=_block("BOARD", {key: spec.get(key) for key in _BOARD_KEYS}, _BOARD_KEYS),
         single_reason=repr(_reason("cutoff_effects")), groups_reason=repr(_reason("group_effects")),
         options=_block("OPTIONS", fit_options, _OPTION_KEYS) + "\n" + _block("INFERENCE", inference,
@@ -247,6 +260,7 @@ import pandas as pd
 import seamline
 
 {design}
+DATE_SCORE = {date_score}   # the score is a date: a CSV file's text dates are read back as dates
 OUTCOME = {outcome}
 {options}
 # the subgroup column, the effect the power panel plans for, the headline of cumulative cutoffs
@@ -267,10 +281,27 @@ def load_data(path):
     if suffix == ".csv":
         # floats read back bit for bit: pandas 3 does it by default, pandas 2 needs the round-trip parser
         exact = {{}} if int(pd.__version__.split(".")[0]) >= 3 else {{"float_precision": "round_trip"}}
-        return pd.read_csv(path, **exact)
+        frame = pd.read_csv(path, **exact)
+        if DATE_SCORE:
+            frame[DESIGN["score"]] = read_dates(frame[DESIGN["score"]])
+        return frame
     if suffix in (".parquet", ".pq"):
         return pd.read_parquet(path)
     sys.exit(f"DATA_PATH must end in .csv or .parquet; got {{str(path)!r}}. Convert the data to one of them.")
+
+
+def read_dates(column):
+    """A CSV column of ISO dates as datetime64; several UTC offsets (a time zone with summer time)
+    cannot be restored from text, so such data must come as Parquet, which keeps the time zone."""
+    try:
+        dates = pd.to_datetime(column, format="ISO8601")
+    except (TypeError, ValueError) as exc:
+        sys.exit(f"The score column {{DESIGN['score']!r}} must hold ISO dates with one UTC offset to be read from "
+                 f"CSV; got {{exc}}. Export the data as Parquet, which keeps dates and time zones.")
+    if not pd.api.types.is_datetime64_any_dtype(dates):
+        sys.exit(f"The score column {{DESIGN['score']!r}} must hold dates with one UTC offset to be read from CSV. "
+                 "Export the data as Parquet, which keeps dates and time zones.")
+    return dates
 
 
 def without(options, *keys):

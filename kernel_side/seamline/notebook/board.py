@@ -194,7 +194,7 @@ class Board(Scheduler):
         The board's name (the ``%%cutoff`` NAME); shown in views and used by the front end.
     design_kwargs : dict
         ``score``, ``cutoff``, ``outcome`` (a name or a list), and optionally ``treated``,
-        ``takeup``, ``covariates``, ``cluster``, ``weights`` -- as for ``seamline.Design``.
+        ``takeup``, ``covariates``, ``cluster``, ``weights``, ``score_unit`` -- as for ``seamline.Design``.
     fit_options : dict, optional
         Options of ``Design.fit`` (bandwidth, kernel, degree, bias_degree, pilot_bandwidth,
         variance, level, donut, derivative, adjust), ``outcome`` to select one of several
@@ -261,7 +261,7 @@ class Board(Scheduler):
                 raise InvalidOptionError(f"`{key}` must be declared; got nothing. Add it, e.g. "
                                          f"`{key}: {'40' if key == 'cutoff' else _EXAMPLE_COLUMN[key]}`.")
         spec: dict[str, Any] = {"treated": "above", "takeup": None, "covariates": (), "cluster": None,
-                                "weights": None, **dict.fromkeys(BOARD_KEYS)}
+                                "weights": None, "score_unit": None, **dict.fromkeys(BOARD_KEYS)}
         for key, value in design.items():
             spec[key] = coerce_value(key, value, self._spec_variables.get(key))
         options = dict(fit_options or {})
@@ -854,7 +854,7 @@ def _json_float(value: float) -> float | None:
 
 # ---- the Python builder -----------------------------------------------------------------------------
 def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", takeup: str | None = None,
-          covariates=None, cluster: str | None = None, weights: str | None = None,
+          covariates=None, cluster: str | None = None, weights: str | None = None, score_unit: str | None = None,
           bandwidth="mse", kernel: str = "triangular", degree: int = 1, bias_degree: int | None = None,
           pilot_bandwidth=None, variance: str = "neighbors", level: float = 0.95, donut: float = 0.0,
           derivative: int = 0, adjust: bool = False, groups: str | None = None, effect: float | None = None,
@@ -867,9 +867,10 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
     data : DataFrame
         Never modified. In-place edits of the columns the board uses are picked up after each
         notebook cell (when running inside IPython).
-    score, cutoff, outcome, treated, takeup, covariates, cluster, weights
+    score, cutoff, outcome, treated, takeup, covariates, cluster, weights, score_unit
         The design, as for ``seamline.Design`` (``cutoff`` may name a column of per-unit cutoffs
-        or list increasing cumulative cutoffs).
+        or list increasing cumulative cutoffs; ``score_unit`` -- "hours", "days" (the default),
+        "weeks", "months" or "years" -- is the unit of a date score's distance from the cutoff).
     groups, effect, headline_cutoff
         A pre-treatment column for the subgroup panel, the effect the power panel plans for, and
         the cumulative cutoff the headline shows (default the first).
@@ -909,7 +910,8 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
         raise InvalidOptionError(f"`data_name` must name the notebook variable holding `data`; got "
                                  f"{shown(data_name)}, which holds another object. Pass the variable's name.")
     design_kwargs = dict(score=score, cutoff=cutoff, outcome=outcome, treated=treated, takeup=takeup,
-                         covariates=covariates, cluster=cluster, weights=weights, groups=groups, effect=effect,
+                         covariates=covariates, cluster=cluster, weights=weights, score_unit=score_unit,
+                         groups=groups, effect=effect,
                          headline_cutoff=headline_cutoff)
     fit_options = dict(bandwidth=bandwidth, kernel=kernel, degree=degree, bias_degree=bias_degree,
                        pilot_bandwidth=pilot_bandwidth, variance=variance, level=level, donut=donut,

@@ -13,7 +13,8 @@ options (``bandwidth``, ``kernel``, ``degree``, ``bias_degree``, ``pilot_bandwid
 ``variance``, ``donut``, ``derivative``, ``adjust``) and ``balance_rule`` (the bandwidth rule when
 ``bandwidth`` names one, else "mse"). Below, *rows* = the score, take-up, cluster and weights
 columns and names with the cutoff and the treated side (missing values in any of them drop a
-row); *estimator* = kernel, degree, bias_degree, variance, derivative.
+row; ``score_unit`` rescales every distance, so it is in the rows too); *estimator* = kernel,
+degree, bias_degree, variance, derivative.
 
 ====================  ==============================================  ===============================
 node                  reads                                           engine call
@@ -32,13 +33,14 @@ placebo               rows, the outcome column, outcome, donut,       ``Design.p
                       adjustment: placebo fits never adjust)
 donut_ladder          main_fit's sources but donut (the ladder        ``Design.donut``
                       sets its own radii)
-density               the score column, score, cutoff                 ``Design.density_test``
+density               the score column, score, cutoff, score_unit     ``Design.density_test``
 balance               rows, covariates, estimator, donut,             ``Design.balance``
                       balance_rule
 checks_balance        as balance with the rule "mse" and the pilot    ``Design.balance``
                       bandwidth (what Design.checks reads; shares
                       balance's entry when both coincide)
-score_profile         the score column, score, cutoff, main_fit       ``Design.score_profile``
+score_profile         the score column, score, cutoff, score_unit,    ``Design.score_profile``
+                      main_fit
 checks                main_fit, density, checks_balance,              none: the nodes' results, rows
                       score_profile                                   by ``estimate.check_rows``
 ====================  ==============================================  ===============================
@@ -104,7 +106,7 @@ PANEL_NODES: Mapping[str, str] = {
     **inference.INFERENCE_PANEL_NODES,
 }
 
-_DESIGN_KEYS = ("score", "cutoff", "treated", "outcomes", "takeup", "covariates", "cluster", "weights")
+_DESIGN_KEYS = ("score", "cutoff", "treated", "outcomes", "takeup", "covariates", "cluster", "weights", "score_unit")
 _ESTIMATOR = ("kernel", "degree", "bias_degree", "variance", "derivative")
 
 
@@ -123,7 +125,7 @@ def compute_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: 
     col = column_node
     used = [score, *outcomes, *(c for c in (takeup, cluster, weights, cutoff_column) if c), *covariates]
     rows = [col(score), *(col(c) for c in (takeup, cluster, weights, cutoff_column) if c),
-            "score", "cutoff", "treated", "takeup", "cluster", "weights", "headline_cutoff"]
+            "score", "cutoff", "score_unit", "treated", "takeup", "cluster", "weights", "headline_cutoff"]
     covs = [*(col(c) for c in covariates), "covariates"]
     without_donut = [*rows, col(outcome), "outcome", "adjust", *(covs if adjust else [])]
     parents = {
@@ -138,10 +140,11 @@ def compute_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: 
         # Placebo fits use one side's rows without take-up or covariate adjustment.
         "placebo": [*rows, col(outcome), "outcome", "donut", *_ESTIMATOR, "bandwidth", "pilot_bandwidth"],
         "donut_ladder": [*without_donut, *_ESTIMATOR, "bandwidth", "pilot_bandwidth"],
-        "density": [col(score), "score", "cutoff", "headline_cutoff", *(col(c) for c in (cutoff_column,) if c)],
+        "density": [col(score), "score", "cutoff", "score_unit", "headline_cutoff",
+                    *(col(c) for c in (cutoff_column,) if c)],
         "balance": [*rows, *covs, *_ESTIMATOR, "donut", "balance_rule"],
         "checks_balance": [*rows, *covs, *_ESTIMATOR, "donut", "pilot_bandwidth"],
-        "score_profile": [col(score), "score", "cutoff", "headline_cutoff",
+        "score_profile": [col(score), "score", "cutoff", "score_unit", "headline_cutoff",
                           *(col(c) for c in (cutoff_column,) if c), "main_fit"],
         "checks": ["main_fit", "density", "checks_balance", "score_profile"],
         **inference.inference_parents(rows=rows, outcome_column=col(outcome), covariates=covs),

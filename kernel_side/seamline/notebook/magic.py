@@ -23,12 +23,13 @@ from typing import Any
 
 from ..time_score import looks_like_date
 from ..errors import DesignSpecError, shown
-from ..options import BANDWIDTH_RULES, KERNELS, PILOT_RULES, SIDES, VARIANCES
+from ..options import BANDWIDTH_RULES, KERNELS, PILOT_RULES, SCORE_UNITS, SIDES, VARIANCES
 
 __all__ = ["ParsedSpec", "cutoff", "load_ipython_extension", "parse_spec", "parse_name"]
 
 # The vocabulary, kept here so parsing needs no heavy import (board.py has the same keys).
-DESIGN_KEYS = ("score", "cutoff", "treated", "outcome", "takeup", "covariates", "cluster", "weights")
+DESIGN_KEYS = ("score", "cutoff", "treated", "outcome", "takeup", "covariates", "cluster", "weights",
+               "score_unit")
 OPTION_KEYS = ("bandwidth", "kernel", "degree", "bias_degree", "pilot_bandwidth", "variance", "level",
                "donut", "derivative", "adjust")
 BOARD_KEYS = ("groups", "effect", "headline_cutoff")      # see designs_spec
@@ -40,16 +41,16 @@ _KIND = {
     "data": "data", "score": "column", "takeup": "column?", "cluster": "column?", "weights": "column?",
     "outcome": "columns", "covariates": "columns?", "cutoff": "cutoff", "level": "level",
     "donut": "number", "degree": "integer", "bias_degree": "integer?", "derivative": "integer",
-    "treated": "choice", "kernel": "choice", "variance": "choice", "bandwidth": "bandwidth",
+    "treated": "choice", "kernel": "choice", "variance": "choice", "score_unit": "choice", "bandwidth": "bandwidth",
     "pilot_bandwidth": "bandwidth?", "adjust": "boolean",
     "groups": "column?", "effect": "number?", "headline_cutoff": "number?",
     **{key: "inference" for key in INFERENCE_KEYS},
 }
-_CHOICES = {"treated": SIDES, "kernel": KERNELS, "variance": VARIANCES}
+_CHOICES = {"treated": SIDES, "kernel": KERNELS, "variance": VARIANCES, "score_unit": SCORE_UNITS}
 _EXAMPLES = {
     "data": "pupils", "score": "reading_score", "cutoff": "40", "treated": "below",
     "outcome": "math_gain, attendance", "takeup": "attended", "covariates": "age, prior_math",
-    "cluster": "school", "weights": "sample_weight", "bandwidth": "mse", "kernel": "triangular",
+    "cluster": "school", "weights": "sample_weight", "score_unit": "weeks", "bandwidth": "mse", "kernel": "triangular",
     "degree": "1", "bias_degree": "2", "pilot_bandwidth": "4.0", "variance": "neighbors",
     "level": "0.95", "donut": "0", "derivative": "0", "adjust": "false",
     "groups": "region", "effect": "0.2", "headline_cutoff": "60",
@@ -425,6 +426,7 @@ def cutoff(line: str, cell: str, *, shell=None):
         covariates: age, prior_math
         cluster: school         # optional
         weights: sample_weight  # optional
+        score_unit: weeks       # date scores only: hours | days (default) | weeks | months | years
         bandwidth: mse          # mse | mse-split | coverage | ik | a number | two numbers
         kernel: triangular      # triangular | uniform | epanechnikov
         degree: 1

@@ -53,7 +53,7 @@ FIT_OPTIONS: tuple[str, ...] = ("bandwidth", "kernel", "degree", "bias_degree", 
 
 #: Design-level sources (names and numbers given to ``seamline.Design``; ``outcome`` is the selected one).
 DESIGN_SOURCES: tuple[str, ...] = ("score", "cutoff", "treated", "outcomes", "outcome", "takeup",
-                                   "covariates", "cluster", "weights")
+                                   "covariates", "cluster", "weights", "score_unit")
 
 
 def column_node(name: str) -> str:
@@ -408,7 +408,7 @@ def board_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: st
     design_columns = [score, *outcomes, *(c for c in (takeup, cluster, weights) if c), *covariates]
     # Columns and names every fit reads: missing values in any of them drop a row.
     row_inputs = [col(score), *(col(c) for c in (takeup, cluster, weights) if c),
-                  "score", "cutoff", "treated", "takeup", "cluster", "weights", "donut"]
+                  "score", "cutoff", "score_unit", "treated", "takeup", "cluster", "weights", "donut"]
     sample = [*row_inputs, col(outcome), "outcome", "adjust"]
     if adjust:
         sample += [*(col(c) for c in covariates), "covariates"]
@@ -426,9 +426,9 @@ def board_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: st
         # Balance: each covariate is an outcome of its own fit, at its own bandwidth from the rule.
         panel_node("balance"): [*row_inputs, *(col(c) for c in covariates), "covariates", *estimator, "level",
                                 "bandwidth"],
-        panel_node("density"): [col(score), "score", "cutoff", "treated", "level"],
+        panel_node("density"): [col(score), "score", "cutoff", "score_unit", "treated", "level"],
         # The score profile counts mass points overall and inside the main fit's window.
-        panel_node("score_profile"): [col(score), "score", "cutoff", "main_fit"],
+        panel_node("score_profile"): [col(score), "score", "cutoff", "score_unit", "main_fit"],
         # The checks summary gathers every diagnostic: it reads everything but the data's identity.
         panel_node("checks"): [*(col(c) for c in design_columns), *DESIGN_SOURCES, "main_fit", "level"],
         # several cutoffs, subgroups (at the headline cutoff), power from the main fit (designs_graph)

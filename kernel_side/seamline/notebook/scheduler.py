@@ -70,7 +70,7 @@ class Inputs:
         s = self.spec
         return dict(score=s["score"], cutoff=s["cutoff"], outcome=list(s["outcome"]), treated=s["treated"],
                     takeup=s["takeup"], covariates=list(s["covariates"]) or None, cluster=s["cluster"],
-                    weights=s["weights"])
+                    weights=s["weights"], score_unit=s.get("score_unit"))
 
 
 @dataclass(frozen=True)

@@ -20,7 +20,7 @@ import pandas as pd
 
 from ..time_score import is_time_value, looks_like_date
 from ..errors import InvalidOptionError, shown
-from ..options import BANDWIDTH_RULES, KERNELS, PILOT_RULES, SIDES, VARIANCES, check_option
+from ..options import BANDWIDTH_RULES, KERNELS, PILOT_RULES, SCORE_UNITS, SIDES, VARIANCES, check_option
 from .inference_keys import INFERENCE_DEFAULTS, coerce_inference
 
 __all__ = ["BOARD_KEYS", "DESIGN_KEYS", "FIT_DEFAULTS", "OPTION_DEFAULTS", "REQUIRED_KEYS", "SPEC_KEYS", "Failure", "NotApplicable",
@@ -28,7 +28,7 @@ __all__ = ["BOARD_KEYS", "DESIGN_KEYS", "FIT_DEFAULTS", "OPTION_DEFAULTS", "REQU
 
 #: Keys of the design declaration (names and numbers given to ``seamline.Design``).
 DESIGN_KEYS: tuple[str, ...] = ("score", "cutoff", "treated", "outcome", "takeup", "covariates",
-                                "cluster", "weights")
+                                "cluster", "weights", "score_unit")
 #: Keys of the board that are neither given to ``seamline.Design`` nor fit options: the subgroup
 #: column, the effect for power and sample size, and the headline cutoff of cumulative cutoffs
 #: (see ``designs_spec``).
@@ -183,8 +183,10 @@ def coerce_value(key: str, value: Any, variable: str | None = None) -> Any:
         return _as_name(key, value, variable, optional=key != "score")
     if key in ("outcome", "covariates"):
         return _as_names(key, value, variable)
-    if key in ("treated", "kernel", "variance"):
-        allowed = {"treated": SIDES, "kernel": KERNELS, "variance": VARIANCES}[key]
+    if key == "score_unit" and value is None:
+        return None       # a date score then counts days; a numeric score has no unit
+    if key in ("treated", "kernel", "variance", "score_unit"):
+        allowed = {"treated": SIDES, "kernel": KERNELS, "variance": VARIANCES, "score_unit": SCORE_UNITS}[key]
         try:
             return check_option(key, value, allowed)
         except InvalidOptionError:
