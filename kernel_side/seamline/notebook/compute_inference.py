@@ -173,16 +173,21 @@ def randomization_sensitivity(result) -> InferenceTable:
                           result.level)
 
 
+# The worst-case bias and the bound M belong to the bias-aware row only; a dash (not a blank cell,
+# which reads as a value not yet computed) marks them elsewhere.
+NOT_APPLICABLE = "—"
+
+
 def interval_comparison(fit, aware) -> InferenceTable:
     """Conventional, robust bias-corrected and bias-aware intervals side by side (one row each)."""
     rows = [
         {"estimator": "conventional", "estimate": fit.estimate, "std_error": fit.std_error,
          "ci_low": fit.conf_int[0], "ci_high": fit.conf_int[1], "bandwidth_below": fit.bandwidth[0],
-         "bandwidth_above": fit.bandwidth[1], "max_bias": float("nan"), "smoothness": float("nan")},
+         "bandwidth_above": fit.bandwidth[1], "max_bias": NOT_APPLICABLE, "smoothness": NOT_APPLICABLE},
         {"estimator": "robust bias-corrected", "estimate": fit.bias_corrected_estimate,
          "std_error": fit.robust_std_error, "ci_low": fit.robust_conf_int[0], "ci_high": fit.robust_conf_int[1],
-         "bandwidth_below": fit.bandwidth[0], "bandwidth_above": fit.bandwidth[1], "max_bias": float("nan"),
-         "smoothness": float("nan")},
+         "bandwidth_below": fit.bandwidth[0], "bandwidth_above": fit.bandwidth[1], "max_bias": NOT_APPLICABLE,
+         "smoothness": NOT_APPLICABLE},
     ]
     lines = [f"Conventional and robust bias-corrected (Calonico, Cattaneo and Titiunik 2014) at the board's "
              f"bandwidth; bias-aware (Armstrong and Kolesar 2018, 2020) at its own bandwidth, valid for any "
