@@ -116,12 +116,18 @@ class RandomizationTest:
         self.statistic = statistic
         self.assignments = assignments
         self.exact = exact
-        if statistic == "difference in means":
+        self._shifted: ShiftedDifference | None = None
+
+    def shifted(self) -> ShiftedDifference:
+        """The difference in means at any tau0 without the assignments (computed on first use, so a
+        test used only for p_value, as a balance check is, never pays for it)."""
+        if self._shifted is None:
             # S_t(tau0) = |D_t(y) - tau0 D_t(T)|, both differences linear in the outcome: precompute
-            self._d_y = self._signed(self.y)
-            self._d_t = self._signed(self.treated.astype(float))
-            self._obs_d_y = self._signed(self.y, self.treated[None, :])[0]
-            self._obs_d_t = self._signed(self.treated.astype(float), self.treated[None, :])[0]
+            t = self.treated.astype(float)
+            self._shifted = ShiftedDifference(self._signed(self.y), self._signed(t),
+                                              self._signed(self.y, self.treated[None, :])[0],
+                                              self._signed(t, self.treated[None, :])[0], self.exact)
+        return self._shifted
 
     def _signed(self, v: np.ndarray, assign: np.ndarray | None = None) -> np.ndarray:
         a = self.assignments if assign is None else assign
@@ -137,9 +143,20 @@ class RandomizationTest:
 
     def p_value_shifted(self, tau0: float) -> float:
         if self.statistic == "difference in means":
-            obs = abs(self._obs_d_y - tau0 * self._obs_d_t)
-            return p_value(obs, np.abs(self._d_y - tau0 * self._d_t), self.exact)
+            return self.shifted().p_value_shifted(tau0)
         return self.p_value(self.y - tau0 * self.treated)
+
+
+class ShiftedDifference:
+    """p(tau0) of the difference in means from four precomputed pieces: small enough (two vectors
+    of one value per assignment) to keep after the assignments are gone."""
+
+    def __init__(self, d_y: np.ndarray, d_t: np.ndarray, obs_d_y: float, obs_d_t: float, exact: bool):
+        self._d_y, self._d_t, self._obs_d_y, self._obs_d_t, self.exact = d_y, d_t, obs_d_y, obs_d_t, exact
+
+    def p_value_shifted(self, tau0: float) -> float:
+        obs = abs(self._obs_d_y - tau0 * self._obs_d_t)
+        return p_value(obs, np.abs(self._d_y - tau0 * self._d_t), self.exact)
 
 
 def invert(p_of: Callable[[float], float], centre: float, scale: float, alpha: float,
