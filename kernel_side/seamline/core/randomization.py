@@ -94,6 +94,18 @@ def statistic_values(statistic: str, assign: np.ndarray, y: np.ndarray) -> np.nd
     return np.concatenate([fn(assign[i: i + CHUNK], y) for i in range(0, len(assign), CHUNK)])
 
 
+def differences_in_means(assign: np.ndarray, columns: list[np.ndarray]) -> list[np.ndarray]:
+    """``statistic_values("difference in means", assign, y)`` for several y on the same units, each
+    block of assignments cast to float once for all of them (the same numbers: the same products)."""
+    columns = [np.asarray(y, dtype=float) for y in columns]
+    blocks: list[list[np.ndarray]] = [[] for _ in columns]
+    for i in range(0, len(assign), CHUNK):
+        a = assign[i: i + CHUNK].astype(float)
+        for out, y in zip(blocks, columns):
+            out.append(_difference_in_means(a, y))
+    return [np.concatenate(b) for b in blocks]
+
+
 def p_value(observed: float, null: np.ndarray, exact: bool) -> float:
     """Share of assignments at least as extreme (exact), or (1 + count) / (R + 1) (Monte Carlo)."""
     count = int(np.sum(null >= observed - TIE_TOLERANCE * abs(observed)))

@@ -17,7 +17,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ..core.randomization import STATISTICS, RandomizationTest, draw_assignments, invert
+from ..core.randomization import (STATISTICS, RandomizationTest, differences_in_means, draw_assignments, invert,
+                                  p_value, statistic_values)
 from ..errors import InvalidOptionError, NoBalancedWindowError, WindowTooSmallError, shown
 from ..options import check_level
 from ..results.inference import LocalRandomization
@@ -114,15 +115,24 @@ def _balance(units: _Units, rows: np.ndarray, permutations: int, seed):
     Balance uses the difference in means whatever the outcome's statistic (convention), so that the
     chosen window depends on the covariates only."""
     statistic = "difference in means"
-    best = (np.nan, None)
+    by_rows: dict[bytes, list] = {}   # covariates present on the same units share one pass over the draws
     for name, z in units.covariates.items():
         ok = rows[~np.isnan(z[rows])]
         below = int(np.sum(~units.above[ok]))
-        if min(below, len(ok) - below) < 1:
-            continue
-        p = _window_test(units, ok, z[ok], statistic, permutations, seed).p_value(z[ok])
-        if not p >= best[0]:   # also replaces nan
-            best = (p, name)
+        if min(below, len(ok) - below) >= 1:
+            by_rows.setdefault(ok.tobytes(), [ok, []])[1].append(name)
+    p_values = {}
+    for ok, names in by_rows.values():
+        treated = units.treated[ok]
+        assign, exact = _assignments(len(ok), int(treated.sum()), permutations, seed)
+        columns = [units.covariates[name][ok] for name in names]
+        for name, z, null in zip(names, columns, differences_in_means(assign, columns)):
+            observed = float(statistic_values(statistic, treated[None, :], z)[0])
+            p_values[name] = p_value(observed, null, exact)
+    best = (np.nan, None)
+    for name in units.covariates:
+        if name in p_values and not p_values[name] >= best[0]:   # also replaces nan
+            best = (p_values[name], name)
     return best
 
 
@@ -178,8 +188,12 @@ def _balance_rows(design, units: _Units, outcome: str, widths: list[float], perm
     window, so it is kept on the design (a board's level change reuses it)."""
     key = ("local randomization balance", outcome, tuple(units.covariates), tuple(widths), permutations, seed)
     found = design._inference.get(key)
-    if found is not None:
-        return found
+    if found is None:
+        found = design._inference[key] = _nested_balance(units, widths, permutations, seed)
+    return found
+
+
+def _nested_balance(units: _Units, widths: list[float], permutations: int, seed) -> list[dict]:
     rows, by_span = [], {}
     for w in widths:
         span = units.span(-w, w)
@@ -190,7 +204,6 @@ def _balance_rows(design, units: _Units, outcome: str, widths: list[float], perm
         p_min, worst = by_span[span]
         rows.append({"half_width": w, "n_below": n_below, "n_above": n_above, "balance_p_value": p_min,
                      "least_balanced": worst})
-    design._inference[key] = rows
     return rows
 
 
