@@ -9,6 +9,10 @@ fresh Design whose default fit has already run (untimed), as on a board:
                          covariates in every nested window, then the sensitivity over windows (the tab)
     weak_iv              Fit.weak_iv_conf_set() on the invented fuzzy scenario
 
+and, as "level", the same two calls at level 0.90 on a design that already answered at 0.95 (a board's
+level change: the balance of the nested windows, each window's outcome test and the moments at the
+searched bandwidths are kept on the design, seamline.estimate.design.INFERENCE_PARTS).
+
 The local randomization node is the expensive one (randomization draws in each of the nested
 windows and each covariate); it runs only when its tab is open or the board is idle. No target is
 set by the issue; the ratios are printed so a change that makes a node costlier shows.
@@ -30,7 +34,7 @@ def fresh(data, kwargs):
 
 
 def main(sizes) -> None:
-    print(f"{'n':>8} {'fit s':>8} {'bias_aware':>11} {'local rand.':>12} {'weak_iv':>8}   (times one default fit)")
+    print(f"{'n':>8} {'fit s':>8} {'bias_aware':>11} {'local rand.':>12} {'weak_iv':>8} {'level: aware':>12} {'level: rand.':>13}   (times one default fit)")
     for n in sizes:
         s = sharp_scenario(n=n, seed=5)
         kwargs = {"score": s.score, "cutoff": s.cutoff, "outcome": s.outcome[0], "treated": s.treated,
@@ -43,11 +47,19 @@ def main(sizes) -> None:
         def randomization():
             fresh(s.data, kwargs).local_randomization(window=2.0, seed=1).sensitivity
 
+        kept = fresh(s.data, kwargs)
+        kept.bias_aware().sensitivity
+        kept.local_randomization(window=2.0, seed=1).sensitivity
+        level_aware = timed(lambda: kept.bias_aware(level=0.9).sensitivity, repeat=1) / fit
+        level_randomization = timed(lambda: kept.local_randomization(window=2.0, seed=1, level=0.9).sensitivity,
+                                    repeat=1) / fit
+
         f = fuzzy_scenario(n=n, seed=5)
         fuzzy_fit = seamline.Design(f.data, **f.design_kwargs()).fit()
         ratios = [timed(aware, repeat=3) / fit, timed(randomization, repeat=1) / fit,
                   timed(lambda: fuzzy_fit.weak_iv_conf_set(), repeat=3) / fit]
-        print(f"{n:>8} {fit:>8.3f} {ratios[0]:>11.1f} {ratios[1]:>12.1f} {ratios[2]:>8.2f}")
+        print(f"{n:>8} {fit:>8.3f} {ratios[0]:>11.1f} {ratios[1]:>12.1f} {ratios[2]:>8.2f} "
+              f"{level_aware:>12.2f} {level_randomization:>13.2f}")
 
 
 if __name__ == "__main__":

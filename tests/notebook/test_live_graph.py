@@ -21,7 +21,7 @@ import seamline
 from seamline.data import DesignData
 from seamline.demo_data import sharp_scenario
 from seamline.estimate import design as design_module
-from seamline.estimate import diagnostics, score_profile
+from seamline.estimate import diagnostics, local_randomization, score_profile
 from seamline.estimate.design import Design
 from seamline.notebook.board import boards
 from seamline.notebook.compute import compute_graph
@@ -35,7 +35,7 @@ TIGHT = dict(rtol=1e-9, atol=1e-12)   # re-reported intervals equal direct ones 
 METHODS = ("fit", "bandwidths", "bins", "sensitivity", "placebo_cutoffs", "donut", "balance", "score_profile",
            "checks", "by_cutoff", "by_group", "bias_aware", "local_randomization")
 FIT_DIAGNOSTICS = {"bins", "sensitivity", "placebo_cutoffs", "donut", "score_profile"}
-PARTS = ("binned means", "score census", "placebo designs")   # see PART_CHANGES
+PARTS = ("binned means", "score census", "placebo designs", "nested balance")   # see PART_CHANGES
 
 
 @pytest.fixture(autouse=True)
@@ -87,6 +87,7 @@ def calls(monkeypatch):
     wrap(diagnostics, "binned_means", "binned means", False)
     wrap(score_profile, "_census", "score census", False)
     wrap(DesignData, "one_side", "placebo designs", False)
+    wrap(local_randomization, "_nested_balance", "nested balance", False)
     return counts
 
 
@@ -176,18 +177,18 @@ def test_each_change_makes_exactly_its_engine_calls(label, scenario, calls):
 # the designs of the 8 placebo cutoffs, with their prepared sides and neighbour residuals). Asserted
 # part by part, so panels added elsewhere do not disturb these rows.
 PART_CHANGES = {
-    "level": {"binned means": 0, "score census": 0, "placebo designs": 0},
-    "bandwidth (manual)": {"binned means": 0, "score census": 0, "placebo designs": 0},
-    "bandwidth (another rule)": {"binned means": 0, "score census": 0, "placebo designs": 0},
-    "kernel": {"binned means": 0, "score census": 0, "placebo designs": 0},
-    "variance": {"binned means": 0, "score census": 0, "placebo designs": 0},
-    "donut": {"binned means": 0, "score census": 0, "placebo designs": 0},
-    # a new outcome: its own binned means and placebo designs; the score is the same
-    "outcome": {"binned means": 1, "score census": 0, "placebo designs": 8},
+    "level": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0},
+    "bandwidth (manual)": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0},
+    "bandwidth (another rule)": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0},
+    "kernel": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0},
+    "variance": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0},
+    "donut": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0},
+    # a new outcome: its own binned means, placebo designs and balance (rows without the outcome drop out)
+    "outcome": {"binned means": 1, "score census": 0, "placebo designs": 8, "nested balance": 1},
     # a new cutoff: a new Design, so everything once
-    "cutoff": {"binned means": 1, "score census": 1, "placebo designs": 8},
-    # an edited covariate rebuilds the Design, but bins, profile and placebo read no covariate
-    "column: covariate": {"binned means": 0, "score census": 0, "placebo designs": 0},
+    "cutoff": {"binned means": 1, "score census": 1, "placebo designs": 8, "nested balance": 1},
+    # an edited covariate rebuilds the Design; bins, profile and placebo read no covariate, balance does
+    "column: covariate": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 1},
 }
 
 

@@ -94,6 +94,18 @@ def statistic_values(statistic: str, assign: np.ndarray, y: np.ndarray) -> np.nd
     return np.concatenate([fn(assign[i: i + CHUNK], y) for i in range(0, len(assign), CHUNK)])
 
 
+def differences_in_means(assign: np.ndarray, columns: list[np.ndarray]) -> list[np.ndarray]:
+    """``statistic_values("difference in means", assign, y)`` for several y on the same units, each
+    block of assignments cast to float once for all of them (the same numbers: the same products)."""
+    columns = [np.asarray(y, dtype=float) for y in columns]
+    blocks: list[list[np.ndarray]] = [[] for _ in columns]
+    for i in range(0, len(assign), CHUNK):
+        a = assign[i: i + CHUNK].astype(float)
+        for out, y in zip(blocks, columns):
+            out.append(_difference_in_means(a, y))
+    return [np.concatenate(b) for b in blocks]
+
+
 def p_value(observed: float, null: np.ndarray, exact: bool) -> float:
     """Share of assignments at least as extreme (exact), or (1 + count) / (R + 1) (Monte Carlo)."""
     count = int(np.sum(null >= observed - TIE_TOLERANCE * abs(observed)))
@@ -116,12 +128,18 @@ class RandomizationTest:
         self.statistic = statistic
         self.assignments = assignments
         self.exact = exact
-        if statistic == "difference in means":
+        self._shifted: ShiftedDifference | None = None
+
+    def shifted(self) -> ShiftedDifference:
+        """The difference in means at any tau0 without the assignments (computed on first use, so a
+        test used only for p_value, as a balance check is, never pays for it)."""
+        if self._shifted is None:
             # S_t(tau0) = |D_t(y) - tau0 D_t(T)|, both differences linear in the outcome: precompute
-            self._d_y = self._signed(self.y)
-            self._d_t = self._signed(self.treated.astype(float))
-            self._obs_d_y = self._signed(self.y, self.treated[None, :])[0]
-            self._obs_d_t = self._signed(self.treated.astype(float), self.treated[None, :])[0]
+            t = self.treated.astype(float)
+            self._shifted = ShiftedDifference(self._signed(self.y), self._signed(t),
+                                              self._signed(self.y, self.treated[None, :])[0],
+                                              self._signed(t, self.treated[None, :])[0], self.exact)
+        return self._shifted
 
     def _signed(self, v: np.ndarray, assign: np.ndarray | None = None) -> np.ndarray:
         a = self.assignments if assign is None else assign
@@ -137,9 +155,20 @@ class RandomizationTest:
 
     def p_value_shifted(self, tau0: float) -> float:
         if self.statistic == "difference in means":
-            obs = abs(self._obs_d_y - tau0 * self._obs_d_t)
-            return p_value(obs, np.abs(self._d_y - tau0 * self._d_t), self.exact)
+            return self.shifted().p_value_shifted(tau0)
         return self.p_value(self.y - tau0 * self.treated)
+
+
+class ShiftedDifference:
+    """p(tau0) of the difference in means from four precomputed pieces: small enough (two vectors
+    of one value per assignment) to keep after the assignments are gone."""
+
+    def __init__(self, d_y: np.ndarray, d_t: np.ndarray, obs_d_y: float, obs_d_t: float, exact: bool):
+        self._d_y, self._d_t, self._obs_d_y, self._obs_d_t, self.exact = d_y, d_t, obs_d_y, obs_d_t, exact
+
+    def p_value_shifted(self, tau0: float) -> float:
+        obs = abs(self._obs_d_y - tau0 * self._obs_d_t)
+        return p_value(obs, np.abs(self._d_y - tau0 * self._d_t), self.exact)
 
 
 def invert(p_of: Callable[[float], float], centre: float, scale: float, alpha: float,

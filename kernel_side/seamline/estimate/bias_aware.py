@@ -22,11 +22,13 @@ from ..data import Prepared
 from ..errors import InvalidOptionError, InvalidSmoothnessError, shown
 from ..options import KERNELS, SMOOTHNESS_CLASSES, check_level, check_option
 from ..results.inference import BiasAwareInterval
+from .design import Bounded
 from .engine import JumpEngine, check_support
 from .options import _int_in, _positive_pair
 
 SMOOTHNESS_MULTIPLES = (0.5, 1.0, 1.5, 2.0, 3.0, 4.0)   # sensitivity rows (convention)
 T_RANGE = (0.2, 1.5)   # optimal max_bias/se lies near 0.5-0.6; far outside signals a range edge
+MOMENTS_KEPT = 1024    # bandwidths whose moments a design keeps per specification (a search uses ~75)
 
 
 @dataclass
@@ -42,11 +44,13 @@ class _Problem:
     """One design, outcome and specification; evaluates the interval at any bandwidth."""
 
     def __init__(self, design, prep: Prepared, n_main: int, kernel: str, degree: int, level: float,
-                 smoothness_class: str):
+                 smoothness_class: str, cache: dict | None = None):
         self.design, self.prep, self.n_main = design, prep, n_main
         self.kernel, self.degree, self.level = kernel, degree, level
         self.side_bias = taylor_max_bias if smoothness_class == "taylor" else holder_max_bias
-        self._cache: dict[tuple, _Moments] = {}
+        # the moments at a bandwidth do not depend on the level or the bound: bias_aware passes the
+        # design's record for this specification, so a level change reuses the searched bandwidths
+        self._cache: dict[tuple, _Moments] = {} if cache is None else cache
 
     def moments(self, h: tuple[float, float], cluster: bool = False) -> _Moments:
         key = (h, cluster)
@@ -154,6 +158,14 @@ def rule_of_thumb(prep: Prepared, column: int) -> float:
     return float(bound)
 
 
+def _kept(design, key: tuple, make):
+    """The design's level-free record under ``key`` (made on first use)."""
+    found = design._inference.get(key)
+    if found is None:
+        found = design._inference[key] = make()
+    return found
+
+
 def bias_aware(design, outcome=None, *, smoothness=None, bandwidth="optimal", kernel="triangular",
                degree=1, level=0.95, smoothness_class="taylor") -> BiasAwareInterval:
     """Bias-aware interval for ``Design.bias_aware`` (see its docstring)."""
@@ -168,12 +180,15 @@ def bias_aware(design, outcome=None, *, smoothness=None, bandwidth="optimal", ke
     variables = (outcome, design.takeup) if fuzzy else (outcome,)
     smoothness = _check_smoothness(smoothness, fuzzy)
     prep = design._data.prepare(variables, 0.0)
-    problem = _Problem(design, prep, len(variables), kernel, degree, level, smoothness_class)
+    problem = _Problem(design, prep, len(variables), kernel, degree, level, smoothness_class,
+                       _kept(design, ("bias-aware moments", variables, kernel, degree, smoothness_class),
+                             lambda: Bounded(MOMENTS_KEPT)))
     warnings: list[str] = []
     rule = "given"
     if smoothness is None:
         rule = "rule of thumb"
-        values = [rule_of_thumb(prep, j) for j in range(len(variables))]
+        values = _kept(design, ("bias-aware rule of thumb", variables),
+                       lambda: tuple(rule_of_thumb(prep, j) for j in range(len(variables))))
         for name, v in zip(variables, values):
             if not np.isfinite(v) or v <= 0:
                 raise InvalidSmoothnessError(

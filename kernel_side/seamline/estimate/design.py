@@ -29,6 +29,7 @@ DEFAULT_PILOT_RULE = "nearer-half"   # pilot (bias) bandwidth rule of unclustere
 FIT_CACHE = 512         # fits kept per design (small records)
 ENGINE_CACHE = 16       # fitted engines kept per design (they may hold window arrays)
 DIAGNOSTIC_CACHE = 64   # diagnostic results kept per design (frozen; each holds a few tables)
+INFERENCE_PARTS = 64    # level-free parts of bias-aware and local randomization results (small records)
 PLACEBO_DESIGNS = 8     # placebo-cutoff designs kept per design: one ladder (each holds a side's preparation)
 
 
@@ -119,6 +120,10 @@ class Design:
         self._fits: Bounded = Bounded(FIT_CACHE)
         self._engines: Bounded = Bounded(ENGINE_CACHE)
         self._diagnostics: Bounded = Bounded(DIAGNOSTIC_CACHE)
+        # What bias_aware and local_randomization compute whatever the level (the moments at each
+        # searched bandwidth, the balance of nested windows, a window's randomization distribution),
+        # so a level change on a board redoes only the level's own arithmetic.
+        self._inference: Bounded = Bounded(INFERENCE_PARTS)
         # Placebo-cutoff designs by (side, cutoff, outcome), with their prepared sides
         # (estimate.diagnostics._placebo_design).
         self._placebos: Bounded = Bounded(PLACEBO_DESIGNS)

@@ -17,7 +17,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ..core.randomization import STATISTICS, RandomizationTest, draw_assignments, invert
+from ..core.randomization import (STATISTICS, RandomizationTest, differences_in_means, draw_assignments, invert,
+                                  p_value, statistic_values)
 from ..errors import InvalidOptionError, NoBalancedWindowError, WindowTooSmallError, shown
 from ..options import check_level
 from ..results.inference import LocalRandomization
@@ -47,7 +48,11 @@ def _check_count(argument: str, value, low: int) -> int:
 
 
 class _Units:
-    """Distances, treatment and columns of the usable rows (score and outcome present)."""
+    """Distances, treatment and columns of the usable rows (score and outcome present).
+
+    A window's units are found by binary search on the sorted distances; they are then taken in row
+    order, the order the assignments' columns refer to. Windows holding the same units (scores
+    rounded to a grid put several nested windows on the same rows) share every computed piece."""
 
     def __init__(self, design, outcome: str):
         data = design._data
@@ -61,18 +66,29 @@ class _Units:
         self.treated = above if design.treated == "above" else ~above
         self.above = above
         self.covariates = {c: data.arrays[c][keep] for c in design.covariates if c != outcome}
+        self._order = np.argsort(self.x, kind="stable")
+        self._sorted = self.x[self._order]
+        self._zero = int(np.searchsorted(self._sorted, 0.0, side="left"))   # first unit above
 
-    def in_window(self, low: float, high: float) -> np.ndarray:
-        """Both ends included, up to rounding (a score of 40.3 minus a cutoff of 40 is 0.29999...)."""
+    def span(self, low: float, high: float) -> tuple[int, int]:
+        """Positions [start, stop) in the sorted distances of the window [low, high]: both ends
+        included, up to rounding (a score of 40.3 minus a cutoff of 40 is 0.29999...)."""
         tol = WINDOW_TOLERANCE * max(abs(self.cutoff), abs(low), abs(high))
-        return (self.x >= low - tol) & (self.x <= high + tol)
+        return (int(np.searchsorted(self._sorted, low - tol, side="left")),
+                int(np.searchsorted(self._sorted, high + tol, side="right")))
 
-    def counts(self, mask: np.ndarray) -> tuple[int, int]:
-        return int(np.sum(mask & ~self.above)), int(np.sum(mask & self.above))
+    def rows(self, span: tuple[int, int]) -> np.ndarray:
+        """The window's units as row positions in row order (the order a boolean mask gives)."""
+        return np.sort(self._order[span[0]: span[1]])
+
+    def counts(self, span: tuple[int, int]) -> tuple[int, int]:
+        start, stop = span
+        below = max(0, min(stop, self._zero) - start)
+        return below, (stop - start) - below
 
     def half_width_for(self, units: int) -> float:
         """Smallest symmetric half-width holding ``units`` units on each side (nan if impossible)."""
-        below, above = np.sort(-self.x[~self.above]), np.sort(self.x[self.above])
+        below, above = -self._sorted[: self._zero][::-1], self._sorted[self._zero:]
         if min(len(below), len(above)) < units:
             return float("nan")
         return float(max(below[units - 1], above[units - 1]))
@@ -86,49 +102,109 @@ def _assignments(n: int, n_treated: int, permutations: int, seed: int) -> tuple[
     return assign, exact
 
 
-def _window_test(units: _Units, mask: np.ndarray, y: np.ndarray, statistic: str, permutations: int,
+def _window_test(units: _Units, rows: np.ndarray, y: np.ndarray, statistic: str, permutations: int,
                  seed: int) -> RandomizationTest:
-    treated = units.treated[mask]
-    assign, exact = _assignments(int(mask.sum()), int(treated.sum()), permutations, seed)
+    treated = units.treated[rows]
+    assign, exact = _assignments(len(rows), int(treated.sum()), permutations, seed)
     return RandomizationTest(y, treated, statistic, assign, exact)
 
 
-def _balance(units: _Units, mask: np.ndarray, permutations: int, seed):
+def _balance(units: _Units, rows: np.ndarray, permutations: int, seed):
     """(minimum p-value over covariates, the covariate that attains it).
 
     Balance uses the difference in means whatever the outcome's statistic (convention), so that the
     chosen window depends on the covariates only."""
     statistic = "difference in means"
-    best = (np.nan, None)
+    by_rows: dict[bytes, list] = {}   # covariates present on the same units share one pass over the draws
     for name, z in units.covariates.items():
-        ok = mask & ~np.isnan(z)
-        if min(units.counts(ok)) < 1:
-            continue
-        p = _window_test(units, ok, z[ok], statistic, permutations, seed).p_value(z[ok])
-        if not p >= best[0]:   # also replaces nan
-            best = (p, name)
+        ok = rows[~np.isnan(z[rows])]
+        below = int(np.sum(~units.above[ok]))
+        if min(below, len(ok) - below) >= 1:
+            by_rows.setdefault(ok.tobytes(), [ok, []])[1].append(name)
+    p_values = {}
+    for ok, names in by_rows.values():
+        treated = units.treated[ok]
+        assign, exact = _assignments(len(ok), int(treated.sum()), permutations, seed)
+        columns = [units.covariates[name][ok] for name in names]
+        for name, z, null in zip(names, columns, differences_in_means(assign, columns)):
+            observed = float(statistic_values(statistic, treated[None, :], z)[0])
+            p_values[name] = p_value(observed, null, exact)
+    best = (np.nan, None)
+    for name in units.covariates:
+        if name in p_values and not p_values[name] >= best[0]:   # also replaces nan
+            best = (p_values[name], name)
     return best
 
 
-def _outcome_row(units: _Units, mask: np.ndarray, statistic: str, permutations: int, seed,
-                 level: float) -> dict:
-    y, treated = units.y[mask], units.treated[mask]
-    test = _window_test(units, mask, y, statistic, permutations, seed)
-    y1, y0 = y[treated], y[~treated]
-    estimate = float(y1.mean() - y0.mean())
-    se = float(np.sqrt(y1.var(ddof=1) / len(y1) + y0.var(ddof=1) / len(y0)))
+class _WindowOutcome:
+    """What the outcome's test in one window gives at every level: the estimate, the Neyman standard
+    error, the p-value, and p(tau0) for the inversion. For the difference in means p(tau0) needs
+    only two vectors, so the record stays small enough to keep on the design."""
+
+    def __init__(self, units: _Units, rows: np.ndarray, statistic: str, permutations: int, seed):
+        y, treated = units.y[rows], units.treated[rows]
+        test = _window_test(units, rows, y, statistic, permutations, seed)
+        y1, y0 = y[treated], y[~treated]
+        self.estimate = float(y1.mean() - y0.mean())
+        self.se = float(np.sqrt(y1.var(ddof=1) / len(y1) + y0.var(ddof=1) / len(y0)))
+        self.statistic_value = test.observed(y)
+        self.p = test.p_value(y)
+        self.exact, self.assignments = test.exact, len(test.assignments)
+        self.statistic = statistic
+        self.p_value_shifted = (test.shifted().p_value_shifted if statistic == "difference in means"
+                                else test.p_value_shifted)
+        self.keep = statistic == "difference in means"   # other statistics hold the assignments
+
+
+def _window_outcome(design, units: _Units, outcome: str, span, statistic: str, permutations: int,
+                    seed) -> _WindowOutcome:
+    key = ("local randomization window", outcome, span, statistic, permutations, seed)
+    found = design._inference.get(key)
+    if found is None:
+        found = _WindowOutcome(units, units.rows(span), statistic, permutations, seed)
+        if found.keep:
+            design._inference[key] = found
+    return found
+
+
+def _outcome_row(part: _WindowOutcome, level: float) -> dict:
+    estimate, se, p = part.estimate, part.se, part.p
     z = stats.norm.ppf(0.5 + level / 2.0)
-    p = test.p_value(y)
     # the difference in means gets each p(tau0) in O(assignments); other statistics recompute, so
     # they get a coarser first grid (the ends are refined by bisection either way)
-    points = 81 if statistic == "difference in means" else 33
-    (low, high), contiguous = invert(test.p_value_shifted, estimate, se if se > 0 else 1.0, 1.0 - level,
+    points = 81 if part.statistic == "difference in means" else 33
+    (low, high), contiguous = invert(part.p_value_shifted, estimate, se if se > 0 else 1.0, 1.0 - level,
                                      points=points, refine=30 if points == 81 else 16)
-    n = len(test.assignments)
-    return {"estimate": estimate, "statistic_value": test.observed(y), "p_value": p,
-            "p_value_std_error": 0.0 if test.exact else float(np.sqrt(p * (1 - p) / n)),
-            "exact": test.exact, "assignments": n, "ci_low": low, "ci_high": high, "contiguous": contiguous,
+    n = part.assignments
+    return {"estimate": estimate, "statistic_value": part.statistic_value, "p_value": p,
+            "p_value_std_error": 0.0 if part.exact else float(np.sqrt(p * (1 - p) / n)),
+            "exact": part.exact, "assignments": n, "ci_low": low, "ci_high": high, "contiguous": contiguous,
             "neyman_std_error": se, "neyman_ci_low": estimate - z * se, "neyman_ci_high": estimate + z * se}
+
+
+def _balance_rows(design, units: _Units, outcome: str, widths: list[float], permutations: int,
+                  seed) -> list[dict]:
+    """The balance of each nested window: it depends on neither the level, the statistic nor a given
+    window, so it is kept on the design (a board's level change reuses it)."""
+    key = ("local randomization balance", outcome, tuple(units.covariates), tuple(widths), permutations, seed)
+    found = design._inference.get(key)
+    if found is None:
+        found = design._inference[key] = _nested_balance(units, widths, permutations, seed)
+    return found
+
+
+def _nested_balance(units: _Units, widths: list[float], permutations: int, seed) -> list[dict]:
+    rows, by_span = [], {}
+    for w in widths:
+        span = units.span(-w, w)
+        n_below, n_above = units.counts(span)
+        if span not in by_span:
+            by_span[span] = (_balance(units, units.rows(span), permutations, seed) if units.covariates
+                             else (np.nan, None))
+        p_min, worst = by_span[span]
+        rows.append({"half_width": w, "n_below": n_below, "n_above": n_above, "balance_p_value": p_min,
+                     "least_balanced": worst})
+    return rows
 
 
 def _sequence(units: _Units, candidates) -> list[float]:
@@ -187,14 +263,7 @@ def local_randomization(design, outcome=None, *, window=None, statistic="differe
         units.covariates = {c: units.covariates[c] for c in names}
     given = _resolve_window(window, design.cutoff)
     widths = _sequence(units, candidates)
-    rows = []
-    for w in widths:
-        mask = units.in_window(-w, w)
-        n_below, n_above = units.counts(mask)
-        p_min, worst = (_balance(units, mask, permutations, seed) if units.covariates
-                        else (np.nan, None))
-        rows.append({"half_width": w, "n_below": n_below, "n_above": n_above, "balance_p_value": p_min,
-                     "least_balanced": worst})
+    rows = _balance_rows(design, units, outcome, widths, permutations, seed)
     windows = pd.DataFrame(rows, columns=["half_width", "n_below", "n_above", "balance_p_value",
                                           "least_balanced"])
     passes = windows["balance_p_value"] >= balance_threshold
@@ -223,15 +292,15 @@ def local_randomization(design, outcome=None, *, window=None, statistic="differe
         rule = "given"
         chosen = int(np.searchsorted(widths, max(-low, high), side="right")) - 1
     windows["chosen"] = np.arange(len(widths)) == chosen if given is None else False
-    mask = units.in_window(low, high)
-    n_below, n_above = units.counts(mask)
+    span = units.span(low, high)
+    n_below, n_above = units.counts(span)
     if min(n_below, n_above) < MIN_UNITS:
         need = units.half_width_for(MIN_UNITS)
         fix = (f"Use a window of half-width at least {need:.4g}" if np.isfinite(need)
                else "There are too few units near the cutoff for this analysis")
         raise WindowTooSmallError(f"`window` must hold at least {MIN_UNITS} units on each side of the cutoff; "
                                   f"got {n_below} below and {n_above} above. {fix}.")
-    main = _outcome_row(units, mask, statistic, permutations, seed, level)
+    main = _outcome_row(_window_outcome(design, units, outcome, span, statistic, permutations, seed), level)
     if not main["contiguous"]:
         warnings.append("The values not rejected by the randomization test are not contiguous; the interval "
                         "reported is their hull.")
@@ -250,11 +319,11 @@ def local_randomization(design, outcome=None, *, window=None, statistic="differe
         out = []
         last = min(len(widths), max(chosen, 0) + 1 + SENSITIVITY_EXTRA)
         for w in widths[:last]:
-            m = units.in_window(-w, w)
+            m = units.span(-w, w)
             counts = units.counts(m)
             if min(counts) < MIN_UNITS:
                 continue
-            r = _outcome_row(units, m, statistic, permutations, seed, level)
+            r = _outcome_row(_window_outcome(design, units, outcome, m, statistic, permutations, seed), level)
             out.append({"half_width": w, "n_below": counts[0], "n_above": counts[1],
                         **{k: r[k] for k in ("estimate", "p_value", "ci_low", "ci_high", "neyman_ci_low",
                                              "neyman_ci_high")}})

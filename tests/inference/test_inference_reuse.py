@@ -1,0 +1,147 @@
+"""The faster paths of local randomization and the bias-aware interval give the same numbers.
+
+Windows are found by binary search on sorted distances (checked against boolean masks over all
+rows, the earlier method), windows on the same units share their tests, and the level-free parts
+are kept on the design: a level change must give exactly what a fresh design gives at that level,
+without recomputing the balance of the nested windows or the moments at the searched bandwidths.
+The data are invented (seeded) and only compared with themselves computed another way.
+"""
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import seamline
+from seamline.demo_data import fuzzy_scenario
+from seamline.core.bias_aware import GRID_POINTS
+from seamline.core.randomization import RandomizationTest, draw_assignments
+from seamline.estimate import bias_aware as aware_module
+from seamline.estimate import local_randomization as lr
+
+WINDOW_TOLERANCE = lr.WINDOW_TOLERANCE
+
+
+def grid_frame(n=3000, seed=3):
+    """Scores on a 0.01 grid (ties at every window end), two covariates, one with gaps."""
+    rng = np.random.default_rng(seed)
+    x = np.round(rng.uniform(-1, 1, n), 2)
+    z1 = rng.normal(size=n) + 0.1 * x
+    z2 = rng.normal(size=n)
+    z2[rng.random(n) < 0.1] = np.nan
+    y = 1 + x + 0.8 * (x >= 0) + rng.normal(scale=0.5, size=n)
+    y[rng.random(n) < 0.05] = np.nan
+    return pd.DataFrame({"x": x, "y": y, "z1": z1, "z2": z2})
+
+
+def design(frame=None, **kw):
+    return seamline.Design(grid_frame() if frame is None else frame, score="x", cutoff=0.0, outcome="y",
+                           covariates=["z1", "z2"], **kw)
+
+
+def mask_window(units, low, high):
+    """The earlier method: a mask over all usable rows."""
+    tol = WINDOW_TOLERANCE * max(abs(units.cutoff), abs(low), abs(high))
+    return (units.x >= low - tol) & (units.x <= high + tol)
+
+
+def test_binary_search_finds_the_rows_a_mask_finds():
+    units = lr._Units(design(), "y")
+    for low, high in [(-0.05, 0.05), (-0.3, 0.3), (-0.07, 0.2), (-2, 2), (-0.001, 0.001), (0.0, 0.3)]:
+        mask = mask_window(units, low, high)
+        span = units.span(low, high)
+        np.testing.assert_array_equal(units.rows(span), np.flatnonzero(mask))
+        assert units.counts(span) == (int(np.sum(mask & ~units.above)), int(np.sum(mask & units.above)))
+    for k in (1, 5, 10):
+        below, above = np.sort(-units.x[~units.above]), np.sort(units.x[units.above])
+        assert units.half_width_for(k) == max(below[k - 1], above[k - 1])
+
+
+def test_balance_table_equals_masks_and_tests_window_by_window():
+    d = design()
+    res = d.local_randomization(window=0.3, seed=11, permutations=999)
+    units = lr._Units(d, "y")
+    for row in res.windows.itertuples():
+        mask = mask_window(units, -row.half_width, row.half_width)
+        best = (np.nan, None)
+        for name in ("z1", "z2"):
+            z = units.covariates[name]
+            ok = mask & ~np.isnan(z)
+            treated = units.treated[ok]
+            assign, exact = draw_assignments(int(ok.sum()), int(treated.sum()), 999, np.random.default_rng(11))
+            p = RandomizationTest(z[ok], treated, "difference in means", assign, exact).p_value(z[ok])
+            if not p >= best[0]:
+                best = (p, name)
+        assert (row.n_below, row.n_above) == (int(np.sum(mask & ~units.above)), int(np.sum(mask & units.above)))
+        assert row.balance_p_value == best[0] and row.least_balanced == best[1]
+
+
+def fields(result):
+    return {f.name: getattr(result, f.name) for f in dataclasses.fields(result)
+            if not callable(getattr(result, f.name))}
+
+
+def assert_same(a, b):
+    fa, fb = fields(a), fields(b)
+    assert fa.keys() == fb.keys()
+    for k in fa:
+        if isinstance(fa[k], pd.DataFrame):
+            pd.testing.assert_frame_equal(fa[k], fb[k], check_exact=True)
+        else:
+            assert repr(fa[k]) == repr(fb[k]), k
+    pd.testing.assert_frame_equal(a.sensitivity, b.sensitivity, check_exact=True)
+
+
+@pytest.mark.parametrize("statistic", ["difference in means", "rank sum"])
+def test_local_randomization_after_a_level_change_equals_a_fresh_design(monkeypatch, statistic):
+    d = design()
+    d.local_randomization(seed=5, permutations=999, statistic=statistic, balance_threshold=0.01).sensitivity
+    calls = []
+    monkeypatch.setattr(lr, "_balance", lambda *a, **k: calls.append(1) or (_ for _ in ()).throw(AssertionError))
+    again = d.local_randomization(seed=5, permutations=999, statistic=statistic, balance_threshold=0.01,
+                                  level=0.9)
+    again.sensitivity
+    assert calls == []     # the balance of the nested windows is kept on the design
+    monkeypatch.undo()
+    fresh = design().local_randomization(seed=5, permutations=999, statistic=statistic, balance_threshold=0.01,
+                                         level=0.9)
+    assert_same(again, fresh)
+
+
+def test_a_different_seed_or_covariate_subset_is_not_served_from_the_kept_balance():
+    d = design()
+    a = d.local_randomization(window=0.2, seed=1, permutations=999)
+    b = d.local_randomization(window=0.2, seed=2, permutations=999)
+    c = d.local_randomization(window=0.2, seed=1, permutations=999, covariates=["z1"])
+    assert not a.windows["balance_p_value"].equals(b.windows["balance_p_value"])
+    assert set(c.windows["least_balanced"]) == {"z1"}
+    assert_same(c, design().local_randomization(window=0.2, seed=1, permutations=999, covariates=["z1"]))
+
+
+@pytest.mark.parametrize("smoothness_class", ["taylor", "holder"])
+def test_bias_aware_after_a_level_change_equals_a_fresh_design(monkeypatch, smoothness_class):
+    d = design()
+    d.bias_aware(smoothness_class=smoothness_class).sensitivity
+    built = []
+    real = aware_module.JumpEngine
+
+    def counting(*a, **k):
+        built.append(1)
+        return real(*a, **k)
+    monkeypatch.setattr(aware_module, "JumpEngine", counting)
+    again = d.bias_aware(smoothness_class=smoothness_class, level=0.9)
+    search = len(built)
+    again.sensitivity
+    monkeypatch.undo()
+    # the log grid is kept; only the bounded refinement between grid points is level-dependent
+    assert search < GRID_POINTS / 2
+    assert_same(again, design().bias_aware(smoothness_class=smoothness_class, level=0.9))
+
+
+def test_fuzzy_bias_aware_after_a_level_change_equals_a_fresh_design():
+    s = fuzzy_scenario(n=4000, seed=2)
+    d = seamline.Design(s.data, **s.design_kwargs())
+    d.bias_aware()
+    assert_same(d.bias_aware(level=0.9), seamline.Design(s.data, **s.design_kwargs()).bias_aware(level=0.9))
