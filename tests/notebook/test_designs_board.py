@@ -303,3 +303,20 @@ def test_export_buttons_only_where_there_is_a_table(farms, districts):
     assert not static.export_available(cumulative, "subgroups") and static.export_available(cumulative, "power")
     column = seamline.board(districts.data, score=districts.score, cutoff=districts.cutoff, outcome="repair_spending")
     assert static.export_available(column, "decomposition")
+
+
+def test_inference_panels_of_a_cumulative_board_read_the_headline_cutoff():
+    """Reference: Design.at(c).bias_aware / local_randomization called directly (the headline cutoff's
+    own design); found in the browser run of the fourth demo, where the whole design was asked."""
+    from seamline.demo_cutoffs import cumulative_grants_scenario
+    s = cumulative_grants_scenario(3000, seed=4)
+    b = seamline.board(s.data, score=s.score, cutoff=list(s.cutoff), outcome="investment",
+                       covariates=["farm_size"], headline_cutoff=60.0, window=3.0, seed=7,
+                       permutations=999).wait()
+    at = seamline.Design(s.data, score=s.score, cutoff=list(s.cutoff), outcome="investment",
+                covariates=["farm_size"]).at(60.0)
+    aware, want = b.results["bias_aware"], at.bias_aware("investment")
+    assert aware.conf_int == pytest.approx(want.conf_int, rel=1e-12)
+    lr = b.results["local_randomization"]
+    direct = at.local_randomization("investment", window=3.0, seed=7, permutations=999)
+    assert lr.estimate == pytest.approx(direct.estimate, rel=1e-12) and lr.p_value == direct.p_value

@@ -63,7 +63,7 @@ def inference_parents(*, rows: list[str], outcome_column: str, covariates: list[
 
 def compute_inference(comp, node: str) -> Any:
     """The engine call of one inference node for the ``Computation`` ``comp``."""
-    design, opts, level = comp.design, comp.options, comp.options["level"]
+    design, opts, level = comp.headline_design(), comp.options, comp.options["level"]
     if node == "bias_aware":
         if opts["derivative"] != 0:
             return NotApplicable("The bias-aware interval covers the jump in the outcome's level; this board "
