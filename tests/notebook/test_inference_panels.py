@@ -370,3 +370,22 @@ def test_randomization_tab_controls_set_the_window_and_statistic(sharp):
     finally:
         view.close()
         board.close()
+
+
+def test_no_balanced_window_is_a_note_of_the_tab_not_a_board_error():
+    """On data where even the smallest window is imbalanced (invented: a covariate that jumps at the
+    cutoff), a board that was given no window shows the rule's finding as the tab's note."""
+    from seamline.notebook.board import board
+    from seamline.notebook.spec import NotApplicable
+    rng = np.random.default_rng(3)
+    x = rng.uniform(-1, 1, 3000)
+    data = pd.DataFrame({"x": x, "y": x + (x >= 0) + rng.normal(0, 1, 3000),
+                         "z": 3.0 * (x >= 0) + rng.normal(0, 0.1, 3000)})
+    b = board(data, score="x", cutoff=0.0, outcome="y", covariates=["z"], permutations=199,
+                       seed=1).wait()
+    result = b.results["local_randomization"]
+    assert isinstance(result, NotApplicable) and "balance" in str(result)
+    b.set_option("window", 0.2)
+    b.wait()
+    assert b.results["local_randomization"].window == pytest.approx((-0.2, 0.2))
+    b.close()

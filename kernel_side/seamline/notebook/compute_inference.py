@@ -34,7 +34,7 @@ from typing import Any, Mapping
 
 import pandas as pd
 
-from ..errors import shown
+from ..errors import NoBalancedWindowError, shown
 from .spec import Failure, NotApplicable
 
 __all__ = ["CAVEAT_SOURCES", "INFERENCE_NODES", "INFERENCE_PANEL_NODES", "InferenceTable", "caveats",
@@ -84,8 +84,15 @@ def compute_inference(comp, node: str) -> Any:
             return NotApplicable("The window is chosen by covariate balance, and no covariates are declared. "
                                  "Give the window yourself, e.g. `window: 2.5` (the cutoff plus or minus 2.5) "
                                  "or `window: 37.5, 42.5`, or declare pre-treatment `covariates:`.")
-        return design.local_randomization(comp.selected, window=opts["window"], statistic=opts["statistic"],
-                                          permutations=opts["permutations"], seed=opts["seed"], level=level)
+        try:
+            return design.local_randomization(comp.selected, window=opts["window"], statistic=opts["statistic"],
+                                              permutations=opts["permutations"], seed=opts["seed"], level=level)
+        except NoBalancedWindowError as exc:
+            if opts["window"] is not None:
+                raise
+            # the analyst asked for nothing here: no balanced window is a finding about the data, shown as
+            # the tab's note with what to do, not as an error of the board
+            return NotApplicable(f"No window passes the covariate-balance rule. {exc}")
     raise AssertionError(f"unknown inference node {shown(node)}")
 
 
