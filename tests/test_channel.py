@@ -160,6 +160,23 @@ def test_export_returns_the_board_text_or_its_error():
     assert reply["error"] == "RuntimeError: balance has no current result"
 
 
+def test_export_names_are_every_board_export_and_the_front_end_knows_them():
+    # The channel writes the list out (it must not import pandas); it must be the board's own list.
+    from seamline.notebook import compute_inference, exports
+    board_names = {*exports.EXPORTS, *compute_inference.EXPORTS, "methods", "script"}
+    assert set(channel.EXPORT_WHATS) == board_names
+    protocol = (Path(__file__).resolve().parents[1] / "extension" / "src" / "protocol.ts").read_text()
+    block = protocol[protocol.index("export type ExportWhat ="):]
+    block = block[:block.index(";")]
+    assert set(re.findall(r"'([a-z_]+)'", block)) == board_names
+
+
+def test_export_passes_an_inference_table_through():
+    ch, _ = make_channel([FakeBoard("a")])
+    reply = ch.handle(request("export", name="a", what="bias_aware_sensitivity", format="csv"))
+    assert reply["success"] is True and reply["text"] == "bias_aware_sensitivity as csv"
+
+
 def test_dataframes_lists_public_frames_and_columns_by_kind():
     odd = "<img src=x onerror=alert(1)>"
     frame = pd.DataFrame({"score": [1.0, 2.0], "group": ["a", "b"], "flag": [True, False],

@@ -18,14 +18,31 @@ export const TARGET_NAME = 'seamline';
 export type Status = 'fresh' | 'stale' | 'recomputing' | 'error';
 export const STATUSES: readonly Status[] = ['fresh', 'stale', 'recomputing', 'error'];
 
+/** Every export a board gives (mirrors EXPORT_WHATS in the kernel's channel.py). */
 export type ExportWhat =
   | 'estimate'
+  | 'first_stage'
+  | 'bandwidths'
   | 'sensitivity'
   | 'balance'
   | 'density'
   | 'placebo'
   | 'donut'
   | 'bins'
+  | 'score_profile'
+  | 'checks'
+  | 'by_cutoff'
+  | 'decomposition'
+  | 'subgroups'
+  | 'power'
+  | 'sample_size'
+  | 'intervals'
+  | 'bias_aware'
+  | 'bias_aware_sensitivity'
+  | 'weak_iv'
+  | 'local_randomization'
+  | 'windows'
+  | 'randomization_sensitivity'
   | 'methods'
   | 'script';
 export type ExportFormat = 'latex' | 'markdown' | 'csv' | 'text' | 'html';

@@ -45,9 +45,17 @@ Status = Literal["fresh", "stale", "recomputing", "error"]
 STATUSES: tuple[str, ...] = ("fresh", "stale", "recomputing", "error")
 REQUEST_TYPES: tuple[str, ...] = ("hello", "list", "subscribe", "unsubscribe", "export",
                                   "dataframes", "paper_add", "paper_tables")
-# "script": the board's replication script (``Board.export("script")``; `format` is "text").
-EXPORT_WHATS: tuple[str, ...] = ("estimate", "sensitivity", "balance", "density", "placebo",
-                                 "donut", "bins", "methods", "script")
+# Every name ``Board.export`` takes (``exports.EXPORTS``, the inference tables of
+# ``compute_inference.EXPORTS``, "methods"), written out because this module must not import pandas;
+# tests/test_channel.py checks the list against those registries. "script": the board's replication
+# script (``Board.export("script")``; `format` is "text").
+EXPORT_WHATS: tuple[str, ...] = (
+    "estimate", "first_stage", "bandwidths", "sensitivity", "balance", "density", "placebo",
+    "donut", "bins", "score_profile", "checks",
+    "by_cutoff", "decomposition", "subgroups", "power", "sample_size",
+    "intervals", "bias_aware", "bias_aware_sensitivity", "weak_iv", "local_randomization",
+    "windows", "randomization_sensitivity",
+    "methods", "script")
 EXPORT_FORMATS: tuple[str, ...] = ("latex", "markdown", "csv", "text", "html")
 # Listing every column of a very wide frame would flood the insert-design form.
 MAX_COLUMNS = 2000
