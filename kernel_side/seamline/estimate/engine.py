@@ -19,9 +19,11 @@ from ..data import Prepared
 from ..errors import CollinearCovariatesError, TooFewClustersError, TooFewDistinctValuesError, shown
 
 FAST_VARIANCES = ("neighbors", "hc0", "hc1")
-# Residual-based (HC) variances expand squared residuals into moments of degree up to 4q + 2k; from a
-# bias degree of 4 the cancellation costs more than the 1e-8 agreement we promise, so those go direct.
-FAST_HC_MAX_BIAS_DEGREE = 3
+# Residual-based (HC) variances expand squared residuals into moments of degree up to 4q + 2k; at a
+# bias degree of 3 the cancellation already reaches 1e-9 relative (the degree-2 slope case of
+# tests/reference/test_robust_first_principles.py: 1.1e-9 for HC0/HC1, 2e-12 direct), so from 3 on
+# they go direct; the default (q = 2) keeps the moment route.
+FAST_HC_MAX_BIAS_DEGREE = 2
 
 
 def use_fast_variance(variance: str, bias_degree: int) -> bool:
