@@ -101,8 +101,11 @@ def density_test(design, method: str = "local-cdf", *, level: float = 0.95, **op
     else:
         data = design._data
         if method == "local-cdf" and data.weights is None and data.cluster_codes is None:
-            # every row with a score, already sorted for the fits: the core need not sort again
-            x = data.arrays[design.score][data.sorted_rows()[0]]
+            # every row with a score, already sorted for the fits: the core need not sort again,
+            # and the design's kept sorted score is read in place (the core copies nothing)
+            rows = data.sorted_rows()[0]
+            own = data._parent is None and rows is data._score_order()
+            x = data._ordered_score() if own else data.arrays[design.score][rows]
         else:
             x = _clean_score(design)
         est = core_density_test(x, design.cutoff, method=method, level=level, **options)
