@@ -6,8 +6,11 @@ global polynomial pilot, or fixed by the user (Calonico, Cattaneo & Titiunik 201
 1753-1769). The binned means themselves are in ``seamline.core.binning``.
 
 Everything here works on the observations in ascending score order (``SortedSample``): both
-sides' scores, outcomes and weights gathered once along one sort, which a design hands over from
-its own (``order``), so nothing is sorted twice. Sides: "below" is X < c, "above" is X >= c.
+sides' scores, and their outcomes and weights along one sort, which a design hands over from its
+own (``order``, with its kept sorted score), so nothing is sorted twice. The outcomes and weights
+are not gathered whole: a ``Gathered`` reads ``source[positions]`` one run of rows at a time, and
+every pass here (pilot, residuals, bin sums) works run by run, so the working memory is a few
+chunks of CHUNK rows beside the caller's arrays (the same sums in the same order, bit for bit). Sides: "below" is X < c, "above" is X >= c.
 Results are frozen dataclasses of numbers; nothing is printed here.
 """
 from __future__ import annotations
@@ -141,14 +144,49 @@ def mimic_variance_bins(average_variance: float, bin_variance: float, n: float) 
 # ---------------------------------------------------------------------------------------------
 # Observations in score order
 # ---------------------------------------------------------------------------------------------
+class Gathered:
+    """``source[positions]``, read one run at a time: ``rows(lo, hi)`` gathers rows [lo, hi) only.
+
+    Slicing with a step-1 slice gives a lazy ``Gathered`` of those rows; ``np.asarray`` gathers all.
+    """
+
+    def __init__(self, source: np.ndarray, positions: np.ndarray):
+        self.source = source
+        self.positions = positions
+
+    @property
+    def size(self) -> int:
+        return self.positions.size
+
+    def __len__(self) -> int:
+        return self.positions.size
+
+    def rows(self, lo: int, hi: int) -> np.ndarray:
+        return self.source[self.positions[lo:hi]]
+
+    def __getitem__(self, key):
+        if isinstance(key, slice) and key.step in (None, 1):
+            return Gathered(self.source, self.positions[key])
+        return self.source[self.positions[key]]
+
+    def __array__(self, dtype=None, copy=None):
+        out = self.source[self.positions]
+        return out if dtype is None else out.astype(dtype)
+
+
+def take(values, lo: int, hi: int) -> np.ndarray:
+    """Rows [lo, hi) of an array (a view) or of a ``Gathered`` (gathered)."""
+    return values.rows(lo, hi) if isinstance(values, Gathered) else values[lo:hi]
+
+
 @dataclass(frozen=True, eq=False)
 class SortedSample:
     """Validated observations in ascending score order, split at the cutoff.
 
     Attributes
     ----------
-    x, y : scores and outcomes in ascending score order.
-    w : weights in that order, or None.
+    x, y : scores and outcomes in ascending score order (``y`` a ``Gathered``: read by runs).
+    w : weights in that order (a ``Gathered``), or None.
     positions : input position of each sorted observation (ties in any order unless ``stable``).
     split : number of observations below the cutoff (they come first).
     source_y : the outcomes in input order (``positions`` index it).
@@ -156,8 +194,8 @@ class SortedSample:
     """
 
     x: np.ndarray
-    y: np.ndarray
-    w: np.ndarray | None
+    y: Gathered
+    w: Gathered | None
     positions: np.ndarray
     split: int
     source_y: np.ndarray
@@ -191,7 +229,7 @@ def sorted_sample(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: fl
         raise InvalidOptionError(
             f"`sorted_score` must hold the {x.size} scores in `order`; got shape {xs.shape}. Pass "
             "score[order], or leave it unset.")
-    if xs.size > 1 and not np.all(xs[1:] >= xs[:-1]):
+    if not is_ascending(xs):
         raise InvalidOptionError(
             "`order` must sort `score` ascending; it does not. Pass np.argsort(score), or leave "
             "`order` unset.")
@@ -201,7 +239,21 @@ def sorted_sample(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: fl
         raise OneSidedDataError(
             f"`score` must have observations on both sides of the cutoff; got none {empty} {cutoff:g}. "
             "Check the cutoff value or the sample filter.")
-    return SortedSample(xs, y[order], None if w is None else w[order], order, split, y, stable)
+    return SortedSample(xs, Gathered(y, order), None if w is None else Gathered(w, order), order, split,
+                        y, stable)
+
+
+def is_ascending(xs: np.ndarray) -> bool:
+    """xs[1:] >= xs[:-1] everywhere, chunk by chunk (one row of overlap)."""
+    return all(bool(np.all(z[1:] >= z[:-1])) for z in (xs[s:s + CHUNK + 1] for s in range(0, xs.size - 1, CHUNK)))
+
+
+def n_runs(xs: np.ndarray) -> int:
+    """Number of runs of equal values in a sorted array, chunk by chunk."""
+    if xs.size == 0:
+        return 0
+    return 1 + sum(int(np.count_nonzero(z[1:] != z[:-1]))
+                   for z in (xs[s:s + CHUNK + 1] for s in range(0, xs.size - 1, CHUNK)))
 
 
 def run_starts(xs: np.ndarray) -> np.ndarray:
@@ -277,9 +329,10 @@ def sorted_constants(xs: np.ndarray, ys: np.ndarray, ws: np.ndarray | None, posi
     far = float(xs[0]) if side == "below" else float(xs[-1])
     span = abs(far - cutoff)
     support = (far, cutoff) if side == "below" else (cutoff, far)
-    starts = run_starts(xs)
-    ties = len(starts) < n
-    deg = max(0, min(degree, len(starts) - 1, n - 2))
+    runs = n_runs(xs)
+    ties = runs < n
+    starts = run_starts(xs) if ties else None        # every row is its own run otherwise
+    deg = max(0, min(degree, runs - 1, n - 2))
     if span == 0.0:
         deg = 0
     to_t = (cutoff, 2.0 / (span if span > 0 else 1.0), 1.0 if side == "below" else -1.0)
@@ -321,15 +374,15 @@ def _pilot_power(x, y, w, to_t: tuple[float, float, float], deg: int) -> np.ndar
     gram = np.zeros((deg + 1, deg + 1))
     rhs = np.zeros(deg + 1)
     for rows, basis in _legendre_chunks(x, to_t, deg):
-        weighted = basis if w is None else basis * w[rows]
+        weighted = basis if w is None else basis * take(w, rows.start, rows.stop)
         gram += weighted @ basis.T
-        rhs += weighted @ y[rows]
+        rhs += weighted @ take(y, rows.start, rows.stop)
     try:
         coef = np.linalg.solve(gram, rhs)
     except np.linalg.LinAlgError:      # e.g. zero weights leaving too few distinct scores
         full = np.concatenate([b.copy() for _, b in _legendre_chunks(x, to_t, deg)], axis=1)
-        sw = np.ones(x.size) if w is None else np.sqrt(w)
-        coef = np.linalg.lstsq((full * sw).T, y * sw, rcond=None)[0]
+        sw = np.ones(x.size) if w is None else np.sqrt(np.asarray(w))
+        coef = np.linalg.lstsq((full * sw).T, np.asarray(y) * sw, rcond=None)[0]
     return np.polynomial.legendre.leg2poly(coef)
 
 
@@ -348,7 +401,7 @@ def _residual_sums(xs, ys, power: np.ndarray, to_t: tuple[float, float, float],
         a, b = rows.start, rows.stop
         s2, g2 = buffers[0, :b - a], buffers[1, :b - a]
         _horner(power, t, s2)
-        np.subtract(ys[rows], s2, out=s2)
+        np.subtract(take(ys, a, b), s2, out=s2)
         np.square(s2, out=s2)
         out["sigma2"] += float(np.sum(s2))
         if trapezoid:
@@ -440,7 +493,7 @@ def check_arrays(score, outcome, weights):
         raise InvalidOptionError(
             f"`outcome` must be a one-dimensional array as long as `score`; got shapes {y.shape} "
             f"and {x.shape}. Pass one value per observation.")
-    if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))):
+    if not (_finite(x) and _finite(y)):
         raise InvalidOptionError(
             "`score` and `outcome` must hold only finite values; got NaN or infinity. "
             "Drop or fill the missing rows before binning.")
@@ -456,6 +509,10 @@ def check_arrays(score, outcome, weights):
         raise InvalidWeightsError(
             f"`weights` must be finite and non-negative; got {shown(float(bad))}. Fix or drop those rows.")
     return x, y, w
+
+
+def _finite(v: np.ndarray) -> bool:
+    return all(bool(np.isfinite(v[s:s + CHUNK]).all()) for s in range(0, v.size, CHUNK))
 
 
 def check_number_pair(number, counts: tuple[int, int]) -> tuple[int, int] | None:
@@ -537,6 +594,12 @@ def selection(sample: SortedSample, cutoff: float, method: str, rule: str, scale
     """select_bin_number on a sorted sample and validated options."""
     fixed = check_number_pair(number, sample.counts)
     consts = [sorted_constants(*sample.side(i), sample.source_y, cutoff, s) for i, s in enumerate(SIDES)]
+    return choose(consts, method, rule, scale, fixed)
+
+
+def choose(consts: list[BinConstants], method: str, rule: str, scale: float,
+           fixed: tuple[int, int] | None) -> BinSelection:
+    """The numbers of bins from both sides' constants (or the numbers fixed by hand)."""
     imse, mimic, chosen = [], [], []
     for k in consts:
         j_imse, j_mv = _rule_numbers(k, method)

@@ -441,13 +441,16 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
     outcome = design._outcome(outcome)
     data = design._data
     x, y = data.arrays[design.score], data.arrays[outcome]
-    ok = ~np.isnan(x) & ~np.isnan(y)
     w = data.weights
-    if w is not None:
-        ok &= ~np.isnan(w) & (w > 0)
-    level = fit_options.get("level", 0.95)
-    if ok.all():
+    if w is None and not (_has_nan(x) or _has_nan(y)):
         ok = slice(None)        # views, not copies (read only: the user's data is never modified)
+    else:
+        ok = ~np.isnan(x) & ~np.isnan(y)
+        if w is not None:
+            ok &= ~np.isnan(w) & (w > 0)
+        if ok.all():
+            ok = slice(None)
+    level = fit_options.get("level", 0.95)
     # The binned means read the score, the outcome and the bin options only: kept on the design, so
     # bins at another bandwidth (a board's slider) redraw the fitted curves and nothing else.
     key = ("binned_means", outcome, method, _frozen_value(number), rule, float(scale), float(level))
@@ -480,6 +483,11 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
     return Bins(outcome=outcome, score=design.score, cutoff=design.cutoff, method=method, rule=binned.rule,
                 number=number_used, level=level, binned=binned, curve_frame=curve, global_frame=global_frame,
                 fit=fit, warnings=fit.warnings)
+
+
+def _has_nan(v: np.ndarray, chunk: int = 1 << 16) -> bool:
+    """Any NaN, chunk by chunk (no n-long mask)."""
+    return any(bool(np.isnan(v[s:s + chunk]).any()) for s in range(0, v.size, chunk))
 
 
 def _sorted_positions(data, ok) -> np.ndarray | None:
