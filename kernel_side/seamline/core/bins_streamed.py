@@ -172,7 +172,10 @@ def _residual_chunk(sides):
             s2 = np.square(y[keep] - s.pilot_at(xs_))
             out[f"{s.side}.sigma2"] = np.array([np.sum(s2)])
             if not s.ties:
-                out[f"{s.side}.trapezoid"] = np.array([np.sum(s2 * s.trapezoid_weight(xs_))])
+                # the chunk's scores sorted first: searching ascending keys walks the sorted side
+                # once instead of jumping about it (several times faster on a large side)
+                order = np.argsort(xs_)
+                out[f"{s.side}.trapezoid"] = np.array([np.sum(s2[order] * s.trapezoid_weight(xs_[order]))])
                 continue
             run = np.searchsorted(s.run_values, xs_, side="left")
             pos = positions[keep]
