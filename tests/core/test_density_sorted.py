@@ -133,3 +133,16 @@ def test_a_design_passes_its_kept_sorted_score_without_a_copy(monkeypatch):
     test = design.density_test()
     assert seen[0] is design._data._ordered_score()
     assert test.statistic == density_test(x, 0.0).statistic
+    # binned: the kept sorted score too, with the default bin width of the score in input order
+    binned = design.density_test("binned")
+    assert seen[1] is design._data._ordered_score()
+    want = density_test(x, 0.0, method="binned")
+    assert (binned.estimate.statistic, binned.estimate.bin_width) == (want.statistic, want.bin_width)
+    assert np.array_equal(binned.estimate.histogram.count, want.histogram.count)
+
+
+@pytest.mark.parametrize("n", [7, 130, CHUNK * 3 + 11])
+def test_array_std_equals_numpy(n):
+    from seamline.core.density_sample import array_std
+    x = np.random.default_rng(n).lognormal(size=n)
+    assert array_std(x) == float(np.std(x, ddof=1))   # Reference: numpy.std(ddof=1)

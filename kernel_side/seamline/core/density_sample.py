@@ -28,7 +28,6 @@ from .density_results import DensityGrid, DensityHistogram, frozen
 
 SIDES = ("below", "above")
 CHUNK = 1 << 16          # rows per pass over the sorted scores (a few hundred kB of temporaries)
-_PAIRWISE_BLOCK = 128    # numpy's pairwise summation block (PW_BLOCKSIZE)
 
 
 class SortedScores:
@@ -145,30 +144,9 @@ class SortedScores:
         return count
 
     # ---- summaries of the whole sample ------------------------------------------------------------
-    def _pairwise(self, piece) -> float:
-        """sum of piece(start, stop) over the whole sample, in numpy's pairwise summation tree
-        (np.add.reduce of one contiguous array splits n into n2 = n // 2 rounded down to a multiple
-        of 8 and the rest, down to blocks of 128), so the sum equals np.sum of the whole array."""
-        def tree(lo: int, hi: int) -> float:
-            m = hi - lo
-            if m <= CHUNK:
-                return np.add.reduce(piece(lo, hi))
-            n2 = m // 2
-            n2 -= n2 % 8
-            return tree(lo, lo + n2) + tree(lo + n2, hi)
-        return tree(0, self.n)
-
     def std(self) -> float:
         """np.std(scores, ddof=1) of the whole sample, chunk by chunk (the same number)."""
-        n = self.n
-        if n < 2:
-            return 0.0
-        mean = np.true_divide(self._pairwise(self.rows), n)
-
-        def squares(lo, hi):
-            d = np.subtract(self.rows(lo, hi), mean)
-            return np.square(d, out=d)
-        return float(np.sqrt(np.true_divide(self._pairwise(squares), n - 1)))
+        return pairwise_std(self.n, self.rows)
 
     def percentile(self, q) -> np.ndarray:
         """np.percentile(scores, q) ("linear" method) of the whole sample, from its sorted rows."""
@@ -186,6 +164,39 @@ class SortedScores:
             diff = b - a
             out[k] = b - diff * (1 - t) if t >= 0.5 else a + diff * t
         return out
+
+
+def pairwise_sum(n: int, piece) -> float:
+    """sum of ``piece(lo, hi)`` over rows [0, n) in numpy's pairwise summation tree: np.add.reduce
+    of one contiguous float64 array splits its n values into n2 = n // 2 rounded down to a
+    multiple of 8 and the rest, down to blocks of 128, so this equals np.sum of the whole array
+    while reading CHUNK rows at a time."""
+    def tree(lo: int, hi: int) -> float:
+        m = hi - lo
+        if m <= CHUNK:
+            return np.add.reduce(piece(lo, hi))
+        n2 = m // 2
+        n2 -= n2 % 8
+        return tree(lo, lo + n2) + tree(lo + n2, hi)
+    return tree(0, n)
+
+
+def pairwise_std(n: int, rows) -> float:
+    """np.std(values, ddof=1) of the n values ``rows(lo, hi)`` gives, chunk by chunk (the same
+    number: numpy's mean, deviations, squares and sums, in its summation tree)."""
+    if n < 2:
+        return 0.0
+    mean = np.true_divide(pairwise_sum(n, rows), n)
+
+    def squares(lo, hi):
+        d = np.subtract(rows(lo, hi), mean)
+        return np.square(d, out=d)
+    return float(np.sqrt(np.true_divide(pairwise_sum(n, squares), n - 1)))
+
+
+def array_std(x: np.ndarray) -> float:
+    """np.std(x, ddof=1) of a 1-D array, without its n-long temporary."""
+    return pairwise_std(x.size, lambda lo, hi: x[lo:hi])
 
 
 # ---------------------------------------------------------------------------------------------
