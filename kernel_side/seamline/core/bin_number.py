@@ -5,9 +5,9 @@ mimicking-variance rule (METHODS 9.3), each estimated with spacings of the sorte
 global polynomial pilot, or fixed by the user (Calonico, Cattaneo & Titiunik 2015, JASA 110(512):
 1753-1769). The binned means themselves are in ``seamline.core.binning``.
 
-Everything here works on the observations in ascending score order (``SortedSample``): both
-sides' scores, outcomes and weights gathered once along one sort, which a design hands over from
-its own (``order``), so nothing is sorted twice. Sides: "below" is X < c, "above" is X >= c.
+Everything here works on the observations in ascending score order (``sorted_sample.SortedSample``:
+both sides' scores, and their outcomes and weights read run by run along one sort, which a design
+hands over from its own), so nothing is sorted twice and nothing of length n is gathered. Sides: "below" is X < c, "above" is X >= c.
 Results are frozen dataclasses of numbers; nothing is printed here.
 """
 from __future__ import annotations
@@ -19,6 +19,16 @@ import numpy as np
 
 from ..errors import InvalidOptionError, InvalidWeightsError, OneSidedDataError, shown
 from ..options import BIN_METHODS, BIN_RULES, check_option
+from .sorted_sample import (  # noqa: F401  (importable from here, as before)
+    CHUNK,
+    Gathered,
+    SortedSample,
+    is_ascending,
+    n_runs,
+    run_starts,
+    sorted_sample,
+    take,
+)
 
 __all__ = [
     "BinConstants",
@@ -34,7 +44,6 @@ __all__ = [
 
 SIDES = ("below", "above")
 PILOT_DEGREE = 4  # global polynomial pilot order; "order 4 is customary" (METHODS 9.2, from memory)
-CHUNK = 1 << 15   # rows per pass of the pilot: small enough to stay in cache
 
 
 # ---------------------------------------------------------------------------------------------
@@ -139,77 +148,6 @@ def mimic_variance_bins(average_variance: float, bin_variance: float, n: float) 
 
 
 # ---------------------------------------------------------------------------------------------
-# Observations in score order
-# ---------------------------------------------------------------------------------------------
-@dataclass(frozen=True, eq=False)
-class SortedSample:
-    """Validated observations in ascending score order, split at the cutoff.
-
-    Attributes
-    ----------
-    x, y : scores and outcomes in ascending score order.
-    w : weights in that order, or None.
-    positions : input position of each sorted observation (ties in any order unless ``stable``).
-    split : number of observations below the cutoff (they come first).
-    source_y : the outcomes in input order (``positions`` index it).
-    stable : whether tied scores keep their input order (a stable sort).
-    """
-
-    x: np.ndarray
-    y: np.ndarray
-    w: np.ndarray | None
-    positions: np.ndarray
-    split: int
-    source_y: np.ndarray
-    stable: bool
-
-    def side(self, index: int) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray]:
-        """(x, y, w, positions) of side 0 (below) or 1 (above), as views."""
-        part = slice(0, self.split) if index == 0 else slice(self.split, None)
-        return self.x[part], self.y[part], None if self.w is None else self.w[part], self.positions[part]
-
-    @property
-    def counts(self) -> tuple[int, int]:
-        return self.split, self.x.size - self.split
-
-
-def sorted_sample(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, cutoff: float,
-                  order: np.ndarray | None = None, sorted_x: np.ndarray | None = None) -> SortedSample:
-    """Gather validated arrays along ``order`` (positions sorting ``x``; a stable sort if None).
-    ``sorted_x``: ``x[order]`` if the caller keeps it (read, never written), not gathered again."""
-    stable = order is None
-    if stable:
-        order = np.argsort(x, kind="stable")
-    else:
-        order = np.asarray(order)
-        if order.shape != x.shape or order.dtype.kind not in "iu":
-            raise InvalidOptionError(
-                f"`order` must hold one integer position per observation; got shape {order.shape} "
-                f"for {x.size} observations. Pass np.argsort(score), or leave `order` unset.")
-    xs = x[order] if sorted_x is None or order is None else np.asarray(sorted_x, dtype=float)
-    if xs.shape != x.shape:
-        raise InvalidOptionError(
-            f"`sorted_score` must hold the {x.size} scores in `order`; got shape {xs.shape}. Pass "
-            "score[order], or leave it unset.")
-    if xs.size > 1 and not np.all(xs[1:] >= xs[:-1]):
-        raise InvalidOptionError(
-            "`order` must sort `score` ascending; it does not. Pass np.argsort(score), or leave "
-            "`order` unset.")
-    split = int(np.searchsorted(xs, cutoff, side="left"))
-    if split == 0 or split == x.size:
-        empty = "below" if split == 0 else "above"
-        raise OneSidedDataError(
-            f"`score` must have observations on both sides of the cutoff; got none {empty} {cutoff:g}. "
-            "Check the cutoff value or the sample filter.")
-    return SortedSample(xs, y[order], None if w is None else w[order], order, split, y, stable)
-
-
-def run_starts(xs: np.ndarray) -> np.ndarray:
-    """First position of each run of equal values in a sorted array."""
-    return np.flatnonzero(np.r_[True, xs[1:] != xs[:-1]])
-
-
-# ---------------------------------------------------------------------------------------------
 # Spacings estimates of the constants
 # ---------------------------------------------------------------------------------------------
 def bin_constants(score, outcome, cutoff: float, side: str, *, weights=None,
@@ -277,9 +215,10 @@ def sorted_constants(xs: np.ndarray, ys: np.ndarray, ws: np.ndarray | None, posi
     far = float(xs[0]) if side == "below" else float(xs[-1])
     span = abs(far - cutoff)
     support = (far, cutoff) if side == "below" else (cutoff, far)
-    starts = run_starts(xs)
-    ties = len(starts) < n
-    deg = max(0, min(degree, len(starts) - 1, n - 2))
+    runs = n_runs(xs)
+    ties = runs < n
+    starts = run_starts(xs) if ties else None        # every row is its own run otherwise
+    deg = max(0, min(degree, runs - 1, n - 2))
     if span == 0.0:
         deg = 0
     to_t = (cutoff, 2.0 / (span if span > 0 else 1.0), 1.0 if side == "below" else -1.0)
@@ -321,15 +260,15 @@ def _pilot_power(x, y, w, to_t: tuple[float, float, float], deg: int) -> np.ndar
     gram = np.zeros((deg + 1, deg + 1))
     rhs = np.zeros(deg + 1)
     for rows, basis in _legendre_chunks(x, to_t, deg):
-        weighted = basis if w is None else basis * w[rows]
+        weighted = basis if w is None else basis * take(w, rows.start, rows.stop)
         gram += weighted @ basis.T
-        rhs += weighted @ y[rows]
+        rhs += weighted @ take(y, rows.start, rows.stop)
     try:
         coef = np.linalg.solve(gram, rhs)
     except np.linalg.LinAlgError:      # e.g. zero weights leaving too few distinct scores
         full = np.concatenate([b.copy() for _, b in _legendre_chunks(x, to_t, deg)], axis=1)
-        sw = np.ones(x.size) if w is None else np.sqrt(w)
-        coef = np.linalg.lstsq((full * sw).T, y * sw, rcond=None)[0]
+        sw = np.ones(x.size) if w is None else np.sqrt(np.asarray(w))
+        coef = np.linalg.lstsq((full * sw).T, np.asarray(y) * sw, rcond=None)[0]
     return np.polynomial.legendre.leg2poly(coef)
 
 
@@ -348,7 +287,7 @@ def _residual_sums(xs, ys, power: np.ndarray, to_t: tuple[float, float, float],
         a, b = rows.start, rows.stop
         s2, g2 = buffers[0, :b - a], buffers[1, :b - a]
         _horner(power, t, s2)
-        np.subtract(ys[rows], s2, out=s2)
+        np.subtract(take(ys, a, b), s2, out=s2)
         np.square(s2, out=s2)
         out["sigma2"] += float(np.sum(s2))
         if trapezoid:
@@ -440,7 +379,7 @@ def check_arrays(score, outcome, weights):
         raise InvalidOptionError(
             f"`outcome` must be a one-dimensional array as long as `score`; got shapes {y.shape} "
             f"and {x.shape}. Pass one value per observation.")
-    if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))):
+    if not (_finite(x) and _finite(y)):
         raise InvalidOptionError(
             "`score` and `outcome` must hold only finite values; got NaN or infinity. "
             "Drop or fill the missing rows before binning.")
@@ -456,6 +395,10 @@ def check_arrays(score, outcome, weights):
         raise InvalidWeightsError(
             f"`weights` must be finite and non-negative; got {shown(float(bad))}. Fix or drop those rows.")
     return x, y, w
+
+
+def _finite(v: np.ndarray) -> bool:
+    return all(bool(np.isfinite(v[s:s + CHUNK]).all()) for s in range(0, v.size, CHUNK))
 
 
 def check_number_pair(number, counts: tuple[int, int]) -> tuple[int, int] | None:
@@ -537,6 +480,12 @@ def selection(sample: SortedSample, cutoff: float, method: str, rule: str, scale
     """select_bin_number on a sorted sample and validated options."""
     fixed = check_number_pair(number, sample.counts)
     consts = [sorted_constants(*sample.side(i), sample.source_y, cutoff, s) for i, s in enumerate(SIDES)]
+    return choose(consts, method, rule, scale, fixed)
+
+
+def choose(consts: list[BinConstants], method: str, rule: str, scale: float,
+           fixed: tuple[int, int] | None) -> BinSelection:
+    """The numbers of bins from both sides' constants (or the numbers fixed by hand)."""
     imse, mimic, chosen = [], [], []
     for k in consts:
         j_imse, j_mv = _rule_numbers(k, method)

@@ -20,10 +20,11 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats
 
+from ..errors import InvalidOptionError
 from ..options import BIN_METHODS, BIN_RULES, check_level, check_option
-from .bin_number import (SIDES, BinConstants, BinSelection, bin_constants, check_arrays, check_scale,
-                         imse_bins, imse_number, mimic_variance_bins, run_starts, select_bin_number,
-                         selection, sorted_sample)
+from .bin_number import (CHUNK, SIDES, BinConstants, BinSelection, bin_constants, check_arrays,
+                         check_scale, imse_bins, imse_number, mimic_variance_bins, n_runs,
+                         select_bin_number, selection, sorted_sample, take)
 from .bin_number import _side_constants  # noqa: F401  (kept importable from here for the tests)
 
 __all__ = [
@@ -92,11 +93,16 @@ class BinnedMeans:
     level: float
     cutoff: float
     selection: BinSelection
-    positions: np.ndarray = field(repr=False)   # input positions, bin by bin (rows' runs in order)
+    positions: np.ndarray | None = field(repr=False)   # input positions, bin by bin (None: streamed)
 
     @property
     def assignment(self) -> np.ndarray:
         cached = self.__dict__.get("_assignment")
+        if cached is None and self.positions is None:
+            raise InvalidOptionError(
+                "`assignment` must come from bins computed on the rows themselves; got bins from "
+                "streamed sums (binned_means_streamed), which never see the rows' input positions. "
+                "Assign rows with np.searchsorted of the bin edges, or use binned_means.")
         if cached is None:
             cached = np.empty(self.positions.size, dtype=np.int64)
             cached[self.positions] = np.repeat(np.arange(self.count.size), self.count)
@@ -143,59 +149,68 @@ def _side_bins(x: np.ndarray, cutoff: float, side: str, method: str, j: int,
     return idx, edges
 
 
-def _run_sums(values: np.ndarray, starts: np.ndarray, nonempty: np.ndarray, j: int) -> np.ndarray:
-    """Sums of ``values`` over the bins' runs (0 for empty bins)."""
-    out = np.zeros(j)
-    if starts.size:
-        out[nonempty] = np.add.reduceat(values, starts)
-    return out
-
-
-def _squared_deviations(ys, mean, bounds: np.ndarray, ws=None) -> np.ndarray:
-    """sum (w (y - bin mean))^2 over each bin's run of sorted rows.
-
-    Bin by bin on slices when there are few bins (np.repeat of the means over millions of rows
-    costs more than the sums); with many small bins, one repeat and one reduceat."""
+def _groups(bounds: np.ndarray):
+    """(first, last, lo, hi): runs of whole bins first..last-1 covering sorted rows [lo, hi), about
+    CHUNK rows each (at least one bin), so a bin's rows are always read together."""
     j = bounds.size - 1
-    count = np.diff(bounds)
-    if j > 2000:
-        dev = np.repeat(mean, count)
-        np.subtract(ys, dev, out=dev)
-        if ws is not None:
-            dev *= ws
-        np.square(dev, out=dev)
-        nonempty = count > 0
-        return _run_sums(dev, bounds[:-1][nonempty], nonempty, j)
-    out = np.zeros(j)
-    for k in np.flatnonzero(count):
-        dev = ys[bounds[k]:bounds[k + 1]] - mean[k]
-        if ws is not None:
-            dev *= ws[bounds[k]:bounds[k + 1]]
-        out[k] = np.sum(np.square(dev, out=dev))
-    return out
+    k = 0
+    while k < j:
+        last = min(j, max(k + 1, int(np.searchsorted(bounds, bounds[k] + CHUNK, side="right")) - 1))
+        yield k, last, int(bounds[k]), int(bounds[last])
+        k = last
 
 
 def _side_means(xs, ys, ws, bounds: np.ndarray) -> tuple[np.ndarray, ...]:
-    """count, weight sum, mean, score mean and standard error of each bin of one sorted side."""
+    """count, weight sum, mean, score mean and standard error of each bin of one sorted side.
+
+    One pass over groups of whole bins (``_groups``): the outcome (and weights) of a group are
+    read once; its sums are np.add.reduceat over the bins' runs (the same sums as one reduceat over
+    the side), then the squared deviations from the bins' means. With few bins those are summed
+    bin by bin on slices (np.repeat of the means over millions of rows costs more than the sums);
+    with many small bins, by one repeat and one reduceat per group."""
     j = bounds.size - 1
     count = np.diff(bounds)
-    nonempty = count > 0
-    starts = bounds[:-1][nonempty]
+    per_bin = j <= 2000
+    ysum, xsum, ss = np.zeros(j), np.zeros(j), np.zeros(j)
+    wsum = count.astype(float) if ws is None else np.zeros(j)
+    m = wsum if ws is None else np.zeros(j)
+    mean = np.zeros(j)
     with np.errstate(invalid="ignore", divide="ignore"):
-        if ws is None:
-            wsum = count.astype(float)
-            mean = _run_sums(ys, starts, nonempty, j) / wsum
-            score_mean = _run_sums(xs, starts, nonempty, j) / wsum
-            ss = _squared_deviations(ys, mean, bounds)
-            m = wsum
-        else:
-            wsum = _run_sums(ws, starts, nonempty, j)
-            mean = _run_sums(ws * ys, starts, nonempty, j) / wsum
-            score_mean = _run_sums(ws * xs, starts, nonempty, j) / wsum
-            ss = _squared_deviations(ys, mean, bounds, ws)
-            # small-sample factor m/(m-1) over observations that carry weight, so that without
-            # weights this is exactly s/sqrt(count)
-            m = _run_sums((ws > 0).astype(float), starts, nonempty, j)
+        for first, last, lo, hi in _groups(bounds):
+            if hi <= lo:
+                continue
+            bins = slice(first, last)
+            nonempty = count[bins] > 0
+            starts = bounds[first:last][nonempty] - lo
+            y, x = take(ys, lo, hi), xs[lo:hi]
+
+            def sums(values):
+                out = np.zeros(last - first)
+                out[nonempty] = np.add.reduceat(values, starts)
+                return out
+            if ws is None:
+                ysum[bins], xsum[bins] = sums(y), sums(x)
+            else:
+                w = take(ws, lo, hi)
+                wsum[bins], ysum[bins], xsum[bins] = sums(w), sums(w * y), sums(w * x)
+                # small-sample factor m/(m-1) over observations that carry weight, so that
+                # without weights this is exactly s/sqrt(count)
+                m[bins] = sums((w > 0).astype(float))
+            mean[bins] = ysum[bins] / wsum[bins]
+            if per_bin:
+                for k in np.flatnonzero(nonempty) + first:
+                    a, b = bounds[k] - lo, bounds[k + 1] - lo
+                    dev = y[a:b] - mean[k]
+                    if ws is not None:
+                        dev *= w[a:b]
+                    ss[k] = np.sum(np.square(dev, out=dev))
+            else:
+                dev = np.repeat(mean[bins], count[bins])
+                np.subtract(y, dev, out=dev)
+                if ws is not None:
+                    dev *= w
+                ss[bins] = sums(np.square(dev, out=dev))
+        score_mean = xsum / wsum
         se = np.sqrt(ss / wsum ** 2 * m / (m - 1))
     se[m < 2] = np.nan
     empty = wsum <= 0
@@ -261,10 +276,11 @@ def binned_means(score, outcome, cutoff: float, *, method: str = "equal-width",
     reordered = False
     for i, (side, j) in enumerate(zip(SIDES, chosen.number)):
         xs, ys, ws, pos = sample.side(i)
-        if method == "equal-count" and not sample.stable and len(run_starts(xs)) < xs.size:
+        if method == "equal-count" and not sample.stable and n_runs(xs) < xs.size:
             tied = np.lexsort((pos, xs))        # ties in input order: ranks as a stable sort gives
-            xs, ys, pos = xs[tied], ys[tied], pos[tied]
-            ws = None if ws is None else ws[tied]
+            xs, pos = xs[tied], pos[tied]
+            ys = sample.source_y[pos]
+            ws = None if ws is None else np.asarray(ws)[tied]
             reordered = True
         bounds, edges = _sorted_bins(xs, cutoff, side, method, j)
         parts.append(_side_means(xs, ys, ws, bounds))

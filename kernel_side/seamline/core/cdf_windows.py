@@ -21,6 +21,13 @@ the window. The rows at the two ends of the window and in the block holding x0 (
 triangular kernel has its kink) are summed row by row. A window therefore costs O(n / BLOCK + BLOCK)
 instead of O(window), and the tables cost one O(n) pass, built once per sample and degree.
 Sums agree with the row-by-row computation up to rounding (tests/core/test_cdf_windows.py).
+
+Memory: the engine reads the sorted scores in place and asks for the counts N_j of a run of rows
+when it needs them (``counts(start, stop)``), so nothing of length n is kept beside the scores: the
+tables hold about 60 numbers per block (under one byte per row) and every pass works on at most
+_CHUNK_BLOCKS blocks. One side's scores can be given alone with their ``offset`` (the number of
+rows before them in the whole sorted sample): blocks then stay aligned on multiples of BLOCK of the
+whole sample, so the sums are those of one engine over both sides, bit for bit.
 """
 from __future__ import annotations
 
@@ -32,17 +39,21 @@ import numpy as np
 from .kernels import kernel_poly, kernel_weights
 
 BLOCK = 512
-_CHUNK_BLOCKS = 256     # blocks per pass when building tables (keeps temporaries near 10 MB)
+_CHUNK_BLOCKS = 64      # blocks per pass when building tables (keeps temporaries near 3 MB)
 
 
 class BlockTables:
     """Power sums per block of the sorted scores (see the module docstring)."""
 
-    def __init__(self, xs: np.ndarray, counts: np.ndarray, order: int, block: int = BLOCK):
+    def __init__(self, xs: np.ndarray, counts, order: int, block: int = BLOCK, offset: int = 0):
         self.block = block
         self.order = order                  # highest power of delta in one weighted basis term
-        n_blocks = len(xs) // block         # only full blocks are expanded; the rest is summed directly
+        counts = _counts_reader(counts)
+        # whole blocks of the full sample (rows offset + i) inside xs; the rest is summed directly
+        self.first = -(-offset // block)
+        n_blocks = max(0, (offset + len(xs)) // block - self.first)
         self.n_blocks = n_blocks
+        base = self.first * block - offset  # local row of the first whole block
         top = 2 * order + 1
         self.centre = np.empty(n_blocks)
         self.half = np.empty(n_blocks)
@@ -51,9 +62,9 @@ class BlockTables:
         self.pairs = np.empty((n_blocks, order + 1, order + 1))  # sum_{j<l} N_j delta_j^k delta_l^m
         for first in range(0, n_blocks, _CHUNK_BLOCKS):
             last = min(first + _CHUNK_BLOCKS, n_blocks)
-            rows = slice(first * block, last * block)
+            rows = slice(base + first * block, base + last * block)
             z = xs[rows].reshape(last - first, block)
-            nj = counts[rows].reshape(last - first, block).astype(float)
+            nj = counts(rows.start, rows.stop).reshape(last - first, block)
             lo, hi = z[:, 0], z[:, -1]
             centre = 0.5 * (lo + hi)
             half = 0.5 * (hi - lo)
@@ -93,9 +104,13 @@ class WindowSums:
 class WindowEngine:
     """Window sums over one sorted sample: ``fit_sums`` for a fit, ``add_variance`` for its variance."""
 
-    def __init__(self, xs: np.ndarray, counts: np.ndarray, block: int = BLOCK):
+    def __init__(self, xs: np.ndarray, counts, block: int = BLOCK, offset: int = 0):
+        """``counts``: N_j of the sorted rows, an integer array or ``counts(start, stop)`` giving
+        them as floats for rows [start, stop) of ``xs``; ``offset``: rows of the whole sorted sample
+        before ``xs`` (row indices given to the engine are positions in ``xs``)."""
         self.xs = xs
-        self.counts = counts
+        self.counts = _counts_reader(counts)
+        self.offset = offset
         self.block = block
         self._tables: BlockTables | None = None
         self._reserved = 0
@@ -106,14 +121,18 @@ class WindowEngine:
 
     def tables(self, order: int) -> BlockTables:
         if self._tables is None or self._tables.order < order:
-            self._tables = BlockTables(self.xs, self.counts, max(order, self._reserved), self.block)
+            self._tables = BlockTables(self.xs, self.counts, max(order, self._reserved), self.block,
+                                       self.offset)
         return self._tables
 
     # ---- one window -----------------------------------------------------------------------------
     def _plan(self, a: int, b: int, kink: int) -> tuple[list[tuple[int, int]], np.ndarray, np.ndarray]:
-        """Direct row ranges and the blocks expanded from the tables (with their side of x0)."""
+        """Direct row ranges and the blocks expanded from the tables (with their side of x0), in
+        rows of the whole sample (local row + offset) and block numbers of the whole sample."""
         B = self.block
-        n_blocks = len(self.xs) // B
+        off = self.offset
+        a, b, kink = a + off, b + off, kink + off
+        n_blocks = (off + len(self.xs)) // B
         first = -(-a // B)                   # first block starting at or after a
         last = min(b // B, n_blocks)         # blocks before this one end at or before b
         if last - first < 3:                 # a short window: every row directly
@@ -140,17 +159,18 @@ class WindowEngine:
         bias = np.zeros(q)
         with_counts = np.zeros(q)
         pieces = []
+        off = self.offset
         for start, stop in direct:
             if stop <= start:
                 continue
-            z = self.xs[start:stop]
+            z = self.xs[start - off:stop - off]
             u = (z - x0) / h
             w = kernel_weights(kernel, np.abs(u)) / h
             r = np.vander(u, degree + 2, increasing=True)
             wr = w[:, None] * r[:, :q]
             gram += wr.T @ r[:, :q]
             bias += wr.T @ r[:, q]
-            nj = self.counts[start:stop].astype(float)
+            nj = self.counts(start - off, stop - off)
             with_counts += wr.T @ nj
             pieces.append(("rows", start, wr, nj))
         if len(blocks):
@@ -158,6 +178,7 @@ class WindowEngine:
             kd = len(kpoly) - 1
             tables = self.tables(degree + kd)          # w u^r has degree d + kernel degree in u
             top = 2 * degree + 1 + kd                  # highest power of u any sum here needs
+            blocks = blocks - tables.first             # rows of the tables
             coef_u = _powers_in_delta(tables, blocks, x0, h, top)             # (nb, top+1, top+1)
             u_pow = np.matmul(coef_u, tables.power[blocks, : top + 1, None])[:, :, 0]
             u_pow_n = np.matmul(coef_u[:, : q + kd, : q + kd],
@@ -199,7 +220,7 @@ class WindowEngine:
                 diag = np.einsum("brm,bmk,bsk->rs", c, hankel, c)
                 pair = np.einsum("brm,bmk,bsk->rs", c, tables.pairs[blocks, :m, :m], c)
                 inner += diag + pair + pair.T
-                starts.append(blocks * self.block)
+                starts.append((blocks + tables.first) * self.block)
                 totals.append(total_b)
                 weighted.append(weighted_b)
         order = np.argsort(np.concatenate(starts), kind="stable")
@@ -210,6 +231,13 @@ class WindowEngine:
         sums.total = total_seg.sum(axis=0)
         sums.pairs = inner + cross + cross.T
         return sums
+
+
+def _counts_reader(counts):
+    """``counts(start, stop)`` as floats, from an integer array or such a function."""
+    if callable(counts):
+        return counts
+    return lambda start, stop: counts[start:stop].astype(float)
 
 
 def _powers_in_delta(tables: BlockTables, blocks: np.ndarray, x0: float, h: float, top: int) -> np.ndarray:

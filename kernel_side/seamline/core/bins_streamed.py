@@ -1,0 +1,351 @@
+"""Binned means from each side's sorted scores, with the outcome sums made by passes elsewhere.
+
+For a dataset too large to hold the outcome in score order (e.g. 1e8 rows of a partitioned
+dataset holding only the sorted score in memory), ``binned_means_streamed`` computes what
+``binning.binned_means`` computes, from
+
+* ``below``, ``above``: each side's scores in ascending order (float64, read in place), and
+* ``passes``: a function the caller provides that runs one of our chunk functions over all its
+  rows, in any order and any chunking, and folds the results with the ``combine`` we give:
+  ``passes(chunk, combine) = functools.reduce(combine, [chunk(x, y, w, start) for each chunk])``,
+  where x, y and w are the chunk's scores, outcomes and weights (``None`` without weights; the
+  rows the in-memory design keeps: no missing value, positive weight) and ``start`` the input
+  position of the chunk's first row (used only to order tied scores, as a stable sort does).
+  Each call returns a dict of float arrays; with dask, one ``dask.delayed(chunk)`` per partition
+  and a tree of ``combine`` on the active scheduler do it.
+
+The passes (four; each reads every row once):
+  1. the global quartic pilot of each side, by normal equations in the Legendre basis (the
+     in-memory fit, summed in another order);
+  2. the pilot's squared residuals: their sum and their trapezoid over the sorted scores. A row's
+     trapezoid weight is half the spacings on either side of it (its rank is found by searching
+     the sorted side); on a side with tied scores the trapezoid runs over the runs of equal scores
+     with their first and last members in input order, which ``combine`` keeps (4 numbers per run);
+  3. per bin: weight sum, weighted outcome and score sums, rows with positive weight;
+  4. per bin: the squared weighted deviations from the bin mean.
+The slope sums of the pilot and the bins' bounds need the sorted scores only.
+
+What is exact: counts, bin edges and bounds are those of ``binned_means``; every other number
+equals it up to the order of summation (relative differences near 1e-15; tests check 1e-10).
+Equal-count bins whose bound falls inside a run of tied scores need the input order of that
+run's members, which no pass keeps: they raise (use equal-width bins or ``binned_means``).
+``BinnedMeans.assignment`` is not available here (no input positions).
+
+Working memory beyond the sorted scores: the chunk's own temporaries (a few arrays of the chunk's
+length, in the caller's workers) and arrays per bin; 4 numbers per run of ties on a tied side.
+"""
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from ..errors import InvalidOptionError
+from ..options import BIN_METHODS, BIN_RULES, check_level, check_option
+from .bin_number import (
+    CHUNK,
+    PILOT_DEGREE,
+    SIDES,
+    BinConstants,
+    _horner,
+    _legendre_chunks,
+    _t_chunks,
+    check_number_pair,
+    check_scale,
+    choose,
+    n_runs,
+    run_starts,
+)
+from .binning import BinnedMeans, _frozen, _sorted_bins
+from .density_sample import sorted_sides
+
+__all__ = ["binned_means_streamed", "combine"]
+
+
+def combine(a: dict, b: dict) -> dict:
+    """Fold two chunk results: sums add; "first"/"last" keep the member with the least/greatest
+    input position of each run (position arrays "first_pos"/"last_pos", NaN where a chunk had none)."""
+    out = {}
+    for key, value in a.items():
+        if key.split(".")[-1] in ("first", "last", "first_pos", "last_pos"):
+            continue
+        out[key] = value + b[key]
+    for end, better in (("first", np.less), ("last", np.greater)):
+        for side in SIDES:
+            pk, vk = f"{side}.{end}_pos", f"{side}.{end}"
+            if pk not in a:
+                continue
+            pa, pb = a[pk], b[pk]
+            take_b = np.isnan(pa) | (~np.isnan(pb) & better(pb, pa))
+            out[pk] = np.where(take_b, pb, pa)
+            out[vk] = np.where(take_b, b[vk], a[vk])
+    return out
+
+
+class _Side:
+    """One side's sorted scores and the scalars the passes need."""
+
+    def __init__(self, xs: np.ndarray, cutoff: float, side: str, degree: int = PILOT_DEGREE):
+        self.xs, self.side, self.cutoff = xs, side, cutoff
+        n = self.n = xs.size
+        self.far = float(xs[0]) if side == "below" else float(xs[-1])
+        self.span = abs(self.far - cutoff)
+        self.support = (self.far, cutoff) if side == "below" else (cutoff, self.far)
+        self.runs = n_runs(xs)
+        self.ties = self.runs < n
+        self.deg = 0 if self.span == 0.0 else max(0, min(degree, self.runs - 1, n - 2))
+        self.to_t = (cutoff, 2.0 / (self.span if self.span > 0 else 1.0), 1.0 if side == "below" else -1.0)
+        self.starts = run_starts(xs) if self.ties else None
+        self.run_values = xs[self.starts] if self.ties else None
+        self.power = None
+
+    def rows_of(self, x: np.ndarray) -> np.ndarray:
+        return x < self.cutoff if self.side == "below" else x >= self.cutoff
+
+    def t(self, x: np.ndarray) -> np.ndarray:
+        centre, factor, shift = self.to_t
+        return (x - centre) * factor + shift
+
+    def pilot_at(self, x: np.ndarray) -> np.ndarray:
+        out = np.empty(x.size)
+        _horner(self.power, self.t(x), out)
+        return out
+
+    def trapezoid_weight(self, x: np.ndarray) -> np.ndarray:
+        """Half the spacings either side of each (untied) score, plus the stretch to the cutoff for
+        the score nearest it: sum_k s2_k w_k is the trapezoid of s2 over the side's support."""
+        xs, n = self.xs, self.n
+        k = np.searchsorted(xs, x, side="left")
+        before = np.where(k > 0, xs[k] - xs[np.maximum(k - 1, 0)], 0.0)
+        after = np.where(k < n - 1, xs[np.minimum(k + 1, n - 1)] - xs[k], 0.0)
+        w = 0.5 * (before + after)
+        nearest = n - 1 if self.side == "below" else 0
+        gap = (self.cutoff - xs[-1]) if self.side == "below" else (xs[0] - self.cutoff)
+        return w + np.where(k == nearest, gap, 0.0)
+
+    def slope_sums(self) -> tuple[float, float]:
+        """sum mu'(X_k)^2 and sum over interior k of mu'(X_k)^2 D_(k-1) D_k, from the scores alone."""
+        xs, n = self.xs, self.n
+        if len(self.power) <= 1:
+            return 0.0, 0.0
+        slope_power = np.polynomial.polynomial.polyder(self.power) * self.to_t[1]
+        slope2 = spacings = 0.0
+        g2 = np.empty(min(CHUNK, n))
+        for rows, t in _t_chunks(xs, self.to_t):
+            a, b = rows.start, rows.stop
+            g = g2[:b - a]
+            _horner(slope_power, t, g)
+            np.square(g, out=g)
+            slope2 += float(np.sum(g))
+            lo, hi = max(a, 1), min(b, n - 1)
+            if hi > lo:
+                product = (xs[lo:hi] - xs[lo - 1:hi - 1]) * (xs[lo + 1:hi + 1] - xs[lo:hi])
+                product *= g[lo - a:hi - a]
+                spacings += float(np.sum(product))
+        return slope2, spacings
+
+
+def _pilot_chunk(sides):
+    def chunk(x, y, w, start):
+        out = {}
+        for s in sides:
+            keep = s.rows_of(x)
+            xs_, ys_ = x[keep], y[keep]
+            ws_ = None if w is None else w[keep]
+            gram = np.zeros((s.deg + 1, s.deg + 1))
+            rhs = np.zeros(s.deg + 1)
+            for rows, basis in _legendre_chunks(xs_, s.to_t, s.deg):
+                weighted = basis if ws_ is None else basis * ws_[rows]
+                gram += weighted @ basis.T
+                rhs += weighted @ ys_[rows]
+            out[f"{s.side}.gram"], out[f"{s.side}.rhs"] = gram, rhs
+        return out
+    return chunk
+
+
+def _residual_chunk(sides):
+    def chunk(x, y, w, start):
+        out = {}
+        positions = start + np.arange(x.size, dtype=float)
+        for s in sides:
+            keep = s.rows_of(x)
+            xs_ = x[keep]
+            s2 = np.square(y[keep] - s.pilot_at(xs_))
+            out[f"{s.side}.sigma2"] = np.array([np.sum(s2)])
+            if not s.ties:
+                # the chunk's scores sorted first: searching ascending keys walks the sorted side
+                # once instead of jumping about it (several times faster on a large side)
+                order = np.argsort(xs_)
+                out[f"{s.side}.trapezoid"] = np.array([np.sum(s2[order] * s.trapezoid_weight(xs_[order]))])
+                continue
+            run = np.searchsorted(s.run_values, xs_, side="left")
+            pos = positions[keep]
+            if run.size == 0:
+                for end in ("first", "last"):
+                    out[f"{s.side}.{end}_pos"] = out[f"{s.side}.{end}"] = np.full(s.runs, np.nan)
+                continue
+            order = np.lexsort((pos, run))
+            run, pos, s2 = run[order], pos[order], s2[order]
+            heads = np.flatnonzero(np.r_[True, run[1:] != run[:-1]])
+            tails = np.r_[heads[1:] - 1, run.size - 1]
+            for end, at in (("first", heads), ("last", tails)):
+                p = np.full(s.runs, np.nan)
+                v = np.full(s.runs, np.nan)
+                p[run[at]], v[run[at]] = pos[at], s2[at]
+                out[f"{s.side}.{end}_pos"], out[f"{s.side}.{end}"] = p, v
+        return out
+    return chunk
+
+
+def _bin_chunk(sides, layouts, weighted: bool, means=None):
+    """Per-bin sums (pass 3), or squared deviations from ``means`` (pass 4)."""
+    def chunk(x, y, w, start):
+        out = {}
+        for s, (edges, bounds, method, j) in zip(sides, layouts):
+            keep = s.rows_of(x)
+            xs_, ys_ = x[keep], y[keep]
+            ws_ = None if w is None else w[keep]
+            k = _bin_of(s, xs_, edges, bounds, method, j)
+            if means is None:
+                out[f"{s.side}.count"] = np.bincount(k, minlength=j).astype(float)
+                out[f"{s.side}.wsum"] = np.bincount(k, weights=ws_, minlength=j) if weighted else \
+                    out[f"{s.side}.count"].copy()
+                wy = ys_ if ws_ is None else ws_ * ys_
+                wx = xs_ if ws_ is None else ws_ * xs_
+                out[f"{s.side}.ysum"] = np.bincount(k, weights=wy, minlength=j)
+                out[f"{s.side}.xsum"] = np.bincount(k, weights=wx, minlength=j)
+                out[f"{s.side}.m"] = (np.bincount(k, weights=(ws_ > 0).astype(float), minlength=j)
+                                      if weighted else out[f"{s.side}.count"].copy())
+            else:
+                dev = ys_ - means[s.side][k]
+                if ws_ is not None:
+                    dev *= ws_
+                out[f"{s.side}.ss"] = np.bincount(k, weights=np.square(dev), minlength=j)
+        return out
+    return chunk
+
+
+def _bin_of(s: _Side, x: np.ndarray, edges: np.ndarray, bounds: np.ndarray, method: str, j: int) -> np.ndarray:
+    """Each score's bin, as ``binning._sorted_bins`` places the sorted scores."""
+    if method == "equal-width":
+        if edges[0] == edges[-1]:          # every score at the cutoff: all in the first bin
+            return np.zeros(x.size, dtype=np.int64)
+        return np.searchsorted(edges[1:j], x, side="right")
+    # equal-count: no bound falls inside a run of ties (checked), so the bin follows the score
+    return np.searchsorted(s.xs[bounds[1:j]], x, side="right")
+
+
+def binned_means_streamed(below, above, cutoff: float, passes, *, weighted: bool = False,
+                          method: str = "equal-width", number: int | tuple[int, int] | None = None,
+                          rule: str = "imse", scale: float = 1.0, level: float = 0.95) -> BinnedMeans:
+    """``binning.binned_means`` from each side's sorted scores and passes over the rows elsewhere.
+
+    Parameters
+    ----------
+    below, above : each side's scores in ascending order (scores < cutoff, scores >= cutoff).
+    cutoff : the cutoff c.
+    passes : ``passes(chunk, combine)`` runs ``chunk(x, y, w, start)`` on every chunk of rows and
+        folds the dicts it returns with ``combine`` (see the module docstring). Called four times.
+    weighted : whether the caller's chunks carry weights (``w`` not None).
+    method, number, rule, scale, level : as in ``binning.binned_means``.
+
+    Returns
+    -------
+    BinnedMeans
+        Without ``assignment`` (no input positions).
+    """
+    cutoff = float(cutoff)
+    level = check_level(level)
+    method = check_option("method", method, BIN_METHODS)
+    rule = check_option("rule", rule, BIN_RULES)
+    scale = check_scale(scale)
+    sample = sorted_sides(below, above, cutoff)
+    sides = [_Side(part, cutoff, side) for part, side in zip(sample.parts, SIDES)]
+    fixed = check_number_pair(number, (sides[0].n, sides[1].n))
+
+    # pass 1: the pilot on each side
+    got = passes(_pilot_chunk(sides), combine)
+    for s in sides:
+        gram, rhs = got[f"{s.side}.gram"], got[f"{s.side}.rhs"]
+        try:
+            coef = np.linalg.solve(gram, rhs)
+        except np.linalg.LinAlgError:
+            coef = np.linalg.lstsq(gram, rhs, rcond=None)[0]
+        s.power = np.polynomial.legendre.leg2poly(coef)
+    # pass 2: squared residuals
+    got = passes(_residual_chunk(sides), combine)
+    consts = []
+    for s in sides:
+        slope2, spacings = s.slope_sums()
+        sigma2 = float(got[f"{s.side}.sigma2"][0])
+        if s.ties:
+            first, last = got[f"{s.side}.first"], got[f"{s.side}.last"]
+            int_sigma2 = float(np.sum(0.5 * (last[:-1] + first[1:]) * np.diff(s.run_values)))
+            nearest = last[-1] if s.side == "below" else first[0]
+            int_sigma2 += float(nearest * (cutoff - s.xs[-1] if s.side == "below" else s.xs[0] - cutoff))
+        else:
+            int_sigma2 = float(got[f"{s.side}.trapezoid"][0])
+        average = sigma2 / s.n
+        consts.append(BinConstants(
+            bias_equal_width=s.span ** 2 / 12.0 * (slope2 / s.n),
+            variance_equal_width=int_sigma2 / s.span if s.span > 0 else 0.0,
+            bias_equal_count=s.n * spacings / 12.0, variance_equal_count=average,
+            average_variance=average, support=s.support, n=int(s.n), pilot_degree=int(s.deg)))
+    chosen = choose(consts, method, rule, scale, fixed)
+
+    layouts = []
+    for s, j in zip(sides, chosen.number):
+        bounds, edges = _sorted_bins(s.xs, cutoff, s.side, method, j)
+        if method == "equal-count":
+            inner = bounds[1:j]
+            split = inner[(inner > 0) & (inner < s.n)]
+            if np.any(s.xs[split - 1] == s.xs[split]):
+                raise InvalidOptionError(
+                    f"`method` must be \"equal-width\" for bins from streamed sums when a bin bound "
+                    f"falls inside a run of tied scores; got \"equal-count\" with such a run {s.side} the "
+                    "cutoff. Use method=\"equal-width\", or binned_means on the rows in memory.")
+        layouts.append((edges, bounds, method, j))
+    # pass 3: per-bin sums; pass 4: squared deviations from the bin means
+    got = passes(_bin_chunk(sides, layouts, weighted), combine)
+    means, parts = {}, []
+    with np.errstate(invalid="ignore", divide="ignore"):
+        for s, (edges, bounds, _, j) in zip(sides, layouts):
+            count = np.diff(bounds)
+            if not np.array_equal(got[f"{s.side}.count"], count.astype(float)):
+                raise InvalidOptionError(
+                    f"`passes` must run over the rows whose scores are `{s.side}`; got "
+                    f"{int(got[f'{s.side}.count'].sum())} rows {s.side} the cutoff for {s.n} sorted scores. "
+                    "Pass the same rows (missing values dropped) to both.")
+            means[s.side] = got[f"{s.side}.ysum"] / got[f"{s.side}.wsum"]
+        sq = passes(_bin_chunk(sides, layouts, weighted, means), combine)
+        for s, (edges, bounds, _, j) in zip(sides, layouts):
+            wsum, m = got[f"{s.side}.wsum"], got[f"{s.side}.m"]
+            mean = means[s.side].copy()
+            score_mean = got[f"{s.side}.xsum"] / wsum
+            se = np.sqrt(sq[f"{s.side}.ss"] / wsum ** 2 * m / (m - 1))
+            se[m < 2] = np.nan
+            empty = wsum <= 0
+            mean[empty] = score_mean[empty] = se[empty] = np.nan
+            parts.append((np.diff(bounds), wsum, mean, score_mean, se, edges))
+    z = float(stats.norm.ppf(0.5 + level / 2.0))
+    count, wsum, mean, score_mean, se = (np.concatenate([p[i] for p in parts]) for i in range(5))
+    sides_words = [side for side, j in zip(SIDES, chosen.number) for _ in range(j)]
+    return BinnedMeans(
+        side=_frozen(sides_words, dtype="<U5"), left=_frozen(np.concatenate([p[5][:-1] for p in parts])),
+        right=_frozen(np.concatenate([p[5][1:] for p in parts])), count=_frozen(count, dtype=np.int64),
+        weight_sum=_frozen(wsum), mean=_frozen(mean), score_mean=_frozen(score_mean),
+        std_error=_frozen(se), ci_low=_frozen(mean - z * se), ci_high=_frozen(mean + z * se),
+        method=method, rule=chosen.rule, number=chosen.number, level=level, cutoff=cutoff,
+        selection=chosen, positions=None)
+
+
+def array_passes(x: np.ndarray, y: np.ndarray, w: np.ndarray | None = None, chunk_rows: int = 1 << 20):
+    """``passes`` over arrays in memory, in chunks of input rows (for checks and small data)."""
+    def passes(chunk, fold):
+        result = None
+        for start in range(0, x.size, chunk_rows):
+            rows = slice(start, start + chunk_rows)
+            part = chunk(x[rows], y[rows], None if w is None else w[rows], start)
+            result = part if result is None else fold(result, part)
+        return result
+    return passes
+
