@@ -147,5 +147,3 @@ def _usable(results: Mapping[str, Any], key: str, what: str, errors: Mapping[str
             reason = str(errors[key])
         raise ValueError(f"`what` {shown(what)} needs the {shown(key)} result, which is unavailable: {reason}")
     return value
-
-

@@ -272,5 +272,3 @@ def donut_chart(donut, *, fit=None, configure: bool = True):
                      [f"estimate and robust {_pct(level)} CI by radius; radius 0 is the full sample",
                       "stable estimates suggest no heaping or sorting right at the cutoff"]))
     return _configure(chart, configure=configure)
-
-

@@ -238,5 +238,3 @@ def density_chart(density, *, score: str | None = None, treated: str | None = No
                 "a jump hints at sorting"]
     chart = alt.layer(*layers).properties(width=WIDTH, height=HEIGHT, title=_title(alt, title, subtitle))
     return _configure(time_axes.dated(chart, dates, alt), configure=configure)
-
-
