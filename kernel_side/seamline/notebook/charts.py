@@ -37,13 +37,15 @@ from typing import Any
 import pandas as pd
 
 from ..errors import shown
-# Re-exported: other modules and the tests read the builders, renderers and style helpers here.
+# Re-exported: other modules (charts_inference as `charts.X`, static) and the tests read the
+# builders, the renderers and the style names here.
 from .charts_render import VEGA_LITE_MIME, _tidy_svg, to_png, to_svg, to_vega_lite  # noqa: F401
 from .charts_robustness import balance_chart, donut_chart, placebo_chart, sensitivity_chart
 from .charts_score import _bandwidth_text, density_chart, estimate_chart, first_stage_chart  # noqa: F401
-from .charts_style import (HEIGHT, INK, MUTED, TREATED, UNTREATED, WIDTH, _alt, _configure,  # noqa: F401
-                           _cutoff_rule, _estimate_path, _finite, _p, _pct, _records, _short, _title,
-                           _zero_rule, number)
+from .charts_style import (FONT, HEIGHT, INK, MUTED, TREATED, UNTREATED, WIDTH, WINDOW,  # noqa: F401
+                           _alt, _attr, _ci_columns, _colors, _configure, _cutoff_rule, _estimate_path,
+                           _finite, _level, _p, _p_is, _pct, _records, _short, _side_names, _side_scale,
+                           _stat, _title, _zero_rule, number)
 
 __all__ = [
     "CHART_NAMES",

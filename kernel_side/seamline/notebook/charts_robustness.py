@@ -8,7 +8,7 @@ import pandas as pd
 
 from . import time_axes
 from .charts_style import (HEIGHT, INK, MUTED, TREATED, UNTREATED, WIDTH, _alt, _attr, _ci_columns,
-                           _colors, _configure, _cutoff_rule, _estimate_path, _finite, _level, _p,
+                           _colors, _configure, _cutoff_rule, _estimate_path, _finite, _level, _p_is,
                            _pct, _records, _side_names, _title, _zero_rule)
 
 __all__ = ["balance_chart", "donut_chart", "placebo_chart", "sensitivity_chart"]
@@ -150,7 +150,7 @@ def balance_chart(balance, *, configure: bool = True):
     data = table.assign(name=table["covariate"].astype(str), lo=table[low], hi=table[high],
                         p=table[p_col], zero=0.0)
     data = _records(data[["name", "estimate", "lo", "hi", "p", "zero"]])
-    data["p_text"] = data["p"].map(lambda v: "p " + (_p(v) if _p(v).startswith("<") else "= " + _p(v)))
+    data["p_text"] = data["p"].map(_p_is)
     level = _level(balance)
     base = alt.Chart()
     zero = base.mark_rule(color=MUTED, strokeWidth=1).encode(x=alt.X("zero:Q"))
@@ -175,7 +175,7 @@ def balance_chart(balance, *, configure: bool = True):
     subtitle = [f"dots: jump in each covariate; bars: robust {_pct(level)} CI; "
                 f"{'Holm-adjusted ' if p_col == 'p_value_holm' else ''}p-values at right",
                 "each row in the covariate's own units"
-                + (f"; joint test p {_p(joint) if _p(joint).startswith('<') else '= ' + _p(joint)}"
+                + (f"; joint test {_p_is(joint)}"
                    if joint is not None else "")]
     facet = facet.properties(title=_title(alt, "Covariate balance at the cutoff", subtitle))
     return _configure(facet, configure=configure)

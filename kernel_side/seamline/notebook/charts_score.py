@@ -10,7 +10,7 @@ import pandas as pd
 
 from . import time_axes
 from .charts_style import (HEIGHT, MUTED, WIDTH, WINDOW, _alt, _attr, _configure, _cutoff_rule, _finite,
-                           _level, _p, _pct, _records, _side_names, _side_scale, _stat, _title, number)
+                           _level, _p_is, _pct, _records, _side_names, _side_scale, _stat, _title, number)
 
 __all__ = ["density_chart", "estimate_chart", "first_stage_chart"]
 
@@ -232,8 +232,7 @@ def density_chart(density, *, score: str | None = None, treated: str | None = No
                    "binned": "binned log-difference density test (McCrary 2008)"}.get(method, "density test")
     stat = getattr(density, "statistic", float("nan"))
     pval = getattr(density, "p_value", float("nan"))
-    p_txt = _p(pval)
-    title = f"Density of {score}: T = {_stat(stat)}, p {p_txt if p_txt.startswith('<') else '= ' + p_txt}"
+    title = f"Density of {score}: T = {_stat(stat)}, {_p_is(pval)}"
     subtitle = [method_text, f"bars: histogram; lines: fitted density with {_pct(_level(density))} band; "
                 "a jump hints at sorting"]
     chart = alt.layer(*layers).properties(width=WIDTH, height=HEIGHT, title=_title(alt, title, subtitle))

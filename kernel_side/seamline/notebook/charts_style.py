@@ -82,6 +82,12 @@ def _p(value: Any) -> str:
     return "< 0.001" if p < 0.001 else f"{p:.3f}"
 
 
+def _p_is(value: Any) -> str:
+    """A p-value as titles write it: "p = 0.042", "p < 0.001", "p = n/a"."""
+    p = _p(value)
+    return f"p {p}" if p.startswith("<") else f"p = {p}"
+
+
 def _stat(value: Any) -> str:
     try:
         x = float(value)
