@@ -42,18 +42,6 @@ class ReportError(Exception):
         self.code = code
 
 
-def _without_comment(text: str) -> str:
-    quote = None
-    for i, ch in enumerate(text):
-        if quote:
-            quote = None if ch == quote else quote
-        elif ch in "'\"":
-            quote = ch
-        elif ch == "#":
-            return text[:i]
-    return text
-
-
 def _exact_floats(pd) -> dict:
     """read_csv options that read floats back bit for bit: pandas 3 does by default (and deprecates
     the option); pandas 2 needs the round-trip parser."""
@@ -101,7 +89,7 @@ def read_spec(path: str | Path):
     DesignSpecError
         "line N: ..." counting the spec file's own lines.
     """
-    from .notebook.magic import parse_name, parse_spec
+    from .notebook.magic import _strip_comment, parse_name, parse_spec   # the cell's own comment rule
 
     spec_path = Path(path)
     try:
@@ -113,7 +101,7 @@ def read_spec(path: str | Path):
     name = re.sub(r"\W", "_", spec_path.stem) or "report"
     name = name if name.isidentifier() else f"report_{name}"
     for i, text in enumerate(lines):
-        stripped = _without_comment(text).strip()
+        stripped = _strip_comment(text).strip()
         if not stripped:
             continue
         match = _MAGIC_LINE.match(stripped)
@@ -127,7 +115,7 @@ def read_spec(path: str | Path):
     body = list(lines[first:])
     data_path, namespace = None, {}
     for offset, text in enumerate(body):
-        match = _DATA_LINE.match(_without_comment(text))
+        match = _DATA_LINE.match(_strip_comment(text))
         if match and match.group(1):
             line = first + offset + 1
             data = _load_data(match.group(1), line, spec_path.parent)

@@ -20,7 +20,7 @@ from types import MappingProxyType
 import numpy as np
 import pandas as pd
 
-from .demo_data import Scenario, _check_n, _check_seed, _describe
+from .demo_scenario import Scenario, _check_n, _check_seed, _describe
 
 __all__ = ["district_cutoffs_scenario", "cumulative_grants_scenario"]
 

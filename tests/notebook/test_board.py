@@ -22,6 +22,8 @@ from seamline.estimate.design import Design
 from seamline.notebook.board import NotApplicable, boards, find
 from seamline.notebook.reactive import PANELS
 
+pytestmark = pytest.mark.usefixtures("close_new_boards")
+
 TIGHT = dict(rtol=1e-12, atol=1e-12)   # same code path, same data: equal to rounding
 APPROX = dict(rel=1e-12, abs=1e-12)
 
@@ -37,15 +39,6 @@ def _kwargs(s):
 
 def _make(s, **options):
     return seamline.board(s.data, **_kwargs(s), **options)
-
-
-@pytest.fixture(autouse=True)
-def _close_boards():
-    before = {id(b) for b in boards()}
-    yield
-    for b in boards():
-        if id(b) not in before:
-            b.close()
 
 
 def _same_fit(a, b):

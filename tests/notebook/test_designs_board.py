@@ -19,22 +19,14 @@ import seamline
 from seamline.demo_cutoffs import cumulative_grants_scenario, district_cutoffs_scenario
 from seamline.errors import DesignSpecError, InvalidOptionError
 from seamline.notebook import static
-from seamline.notebook.board import boards
 from seamline.notebook.magic import parse_spec
 from seamline.notebook.spec import NotApplicable
+
+pytestmark = pytest.mark.usefixtures("close_new_boards")
 
 TIGHT = dict(rtol=1e-9, atol=1e-12)
 MACHINE = ("robust_ci_low", "robust_ci_high", "std_error", "n_below", "bandwidth_below", "units_below",
            "robust_p_value")
-
-
-@pytest.fixture(autouse=True)
-def _close_boards():
-    before = {id(b) for b in boards()}
-    yield
-    for b in boards():
-        if id(b) not in before:
-            b.close()
 
 
 @pytest.fixture(scope="module")

@@ -17,18 +17,10 @@ import seamline
 from seamline.demo_data import sharp_scenario
 from seamline.errors import WaitTimeoutError
 from seamline.estimate.design import Design
-from seamline.notebook.board import boards
+
+pytestmark = pytest.mark.usefixtures("close_new_boards")
 
 TIGHT = dict(rtol=1e-12, atol=1e-12)
-
-
-@pytest.fixture(autouse=True)
-def _close_boards():
-    before = {id(b) for b in boards()}
-    yield
-    for b in boards():
-        if id(b) not in before:
-            b.close()
 
 
 @pytest.fixture

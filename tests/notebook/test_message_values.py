@@ -30,7 +30,6 @@ import seamline
 from seamline.demo_cutoffs import cumulative_grants_scenario
 from seamline.demo_data import sharp_scenario
 from seamline.errors import SeamlineError
-from seamline.notebook.board import boards
 from seamline.notebook.magic import parse_spec
 from seamline.notebook.spec import coerce_value
 
@@ -106,13 +105,9 @@ def scenario():
 
 
 @pytest.fixture(autouse=True)
-def _close_boards():
-    live = {id(b) for b in boards()}
+def _clear_paper_tables(close_new_boards):
     yield
     seamline.paper_tables.clear()
-    for b in boards():
-        if id(b) not in live:
-            b.close()
 
 
 @pytest.mark.parametrize(("key", "value", "expected"), [

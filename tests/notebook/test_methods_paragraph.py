@@ -16,8 +16,9 @@ import seamline
 from seamline.demo_data import fuzzy_scenario, sharp_scenario
 from seamline.export.methods import methods_paragraph
 from seamline.export.table_model import format_number
-from seamline.notebook.board import boards
 from seamline.results.fit import CAUTION
+
+pytestmark = pytest.mark.usefixtures("close_new_boards")
 
 
 @pytest.fixture(scope="module")
@@ -28,15 +29,6 @@ def sharp():
 @pytest.fixture(scope="module")
 def design(sharp):
     return seamline.Design(sharp.data, **sharp.design_kwargs())
-
-
-@pytest.fixture(autouse=True)
-def _close_boards():
-    live = {id(b) for b in boards()}
-    yield
-    for b in boards():
-        if id(b) not in live:
-            b.close()
 
 
 def _cells(markdown: str) -> set[str]:

@@ -10,24 +10,12 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any
 
-from .table_model import format_number
+from .methods import _n, _p     # numbers and p-values as the rest of the paragraph writes them
 
 __all__ = ["designs_sentences"]
 
-DECIMALS = 3
 _MULTIPLE = "Cattaneo, Keele, Titiunik and Vazquez-Bare (2016)"
 _POWER = "Cattaneo, Titiunik and Vazquez-Bare (2019)"
-
-
-def _n(value: float) -> str:
-    return format_number(float(value), DECIMALS)
-
-
-def _p(value: float) -> str:
-    text = _n(value)
-    if value == value and float(text) == 0.0:
-        return f"p < {10 ** -DECIMALS:.{DECIMALS}f}"
-    return f"p = {text}"
 
 
 def _label(value: Any) -> str:

@@ -10,8 +10,8 @@ from typing import Any
 
 import pandas as pd
 
-from .charts import (HEIGHT, INK, MUTED, TREATED, UNTREATED, WIDTH, _alt, _configure, _finite, _p, _pct,
-                     _records, _title, _zero_rule)
+from .charts_style import (HEIGHT, INK, MUTED, TREATED, UNTREATED, WIDTH, _alt, _configure, _finite, _p_is,
+                           _pct, _records, _title, _zero_rule)
 
 __all__ = ["DESIGNS_CHARTS", "cutoff_effects_chart", "group_effects_chart", "power_chart"]
 
@@ -64,9 +64,8 @@ def _common_rule(alt, equality):
 def _test_text(equality) -> str:
     if not equality.applies:
         return "test of equal effects not computed"
-    p = _p(equality.p_value)
     return (f"equal effects: chi-square {equality.statistic:.2f} on {equality.df} df, "
-            f"p {p if p.startswith('<') else '= ' + p}; dashed: precision-weighted common effect")
+            f"{_p_is(equality.p_value)}; dashed: precision-weighted common effect")
 
 
 def cutoff_effects_chart(effects, *, configure: bool = True):

@@ -134,6 +134,20 @@ def _as_pair_or_number(key: str, value: Any, variable: str | None) -> float | tu
                              f"got {shown(value)}. Use e.g. `{key}: 2.5` or `{key}: 2.0, 3.0`.")
 
 
+def _as_rule_or_width(key: str, value: Any, variable: str | None, rules: tuple[str, ...],
+                      examples: tuple[str, str]) -> str | float | tuple[float, float]:
+    """A bandwidth-like value: the name of one of ``rules``, a number, or two numbers."""
+    if isinstance(value, str):
+        try:
+            return check_option(key, value, rules)
+        except InvalidOptionError:
+            names = ", ".join(f'"{a}"' for a in rules)
+            raise InvalidOptionError(f"{_where(key, variable)} must be one of {names}, a number or two "
+                                     f"numbers; got {shown(value)}. Use e.g. `{key}: {examples[0]}` or "
+                                     f"`{key}: {examples[1]}`.") from None
+    return _as_pair_or_number(key, value, variable)
+
+
 _EXAMPLE_COLUMN = {"score": "reading_score", "outcome": "math_gain", "takeup": "attended",
                    "covariates": "age, prior_math", "cluster": "school", "weights": "sample_weight"}
 
@@ -194,25 +208,11 @@ def coerce_value(key: str, value: Any, variable: str | None = None) -> Any:
             raise InvalidOptionError(f"{_where(key, variable)} must be one of {choices}; got {shown(value)}. "
                                      "Pick one of the listed values.") from None
     if key == "bandwidth":
-        if isinstance(value, str):
-            try:
-                return check_option(key, value, BANDWIDTH_RULES)
-            except InvalidOptionError:
-                rules = ", ".join(f'"{a}"' for a in BANDWIDTH_RULES)
-                raise InvalidOptionError(f"{_where(key, variable)} must be one of {rules}, a number or two "
-                                         f"numbers; got {shown(value)}. Use e.g. `bandwidth: mse` or "
-                                         "`bandwidth: 2.5`.") from None
-        return _as_pair_or_number(key, value, variable)
+        return _as_rule_or_width(key, value, variable, BANDWIDTH_RULES, ("mse", "2.5"))
     if key == "pilot_bandwidth":
-        if isinstance(value, str):
-            try:
-                return check_option(key, value, PILOT_RULES)
-            except InvalidOptionError:
-                rules = ", ".join(f'"{a}"' for a in PILOT_RULES)
-                raise InvalidOptionError(f"{_where(key, variable)} must be one of {rules}, a number or two "
-                                         f"numbers; got {shown(value)}. Use e.g. `pilot_bandwidth: two-step` "
-                                         "or `pilot_bandwidth: 4.0`.") from None
-        return None if value is None else _as_pair_or_number(key, value, variable)
+        if value is None:
+            return None
+        return _as_rule_or_width(key, value, variable, PILOT_RULES, ("two-step", "4.0"))
     if key == "adjust":
         if isinstance(value, (bool, np.bool_)):
             return bool(value)

@@ -1,7 +1,7 @@
 """Dates on the score axis: what a chart of a date-score design shows instead of day counts.
 
 A date score reaches the engine as the distance from the cutoff in a unit (days by default; see
-``seamline.time_score``). The chart builders in ``charts.py`` draw every layer in that distance;
+``seamline.time_score``). The chart builders in ``charts_*.py`` draw every layer in that distance;
 :func:`dated` then turns the score axis of a finished chart into a temporal axis: the distance
 columns the x and x2 channels read become timestamps, the channels become temporal on a UTC scale
 with ISO ticks ("2024-07-01", with hours and minutes when the data carry a time of day), and the
@@ -12,7 +12,7 @@ Timestamps are sent as the wall-clock time of the score's own time zone written 
 milliseconds, and the axis is a UTC scale: the reader sees the dates the data were recorded in,
 whatever the time zone of the browser or of the machine that renders the SVG.
 
-Altair is passed in by the caller (``charts._alt()``); this module imports only pandas and numpy.
+Altair is passed in by the caller (``charts_style._alt()``); this module imports only pandas and numpy.
 """
 from __future__ import annotations
 
