@@ -60,6 +60,11 @@ def _global_derivative(side: Side, order: int, lam: np.ndarray, degree: int,
     degree = min(degree, side.distinct_within(rows) - 1)
     if degree < order:
         return 0.0  # (convention) too few distinct values for the pilot: treat the curvature as unknown-zero
+    summary = side.pilot_sums(share, degree)   # None: the side holds the pilot's rows (always in memory)
+    if summary is not None:
+        top, gram, cross = summary
+        beta = np.linalg.solve(gram, cross)
+        return float(factorial(order) / top ** order * beta[order] @ lam)
     top = float(side.distance[rows - 1])
     fit = fit_side(side, top, top, degree, degree, order, "uniform")
     return float(fit.derivative(order) @ lam)
@@ -115,7 +120,7 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
                 "manual bandwidth and pilot_bandwidth.")
     warnings: list[str] = []
     n = float(n_total)
-    top = max(below.distance[-1], above.distance[-1])
+    top = max(below.far, above.far)
     c = normal_reference_constant(kernel) * score_scale * n ** (-0.2)
     c = min(max(c, *(_floor(s, 0.0, q + 1, kernel) for s in sides)), top)
 
@@ -139,7 +144,7 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
         return float(((3 + 2 * p) * v / (2 * (q - p) * bias2)) ** expo_b * n ** -expo_b)
 
     b_common = min(b_rule(sum(v_b), (bias_b[1] - bias_b[0]) ** 2 + sum(reg_b)), top)
-    b_split = tuple(min(b_rule(v, bb ** 2 + rb), s.distance[-1])
+    b_split = tuple(min(b_rule(v, bb ** 2 + rb), s.far)
                     for v, bb, rb, s in zip(v_b, bias_b, reg_b, sides))
     b_common = max(b_common, *(_floor(s, 0.0, q + 1, kernel) for s in sides))
     b_split = tuple(_floor(s, bb, q + 1, kernel) for s, bb in zip(sides, b_split))
@@ -178,7 +183,7 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
         h_s = c
         for _ in range(2):
             v, bias, reg = pieces(s, h_s, cv)
-            h_s = _floor(s, h_rule(v, bias ** 2, reg, float(s.distance[-1])), p + 1, kernel)
+            h_s = _floor(s, h_rule(v, bias ** 2, reg, s.far), p + 1, kernel)
         h_split.append(h_s)
     if h_common >= top * 0.999:
         warnings.append("The MSE-optimal bandwidth reached the range of the data: the estimated "
@@ -241,13 +246,13 @@ def ik_bandwidth(below: Side, above: Side, *, kernel: str, lam: np.ndarray, scor
     m2, reg = [], []
     for s, s2 in zip(sides, sigma2):
         h2 = 3.56 * (s2 / (f_hat * m3_floor_sq)) ** (1 / 7) * s.n ** (-1 / 7)
-        h2 = _floor(s, min(h2, float(s.distance[-1])), 3, "uniform")
+        h2 = _floor(s, min(h2, s.far), 3, "uniform")
         fit = fit_side(s, h2, h2, 2, 2, 2, "uniform", direct=True)
         m2.append(float(fit.derivative(2) @ lam))
         n2 = s.count_positive(h2, "uniform")
         reg.append(720.0 * s2 / (n2 * h2 ** 4))
     denom = f_hat * ((m2[1] - m2[0]) ** 2 + reg[0] + reg[1])
     h = ik_constant(kernel) * ((sigma2[0] + sigma2[1]) / denom) ** 0.2 * n ** (-0.2)
-    top = max(below.distance[-1], above.distance[-1])
+    top = max(below.far, above.far)
     h = max(min(h, top), *(_floor(s, 0.0, 3, kernel) for s in sides))
     return float(h), warnings
