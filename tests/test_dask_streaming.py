@@ -189,3 +189,11 @@ def test_streamed_checks_match_memory(tmp_path):
     design = seamline.Design(above, reading="streamed", **{**KWARGS, "cutoff": float(frame["x"].abs().min())})
     with pytest.raises(OneSidedDataError, match=r"must have observations below the cutoff; got none"):
         design.fit()
+
+
+def test_progress_of_the_streamed_passes(folder):
+    from seamline.partitioned import reading_progress
+    seen = []
+    with reading_progress(lambda done, total: seen.append((done, total))):
+        seamline.Design(folder, reading="streamed", **KWARGS)       # the summary pass, one task per file
+    assert seen == [(k, len(SIZES)) for k in range(1, len(SIZES) + 1)]

@@ -188,9 +188,10 @@ def _tree(tasks: list, merge):
     return tasks[0]
 
 
-def _compute(*tasks):
-    import dask
-    return dask.compute(*tasks)
+def _compute(*tasks, name: str, total: int | None = None):
+    """Compute on the active scheduler; ``reading_progress`` hears of each partition done."""
+    from .partitioned import _compute as compute
+    return compute(list(tasks), name, total)
 
 
 class StreamingData:
@@ -249,7 +250,7 @@ class StreamingData:
             import dask
             plan = self._plan(variables)
             task = _tree([dask.delayed(_summary_part, pure=True)(p, plan) for p in self._parts()], _merge_summaries)
-            (summary,) = _compute(task)
+            (summary,) = _compute(task, name="_summary_part", total=self.frame.npartitions)
             self.passes += 1
             self._summaries[variables] = summary
         return self._summaries[variables]
@@ -301,7 +302,8 @@ class StreamingData:
             todo = [k for k in todo if k not in found]
             if not todo:
                 break
-            parts = _compute(*[dask.delayed(_refine_part, pure=True)(p, plan, queries) for p in self._parts()])
+            parts = _compute(*[dask.delayed(_refine_part, pure=True)(p, plan, queries) for p in self._parts()],
+                             name="_refine_part")
             self.passes += 1
             for i, k in enumerate(todo):
                 prefix, bits, within, count = state[k]
@@ -357,10 +359,13 @@ class StreamingData:
         for name, sign in (("below", -1), ("above", 1)):
             d, vals, w = held["rows"][name]
             complete = len(d) == s[name]["n"]
-            sides.append(WindowSide(sign, d, vals.copy(order="F"), w, neighbors=neighbors, n_side=s[name]["n"],
+            # the side centres ``vals`` in place; a wider window adds the offsets back (``_widen``)
+            sides.append(WindowSide(sign, d, vals, w, neighbors=neighbors, n_side=s[name]["n"],
                                     far=s[name]["far"], offsets=s[name]["sum"] / s[name]["n"], complete=complete,
                                     pilots=held["pilots"][name]))
+            held["rows"][name] = (d, None, w)
         held["limit"] = min(side.limit for side in sides)
+        held["sides"] = sides
         held["prepared"] = Prepared(sides[0], sides[1], variables, s["dropped"], 0, held["sd"], held["scale"], None)
         self._windows[key] = held
         return held["prepared"]
@@ -372,22 +377,34 @@ class StreamingData:
         want_pilots = held["pilots"] is None
         ask = {name: {"offsets": s[name]["sum"] / s[name]["n"], "inner": held["radius"], "radius": radius,
                       "pilots": held["tops"][name] if want_pilots else {}} for name in ("below", "above")}
-        parts = _compute(*[dask.delayed(_window_part, pure=True)(p, plan, ask) for p in self._parts()])
+        parts = _compute(*[dask.delayed(_window_part, pure=True)(p, plan, ask) for p in self._parts()],
+                         name="_window_part")
         self.passes += 1
         if want_pilots:
             held["pilots"] = {name: {share: (top, sum(p[name][share][0] for p in parts),
                                              sum(p[name][share][1] for p in parts))
                                      for share, top in held["tops"][name].items()} for name in ("below", "above")}
         rows = held["rows"] or {}
+        old = dict(zip(("below", "above"), held.pop("sides", (None, None))))
+        held.pop("prepared", None)
         for name in ("below", "above"):
-            pieces = [p[name]["rows"] for p in parts]
-            if name in rows:
-                pieces = [rows[name]] + pieces
+            pieces = [p[name].pop("rows") for p in parts]
+            if old[name] is not None:
+                # the rows held already come first (all nearer than the new ones); their values were
+                # centred by the side, so the offsets are added back (a new array: fitted engines
+                # may still hold the old side; equal to the values read up to the last digit)
+                side = old[name]
+                pieces.insert(0, (side.distance, side.values + side.offsets, side.weights))
+                old[name] = side = None
             d = np.concatenate([p[0] for p in pieces])
             order = np.argsort(d, kind="stable")
-            vals = np.concatenate([p[1] for p in pieces])[order]
+            d = d[order]
+            vals = np.empty((len(d), pieces[0][1].shape[1]), order="F")
+            for j in range(vals.shape[1]):
+                vals[:, j] = np.concatenate([p[1][:, j] for p in pieces])[order]
             w = None if pieces[0][2] is None else np.concatenate([p[2] for p in pieces])[order]
-            rows[name] = (d[order], vals, w)
+            del pieces, order
+            rows[name] = (d, vals, w)
         held["rows"], held["radius"] = rows, radius
 
 

@@ -76,14 +76,19 @@ class WindowSide(Side):
         self.moments = _WindowMoments(distance, self.limit)
 
     def _exact_limit(self) -> float:
-        d = self.distance
-        if len(d) == 0:
-            return 0.0
-        starts = np.flatnonzero(np.r_[True, np.diff(d) > self.tie_tol])
-        last_exact = len(starts) - self.neighbors - 1     # first group whose rows may miss neighbours
-        if last_exact < 1:
-            return 0.0
-        return float(d[starts[last_exact]])
+        """The distance where the rows that may miss neighbours begin (the last J + 1 groups of ties),
+        found on the window's tail only (no full-length temporaries)."""
+        d, need = self.distance, self.neighbors + 1
+        tail = min(len(d), 64 * need)
+        while True:
+            part = d[len(d) - tail:]
+            starts = np.flatnonzero(np.r_[True, np.diff(part) > self.tie_tol])   # groups within the tail
+            if len(starts) > need or tail == len(d):
+                break
+            tail = min(len(d), 4 * tail)
+        if len(starts) <= need:
+            return 0.0                                     # too few groups in the window: nothing is exact
+        return float(part[starts[len(starts) - need]])
 
     @property
     def far(self) -> float:
