@@ -166,11 +166,16 @@ def _window_part(part: pd.DataFrame, plan: dict, sides: dict) -> dict:
         for share, top in ask["pilots"].items():
             inside = d <= top
             u = sign * d[inside] / top
-            wi = np.ones(len(u)) if ws is None else ws[inside]
-            powers = np.vander(u, 2 * PILOT_DEGREE + 1, increasing=True) * wi[:, None]
-            moments = powers.sum(axis=0)
+            term = np.ones(len(u)) if ws is None else ws[inside].copy()      # w u^m, one power at a time
+            inner = vals[inside]
+            moments = np.empty(2 * PILOT_DEGREE + 1)
+            cross = np.empty((PILOT_DEGREE + 1, inner.shape[1]))
+            for m in range(2 * PILOT_DEGREE + 1):
+                moments[m] = term.sum()
+                if m <= PILOT_DEGREE:
+                    cross[m] = term @ inner
+                term *= u
             gram = moments[np.add.outer(np.arange(PILOT_DEGREE + 1), np.arange(PILOT_DEGREE + 1))]
-            cross = powers[:, : PILOT_DEGREE + 1].T @ vals[inside]
             piece[share] = (gram, cross)
         rows = (d > ask["inner"]) & (d <= ask["radius"])
         piece["rows"] = (d[rows], raw[rows], None if ws is None else ws[rows])
