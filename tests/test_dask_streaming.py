@@ -31,6 +31,7 @@ STREAMED_FITS = {
     "mse-split": dict(bandwidth="mse-split"),
     "coverage": dict(bandwidth="coverage", outcome="z"),
     "two-step pilot": dict(pilot_bandwidth="two-step"),
+    "ik": dict(bandwidth="ik"), "ik uniform": dict(bandwidth="ik", kernel="uniform"),
     "epanechnikov quadratic": dict(kernel="epanechnikov", degree=2),
     "hc0": dict(variance="hc0"), "hc1": dict(variance="hc1"), "hc3": dict(variance="hc3"),
     "adjusted": dict(adjust=True, variance="hc1"),
@@ -74,7 +75,7 @@ def test_streamed_fits_equal_memory_without_gathering(folder, memory):
 
 
 def test_every_result_equals_memory_on_the_streamed_route(folder, memory):
-    """Results off the streamed route (IK, density tests, bins, donut ...) use the gathered columns."""
+    """Results off the streamed route (donuts, density tests, bins, donut ...) use the gathered columns."""
     assert_same(results(seamline.Design(folder, reading="streamed", **KWARGS)), results(memory))
 
 
@@ -90,7 +91,7 @@ def test_a_dask_frame_with_weights_and_many_partitions():
     kwargs = dict(score="x", cutoff=0.1, outcome="y", weights="w")
     lazy = dd.from_pandas(frame, npartitions=13)
     got, want = seamline.Design(lazy, reading="streamed", **kwargs), seamline.Design(frame, **kwargs)
-    for options in ({}, dict(bandwidth="mse-split"), dict(bandwidth=0.5, variance="hc3")):
+    for options in ({}, dict(bandwidth="mse-split"), dict(bandwidth=0.5, variance="hc3"), dict(bandwidth="ik")):
         same_fit(got.fit(**options), want.fit(**options), str(options))
     assert got._data._gathered is None
     # the window holds a part of each side only: the other rows were summarised, never held
@@ -126,6 +127,7 @@ def test_order_statistics_are_exact_with_refinement(monkeypatch):
     got = seamline.Design(dd.from_pandas(frame, npartitions=3), reading="streamed", score="x", cutoff=0, outcome="y")
     want = seamline.Design(frame, score="x", cutoff=0, outcome="y")
     same_fit(got.fit(), want.fit(), "discrete")
+    same_fit(got.fit(bandwidth="ik"), want.fit(bandwidth="ik"), "discrete ik")     # ties at the medians
     ranks = [0, 999, 1000, 2999, 3999]
     stats = got._data._order_statistics(("y",), [("score", r) for r in ranks] + [("below", 7), ("above", 1500)])
     # First principles: the order statistics of the sorted sample, bit for bit.

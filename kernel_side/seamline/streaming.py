@@ -22,10 +22,10 @@ Passes (for one set of variables; each reads only the design's columns)
    A result that needs rows beyond the window's exact part asks for a wider window: one more pass
    gathers the rows between the old and the new radius.
 
-What is exact: fits at manual bandwidths and at the "mse", "mse-split" and "coverage" rules with
+What is exact: fits at manual bandwidths and at the "mse", "mse-split", "coverage" and "ik" rules with
 the "nearer-half" or "two-step" pilot, with any variance, equal the in-memory results up to the
 order of floating-point sums (relative differences ~1e-12; counts identical). Everything else
-(IK, donuts, fuzzy designs, clusters, density tests, bins, placebo cutoffs, balance tables ...) is
+(donuts, fuzzy designs, clusters, density tests, bins, placebo cutoffs, balance tables ...) is
 computed on the gathered route (``partitioned.gather_frame``), exactly, the first time it is asked for.
 
 Memory bound: the window (per row about 8 bytes x (2 + 2 x variables) plus moment tables of about
@@ -177,6 +177,21 @@ def _window_part(part: pd.DataFrame, plan: dict, sides: dict) -> dict:
                 term *= u
             gram = moments[np.add.outer(np.arange(PILOT_DEGREE + 1), np.arange(PILOT_DEGREE + 1))]
             piece[share] = (gram, cross)
+        if ask.get("cubic") is not None:                  # IK's global cubic over the nearer n // 2 + 1 rows
+            top, score_sd = ask["cubic"]
+            inside = d <= top
+            xs = sign * d[inside] / score_sd
+            term = np.ones(len(xs)) if ws is None else ws[inside].copy()
+            inner = vals[inside]
+            moments, cross = np.empty(7), np.empty((4, inner.shape[1]))
+            piece["cubic"] = {"rows": int(inside.sum()), "w": float(term.sum()), "w2": float(term @ term),
+                              "wv": term @ inner, "wvv": (inner * term[:, None]).T @ inner}
+            for m in range(7):
+                moments[m] = term.sum()
+                if m <= 3:
+                    cross[m] = term @ inner
+                term *= xs
+            piece["cubic"]["moments"], piece["cubic"]["xv"] = moments, cross
         rows = (d > ask["inner"]) & (d <= ask["radius"])
         piece["rows"] = (d[rows], raw[rows], None if ws is None else ws[rows])
         out[name] = piece
@@ -347,7 +362,9 @@ class StreamingData:
         if held is None:
             ranks = [("score", r) for q in (0.25, 0.75) for r in _quantile_ranks(n, q)]
             halves = {name: max(math.ceil(0.5 * s[name]["n"]), 1) - 1 for name in ("below", "above")}
-            stats = self._order_statistics(variables, ranks + [(k, r) for k, r in halves.items()])
+            ik_rows = {name: max(s[name]["n"] // 2 + 1, min(s[name]["n"], 4)) for name in ("below", "above")}
+            stats = self._order_statistics(variables, ranks + [(k, r) for k, r in halves.items()]
+                                           + [(k, r - 1) for k, r in ik_rows.items()])
             sd = math.sqrt(s["m2"] / (n - 1))
             q25, q75 = (_interpolated(n, q, lambda r: stats[("score", r)]) for q in (0.25, 0.75))
             scale = min(sd, (q75 - q25) / 1.349) if q75 > q25 else sd
@@ -355,7 +372,8 @@ class StreamingData:
                 * scale * n ** (-0.2)
             first = FIRST_WINDOW * pilot_c if radius is None else radius
             tops = {name: {0.5: stats[(name, r)], 1.0: s[name]["far"]} for name, r in halves.items()}
-            held = {"sd": sd, "scale": scale, "tops": tops, "pilots": None, "radius": -np.inf, "rows": None}
+            held = {"sd": sd, "scale": scale, "tops": tops, "pilots": None, "radius": -np.inf, "rows": None,
+                    "cubic_tops": {k: stats[(k, r - 1)] for k, r in ik_rows.items()}, "ik_rows": ik_rows}
             radius = first
         else:
             radius = max(radius * WIDEN, held["radius"] * WIDEN)
@@ -367,7 +385,7 @@ class StreamingData:
             # the side centres ``vals`` in place; a wider window adds the offsets back (``_widen``)
             sides.append(WindowSide(sign, d, vals, w, neighbors=neighbors, n_side=s[name]["n"],
                                     far=s[name]["far"], offsets=s[name]["sum"] / s[name]["n"], complete=complete,
-                                    pilots=held["pilots"][name]))
+                                    pilots=held["pilots"][name], cubic=held["cubic"][name]))
             held["rows"][name] = (d, None, w)
         held["limit"] = min(side.limit for side in sides)
         held["sides"] = sides
@@ -381,7 +399,9 @@ class StreamingData:
         plan = self._plan(variables)
         want_pilots = held["pilots"] is None
         ask = {name: {"offsets": s[name]["sum"] / s[name]["n"], "inner": held["radius"], "radius": radius,
-                      "pilots": held["tops"][name] if want_pilots else {}} for name in ("below", "above")}
+                      "pilots": held["tops"][name] if want_pilots else {},
+                      "cubic": (held["cubic_tops"][name], held["sd"]) if want_pilots else None}
+               for name in ("below", "above")}
         parts = _compute(*[dask.delayed(_window_part, pure=True)(p, plan, ask) for p in self._parts()],
                          name="_window_part")
         self.passes += 1
@@ -389,6 +409,16 @@ class StreamingData:
             held["pilots"] = {name: {share: (top, sum(p[name][share][0] for p in parts),
                                              sum(p[name][share][1] for p in parts))
                                      for share, top in held["tops"][name].items()} for name in ("below", "above")}
+            held["cubic"] = {}
+            for name, sign in (("below", 0.0), ("above", 1.0)):
+                total = {key: sum(p[name]["cubic"][key] for p in parts) for key in parts[0][name]["cubic"]}
+                if total["rows"] != held["ik_rows"][name]:
+                    held["cubic"][name] = None        # ties at the median: which tied rows count is the sort's
+                    continue
+                expo, coef = np.array([0, 0, 1, 2, 3]), np.array([1.0, sign, 1.0, 1.0, 1.0])
+                total["gram"] = np.outer(coef, coef) * total.pop("moments")[np.add.outer(expo, expo)]
+                total["cross"] = coef[:, None] * total.pop("xv")[expo]
+                held["cubic"][name] = total
         rows = held["rows"] or {}
         old = dict(zip(("below", "above"), held.pop("sides", (None, None))))
         held.pop("prepared", None)
@@ -442,7 +472,7 @@ def choose_streaming(data, reading: str, eligible: bool) -> bool:
 
 
 READINGS = ("automatic", "streamed", "gathered")     # Design(reading=...): how a partitioned input is read
-STREAMED_RULES = ("mse", "mse-split", "coverage")    # bandwidth rules computed from a window (and numbers)
+STREAMED_RULES = ("mse", "mse-split", "coverage", "ik")    # bandwidth rules computed from a window (and numbers)
 
 
 def streamable_frame(data, roles: dict[str, str], reading: str, *, cutoff, takeup, cluster, score_unit):

@@ -196,6 +196,21 @@ def coverage_factor(n_total: int, p: int) -> float:
     return float(n_total) ** (-p / ((2 * p + 3) * (p + 3)))
 
 
+def _cubic_from_sums(summaries, lam: np.ndarray) -> tuple[np.ndarray, float]:
+    """IK's global cubic with a jump and the outcome's weighted sd from per-side sums (``Side.cubic_sums``):
+    the normal equations of the weighted least squares, and np.cov's aweights formula."""
+    gram = sum(m["gram"] for m in summaries)
+    cross = sum(m["cross"] for m in summaries) @ lam
+    coef = np.linalg.solve(gram, cross)
+    w1, w2 = sum(m["w"] for m in summaries), sum(m["w2"] for m in summaries)
+    wy = sum(m["wv"] for m in summaries) @ lam
+    wyy = float(lam @ sum(m["wvv"] for m in summaries) @ lam)
+    rows = sum(m["rows"] for m in summaries)
+    if rows <= 1:
+        return coef, 1.0
+    return coef, float(np.sqrt((wyy - wy ** 2 / w1) / (w1 - w2 / w1)))
+
+
 def ik_bandwidth(below: Side, above: Side, *, kernel: str, lam: np.ndarray, score_sd: float,
                  n_total: int) -> tuple[float, list[str]]:
     """Imbens-Kalyanaraman (2012) bandwidth for the local linear jump (METHODS section 3.2).
@@ -224,22 +239,27 @@ def ik_bandwidth(below: Side, above: Side, *, kernel: str, lam: np.ndarray, scor
     sigma2 = [st[1] for st in stats]
 
     # third derivative from a global cubic with a jump, between the two side medians
-    xs, ys, ts, ws = [], [], [], []
-    for s in sides:
-        rows = max(s.n // 2 + 1, min(s.n, 4))
-        xs.append(s.sign * s.distance[:rows])
-        ys.append(s.values[:rows] @ lam)
-        ts.append(np.full(rows, 1.0 if s.sign > 0 else 0.0))
-        ws.append(s.w(slice(0, rows)))
-    x, y, t, w = (np.concatenate(v) for v in (xs, ys, ts, ws))
-    xs = x / score_sd  # standardized score keeps the cubic well conditioned in any units
-    design = np.column_stack([np.ones_like(xs), t, xs, xs ** 2, xs ** 3])
-    sw = np.sqrt(w)
-    coef = np.linalg.lstsq(design * sw[:, None], y * sw, rcond=None)[0]
+    summaries = [s.cubic_sums(score_sd) for s in sides]
+    if all(m is not None for m in summaries):
+        # sides that hold only their nearest rows: the same least squares from summed normal equations
+        coef, y_sd = _cubic_from_sums(summaries, lam)
+    else:
+        xs, ys, ts, ws = [], [], [], []
+        for s in sides:
+            rows = max(s.n // 2 + 1, min(s.n, 4))
+            xs.append(s.sign * s.distance[:rows])
+            ys.append(s.values[:rows] @ lam)
+            ts.append(np.full(rows, 1.0 if s.sign > 0 else 0.0))
+            ws.append(s.w(slice(0, rows)))
+        x, y, t, w = (np.concatenate(v) for v in (xs, ys, ts, ws))
+        xs = x / score_sd  # standardized score keeps the cubic well conditioned in any units
+        design = np.column_stack([np.ones_like(xs), t, xs, xs ** 2, xs ** 3])
+        sw = np.sqrt(w)
+        coef = np.linalg.lstsq(design * sw[:, None], y * sw, rcond=None)[0]
+        y_sd = float(np.sqrt(np.cov(y, aweights=w))) if len(y) > 1 else 1.0
     m3 = 6.0 * coef[4] / score_sd ** 3
     # (convention) IK floor the squared third derivative at 0.01; we apply it in standardized units
     # (score and outcome divided by their standard deviations) so the rule does not depend on units.
-    y_sd = float(np.sqrt(np.cov(y, aweights=w))) if len(y) > 1 else 1.0
     to_std = score_sd ** 3 / y_sd if y_sd > 0 else 1.0
     m3_floor_sq = max((m3 * to_std) ** 2, 0.01) / to_std ** 2
 

@@ -91,6 +91,11 @@ class Side:
         here: this side holds every row, and the bandwidth selector fits the pilot on them."""
         return None
 
+    def cubic_sums(self, score_sd: float):
+        """Sums of Imbens-Kalyanaraman's global cubic over the side's nearer n // 2 + 1 rows, when the
+        side does not hold them (``core.window_side``); None here (the selector uses the rows)."""
+        return None
+
     # ---- per-row series, each a function of a row slice -------------------------------------
     def w(self, rows: slice) -> np.ndarray:
         return np.ones(len(self.distance[rows])) if self.weights is None else self.weights[rows]

@@ -54,6 +54,8 @@ class WindowSide(Side):
     complete : True when the window holds the whole side (then it is exact everywhere).
     pilots : {share: (top, gram, cross)} the curvature pilot's sums over the whole side's nearer
         ``share`` (from a streaming pass), in the layout of ``Side.pilot_sums``, up to some degree.
+    cubic : IK's global cubic sums over the nearer n // 2 + 1 rows (``Side.cubic_sums``), or None
+        (ties at that row: which tied rows count depends on the sort, so the whole side is needed).
 
     Exact part: neighbour residuals of a row use up to J groups of tied distances beyond it, so
     rows are exact up to J + 1 groups before the window's edge; any bandwidth below ``limit`` (the
@@ -62,13 +64,14 @@ class WindowSide(Side):
 
     def __init__(self, sign: int, distance: np.ndarray, values: np.ndarray, weights: np.ndarray | None, *,
                  neighbors: int, n_side: int, far: float, offsets: np.ndarray, complete: bool,
-                 pilots: dict[float, tuple[float, np.ndarray, np.ndarray]]):
+                 pilots: dict[float, tuple[float, np.ndarray, np.ndarray]], cubic: dict | None = None):
         super().__init__(sign, distance, values, weights, None, neighbors, None, offsets=offsets)
         self.n_window = len(distance)
         self.n = int(n_side)
         self._far = float(far)
         self.complete = complete
         self.pilots = pilots
+        self.cubic = cubic
         # the whole side's tie tolerance (neighbor_residuals' default: relative to the side's range)
         near = float(distance[0]) if len(distance) else 0.0
         self.tie_tol = 1e-12 * max(self._far - near, np.finfo(float).tiny)
@@ -132,6 +135,22 @@ class WindowSide(Side):
             raise WindowTooNarrow(np.inf)
         top, gram, cross = summary
         return top, gram[: degree + 1, : degree + 1], cross[: degree + 1]
+
+    def cubic_sums(self, score_sd: float):
+        """The streamed sums, or, when ties at the median made them unusable, the same sums of this
+        side's first n // 2 + 1 rows once it holds the whole side (never None: the other side may
+        have only sums)."""
+        if self.cubic is not None:
+            return self.cubic
+        if not self.complete:
+            raise WindowTooNarrow(np.inf)
+        rows = max(self.n // 2 + 1, min(self.n, 4))
+        xs = self.sign * self.distance[:rows] / score_sd
+        w = self.w(slice(0, rows))
+        v = self.values[:rows]
+        basis = np.column_stack([np.ones(rows), np.full(rows, 1.0 if self.sign > 0 else 0.0), xs, xs ** 2, xs ** 3])
+        return {"rows": rows, "w": float(w.sum()), "w2": float(w @ w), "wv": w @ v, "wvv": (v * w[:, None]).T @ v,
+                "gram": (basis * w[:, None]).T @ basis, "cross": (basis * w[:, None]).T @ v}
 
     def without_nearest(self, start: int, values: np.ndarray | None = None) -> "Side":
         raise WindowTooNarrow(np.inf)      # donuts go through the gathered route
