@@ -27,13 +27,31 @@ VarianceFn = Callable[[SideFit, np.ndarray], float]
 
 @dataclass
 class Selection:
-    """Bandwidths chosen by the MSE rules for one specification (all pairs are (below, above))."""
+    """Bandwidths chosen by the MSE rules for one specification (all pairs are (below, above)).
+
+    The per-side pair (``h_split``, ``b_split``) is computed when first read: a common-bandwidth fit
+    never needs it, and a side whose curvature is flat selects a wide per-side bias bandwidth, which
+    on the streamed route (core.window_side) would widen the window for nothing.
+    """
     h_common: float
-    h_split: tuple[float, float]
     b_common: float
-    b_split: tuple[float, float]
     pilot: float
     warnings: list[str] = field(default_factory=list)
+    split: Callable[[], tuple[tuple[float, float], tuple[float, float]]] | None = None
+    _split_value: tuple | None = field(default=None, repr=False)
+
+    def _pair(self) -> tuple:
+        if self._split_value is None:
+            self._split_value = self.split()
+        return self._split_value
+
+    @property
+    def h_split(self) -> tuple[float, float]:
+        return self._pair()[0]
+
+    @property
+    def b_split(self) -> tuple[float, float]:
+        return self._pair()[1]
 
 
 def _lead(fit: SideFit) -> float:
@@ -144,10 +162,7 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
         return float(((3 + 2 * p) * v / (2 * (q - p) * bias2)) ** expo_b * n ** -expo_b)
 
     b_common = min(b_rule(sum(v_b), (bias_b[1] - bias_b[0]) ** 2 + sum(reg_b)), top)
-    b_split = tuple(min(b_rule(v, bb ** 2 + rb), s.far)
-                    for v, bb, rb, s in zip(v_b, bias_b, reg_b, sides))
     b_common = max(b_common, *(_floor(s, 0.0, q + 1, kernel) for s in sides))
-    b_split = tuple(_floor(s, bb, q + 1, kernel) for s, bb in zip(sides, b_split))
 
     # (4) curvature mu^(p+1) at b and its variance (the regulariser R)
     def curvature(side: Side, b: float) -> tuple[float, float]:
@@ -155,7 +170,6 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
         return float(f.estimate @ lam), variance_fn(f, lam)
 
     curv_common = [curvature(s, b_common) for s in sides]
-    curv_split = [curvature(s, bb) for s, bb in zip(sides, b_split)]
 
     expo = 1.0 / (2 * p + 3)
     const = (1 + 2 * nu) / (2 * (p + 1 - nu))
@@ -178,17 +192,25 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
         h_common = h_rule(parts[0][0] + parts[1][0], (parts[1][1] - parts[0][1]) ** 2,
                           parts[0][2] + parts[1][2], top)
         h_common = max(h_common, *(_floor(s, 0.0, p + 1, kernel) for s in sides))
-    h_split = []
-    for s, cv in zip(sides, curv_split):
-        h_s = c
-        for _ in range(2):
-            v, bias, reg = pieces(s, h_s, cv)
-            h_s = _floor(s, h_rule(v, bias ** 2, reg, s.far), p + 1, kernel)
-        h_split.append(h_s)
+
+    def split() -> tuple[tuple[float, float], tuple[float, float]]:
+        b_split = tuple(min(b_rule(v, bb ** 2 + rb), s.far)
+                        for v, bb, rb, s in zip(v_b, bias_b, reg_b, sides))
+        b_split = tuple(_floor(s, bb, q + 1, kernel) for s, bb in zip(sides, b_split))
+        curv_split = [curvature(s, bb) for s, bb in zip(sides, b_split)]
+        h_split = []
+        for s, cv in zip(sides, curv_split):
+            h_s = c
+            for _ in range(2):
+                v, bias, reg = pieces(s, h_s, cv)
+                h_s = _floor(s, h_rule(v, bias ** 2, reg, s.far), p + 1, kernel)
+            h_split.append(h_s)
+        return (h_split[0], h_split[1]), b_split
+
     if h_common >= top * 0.999:
         warnings.append("The MSE-optimal bandwidth reached the range of the data: the estimated "
                         "curvature difference is close to zero. Consider a manual bandwidth.")
-    return Selection(h_common, (h_split[0], h_split[1]), b_common, b_split, c, warnings)
+    return Selection(h_common, b_common, c, warnings, split)
 
 
 def coverage_factor(n_total: int, p: int) -> float:

@@ -82,7 +82,7 @@ class Side:
     @property
     def far(self) -> float:
         """The largest distance on the side (the cap of every bandwidth)."""
-        return float(self.distance[-1])
+        return self.distance[-1]
 
     def pilot_sums(self, share: float, degree: int):
         """Sums of a uniform-kernel polynomial pilot over the nearer ``share`` of the side, when the

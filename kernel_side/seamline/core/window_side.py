@@ -68,7 +68,7 @@ class WindowSide(Side):
         super().__init__(sign, distance, values, weights, None, neighbors, None, offsets=offsets)
         self.n_window = len(distance)
         self.n = int(n_side)
-        self._far = float(far)
+        self._far = np.float64(far)
         self.complete = complete
         self.pilots = pilots
         self.cubic = cubic
