@@ -139,9 +139,11 @@ def _side_array(x: np.ndarray, keep: np.ndarray, which: str) -> np.ndarray:
 def _refine_part(part: pd.DataFrame, plan: dict, queries: list) -> list:
     """Per query (array, prefix, bits, gather): the matching values, or the next 16 bits' histogram."""
     x, _, _, keep, _, _ = _columns(part, plan)
-    out = []
+    out, cache = [], {}
     for which, prefix, bits, gather in queries:
-        keys = sort_keys(_side_array(x, keep, which))
+        keys = cache.get(which)
+        if keys is None:                         # one key array per array kind, shared by its queries
+            keys = cache[which] = sort_keys(_side_array(x, keep, which))
         match = keys[(keys >> np.uint64(64 - bits)) == np.uint64(prefix)] if bits else keys
         if gather:
             out.append(match)
