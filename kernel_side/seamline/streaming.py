@@ -459,18 +459,15 @@ def _quantile_ranks(n: int, q: float) -> list[int]:
     return sorted({lo, min(lo + 1, n - 1)})
 
 
-def choose_streaming(data, reading: str, eligible: bool) -> bool:
-    """Whether a partitioned input goes through the bounded-memory route (``reading`` resolved)."""
-    if reading == "gathered" or not eligible:
-        return False
-    if reading == "streamed":
-        return True
+def large_enough(data) -> bool:
+    """reading="automatic": whether a partitioned input has more than STREAM_ABOVE_ROWS rows (a Parquet
+    path from its files' metadata; a dask frame from ``frame.shape[0]``, which dask may answer from
+    metadata too)."""
     if isinstance(data, (str, os.PathLike)):
         import pyarrow.parquet as pq
         from .partitioned import parquet_files
-        rows = sum(pq.read_metadata(f).num_rows for f in parquet_files(data))
-        return rows > STREAM_ABOVE_ROWS
-    return int(data.shape[0].compute()) > STREAM_ABOVE_ROWS    # dask may answer from metadata
+        return sum(pq.read_metadata(f).num_rows for f in parquet_files(data)) > STREAM_ABOVE_ROWS
+    return int(data.shape[0].compute()) > STREAM_ABOVE_ROWS
 
 
 READINGS = ("automatic", "streamed", "gathered")     # Design(reading=...): how a partitioned input is read
@@ -513,7 +510,6 @@ def streamable_frame(data, roles: dict[str, str], reading: str, *, cutoff, takeu
                                      f"or cluster; got {why}. Use reading=\"gathered\" (the data must then fit in "
                                      "memory), or cast the columns in dask first.")
         return None
-    if reading == "automatic" and not choose_streaming(data if isinstance(data, (str, os.PathLike)) else frame,
-                                                       reading, True):
+    if reading == "automatic" and not large_enough(data if isinstance(data, (str, os.PathLike)) else frame):
         return None
     return frame
