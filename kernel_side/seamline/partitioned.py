@@ -246,11 +246,14 @@ def gather_frame(data, columns: list[str] | None = None, roles: dict[str, str] |
     return pd.DataFrame(joined, index=pd.RangeIndex(n), copy=False)
 
 
-def _compute(tasks: list) -> list:
-    """Compute the partition tasks on the active scheduler, reporting progress when asked."""
+def _compute(tasks: list, name: str = "_partition_arrays", total: int | None = None) -> list:
+    """Compute the partition tasks on the active scheduler, reporting progress when asked.
+
+    ``name``: the function whose tasks are counted (one per partition); ``total``: how many there are
+    (default: one per task given; a pass reduced to one task gives its partitions' count)."""
     import dask
     report = _REPORT.get()
-    total = len(tasks)
+    total = len(tasks) if total is None else total
     if report is None or total == 0:
         return list(dask.compute(*tasks))
     try:
@@ -261,7 +264,7 @@ def _compute(tasks: list) -> list:
     if client is not None:
         futures = client.compute(tasks)
         for done, _ in enumerate(as_completed(futures), 1):
-            report(done, total)
+            report(total if len(futures) < total and done == len(futures) else done, total)
         return client.gather(futures)
     from dask.callbacks import Callback
 
@@ -269,8 +272,8 @@ def _compute(tasks: list) -> list:
         done = 0
 
         def _posttask(self, key, result, dsk, state, worker_id):
-            name = key[0] if isinstance(key, tuple) else key
-            if str(name).startswith("_partition_arrays"):
+            task = key[0] if isinstance(key, tuple) else key
+            if str(task).startswith(name):
                 Count.done += 1
                 report(Count.done, total)
 

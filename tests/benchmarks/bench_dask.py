@@ -8,11 +8,18 @@ Prints, with their targets (issue 12):
   3. 1e8 rows from Parquet, default fit + density test + bins: time / one dask pass that sums the
      two columns                                                            target <= 6
      peak memory of that run / (0.75 x the two columns + 0.6 GB)           target <= 1
+  4. the bounded-memory route (reading="streamed") at the large size, default fit + a fit at a manual
+     bandwidth: time / one dask pass summing the two columns              target <= 6
+     peak memory / (0.75 x the two columns + 0.6 GB)                      target <= 1
+     (the density test and bins are not on that route yet: step 3 measures them on the gathered route)
+  5. step 4 at the in-memory size on data whose two sides curve differently (a narrow bias
+     bandwidth, so a small window)
 The data are invented here (seeded): a continuous score on [-1, 1], a smooth outcome with a jump.
 Step 3 writes about 2 GB of Parquet to a temporary folder, removes it, and runs in child processes
 so that their peak resident memory is their own; it is skipped when the machine has too little
 free memory for the route measured (the gathered route needs about 12 x the two columns).
-Run: make bench   (or .venv/bin/python tests/benchmarks/bench_dask.py [n_equal n_memory n_large])
+Run: make bench   (or .venv/bin/python tests/benchmarks/bench_dask.py [n_equal n_memory n_large [steps]]),
+steps a string of step numbers, e.g. "14" for steps 1 and 4 only (default "12345").
 """
 from __future__ import annotations
 
@@ -38,21 +45,23 @@ KWARGS = dict(score="x", cutoff=0.0, outcome="y")
 GB = 1e9
 
 
-def invented(n: int, seed: int) -> pd.DataFrame:
-    """Invented rows: score uniform on [-1, 1], outcome smooth in the score with a jump of 0.2."""
+def invented(n: int, seed: int, curved: bool = False) -> pd.DataFrame:
+    """Invented rows: score uniform on [-1, 1], outcome smooth in the score with a jump of 0.2
+    (``curved``: the two sides' curvatures differ, so the bias bandwidth is narrow)."""
     rng = np.random.default_rng(seed)
     x = rng.uniform(-1.0, 1.0, n)
-    y = 0.5 + 0.8 * x - 0.4 * x ** 2 + 0.2 * (x >= 0) + rng.normal(0.0, 0.3 + 0.1 * np.abs(x), n)
+    bend = (3.0 * x ** 2 + 4.0 * x ** 3) * (x >= 0) if curved else 0.0
+    y = 0.5 + 0.8 * x - 0.4 * x ** 2 + bend + 0.2 * (x >= 0) + rng.normal(0.0, 0.3 + 0.1 * np.abs(x), n)
     return pd.DataFrame({"x": x, "y": y})
 
 
-def write_parquet(folder: str, n: int, files: int, seed: int) -> None:
+def write_parquet(folder: str, n: int, files: int, seed: int, curved: bool = False) -> None:
     """``n`` invented rows in ``files`` Parquet files of uneven size, written one file at a time."""
     cuts = np.linspace(0, n, files + 1)
     cuts[1:-1] += np.resize([0.2, -0.3, 0.1], files - 1) * (n / files)     # uneven sizes
     cuts = np.round(cuts).astype(int)
     for k in range(files):
-        part = invented(int(cuts[k + 1] - cuts[k]), seed + k)
+        part = invented(int(cuts[k + 1] - cuts[k]), seed + k, curved)
         pq.write_table(pa.Table.from_pandas(part, preserve_index=False), os.path.join(folder, f"part-{k}.parquet"))
 
 
@@ -86,7 +95,7 @@ def equality(n: int) -> None:
         want = run(seamline.Design(memory, **KWARGS))
         t_memory = time.perf_counter() - t0
         t0 = time.perf_counter()
-        got = run(seamline.Design(folder, **KWARGS))
+        got = run(seamline.Design(folder, reading="streamed", **KWARGS))   # fits streamed, the rest gathered
         t_dask = time.perf_counter() - t0
         worst, counts = largest_difference(got, want)
         print(f"[1] n = {n:,}: dask vs in-memory, largest relative difference {worst:.1e} (target < 1e-8); "
@@ -148,30 +157,58 @@ def large(n: int) -> None:
         shutil.rmtree(folder, ignore_errors=True)
 
 
+def streamed(n: int, curved: bool = False) -> None:
+    columns = 16.0 * n
+    folder = tempfile.mkdtemp(prefix="seamline-bench-stream-")
+    try:
+        files = max(8, n // 2_000_000)
+        _child("write-curved" if curved else "write", folder, n)
+        size = sum(os.path.getsize(os.path.join(folder, f)) for f in os.listdir(folder))
+        one_pass = _child("pass", folder, n)
+        work = _child("streamed", folder, n)
+        budget = 0.75 * columns + 0.6 * GB
+        print(f"[{5 if curved else 4}] n = {n:,}{' (curved data)' if curved else ''} from {files} Parquet files ({size / GB:.2f} GB), streamed: default fit + manual fit "
+              f"{work['seconds']:.1f} s ({work['passes']} passes; window {work['window']:,} rows, "
+              f"h = {work['h']:.4g}) | one dask pass summing the two columns {one_pass['seconds']:.1f} s | "
+              f"ratio {work['seconds'] / one_pass['seconds']:.1f} (target <= 6)")
+        print(f"    peak memory {work['peak'] / GB:.2f} GB | budget {budget / GB:.2f} GB | ratio "
+              f"{work['peak'] / budget:.2f} (target <= 1); the summing pass alone peaks at {one_pass['peak'] / GB:.2f} GB")
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+
+
 def child(task: str, folder: str, n: int) -> None:
     t0 = time.perf_counter()
-    if task == "write":
-        write_parquet(folder, n, max(8, n // 2_000_000), seed=1000)
+    if task.startswith("write"):
+        write_parquet(folder, n, max(8, n // 2_000_000), seed=1000, curved=task == "write-curved")
     elif task == "pass":
         import dask.dataframe as dd
         dd.read_parquet(folder, columns=["x", "y"]).sum().compute()
+    elif task == "streamed":
+        design = seamline.Design(folder, reading="streamed", **KWARGS)
+        fit = design.fit()
+        design.fit(bandwidth=fit.bandwidth[0] / 2)
+        extra = {"passes": design._data.passes, "h": fit.bandwidth[0],
+                 "window": sum(s.n_window for s in (design._data.window(("y",)).below, design._data.window(("y",)).above))}
     else:
-        design = seamline.Design(folder, **KWARGS)
+        design = seamline.Design(folder, reading="gathered", **KWARGS)
         design.fit(), design.density_test(), design.bins()
     seconds = time.perf_counter() - t0
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024.0
-    print(json.dumps({"seconds": seconds, "peak": peak}))
+    print(json.dumps({"seconds": seconds, "peak": peak, **(extra if task == "streamed" else {})}))
 
 
-def main(n_equal: int = 4_000_000, n_memory: int = 10_000_000, n_large: int = 100_000_000) -> None:
+def main(n_equal: int = 4_000_000, n_memory: int = 10_000_000, n_large: int = 100_000_000,
+         steps: str = "12345") -> None:
     print(f"invented data (seeded, made by this script); {os.cpu_count()} CPUs")
-    equality(n_equal)
-    memory_ratio(n_memory)
-    large(n_large)
+    for step, work, n in (("1", equality, n_equal), ("2", memory_ratio, n_memory), ("3", large, n_large),
+                          ("4", streamed, n_large), ("5", lambda n: streamed(n, curved=True), n_memory)):
+        if step in steps:
+            work(n)
 
 
 if __name__ == "__main__":
     if len(sys.argv) > 1 and sys.argv[1] == "--child":
         child(sys.argv[2], sys.argv[3], int(sys.argv[4]))
     else:
-        main(*(int(v) for v in sys.argv[1:]))
+        main(*(int(v) for v in sys.argv[1:4]), *sys.argv[4:5])

@@ -27,13 +27,31 @@ VarianceFn = Callable[[SideFit, np.ndarray], float]
 
 @dataclass
 class Selection:
-    """Bandwidths chosen by the MSE rules for one specification (all pairs are (below, above))."""
+    """Bandwidths chosen by the MSE rules for one specification (all pairs are (below, above)).
+
+    The per-side pair (``h_split``, ``b_split``) is computed when first read: a common-bandwidth fit
+    never needs it, and a side whose curvature is flat selects a wide per-side bias bandwidth, which
+    on the streamed route (core.window_side) would widen the window for nothing.
+    """
     h_common: float
-    h_split: tuple[float, float]
     b_common: float
-    b_split: tuple[float, float]
     pilot: float
     warnings: list[str] = field(default_factory=list)
+    split: Callable[[], tuple[tuple[float, float], tuple[float, float]]] | None = None
+    _split_value: tuple | None = field(default=None, repr=False)
+
+    def _pair(self) -> tuple:
+        if self._split_value is None:
+            self._split_value = self.split()
+        return self._split_value
+
+    @property
+    def h_split(self) -> tuple[float, float]:
+        return self._pair()[0]
+
+    @property
+    def b_split(self) -> tuple[float, float]:
+        return self._pair()[1]
 
 
 def _lead(fit: SideFit) -> float:
@@ -60,6 +78,11 @@ def _global_derivative(side: Side, order: int, lam: np.ndarray, degree: int,
     degree = min(degree, side.distinct_within(rows) - 1)
     if degree < order:
         return 0.0  # (convention) too few distinct values for the pilot: treat the curvature as unknown-zero
+    summary = side.pilot_sums(share, degree)   # None: the side holds the pilot's rows (always in memory)
+    if summary is not None:
+        top, gram, cross = summary
+        beta = np.linalg.solve(gram, cross)
+        return float(factorial(order) / top ** order * beta[order] @ lam)
     top = float(side.distance[rows - 1])
     fit = fit_side(side, top, top, degree, degree, order, "uniform")
     return float(fit.derivative(order) @ lam)
@@ -115,7 +138,7 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
                 "manual bandwidth and pilot_bandwidth.")
     warnings: list[str] = []
     n = float(n_total)
-    top = max(below.distance[-1], above.distance[-1])
+    top = max(below.far, above.far)
     c = normal_reference_constant(kernel) * score_scale * n ** (-0.2)
     c = min(max(c, *(_floor(s, 0.0, q + 1, kernel) for s in sides)), top)
 
@@ -139,10 +162,7 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
         return float(((3 + 2 * p) * v / (2 * (q - p) * bias2)) ** expo_b * n ** -expo_b)
 
     b_common = min(b_rule(sum(v_b), (bias_b[1] - bias_b[0]) ** 2 + sum(reg_b)), top)
-    b_split = tuple(min(b_rule(v, bb ** 2 + rb), s.distance[-1])
-                    for v, bb, rb, s in zip(v_b, bias_b, reg_b, sides))
     b_common = max(b_common, *(_floor(s, 0.0, q + 1, kernel) for s in sides))
-    b_split = tuple(_floor(s, bb, q + 1, kernel) for s, bb in zip(sides, b_split))
 
     # (4) curvature mu^(p+1) at b and its variance (the regulariser R)
     def curvature(side: Side, b: float) -> tuple[float, float]:
@@ -150,7 +170,6 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
         return float(f.estimate @ lam), variance_fn(f, lam)
 
     curv_common = [curvature(s, b_common) for s in sides]
-    curv_split = [curvature(s, bb) for s, bb in zip(sides, b_split)]
 
     expo = 1.0 / (2 * p + 3)
     const = (1 + 2 * nu) / (2 * (p + 1 - nu))
@@ -173,22 +192,45 @@ def mse_selection(below: Side, above: Side, *, p: int, q: int, nu: int, kernel: 
         h_common = h_rule(parts[0][0] + parts[1][0], (parts[1][1] - parts[0][1]) ** 2,
                           parts[0][2] + parts[1][2], top)
         h_common = max(h_common, *(_floor(s, 0.0, p + 1, kernel) for s in sides))
-    h_split = []
-    for s, cv in zip(sides, curv_split):
-        h_s = c
-        for _ in range(2):
-            v, bias, reg = pieces(s, h_s, cv)
-            h_s = _floor(s, h_rule(v, bias ** 2, reg, float(s.distance[-1])), p + 1, kernel)
-        h_split.append(h_s)
+
+    def split() -> tuple[tuple[float, float], tuple[float, float]]:
+        b_split = tuple(min(b_rule(v, bb ** 2 + rb), s.far)
+                        for v, bb, rb, s in zip(v_b, bias_b, reg_b, sides))
+        b_split = tuple(_floor(s, bb, q + 1, kernel) for s, bb in zip(sides, b_split))
+        curv_split = [curvature(s, bb) for s, bb in zip(sides, b_split)]
+        h_split = []
+        for s, cv in zip(sides, curv_split):
+            h_s = c
+            for _ in range(2):
+                v, bias, reg = pieces(s, h_s, cv)
+                h_s = _floor(s, h_rule(v, bias ** 2, reg, s.far), p + 1, kernel)
+            h_split.append(h_s)
+        return (h_split[0], h_split[1]), b_split
+
     if h_common >= top * 0.999:
         warnings.append("The MSE-optimal bandwidth reached the range of the data: the estimated "
                         "curvature difference is close to zero. Consider a manual bandwidth.")
-    return Selection(h_common, (h_split[0], h_split[1]), b_common, b_split, c, warnings)
+    return Selection(h_common, b_common, c, warnings, split)
 
 
 def coverage_factor(n_total: int, p: int) -> float:
     """Rule-of-thumb coverage-error rescaling n^(-p / ((2p+3)(p+3))) of an MSE bandwidth (CCF 2020)."""
     return float(n_total) ** (-p / ((2 * p + 3) * (p + 3)))
+
+
+def _cubic_from_sums(summaries, lam: np.ndarray) -> tuple[np.ndarray, float]:
+    """IK's global cubic with a jump and the outcome's weighted sd from per-side sums (``Side.cubic_sums``):
+    the normal equations of the weighted least squares, and np.cov's aweights formula."""
+    gram = sum(m["gram"] for m in summaries)
+    cross = sum(m["cross"] for m in summaries) @ lam
+    coef = np.linalg.solve(gram, cross)
+    w1, w2 = sum(m["w"] for m in summaries), sum(m["w2"] for m in summaries)
+    wy = sum(m["wv"] for m in summaries) @ lam
+    wyy = float(lam @ sum(m["wvv"] for m in summaries) @ lam)
+    rows = sum(m["rows"] for m in summaries)
+    if rows <= 1:
+        return coef, 1.0
+    return coef, float(np.sqrt((wyy - wy ** 2 / w1) / (w1 - w2 / w1)))
 
 
 def ik_bandwidth(below: Side, above: Side, *, kernel: str, lam: np.ndarray, score_sd: float,
@@ -219,35 +261,40 @@ def ik_bandwidth(below: Side, above: Side, *, kernel: str, lam: np.ndarray, scor
     sigma2 = [st[1] for st in stats]
 
     # third derivative from a global cubic with a jump, between the two side medians
-    xs, ys, ts, ws = [], [], [], []
-    for s in sides:
-        rows = max(s.n // 2 + 1, min(s.n, 4))
-        xs.append(s.sign * s.distance[:rows])
-        ys.append(s.values[:rows] @ lam)
-        ts.append(np.full(rows, 1.0 if s.sign > 0 else 0.0))
-        ws.append(s.w(slice(0, rows)))
-    x, y, t, w = (np.concatenate(v) for v in (xs, ys, ts, ws))
-    xs = x / score_sd  # standardized score keeps the cubic well conditioned in any units
-    design = np.column_stack([np.ones_like(xs), t, xs, xs ** 2, xs ** 3])
-    sw = np.sqrt(w)
-    coef = np.linalg.lstsq(design * sw[:, None], y * sw, rcond=None)[0]
+    summaries = [s.cubic_sums(score_sd) for s in sides]
+    if all(m is not None for m in summaries):
+        # sides that hold only their nearest rows: the same least squares from summed normal equations
+        coef, y_sd = _cubic_from_sums(summaries, lam)
+    else:
+        xs, ys, ts, ws = [], [], [], []
+        for s in sides:
+            rows = max(s.n // 2 + 1, min(s.n, 4))
+            xs.append(s.sign * s.distance[:rows])
+            ys.append(s.values[:rows] @ lam)
+            ts.append(np.full(rows, 1.0 if s.sign > 0 else 0.0))
+            ws.append(s.w(slice(0, rows)))
+        x, y, t, w = (np.concatenate(v) for v in (xs, ys, ts, ws))
+        xs = x / score_sd  # standardized score keeps the cubic well conditioned in any units
+        design = np.column_stack([np.ones_like(xs), t, xs, xs ** 2, xs ** 3])
+        sw = np.sqrt(w)
+        coef = np.linalg.lstsq(design * sw[:, None], y * sw, rcond=None)[0]
+        y_sd = float(np.sqrt(np.cov(y, aweights=w))) if len(y) > 1 else 1.0
     m3 = 6.0 * coef[4] / score_sd ** 3
     # (convention) IK floor the squared third derivative at 0.01; we apply it in standardized units
     # (score and outcome divided by their standard deviations) so the rule does not depend on units.
-    y_sd = float(np.sqrt(np.cov(y, aweights=w))) if len(y) > 1 else 1.0
     to_std = score_sd ** 3 / y_sd if y_sd > 0 else 1.0
     m3_floor_sq = max((m3 * to_std) ** 2, 0.01) / to_std ** 2
 
     m2, reg = [], []
     for s, s2 in zip(sides, sigma2):
         h2 = 3.56 * (s2 / (f_hat * m3_floor_sq)) ** (1 / 7) * s.n ** (-1 / 7)
-        h2 = _floor(s, min(h2, float(s.distance[-1])), 3, "uniform")
+        h2 = _floor(s, min(h2, s.far), 3, "uniform")
         fit = fit_side(s, h2, h2, 2, 2, 2, "uniform", direct=True)
         m2.append(float(fit.derivative(2) @ lam))
         n2 = s.count_positive(h2, "uniform")
         reg.append(720.0 * s2 / (n2 * h2 ** 4))
     denom = f_hat * ((m2[1] - m2[0]) ** 2 + reg[0] + reg[1])
     h = ik_constant(kernel) * ((sigma2[0] + sigma2[1]) / denom) ** 0.2 * n ** (-0.2)
-    top = max(below.distance[-1], above.distance[-1])
+    top = max(below.far, above.far)
     h = max(min(h, top), *(_floor(s, 0.0, 3, kernel) for s in sides))
     return float(h), warnings

@@ -25,18 +25,22 @@ class Side:
     neighbors : J for the nearest-neighbour residuals.
     rows : (n,) integer positions of the observations in the source data, or None. The data layer
         keeps them so that a derived side (``without_nearest``) reads its variables afresh.
+    offsets : (k,) the side means to centre on, or None (the mean of ``values``). A side that holds
+        only the rows nearest the cutoff (``core.window_side``) centres on its whole side's means.
     """
 
     def __init__(self, sign: int, distance: np.ndarray, values: np.ndarray,
                  weights: np.ndarray | None = None, clusters: np.ndarray | None = None,
-                 neighbors: int = 3, rows: np.ndarray | None = None):
+                 neighbors: int = 3, rows: np.ndarray | None = None, offsets: np.ndarray | None = None):
         self.sign = sign
         self.rows = rows
         self.distance = distance
         values = values if values.ndim == 2 else values[:, None]
         # Centre each variable on this side: the moment engine expands squared residuals, which
         # would cancel catastrophically for outcomes with a large offset (e.g. y + 1e6).
-        self.offsets = values.mean(axis=0) if len(values) else np.zeros(values.shape[1])
+        if offsets is None:
+            offsets = values.mean(axis=0) if len(values) else np.zeros(values.shape[1])
+        self.offsets = offsets
         values -= self.offsets  # the caller hands over a fresh array (never user data)
         self.values = values
         self.weights = weights
@@ -74,6 +78,23 @@ class Side:
         residuals from base's: row i is base row ``start + i`` (a tail, to base's far end), or,
         reversed, base row ``start - 1 - i`` (base's first ``start`` rows in reverse order)."""
         self._nn_base = (base, start, reversed_)
+
+    @property
+    def far(self) -> float:
+        """The largest distance on the side (the cap of every bandwidth)."""
+        return self.distance[-1]
+
+    def pilot_sums(self, share: float, degree: int):
+        """Sums of a uniform-kernel polynomial pilot over the nearer ``share`` of the side, when the
+        side does not hold those rows: (top, Gram, cross products) in u = sign * d / top, with
+        Gram[j, k] = sum w u^(j+k) and cross[j] = sum w u^j (values - offsets) over d <= top. None
+        here: this side holds every row, and the bandwidth selector fits the pilot on them."""
+        return None
+
+    def cubic_sums(self, score_sd: float):
+        """Sums of Imbens-Kalyanaraman's global cubic over the side's nearer n // 2 + 1 rows, when the
+        side does not hold them (``core.window_side``); None here (the selector uses the rows)."""
+        return None
 
     # ---- per-row series, each a function of a row slice -------------------------------------
     def w(self, rows: slice) -> np.ndarray:

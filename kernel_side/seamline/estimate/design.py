@@ -11,7 +11,9 @@ import pandas as pd
 from ..core.bandwidth import Selection, coverage_factor, ik_bandwidth, mse_selection
 from ..core.kernels import normal_reference_constant
 from ..core.locpoly import SideFit, variance_fast, window_arrays
+from ..core.window_side import WindowTooNarrow
 from ..data import DesignData, Prepared, as_frame, check_columns, column_names
+from ..streaming import READINGS, STREAMED_RULES, StreamingData, streamable_frame
 from ..errors import CutoffTypeError, InvalidOptionError, shown
 from ..options import SIDES, check_option
 from ..time_score import TIME_CAUTION, is_time_value, looks_like_date
@@ -93,8 +95,11 @@ class Design:
     """
 
     def __init__(self, data, score: str, cutoff, outcome, treated: str = "above", takeup=None,
-                 covariates=None, cluster=None, weights=None, score_unit=None):
+                 covariates=None, cluster=None, weights=None, score_unit=None, reading: str = "automatic"):
         self.score = score
+        self.reading = check_option("reading", reading, READINGS)
+        self._frame_loader = None
+        self._frame_value = None
         self.outcomes = _as_names(outcome, "outcome")
         if not self.outcomes:
             raise InvalidOptionError("`outcome` must name at least one column; got none. Pass outcome=\"y\".")
@@ -116,6 +121,7 @@ class Design:
         else:
             self._init_data(data, score, cutoff, takeup, cluster, weights, score_unit)
         self._selections: dict[tuple, Selection] = {}
+        self._needed: dict[tuple, float] = {}     # radius each streamed variable set's window must reach
         # Bounded: a slider session makes many specifications, and engines hold window arrays.
         self._fits: Bounded = Bounded(FIT_CACHE)
         self._engines: Bounded = Bounded(ENGINE_CACHE)
@@ -144,10 +150,26 @@ class Design:
                  **{c: "covariates" for c in self.covariates}, **({cluster: "cluster"} if cluster else {}),
                  **({weights: "weights"} if weights else {})}
         check_columns(data, roles)
-        self._frame = as_frame(data, list(roles), roles)
         self._declared = dict(score=score, cutoff=cutoff, outcome=self.outcomes, treated=self.treated,
                               takeup=takeup, covariates=self.covariates, cluster=cluster, weights=weights,
                               score_unit=score_unit)
+        frame = streamable_frame(data, roles, self.reading, cutoff=cutoff, takeup=takeup, cluster=cluster,
+                                 score_unit=score_unit)
+        if frame is not None:
+            # The bounded-memory route (seamline.streaming): nothing is gathered now; the gathered
+            # columns are read only if a result off that route asks for them.
+            self._frame_loader = lambda: as_frame(data, list(roles), roles)
+            self._plan = CutoffPlan("single", (float(cutoff),), None, score, float(cutoff), None)
+            self.cutoff_layout, self.cutoffs, self.cutoff_column = "single", (float(cutoff),), None
+            self._subsets = {}
+            self._data = StreamingData(frame, score=score, cutoff=cutoff, outcomes=self.outcomes,
+                                       covariates=self.covariates, weights=weights, gathered=lambda: DesignData(
+                                           self._frame, score=score, cutoff=cutoff, outcomes=self.outcomes,
+                                           takeup=None, covariates=self.covariates, cluster=None,
+                                           weights=weights))
+            self.cutoff, self.time_scale = self._data.cutoff, None
+            return
+        self._frame = as_frame(data, list(roles), roles)
         self._plan = plan = plan_cutoffs(self._frame, score, cutoff, columns, score_unit)
         self.cutoff_layout, self.cutoffs, self.cutoff_column = plan.layout, plan.cutoffs, plan.column
         self.score = plan.score          # a cutoff column: score - cutoff, at 0
@@ -163,6 +185,28 @@ class Design:
             # A date score is measured as the distance from the cutoff date: the numeric cutoff is 0.
             self.cutoff = self._data.cutoff
             self.time_scale = self._data.time_scale
+
+    @property
+    def _frame(self):
+        """The declared columns as a pandas frame (on the bounded-memory route, gathered when first asked for)."""
+        if self._frame_value is None and self._frame_loader is not None:
+            self._frame_value = self._frame_loader()
+        return self._frame_value
+
+    @_frame.setter
+    def _frame(self, value) -> None:
+        self._frame_value = value
+
+    @property
+    def streamed(self) -> bool:
+        """True when the design's data are read on the bounded-memory route (``reading``)."""
+        return isinstance(self._data, StreamingData)
+
+    def _prepared(self, spec: FitSpec, variables: tuple[str, ...]) -> Prepared:
+        """The prepared sides of a fit: a window of the streamed data when the fit can use one."""
+        if self.streamed and spec.donut == 0 and (isinstance(spec.bandwidth, tuple) or spec.bandwidth in STREAMED_RULES):
+            return self._data.window(variables, radius=self._needed.get(variables))
+        return self._data.prepare(variables, spec.donut)
 
     @property
     def treated_sign(self) -> int:
@@ -367,9 +411,18 @@ class Design:
 
     def _engine(self, spec: FitSpec) -> tuple[JumpEngine, bool, str, list[str]]:
         """The fitted engine of a specification (cached), whether it is fuzzy, the rule and warnings."""
+        while True:
+            try:
+                return self._engine_once(spec)
+            except WindowTooNarrow as need:      # the streamed window must reach further: gather more
+                fuzzy = self._is_fuzzy(spec.outcome, spec.donut)
+                variables = self._variables(spec, fuzzy)[0]
+                self._needed[variables] = max(need.radius, self._needed.get(variables) or 0.0)
+
+    def _engine_once(self, spec: FitSpec) -> tuple[JumpEngine, bool, str, list[str]]:
         fuzzy = self._is_fuzzy(spec.outcome, spec.donut)
         variables, n_main = self._variables(spec, fuzzy)
-        prep = self._data.prepare(variables, spec.donut)
+        prep = self._prepared(spec, variables)
         self._warm(prep, spec)
         h, b, rule, warnings = self._bandwidths_for(spec, prep, fuzzy, n_main)
         engine = self._engines.get(spec)

@@ -234,7 +234,7 @@ class JumpEngine:
         Yields (side sign, x relative to the cutoff, fitted value, standard error) per side.
         """
         for index, (side, sf) in enumerate(zip(self.sides, self.fits)):
-            d = np.linspace(0.0, min(sf.h, float(side.distance[-1])), points)
+            d = np.linspace(0.0, min(sf.h, float(side.far)), points)
             u = side.sign * d / sf.h
             r = np.vander(u, self.p + 1, increasing=True)
             coef = sf.beta_h[:, : len(lam)] @ lam

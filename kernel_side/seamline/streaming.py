@@ -1,0 +1,515 @@
+"""The bounded-memory route for partitioned inputs: streaming passes, then only a window in memory.
+
+A dask DataFrame or Parquet dataset is never gathered whole on this route. Passes over its
+partitions, one task per partition on the active dask scheduler, compute what the fits and the MSE
+bandwidth selectors need from the whole sample; then only the rows nearest the cutoff are gathered,
+and the existing engine runs on them (``core.window_side``).
+
+Passes (for one set of variables; each reads only the design's columns)
+-----------------------------------------------------------------------
+1. Summary: rows, missing rows, per side the count, largest and smallest distance and the means of
+   the variables; the centred score's mean and sum of squares (its sd, combined partition by
+   partition); 16-bit histograms of order-preserving keys of the centred score and of each side's
+   distances. The checks of the in-memory adapter (infinite values, empty columns, negative
+   weights, the cutoff inside the score's range) are made in the same pass.
+2. Exact order statistics by histogram refinement: the score's quartiles and each side's median
+   distance lie in one bin of pass 1; the values of that bin are gathered (or, when it holds more
+   than ``GATHER_LIMIT`` values, refined on the next 16 bits of the key first), sorted, and read.
+   Exact: these are the very order statistics a sort of all rows gives.
+3. Pilot sums and window: per side, the sums sum w u^m and sum w u^m (v - mean) of the curvature
+   pilot over its nearer half (and the whole side, for the two-step pilot), u = sign d / top; in
+   the same pass the rows with distance <= R (the window) are gathered.
+   A result that needs rows beyond the window's exact part asks for a wider window: one more pass
+   gathers the rows between the old and the new radius.
+
+What is exact: fits at manual bandwidths and at the "mse", "mse-split", "coverage" and "ik" rules with
+the "nearer-half" or "two-step" pilot, with any variance, equal the in-memory results up to the
+order of floating-point sums (relative differences ~1e-12; counts identical). Everything else
+(donuts, fuzzy designs, clusters, density tests, bins, placebo cutoffs, balance tables ...) is
+computed on the gathered route (``partitioned.gather_frame``), exactly, the first time it is asked for.
+
+Memory bound: the window (per row about 8 bytes x (2 + 2 x variables) plus moment tables of about
+(degree + 1) / 512 numbers per row per series), the histograms (3 x 65536 counts per partition in
+flight), the partitions being read at that moment, and at most GATHER_LIMIT values per order
+statistic. The window holds the rows within the widest bandwidth the results use plus J groups of
+neighbours; when a bandwidth reaches the whole side (no curvature signal), the whole side is held.
+"""
+from __future__ import annotations
+
+import math
+import os
+
+import numpy as np
+import pandas as pd
+
+from .core.kernels import normal_reference_constant
+from .core.window_side import WindowSide
+from .errors import (CutoffOutOfRangeError, EmptyColumnError, InvalidWeightsError, NonFiniteValueError,
+                     OneSidedDataError, shown)
+from .partitioned import _partition_arrays
+
+BITS = 16                    # bits of the key resolved per refinement pass
+GATHER_LIMIT = 1 << 21       # values gathered at most per order statistic (16 MB)
+PILOT_DEGREE = 6             # pilot sums kept up to this polynomial degree (bias degree + 2 <= 6)
+FIRST_WINDOW = 4.0           # the first window's radius, in rule-of-thumb pilot bandwidths
+WIDEN = 1.25                 # a wider window reaches this much past the radius asked for
+STREAM_ABOVE_ROWS = 2_000_000   # reading="automatic": stream partitioned inputs with more rows
+
+
+def sort_keys(x: np.ndarray) -> np.ndarray:
+    """Order-preserving uint64 keys of float64 values (IEEE bit trick: flip negatives, set the sign bit)."""
+    u = np.ascontiguousarray(x, dtype=np.float64).view(np.uint64)
+    return np.where(u >> np.uint64(63), ~u, u | np.uint64(1 << 63))
+
+
+def _from_key(k: int) -> float:
+    k = np.uint64(k)
+    u = k & np.uint64((1 << 63) - 1) if k >> np.uint64(63) else ~k
+    return float(np.array([u], dtype=np.uint64).view(np.float64)[0])
+
+
+# ---- per-partition arithmetic (each runs as one dask task) --------------------------------------
+def _columns(part: pd.DataFrame, plan: dict) -> tuple:
+    """(centred score, variables (n, k), weights or None, usable mask, dropped count) of one partition."""
+    arrays = _partition_arrays(part, plan["columns"])
+    x = arrays[plan["score"]] - plan["cutoff"]
+    keep = ~np.isnan(x)
+    values = np.empty((len(x), len(plan["variables"])), order="F")
+    for j, v in enumerate(plan["variables"]):
+        values[:, j] = arrays[v]
+        keep &= ~np.isnan(values[:, j])
+    w = arrays[plan["weights"]] if plan["weights"] else None
+    if w is not None:
+        keep &= ~np.isnan(w)
+    dropped = int(len(x) - keep.sum())
+    if w is not None:
+        keep &= w > 0
+    return x, values, w, keep, dropped, arrays
+
+
+def _summary_part(part: pd.DataFrame, plan: dict) -> dict:
+    x, values, w, keep, dropped, arrays = _columns(part, plan)
+    out = {"rows": len(x), "dropped": dropped, "checks": {}}
+    for name in plan["columns"]:
+        a = arrays[name]
+        inf = np.flatnonzero(np.isinf(a))
+        out["checks"][name] = (int(np.count_nonzero(~np.isnan(a))), int(inf[0]) if len(inf) else -1,
+                               float(np.nanmin(a)) if np.any(~np.isnan(a)) else np.nan,
+                               float(np.nanmax(a)) if np.any(~np.isnan(a)) else np.nan,
+                               bool(np.any(a > 0)))
+    xs = x[keep]
+    out["n"] = len(xs)
+    out["mean"] = float(xs.mean()) if len(xs) else 0.0
+    out["m2"] = float(np.sum((xs - out["mean"]) ** 2)) if len(xs) else 0.0
+    out["score_hist"] = np.bincount((sort_keys(xs) >> np.uint64(64 - BITS)).astype(np.int64), minlength=1 << BITS)
+    for name, mask in (("below", keep & (x < 0)), ("above", keep & (x >= 0))):
+        d = np.abs(x[mask])
+        vals = values[mask]
+        out[name] = {"n": len(d), "sum": vals.sum(axis=0),
+                     "far": float(d.max()) if len(d) else -np.inf, "near": float(d.min()) if len(d) else np.inf,
+                     "hist": np.bincount((sort_keys(d) >> np.uint64(64 - BITS)).astype(np.int64),
+                                         minlength=1 << BITS)}
+    return out
+
+
+def _merge_summaries(a: dict, b: dict) -> dict:
+    """Combine two partitions' summaries (Chan et al.'s pairwise update for the sum of squares)."""
+    n = a["n"] + b["n"]
+    delta = b["mean"] - a["mean"]
+    out = {"rows": a["rows"] + b["rows"], "dropped": a["dropped"] + b["dropped"], "n": n,
+           "mean": a["mean"] + delta * b["n"] / n if n else 0.0,
+           "m2": a["m2"] + b["m2"] + (delta ** 2 * a["n"] * b["n"] / n if n else 0.0),
+           "score_hist": a["score_hist"] + b["score_hist"], "checks": {}}
+    for name, (ca, cb) in ((k, (a["checks"][k], b["checks"][k])) for k in a["checks"]):
+        inf = ca[1] if ca[1] >= 0 else (a["rows"] + cb[1] if cb[1] >= 0 else -1)
+        out["checks"][name] = (ca[0] + cb[0], inf, np.fmin(ca[2], cb[2]), np.fmax(ca[3], cb[3]), ca[4] or cb[4])
+    for side in ("below", "above"):
+        sa, sb = a[side], b[side]
+        out[side] = {"n": sa["n"] + sb["n"], "sum": sa["sum"] + sb["sum"], "far": max(sa["far"], sb["far"]),
+                     "near": min(sa["near"], sb["near"]), "hist": sa["hist"] + sb["hist"]}
+    return out
+
+
+def _side_array(x: np.ndarray, keep: np.ndarray, which: str) -> np.ndarray:
+    if which == "score":
+        return x[keep]
+    return np.abs(x[keep & ((x < 0) if which == "below" else (x >= 0))])
+
+
+def _refine_part(part: pd.DataFrame, plan: dict, queries: list) -> list:
+    """Per query (array, prefix, bits, gather): the matching values, or the next 16 bits' histogram."""
+    x, _, _, keep, _, _ = _columns(part, plan)
+    out, cache = [], {}
+    for which, prefix, bits, gather in queries:
+        keys = cache.get(which)
+        if keys is None:                         # one key array per array kind, shared by its queries
+            keys = cache[which] = sort_keys(_side_array(x, keep, which))
+        match = keys[(keys >> np.uint64(64 - bits)) == np.uint64(prefix)] if bits else keys
+        if gather:
+            out.append(match)
+        else:
+            nxt = ((match >> np.uint64(64 - bits - BITS)) & np.uint64((1 << BITS) - 1)).astype(np.int64)
+            out.append(np.bincount(nxt, minlength=1 << BITS))
+    return out
+
+
+def _window_part(part: pd.DataFrame, plan: dict, sides: dict) -> dict:
+    """Per side: pilot sums (when asked) and the rows with inner < distance <= radius."""
+    x, values, w, keep, _, _ = _columns(part, plan)
+    out = {}
+    for name, sign in (("below", -1.0), ("above", 1.0)):
+        ask = sides[name]
+        mask = keep & ((x < 0) if sign < 0 else (x >= 0))
+        d = np.abs(x[mask])
+        raw = values[mask]
+        vals = raw - ask["offsets"]           # centred as the in-memory side centres them
+        ws = None if w is None else w[mask]
+        piece = {}
+        for share, top in ask["pilots"].items():
+            inside = d <= top
+            u = sign * d[inside] / top
+            term = np.ones(len(u)) if ws is None else ws[inside].copy()      # w u^m, one power at a time
+            inner = vals[inside]
+            moments = np.empty(2 * PILOT_DEGREE + 1)
+            cross = np.empty((PILOT_DEGREE + 1, inner.shape[1]))
+            for m in range(2 * PILOT_DEGREE + 1):
+                moments[m] = term.sum()
+                if m <= PILOT_DEGREE:
+                    cross[m] = term @ inner
+                term *= u
+            gram = moments[np.add.outer(np.arange(PILOT_DEGREE + 1), np.arange(PILOT_DEGREE + 1))]
+            piece[share] = (gram, cross)
+        if ask.get("cubic") is not None:                  # IK's global cubic over the nearer n // 2 + 1 rows
+            top, score_sd = ask["cubic"]
+            inside = d <= top
+            xs = sign * d[inside] / score_sd
+            term = np.ones(len(xs)) if ws is None else ws[inside].copy()
+            inner = vals[inside]
+            moments, cross = np.empty(7), np.empty((4, inner.shape[1]))
+            piece["cubic"] = {"rows": int(inside.sum()), "w": float(term.sum()), "w2": float(term @ term),
+                              "wv": term @ inner, "wvv": (inner * term[:, None]).T @ inner}
+            for m in range(7):
+                moments[m] = term.sum()
+                if m <= 3:
+                    cross[m] = term @ inner
+                term *= xs
+            piece["cubic"]["moments"], piece["cubic"]["xv"] = moments, cross
+        rows = (d > ask["inner"]) & (d <= ask["radius"])
+        piece["rows"] = (d[rows], raw[rows], None if ws is None else ws[rows])
+        out[name] = piece
+    return out
+
+
+# ---- scheduling -----------------------------------------------------------------------------------
+def _tree(tasks: list, merge):
+    """Reduce delayed partition results pairwise (a tree: no one task holds every partition's result)."""
+    import dask
+    merge = dask.delayed(merge, pure=True)
+    while len(tasks) > 1:
+        tasks = [merge(tasks[i], tasks[i + 1]) if i + 1 < len(tasks) else tasks[i] for i in range(0, len(tasks), 2)]
+    return tasks[0]
+
+
+def _compute(*tasks, name: str, total: int | None = None):
+    """Compute on the active scheduler; ``reading_progress`` hears of each partition done."""
+    from .partitioned import _compute as compute
+    return compute(list(tasks), name, total)
+
+
+class StreamingData:
+    """The design's columns of a partitioned input, summarised in passes; windows gathered on demand.
+
+    Stands in for ``data.DesignData``: ``window(variables, ...)`` prepares bounded-memory sides;
+    every other attribute is served by a ``DesignData`` on the gathered columns, built (one pass)
+    the first time it is asked for.
+    """
+
+    def __init__(self, frame, *, score: str, cutoff: float, outcomes: tuple[str, ...], covariates: tuple[str, ...],
+                 weights: str | None, gathered):
+        self.frame = frame                       # a dask DataFrame of the design's columns
+        self.score_name = score
+        self.weights_name = weights
+        self.columns = list(dict.fromkeys([score, *outcomes, *covariates, *([weights] if weights else [])]))
+        self.cutoff = float(cutoff)
+        self.time_scale = None
+        self._gathered_loader = gathered         # () -> DesignData on the gathered columns
+        self._gathered = None
+        self._summaries: dict[tuple, dict] = {}
+        self._windows: dict[tuple, object] = {}
+        self.passes = 0                          # passes over the data so far (benchmarks report it)
+        self._check(self._summary(outcomes[:1]))
+
+    # ---- the gathered fallback --------------------------------------------------------------
+    @property
+    def gathered(self):
+        if self._gathered is None:
+            self._gathered = self._gathered_loader()
+            self.passes += 1
+        return self._gathered
+
+    def __getattr__(self, name):
+        if name.startswith("__") or name in ("_gathered", "_gathered_loader"):
+            raise AttributeError(name)
+        return getattr(self.gathered, name)
+
+    def prepare(self, variables, donut: float = 0.0, neighbors: int = 3):
+        return self.gathered.prepare(variables, donut, neighbors)
+
+    @property
+    def n_rows(self) -> int:
+        return next(iter(self._summaries.values()))["rows"]
+
+    # ---- passes -----------------------------------------------------------------------------
+    def _plan(self, variables: tuple[str, ...]) -> dict:
+        return {"columns": self.columns, "score": self.score_name, "cutoff": self.cutoff,
+                "variables": list(variables), "weights": self.weights_name}
+
+    def _parts(self):
+        return self.frame.to_delayed()
+
+    def _summary(self, variables: tuple[str, ...]) -> dict:
+        if variables not in self._summaries:
+            import dask
+            plan = self._plan(variables)
+            task = _tree([dask.delayed(_summary_part, pure=True)(p, plan) for p in self._parts()], _merge_summaries)
+            (summary,) = _compute(task, name="_summary_part", total=self.frame.npartitions)
+            self.passes += 1
+            self._summaries[variables] = summary
+        return self._summaries[variables]
+
+    def _check(self, s: dict) -> None:
+        """The in-memory adapter's checks, on the summary (messages as in seamline.data)."""
+        roles = {self.score_name: "score"}
+        for name, (count, inf, lo, hi, positive) in s["checks"].items():
+            role = roles.get(name, "weights" if name == self.weights_name else "outcome")
+            if inf >= 0:
+                raise NonFiniteValueError(f"`{role}` column {shown(name)} must be finite; got infinite values "
+                                          f"(first at row {inf}). Replace them with NaN (dropped) or a finite value.")
+            if count == 0:
+                raise EmptyColumnError(f"`{role}` column {shown(name)} must have non-missing values; got only "
+                                       "missing values. Choose a column with data.")
+            if name == self.weights_name:
+                if lo < 0:
+                    raise InvalidWeightsError(f"`weights` column {shown(name)} must be non-negative; got "
+                                              f"{shown(lo)}. Use sampling weights >= 0.")
+                if not positive:
+                    raise InvalidWeightsError(f"`weights` column {shown(name)} must have a positive value; got "
+                                              "all zeros or missing. Choose another weights column.")
+        _, _, lo, hi, _ = s["checks"][self.score_name]
+        if self.cutoff < lo or self.cutoff > hi:
+            raise CutoffOutOfRangeError(f"`cutoff` must lie within the range of score {shown(self.score_name)} "
+                                        f"[{lo:g}, {hi:g}]; got {shown(self.cutoff)}. Check the cutoff and its units.")
+
+    def _order_statistics(self, variables, wanted: list[tuple[str, int]]) -> dict:
+        """Exact order statistics {(array, rank): value} by histogram refinement (pass 2 and on)."""
+        import dask
+        s = self._summary(variables)
+        hist = {"score": s["score_hist"], "below": s["below"]["hist"], "above": s["above"]["hist"]}
+        state = {}                                   # (array, rank) -> (prefix, bits, rank within bin, count)
+        for which, rank in wanted:
+            cum = np.cumsum(hist[which])
+            b = int(np.searchsorted(cum, rank, side="right"))
+            state[(which, rank)] = (b, BITS, rank - (int(cum[b - 1]) if b else 0), int(hist[which][b]))
+        found: dict = {}
+        plan = self._plan(variables)
+        while len(found) < len(state):
+            todo = [k for k in state if k not in found]
+            queries = []
+            for k in todo:
+                prefix, bits, _, count = state[k]
+                if bits == 64:
+                    found[k] = _from_key(prefix)
+                    continue
+                queries.append((k[0], prefix, bits, count <= GATHER_LIMIT))
+            todo = [k for k in todo if k not in found]
+            if not todo:
+                break
+            parts = _compute(*[dask.delayed(_refine_part, pure=True)(p, plan, queries) for p in self._parts()],
+                             name="_refine_part")
+            self.passes += 1
+            for i, k in enumerate(todo):
+                prefix, bits, within, count = state[k]
+                pieces = [r[i] for r in parts]
+                if queries[i][3]:
+                    keys = np.sort(np.concatenate(pieces))
+                    found[k] = _from_key(int(keys[within]))
+                else:
+                    h = np.sum(pieces, axis=0)
+                    cum = np.cumsum(h)
+                    b = int(np.searchsorted(cum, within, side="right"))
+                    state[k] = ((prefix << BITS) | b, bits + BITS, within - (int(cum[b - 1]) if b else 0), int(h[b]))
+        return found
+
+    # ---- windows ------------------------------------------------------------------------------
+    def window(self, variables: tuple[str, ...], neighbors: int = 3, radius: float | None = None):
+        """Prepared bounded-memory sides for ``variables`` (no donut), holding at least ``radius``."""
+        from .data import Prepared
+        key = (variables, neighbors)
+        held = self._windows.get(key)
+        if held is not None and (radius is None or radius < held["limit"]):
+            return held["prepared"]
+        s = self._summary(variables)
+        if variables != next(iter(self._summaries)):
+            self._check(s)
+        n = s["n"]
+        if n < 2:
+            raise OneSidedDataError(f"the design must keep observations on both sides of the cutoff; got {n} usable "
+                                    f"rows after dropping missing values in {shown([self.score_name, *variables])}. "
+                                    "Check for missing data.")
+        for name in ("below", "above"):
+            if s[name]["n"] == 0:
+                raise OneSidedDataError(f"the design must have observations {name} the cutoff; got none (score "
+                                        f"{shown(self.score_name)}, cutoff {self.cutoff:g}). Check the cutoff, the "
+                                        "treated side, or reduce the donut radius.")
+        if held is None:
+            ranks = [("score", r) for q in (0.25, 0.75) for r in _quantile_ranks(n, q)]
+            halves = {name: max(math.ceil(0.5 * s[name]["n"]), 1) - 1 for name in ("below", "above")}
+            ik_rows = {name: max(s[name]["n"] // 2 + 1, min(s[name]["n"], 4)) for name in ("below", "above")}
+            stats = self._order_statistics(variables, ranks + [(k, r) for k, r in halves.items()]
+                                           + [(k, r - 1) for k, r in ik_rows.items()])
+            sd = math.sqrt(s["m2"] / (n - 1))
+            q25, q75 = (_interpolated(n, q, lambda r: stats[("score", r)]) for q in (0.25, 0.75))
+            scale = min(sd, (q75 - q25) / 1.349) if q75 > q25 else sd
+            pilot_c = max(normal_reference_constant(k) for k in ("triangular", "uniform", "epanechnikov")) \
+                * scale * n ** (-0.2)
+            first = FIRST_WINDOW * pilot_c if radius is None else radius
+            tops = {name: {0.5: stats[(name, r)], 1.0: s[name]["far"]} for name, r in halves.items()}
+            held = {"sd": sd, "scale": scale, "tops": tops, "pilots": None, "radius": -np.inf, "rows": None,
+                    "cubic_tops": {k: stats[(k, r - 1)] for k, r in ik_rows.items()}, "ik_rows": ik_rows}
+            radius = first
+        else:
+            radius = max(radius * WIDEN, held["radius"] * WIDEN)
+        self._widen(variables, s, held, radius)
+        sides = []
+        for name, sign in (("below", -1), ("above", 1)):
+            d, vals, w = held["rows"][name]
+            complete = len(d) == s[name]["n"]
+            # the side centres ``vals`` in place; a wider window adds the offsets back (``_widen``)
+            sides.append(WindowSide(sign, d, vals, w, neighbors=neighbors, n_side=s[name]["n"],
+                                    far=s[name]["far"], offsets=s[name]["sum"] / s[name]["n"], complete=complete,
+                                    pilots=held["pilots"][name], cubic=held["cubic"][name]))
+            held["rows"][name] = (d, None, w)
+        held["limit"] = min(side.limit for side in sides)
+        held["sides"] = sides
+        held["prepared"] = Prepared(sides[0], sides[1], variables, s["dropped"], 0, held["sd"], held["scale"], None)
+        self._windows[key] = held
+        return held["prepared"]
+
+    def _widen(self, variables, s: dict, held: dict, radius: float) -> None:
+        """Gather the rows between the held radius and ``radius`` (with the pilot sums, the first time)."""
+        import dask
+        plan = self._plan(variables)
+        want_pilots = held["pilots"] is None
+        ask = {name: {"offsets": s[name]["sum"] / s[name]["n"], "inner": held["radius"], "radius": radius,
+                      "pilots": held["tops"][name] if want_pilots else {},
+                      "cubic": (held["cubic_tops"][name], held["sd"]) if want_pilots else None}
+               for name in ("below", "above")}
+        parts = _compute(*[dask.delayed(_window_part, pure=True)(p, plan, ask) for p in self._parts()],
+                         name="_window_part")
+        self.passes += 1
+        if want_pilots:
+            held["pilots"] = {name: {share: (top, sum(p[name][share][0] for p in parts),
+                                             sum(p[name][share][1] for p in parts))
+                                     for share, top in held["tops"][name].items()} for name in ("below", "above")}
+            held["cubic"] = {}
+            for name, sign in (("below", 0.0), ("above", 1.0)):
+                total = {key: sum(p[name]["cubic"][key] for p in parts) for key in parts[0][name]["cubic"]}
+                if total["rows"] != held["ik_rows"][name]:
+                    held["cubic"][name] = None        # ties at the median: which tied rows count is the sort's
+                    continue
+                expo, coef = np.array([0, 0, 1, 2, 3]), np.array([1.0, sign, 1.0, 1.0, 1.0])
+                total["gram"] = np.outer(coef, coef) * total.pop("moments")[np.add.outer(expo, expo)]
+                total["cross"] = coef[:, None] * total.pop("xv")[expo]
+                held["cubic"][name] = total
+        rows = held["rows"] or {}
+        old = dict(zip(("below", "above"), held.pop("sides", (None, None))))
+        held.pop("prepared", None)
+        for name in ("below", "above"):
+            pieces = [p[name].pop("rows") for p in parts]
+            if old[name] is not None:
+                # the rows held already come first (all nearer than the new ones); their values were
+                # centred by the side, so the offsets are added back (a new array: fitted engines
+                # may still hold the old side; equal to the values read up to the last digit)
+                side = old[name]
+                pieces.insert(0, (side.distance, side.values + side.offsets, side.weights))
+                old[name] = side = None
+            d = np.concatenate([p[0] for p in pieces])
+            order = np.argsort(d, kind="stable")
+            d = d[order]
+            vals = np.empty((len(d), pieces[0][1].shape[1]), order="F")
+            for j in range(vals.shape[1]):
+                vals[:, j] = np.concatenate([p[1][:, j] for p in pieces])[order]
+            w = None if pieces[0][2] is None else np.concatenate([p[2] for p in pieces])[order]
+            del pieces, order
+            rows[name] = (d, vals, w)
+        held["rows"], held["radius"] = rows, radius
+
+
+def _interpolated(n: int, q: float, value) -> float:
+    """numpy's default (linear) quantile from the order statistics ``value(rank)`` (as data._sorted_quantile)."""
+    pos = q * (n - 1)
+    lo = int(np.floor(pos))
+    hi = min(lo + 1, n - 1)
+    return float(value(lo) + (pos - lo) * (value(hi) - value(lo)))
+
+
+def _quantile_ranks(n: int, q: float) -> list[int]:
+    pos = q * (n - 1)
+    lo = int(np.floor(pos))
+    return sorted({lo, min(lo + 1, n - 1)})
+
+
+def large_enough(data) -> bool:
+    """reading="automatic": whether a partitioned input has more than STREAM_ABOVE_ROWS rows (a Parquet
+    path from its files' metadata; a dask frame from ``frame.shape[0]``, which dask may answer from
+    metadata too)."""
+    if isinstance(data, (str, os.PathLike)):
+        import pyarrow.parquet as pq
+        from .partitioned import parquet_files
+        return sum(pq.read_metadata(f).num_rows for f in parquet_files(data)) > STREAM_ABOVE_ROWS
+    return int(data.shape[0].compute()) > STREAM_ABOVE_ROWS
+
+
+READINGS = ("automatic", "streamed", "gathered")     # Design(reading=...): how a partitioned input is read
+STREAMED_RULES = ("mse", "mse-split", "coverage", "ik")    # bandwidth rules computed from a window (and numbers)
+
+
+def streamable_frame(data, roles: dict[str, str], reading: str, *, cutoff, takeup, cluster, score_unit):
+    """The dask DataFrame of the design's columns when the design goes through the bounded-memory
+    route, or None (then the caller gathers the columns, seamline.partitioned).
+
+    ``reading``: "automatic" streams a partitioned input of more than STREAM_ABOVE_ROWS rows that the
+    route supports (numeric columns, one numeric cutoff, no take-up, cluster or date score);
+    "streamed" asks for the route and names what stops it; "gathered" never streams.
+    """
+    from .errors import InvalidOptionError
+    from .partitioned import _check_dask_dtypes, _import_dask, is_partitioned, open_parquet
+    if reading == "gathered" or not is_partitioned(data):
+        return None
+    _import_dask()
+    why = None
+    if takeup is not None or cluster is not None:
+        why = "a fuzzy design (take-up)" if takeup is not None else "a cluster variable"
+    elif score_unit is not None or isinstance(cutoff, (str, bool)) or not np.isscalar(cutoff):
+        why = "a cutoff that is not one number"
+    frame = None
+    if why is None:
+        if isinstance(data, (str, os.PathLike)):
+            frame = open_parquet(data, roles)
+        else:
+            _check_dask_dtypes(data, roles)
+            frame = data[list(roles)]
+        bad = [c for c in roles if not (pd.api.types.is_numeric_dtype(frame.dtypes[c])
+                                        or pd.api.types.is_bool_dtype(frame.dtypes[c]))
+               or pd.api.types.is_object_dtype(frame.dtypes[c])]
+        if bad:
+            why = f"a column that is not numeric ({shown(bad[0])}, dtype {frame.dtypes[bad[0]]})"
+    if why is not None:
+        if reading == "streamed":
+            raise InvalidOptionError(f"`reading` \"streamed\" needs numeric columns, one numeric cutoff and no take-up "
+                                     f"or cluster; got {why}. Use reading=\"gathered\" (the data must then fit in "
+                                     "memory), or cast the columns in dask first.")
+        return None
+    if reading == "automatic" and not large_enough(data if isinstance(data, (str, os.PathLike)) else frame):
+        return None
+    return frame

@@ -1,0 +1,201 @@
+"""The bounded-memory route for partitioned inputs (``Design(..., reading="streamed")``).
+
+Reference: the in-memory pandas path on the same rows (``pandas.concat`` of the pieces written to
+Parquet). Streamed results agree to a relative difference below 1e-8 with identical counts (they
+differ from in memory only in the order of floating-point sums); results off the streamed route are
+computed on the gathered columns and agree as well.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+
+import dask.dataframe as dd
+
+import seamline
+from seamline.errors import CutoffOutOfRangeError, InvalidOptionError, NonFiniteValueError, OneSidedDataError
+from seamline.streaming import GATHER_LIMIT, sort_keys
+
+from test_dask_inputs import KWARGS, SIZES, assert_same, pieces, results
+
+REL = 1e-8
+
+STREAMED_FITS = {
+    "default": {},
+    "manual": dict(bandwidth=(0.3, 0.4), pilot_bandwidth=0.6, variance="hc2"),
+    "manual one number": dict(bandwidth=0.25, kernel="uniform"),
+    "manual with selected pilot": dict(bandwidth=0.3),
+    "mse-split": dict(bandwidth="mse-split"),
+    "coverage": dict(bandwidth="coverage", outcome="z"),
+    "two-step pilot": dict(pilot_bandwidth="two-step"),
+    "ik": dict(bandwidth="ik"), "ik uniform": dict(bandwidth="ik", kernel="uniform"),
+    "epanechnikov quadratic": dict(kernel="epanechnikov", degree=2),
+    "hc0": dict(variance="hc0"), "hc1": dict(variance="hc1"), "hc3": dict(variance="hc3"),
+    "adjusted": dict(adjust=True, variance="hc1"),
+    "kink": dict(derivative=1, degree=2),
+}
+
+
+@pytest.fixture(scope="module")
+def folder(tmp_path_factory):
+    path = tmp_path_factory.mktemp("parquet")
+    for k, frame in enumerate(pieces()):
+        pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), path / f"part-{k}.parquet")
+    return path
+
+
+@pytest.fixture(scope="module")
+def memory():
+    return seamline.Design(pd.concat(pieces(), ignore_index=True), **KWARGS)
+
+
+def same_fit(got, want, name=""):
+    assert got.n_used == want.n_used and got.n_total == want.n_total, name
+    assert got.n_dropped == want.n_dropped and got.n_effective_robust == want.n_effective_robust, name
+    for field in ("estimate", "std_error", "bias_corrected_estimate", "robust_std_error"):
+        np.testing.assert_allclose(getattr(got, field), getattr(want, field), rtol=REL, atol=0, err_msg=f"{name} {field}")
+    np.testing.assert_allclose(got.bandwidth, want.bandwidth, rtol=REL, atol=0, err_msg=name)
+    np.testing.assert_allclose(got.pilot_bandwidth, want.pilot_bandwidth, rtol=REL, atol=0, err_msg=name)
+    np.testing.assert_allclose(got.robust_conf_int, want.robust_conf_int, rtol=REL, atol=0, err_msg=name)
+    np.testing.assert_allclose(got.limits, want.limits, rtol=REL, atol=0, err_msg=name)
+    assert got.warnings == want.warnings, name
+
+
+def test_streamed_fits_equal_memory_without_gathering(folder, memory):
+    design = seamline.Design(folder, reading="streamed", **KWARGS)
+    assert design.streamed
+    for name, options in STREAMED_FITS.items():
+        options = dict(options)
+        same_fit(design.fit(options.pop("outcome", None), **options),
+                 memory.fit(STREAMED_FITS[name].get("outcome"), **options), name)
+    assert design._data._gathered is None           # no fit above needed the gathered columns
+
+
+def test_every_result_equals_memory_on_the_streamed_route(folder, memory):
+    """Results off the streamed route (donuts, density tests, bins, donut ...) use the gathered columns."""
+    assert_same(results(seamline.Design(folder, reading="streamed", **KWARGS)), results(memory))
+
+
+def test_a_dask_frame_with_weights_and_many_partitions():
+    rng = np.random.default_rng(3)
+    n = 30_000
+    x = rng.normal(0.2, 1.0, n)
+    w = rng.uniform(0.2, 3.0, n)
+    w[::97] = 0.0                                   # zero weights: excluded, not dropped
+    w[5::211] = np.nan                              # missing weights: dropped and counted
+    y = np.sin(x) + 0.4 * (x >= 0.1) + rng.normal(0, 0.5, n)
+    frame = pd.DataFrame({"x": x, "y": y, "w": w})
+    kwargs = dict(score="x", cutoff=0.1, outcome="y", weights="w")
+    lazy = dd.from_pandas(frame, npartitions=13)
+    got, want = seamline.Design(lazy, reading="streamed", **kwargs), seamline.Design(frame, **kwargs)
+    for options in ({}, dict(bandwidth="mse-split"), dict(bandwidth=0.5, variance="hc3"), dict(bandwidth="ik")):
+        same_fit(got.fit(**options), want.fit(**options), str(options))
+    assert got._data._gathered is None
+    # the window holds a part of each side only: the other rows were summarised, never held
+    prep = got._data.window(("y",))
+    assert prep.below.n_window < prep.below.n and prep.above.n_window < prep.above.n
+
+
+def test_a_window_that_widens_and_a_side_held_whole():
+    """A first window too narrow for the selected bandwidths is widened, one pass at a time; a
+    bandwidth past the data (a manual one) makes the window hold the whole side: still exact."""
+    rng = np.random.default_rng(8)
+    n = 6000
+    x = rng.uniform(-1, 1, n)
+    y = 2.0 * x + 0.5 * (x >= 0) + rng.normal(0, 0.2, n)     # no curvature: wide bandwidths
+    frame = pd.DataFrame({"x": x, "y": y})
+    lazy = dd.from_pandas(frame, npartitions=4)
+    got, want = seamline.Design(lazy, reading="streamed", score="x", cutoff=0, outcome="y"), \
+        seamline.Design(frame, score="x", cutoff=0, outcome="y")
+    same_fit(got.fit(), want.fit(), "default")
+    same_fit(got.fit(bandwidth=5.0), want.fit(bandwidth=5.0), "past the data")
+    prep = got._data.window(("y",))
+    assert prep.below.complete and prep.below.n_window == prep.below.n
+
+
+def test_order_statistics_are_exact_with_refinement(monkeypatch):
+    """Many values in one histogram bin (a discrete score) are refined on further key bits."""
+    import seamline.streaming as streaming
+    monkeypatch.setattr(streaming, "GATHER_LIMIT", 50)
+    rng = np.random.default_rng(5)
+    x = np.round(rng.normal(0, 1, 4000), 3)       # many ties, values crowd each 16-bit bin
+    y = x + (x >= 0) + rng.normal(0, 1, 4000)
+    frame = pd.DataFrame({"x": x, "y": y})
+    got = seamline.Design(dd.from_pandas(frame, npartitions=3), reading="streamed", score="x", cutoff=0, outcome="y")
+    want = seamline.Design(frame, score="x", cutoff=0, outcome="y")
+    same_fit(got.fit(), want.fit(), "discrete")
+    same_fit(got.fit(bandwidth="ik"), want.fit(bandwidth="ik"), "discrete ik")     # ties at the medians
+    ranks = [0, 999, 1000, 2999, 3999]
+    stats = got._data._order_statistics(("y",), [("score", r) for r in ranks] + [("below", 7), ("above", 1500)])
+    # First principles: the order statistics of the sorted sample, bit for bit.
+    assert [stats[("score", r)] for r in ranks] == [float(v) for v in np.sort(x)[ranks]]
+    assert stats[("below", 7)] == float(np.sort(-x[x < 0])[7])
+    assert stats[("above", 1500)] == float(np.sort(x[x >= 0])[1500])
+    assert GATHER_LIMIT > 50
+
+
+def test_sort_keys_keep_the_order():
+    # First principles: the keys order as the floats do (negative, zero, positive, tiny and huge values).
+    values = np.array([-np.inf, -1e300, -2.5, -1e-310, -0.0, 0.0, 1e-310, 3.0, 1e300, np.inf])
+    keys = sort_keys(values)
+    assert np.all(np.diff(keys.astype(object)) >= 0)
+
+
+def test_two_worker_processes_streamed(folder, memory):
+    import dask.distributed as distributed
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None) as cluster, distributed.Client(cluster) as client:
+        with distributed.get_task_stream(client) as stream:
+            design = seamline.Design(folder, reading="streamed", **KWARGS)
+            fit = design.fit()
+        assert len(client.scheduler_info()["workers"]) == 2
+        ran = [str(task["key"]) for task in stream.data]
+        assert sum("_summary_part" in key for key in ran) == len(SIZES)     # passes ran on the workers
+        assert any("_window_part" in key for key in ran)
+    same_fit(fit, memory.fit(), "cluster")
+
+
+def test_automatic_reading_streams_only_large_inputs(folder, monkeypatch):
+    import seamline.streaming as streaming
+    assert not seamline.Design(folder, **KWARGS).streamed           # 4960 rows: gathered
+    monkeypatch.setattr(streaming, "STREAM_ABOVE_ROWS", 1000)
+    assert seamline.Design(folder, **KWARGS).streamed
+    assert not seamline.Design(folder, reading="gathered", **KWARGS).streamed
+
+
+# ---- bad input ----------------------------------------------------------------------------------
+def test_streamed_reading_names_what_stops_it(folder):
+    with pytest.raises(InvalidOptionError, match=r"`reading` \"streamed\" needs numeric columns, one numeric cutoff "
+                                                 r"and no take-up or cluster; got a cluster variable\. Use "
+                                                 r"reading=\"gathered\""):
+        seamline.Design(folder, reading="streamed", cluster="z", **KWARGS)
+    with pytest.raises(InvalidOptionError, match=r"`reading` must be one of \"automatic\", \"streamed\", \"gathered\"; "
+                                                 r"got 'stream'"):
+        seamline.Design(folder, reading="stream", **KWARGS)
+
+
+def test_streamed_checks_match_memory(tmp_path):
+    frame = pieces()[0]
+    bad = frame.assign(y=frame["y"].where(frame.index != 40, np.inf))
+    pq.write_table(pa.Table.from_pandas(bad, preserve_index=False), tmp_path / "a.parquet")
+    with pytest.raises(NonFiniteValueError, match=r"`outcome` column 'y' must be finite; got infinite values "
+                                                  r"\(first at row 40\)"):
+        seamline.Design(tmp_path, reading="streamed", **KWARGS)
+    lazy = dd.from_pandas(frame, npartitions=3)
+    with pytest.raises(CutoffOutOfRangeError, match=r"`cutoff` must lie within the range of score 'x'"):
+        seamline.Design(lazy, reading="streamed", **{**KWARGS, "cutoff": 5.0})
+    above = dd.from_pandas(frame.assign(x=frame["x"].abs()), npartitions=2)
+    design = seamline.Design(above, reading="streamed", **{**KWARGS, "cutoff": float(frame["x"].abs().min())})
+    with pytest.raises(OneSidedDataError, match=r"must have observations below the cutoff; got none"):
+        design.fit()
+
+
+def test_progress_of_the_streamed_passes(folder):
+    from seamline.partitioned import reading_progress
+    seen = []
+    with reading_progress(lambda done, total: seen.append((done, total))):
+        seamline.Design(folder, reading="streamed", **KWARGS)       # the summary pass, one task per file
+    assert seen == [(k, len(SIZES)) for k in range(1, len(SIZES) + 1)]
