@@ -29,9 +29,12 @@ the result's warnings. Nothing here imports IPython, widgets or charts.
 """
 from __future__ import annotations
 
+import threading
+import weakref
 from dataclasses import dataclass, field, replace
 from typing import Any, Mapping
 
+import numpy as np
 import pandas as pd
 
 from ..errors import NoBalancedWindowError, shown
@@ -61,6 +64,22 @@ def inference_parents(*, rows: list[str], outcome_column: str, covariates: list[
     }
 
 
+# ``seed: none`` draws one seed per Design, kept while the design lives: a level change (or any change
+# that keeps the design) then reuses the draws and the balance and window tests kept on the design,
+# and its p-values do not move with every change. A new design (new data, cutoff, ...) draws anew.
+_DRAWN_SEEDS: "weakref.WeakKeyDictionary[Any, int]" = weakref.WeakKeyDictionary()
+_SEEDS_LOCK = threading.Lock()
+
+
+def drawn_seed(design) -> int:
+    """The seed ``seed: none`` uses on this design (drawn on first use, then kept for the design)."""
+    with _SEEDS_LOCK:
+        seed = _DRAWN_SEEDS.get(design)
+        if seed is None:
+            seed = _DRAWN_SEEDS[design] = int(np.random.SeedSequence().entropy % (2 ** 63))
+        return seed
+
+
 def compute_inference(comp, node: str) -> Any:
     """The engine call of one inference node for the ``Computation`` ``comp``."""
     design, opts, level = comp.headline_design(), comp.options, comp.options["level"]
@@ -84,9 +103,10 @@ def compute_inference(comp, node: str) -> Any:
             return NotApplicable("The window is chosen by covariate balance, and no covariates are declared. "
                                  "Give the window yourself, e.g. `window: 2.5` (the cutoff plus or minus 2.5) "
                                  "or `window: 37.5, 42.5`, or declare pre-treatment `covariates:`.")
+        seed = drawn_seed(design) if opts["seed"] is None else opts["seed"]
         try:
             return design.local_randomization(comp.selected, window=opts["window"], statistic=opts["statistic"],
-                                              permutations=opts["permutations"], seed=opts["seed"], level=level)
+                                              permutations=opts["permutations"], seed=seed, level=level)
         except NoBalancedWindowError as exc:
             if opts["window"] is not None:
                 raise
