@@ -17,7 +17,7 @@ import pytest
 import seamline
 from seamline.demo_data import fuzzy_scenario
 from seamline.core.bias_aware import GRID_POINTS
-from seamline.core.randomization import RandomizationTest, draw_assignments
+from seamline.core.randomization import RandomizationTest, draw_assignments, prefix_assignments
 from seamline.estimate import bias_aware as aware_module
 from seamline.estimate import local_randomization as lr
 
@@ -66,12 +66,22 @@ def test_balance_table_equals_masks_and_tests_window_by_window():
     for row in res.windows.itertuples():
         mask = mask_window(units, -row.half_width, row.half_width)
         best = (np.nan, None)
+        # a symmetric window holds the units nearest the cutoff: a prefix of the distance order
+        nearest = units.by_distance[: int(mask.sum())]
+        np.testing.assert_array_equal(np.sort(nearest), np.flatnonzero(mask))
         for name in ("z1", "z2"):
             z = units.covariates[name]
             ok = mask & ~np.isnan(z)
-            treated = units.treated[ok]
-            assign, exact = draw_assignments(int(ok.sum()), int(treated.sum()), 999, np.random.default_rng(11))
-            p = RandomizationTest(z[ok], treated, "difference in means", assign, exact).p_value(z[ok])
+            if ok.sum() == mask.sum():
+                # observed on every unit: the window's shared draws (keys of the distance order)
+                treated, values = units.treated[nearest], z[nearest]
+                assign = prefix_assignments(len(nearest), int(treated.sum()), 999, 11)
+                exact = False
+            else:
+                # missing on some units: draws of its own over the units that have it, in row order
+                treated, values = units.treated[ok], z[ok]
+                assign, exact = draw_assignments(int(ok.sum()), int(treated.sum()), 999, np.random.default_rng(11))
+            p = RandomizationTest(values, treated, "difference in means", assign, exact).p_value(values)
             if not p >= best[0]:
                 best = (p, name)
         assert (row.n_below, row.n_above) == (int(np.sum(mask & ~units.above)), int(np.sum(mask & units.above)))
@@ -99,7 +109,10 @@ def test_local_randomization_after_a_level_change_equals_a_fresh_design(monkeypa
     d = design()
     d.local_randomization(seed=5, permutations=999, statistic=statistic, balance_threshold=0.01).sensitivity
     calls = []
-    monkeypatch.setattr(lr, "_balance", lambda *a, **k: calls.append(1) or (_ for _ in ()).throw(AssertionError))
+    monkeypatch.setattr(lr, "_nested_balance", lambda *a, **k: calls.append(1) or (_ for _ in ()).throw(AssertionError))
+    if statistic == "difference in means":   # every window's test is kept: no draw at all, only thresholds
+        for name in ("prefix_treated_sums", "_assignments", "prefix_assignments"):
+            monkeypatch.setattr(lr, name, lambda *a, **k: calls.append(1) or (_ for _ in ()).throw(AssertionError))
     again = d.local_randomization(seed=5, permutations=999, statistic=statistic, balance_threshold=0.01,
                                   level=0.9)
     again.sensitivity
@@ -145,3 +158,32 @@ def test_fuzzy_bias_aware_after_a_level_change_equals_a_fresh_design():
     d = seamline.Design(s.data, **s.design_kwargs())
     d.bias_aware()
     assert_same(d.bias_aware(level=0.9), seamline.Design(s.data, **s.design_kwargs()).bias_aware(level=0.9))
+
+
+@pytest.mark.parametrize("exact", [False, True])
+def test_exact_inversion_agrees_with_the_test_at_every_shift(exact):
+    # the interval of the difference in means is read off the step table of p(tau0); checked against
+    # p(tau0) itself (the randomization test at each shift) and against the grid-and-bisection inversion
+    from seamline.core.randomization import ShiftedDifference, invert
+    rng = np.random.default_rng(4)
+    n, n1 = (14, 6) if exact else (60, 25)
+    y = rng.normal(size=n) + 0.8 * (np.arange(n) < n1)
+    treated = np.arange(n) < n1
+    assign, is_exact = draw_assignments(n, n1, 2000, rng)
+    assert is_exact == exact
+    test = RandomizationTest(y, treated, "difference in means", assign, is_exact)
+    shifted = test.shifted()
+    estimate = y[treated].mean() - y[~treated].mean()
+    for level in (0.8, 0.9, 0.95, 0.99):
+        (low, high), contiguous = shifted.accepted_hull(1 - level)
+        grid = np.linspace(low - 2 * (high - low), high + 2 * (high - low), 4001)
+        accepted = np.array([shifted.p_value_shifted(t) > 1 - level for t in grid])
+        inside = grid[accepted]
+        slack = 1e-12 * (high - low)      # a root and the test at it agree up to rounding
+        assert low - slack <= inside.min() and inside.max() <= high + slack
+        step = 1e-9 * (high - low)
+        assert shifted.p_value_shifted(low + step) > 1 - level >= shifted.p_value_shifted(low - step)
+        assert shifted.p_value_shifted(high - step) > 1 - level >= shifted.p_value_shifted(high + step)
+        (g_low, g_high), _ = invert(shifted.p_value_shifted, estimate, 1.0, 1 - level)
+        assert (g_low, g_high) == pytest.approx((low, high), abs=1e-7)
+        assert isinstance(shifted, ShiftedDifference) and contiguous in (True, False)

@@ -85,8 +85,11 @@ def side_at_bandwidth(side, h: float, kernel: str, degree: int, n_main: int, tay
     for a in range(n_main):
         k, f = side.series("wv", a)
         xy[:, a] = np.correlate(mom.sums(k, f, h, top), kp, mode="valid")[: degree + 1] * signs[: degree + 1]
-    beta = np.linalg.solve(gamma, xy)
-    c = np.linalg.solve(gamma, np.eye(degree + 1)[0])
+    rhs = np.zeros((degree + 1, n_main + 1))
+    rhs[0, 0] = 1.0
+    rhs[:, 1:] = xy
+    solved = np.linalg.solve(gamma, rhs)               # one factorisation for c and the coefficients
+    c, beta = solved[:, 0], solved[:, 1:]
     limits = beta[0] + side.offsets[:n_main]
     q = c * signs[: degree + 1]                        # Q(u) in ascending powers of u
     g = np.convolve(kp, q)                             # (K Q)(u)
@@ -99,7 +102,10 @@ def side_at_bandwidth(side, h: float, kernel: str, degree: int, n_main: int, tay
     bias = None
     if taylor:
         f_poly = np.r_[0.0, 0.0, g]                    # F(u) = K(u) Q(u) u^2
-        roots = np.polynomial.polynomial.polyroots(q) if np.any(q[1:]) else np.array([])
+        if degree == 1:                                # local linear: one root, no eigenvalues
+            roots = np.array([-q[0] / q[1]]) if q[1] != 0.0 else np.array([])
+        else:
+            roots = np.polynomial.polynomial.polyroots(q) if np.any(q[1:]) else np.array([])
         real = np.sort(roots.real[(np.abs(roots.imag) <= 1e-12 * np.maximum(1.0, np.abs(roots.real)))
                                   & (roots.real > 0.0) & (roots.real < 1.0)])
         powers = np.arange(len(f_poly))
