@@ -44,6 +44,31 @@ def critical_value(t: float, level: float) -> float:
     return float(optimize.brentq(coverage_gap, low, high, xtol=1e-14, rtol=4 * np.finfo(float).eps))
 
 
+def critical_values(t: np.ndarray, level: float) -> np.ndarray:
+    """``critical_value`` for an array of t at once (the bandwidth search's grid), by Newton's method.
+
+    On [t + z_level, t + z_(1+level)/2] the coverage Phi(c - t) - Phi(-c - t) is increasing and
+    concave in c (c > t), so Newton's iterates from the lower end rise monotonically to the root;
+    the ends are handled as ``critical_value`` handles them. Equal to it to about 1e-14.
+    """
+    t = np.abs(np.asarray(t, dtype=float))
+    low = t + special.ndtri(level)
+    high = t + special.ndtri(0.5 + level / 2.0)
+    c = low.copy()
+    for _ in range(60):
+        gap = special.ndtr(c - t) - special.ndtr(-c - t) - level
+        slope = np.exp(-0.5 * (c - t) ** 2) + np.exp(-0.5 * (c + t) ** 2)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step = np.where(slope > 0, -gap * np.sqrt(2.0 * np.pi) / slope, 0.0)
+        step = np.where(gap < 0.0, step, 0.0)              # at or past the root (or the lower end holds)
+        new = np.minimum(c + step, high)
+        if np.all(np.abs(new - c) <= 1e-15 * np.maximum(1.0, np.abs(c))):
+            c = new
+            break
+        c = new
+    return c
+
+
 def taylor_max_bias(weights: np.ndarray, x: np.ndarray, smoothness: float) -> float:
     """Worst-case bias of sum_i w_i Y_i over the Taylor class with bound ``smoothness``.
 
@@ -188,17 +213,20 @@ def second_derivative_bound(x: np.ndarray, y: np.ndarray, degree: int = RULE_OF_
 
 
 def minimise_on_log_grid(objective: Callable[[float], float], low: float, high: float,
-                         points: int = GRID_POINTS) -> tuple[float, bool]:
+                         points: int = GRID_POINTS,
+                         on_grid: Callable[[np.ndarray], np.ndarray] | None = None) -> tuple[float, bool]:
     """Minimise a one-dimensional objective over [low, high]: a log-spaced grid, then a bounded
     refinement between the neighbours of the best grid point (the objective has small steps as
     observations enter the window, so unimodality is not assumed).
 
-    Returns the minimiser and whether it lies at an end of the range.
+    Returns the minimiser and whether it lies at an end of the range. ``on_grid``, when given, is the
+    objective at all grid points at once.
     """
     if high <= low:
         return float(low), True
     grid = np.geomspace(low, high, points)
-    values = np.array([objective(h) for h in grid])
+    # ``on_grid``: the objective at every grid point at once (the same numbers, vectorised)
+    values = np.asarray(on_grid(grid), dtype=float) if on_grid is not None else np.array([objective(h) for h in grid])
     values = np.where(np.isfinite(values), values, np.inf)
     best = int(np.argmin(values))
     lo, hi = grid[max(best - 1, 0)], grid[min(best + 1, points - 1)]

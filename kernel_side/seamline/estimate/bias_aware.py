@@ -16,7 +16,7 @@ from numbers import Real
 import numpy as np
 import pandas as pd
 
-from ..core.bias_aware import (accepted_set, critical_value, half_length, holder_max_bias,
+from ..core.bias_aware import (accepted_set, critical_value, critical_values, half_length, holder_max_bias,
                                minimise_on_log_grid, second_derivative_bound, taylor_max_bias,
                                side_at_bandwidth)
 from ..core.kernels import kernel_weights
@@ -134,8 +134,7 @@ class _Problem:
         """Half-length at a common bandwidth h (fuzzy: of the linearised ratio at its own estimate)."""
         m = self.moments((h, h))
         if self.n_main == 1:
-            est, se, bias, _ = self.sharp(m, smoothness)
-            return half_length(bias, se, self.level)
+            return half_length(smoothness * m.unit_bias, float(np.sqrt(m.cov[0, 0])), self.level)
         jd = float(m.jumps[1])
         if jd == 0.0:
             return np.inf
@@ -158,7 +157,18 @@ class _Problem:
             raise TooFewDistinctValuesError(
                 f"`degree` {self.degree} must leave at least {self.degree + 2} distinct score values on each "
                 "side of the cutoff; got fewer. Lower the degree.")
-        return minimise_on_log_grid(lambda h: self.length(h, smoothness), low, high)
+        return minimise_on_log_grid(lambda h: self.length(h, smoothness), low, high,
+                                    on_grid=(lambda grid: self.sharp_lengths(grid, smoothness))
+                                    if self.n_main == 1 else None)
+
+    def sharp_lengths(self, grid: np.ndarray, smoothness: float) -> np.ndarray:
+        """``length`` at every bandwidth of ``grid`` (sharp designs), the critical values at once."""
+        kept = [self.moments((float(h), float(h))) for h in grid]
+        se = np.sqrt(np.array([m.cov[0, 0] for m in kept]))
+        bias = smoothness * np.array([m.unit_bias for m in kept])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            half = critical_values(np.where(se > 0, bias / se, 0.0), self.level) * se
+        return np.where(se > 0, half, np.nan)
 
 
 def _weights(side, h: float, kernel: str, degree: int, c: np.ndarray) -> np.ndarray:

@@ -98,6 +98,14 @@ class _Units:
         return (int(np.searchsorted(self._sorted, low - tol, side="left")),
                 int(np.searchsorted(self._sorted, high + tol, side="right")))
 
+    @property
+    def lowest(self) -> float:
+        return float(self._sorted[0])
+
+    @property
+    def highest(self) -> float:
+        return float(self._sorted[-1])
+
     def prefix_length(self, span: tuple[int, int]) -> int | None:
         """n when the window's units are exactly the n nearest the cutoff (a symmetric window), else None."""
         start, stop = span
@@ -118,10 +126,9 @@ class _Units:
 
     def half_width_for(self, units: int) -> float:
         """Smallest symmetric half-width holding ``units`` units on each side (nan if impossible)."""
-        below, above = -self._sorted[: self._zero][::-1], self._sorted[self._zero:]
-        if min(len(below), len(above)) < units:
+        if min(self._zero, len(self._sorted) - self._zero) < units:
             return float("nan")
-        return float(max(below[units - 1], above[units - 1]))
+        return float(max(-self._sorted[self._zero - units], self._sorted[self._zero + units - 1]))
 
 
 @lru_cache(maxsize=4)
@@ -361,7 +368,7 @@ def _sequence(units: _Units, candidates) -> list[float]:
         raise WindowTooSmallError(f"`window` must hold at least {MIN_UNITS} units on each side of the cutoff; "
                                   "got fewer on one side in all the data. Local randomization needs more "
                                   "units near the cutoff.")
-    reach = min(-units.x.min(), units.x.max())
+    reach = min(-units.lowest, units.highest)
     widths = [first * (1 + 0.5 * j) for j in range(WINDOW_STEPS)]
     return [w for w in widths if w <= reach] or [first]
 
