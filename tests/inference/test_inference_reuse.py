@@ -187,3 +187,25 @@ def test_exact_inversion_agrees_with_the_test_at_every_shift(exact):
         (g_low, g_high), _ = invert(shifted.p_value_shifted, estimate, 1.0, 1 - level)
         assert (g_low, g_high) == pytest.approx((low, high), abs=1e-7)
         assert isinstance(shifted, ShiftedDifference) and contiguous in (True, False)
+
+
+@pytest.mark.parametrize("kernel", ["triangular", "uniform", "epanechnikov"])
+@pytest.mark.parametrize("degree", [1, 2, 3])
+@pytest.mark.parametrize("smoothness_class", ["taylor", "holder"])
+def test_bias_aware_moments_from_window_tables_equal_the_window_arrays(kernel, degree, smoothness_class):
+    # the search evaluates each bandwidth from the sides' moment tables; the engine's direct window
+    # arrays (the earlier path, still used with clusters) must give the same jumps, covariance and bias
+    f = fuzzy_scenario(n=3000, seed=2)
+    data = f.data.assign(weight=np.random.default_rng(6).uniform(0.5, 2.0, len(f.data)))   # invented weights
+    kwargs = {**f.design_kwargs(), "weights": "weight", "cluster": None}
+    d = seamline.Design(data, **kwargs)
+    variables = (kwargs["outcome"] if isinstance(kwargs["outcome"], str) else kwargs["outcome"][0], d.takeup)
+    prep = d._data.prepare(variables, 0.0)
+    problem = aware_module._Problem(d, prep, 2, kernel, degree, 0.95, smoothness_class, {})
+    low, high = problem.bandwidth_range()
+    for h in np.geomspace(low * 1.5, high, 5):
+        fast, direct = problem._from_moments((h, h)), problem._direct((h, h), False)
+        np.testing.assert_allclose(fast.jumps, direct.jumps, rtol=1e-9, atol=1e-12)
+        np.testing.assert_allclose(fast.cov, direct.cov, rtol=1e-8, atol=1e-14 * np.abs(direct.cov).max())
+        assert fast.unit_bias == pytest.approx(direct.unit_bias, rel=1e-9)
+        assert fast.n_used == direct.n_used
