@@ -209,3 +209,14 @@ def test_bias_aware_moments_from_window_tables_equal_the_window_arrays(kernel, d
         np.testing.assert_allclose(fast.cov, direct.cov, rtol=1e-8, atol=1e-14 * np.abs(direct.cov).max())
         assert fast.unit_bias == pytest.approx(direct.unit_bias, rel=1e-9)
         assert fast.n_used == direct.n_used
+
+
+@pytest.mark.parametrize("n, n_treated", [(20, 10), (600, 300), (1000, 10), (1000, 990), (4554, 2277), (513, 1)])
+def test_shared_draws_treat_each_rows_smallest_keys(n, n_treated):
+    # the selection on float32-rounded keys must pick exactly the n_treated smallest float64 keys
+    # (a partition of each row), also when keys round to the same float32 (clustered keys)
+    from seamline.core.randomization import _treated_by_keys
+    rng = np.random.default_rng(n)
+    for keys in (rng.random((300, n)), 0.5 + 1e-6 * rng.random((300, n))):
+        threshold = np.partition(keys, n_treated - 1, axis=1)[:, n_treated - 1: n_treated]
+        np.testing.assert_array_equal(_treated_by_keys(keys, n_treated), keys <= threshold)

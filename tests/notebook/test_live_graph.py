@@ -308,7 +308,7 @@ def test_a_score_unit_change_rebuilds_what_a_cutoff_change_rebuilds(scenario, ca
     b.wait()
     made = {name for name, n in calls.items() if n} - {"fits", "selections", *PARTS}
     assert made == CHANGES["cutoff"][1]
-    assert {part: calls[part] for part in PARTS} == PART_CHANGES["cutoff"]
+    assert {part: calls[part] for part in PART_CHANGES["cutoff"]} == PART_CHANGES["cutoff"]
     calls.clear()
     b.set_option("score_unit", None)          # back to days: every node is a cache hit
     b.wait()

@@ -78,13 +78,28 @@ def prefix_keys(seed: int, draws: slice, n: int, out: np.ndarray | None = None) 
 
 
 def _treated_by_keys(keys: np.ndarray, n_treated: int, scratch: np.ndarray | None = None) -> np.ndarray:
-    """Each row's n_treated smallest keys (keys are distinct with probability one). ``scratch``: a flat
-    buffer of at least keys.size numbers for the partition (no fresh allocation per window)."""
+    """Each row's n_treated smallest keys (keys are distinct with probability one), as a mask.
+
+    The selection runs on the keys rounded to float32 (half the memory a partition moves: about
+    twice as fast), exactly: rounding is monotone, so the n_treated-th smallest rounded key is the
+    rounding of the n_treated-th smallest key, and the keys at or below it are the n_treated
+    smallest unless another key rounds to the same float32 (about 1e-4 rows in each window at n =
+    4,500); those rows are partitioned in float64. ``scratch``: a flat float32 buffer of at least
+    2 keys.size numbers (no fresh allocation per window)."""
     rows, n = keys.shape
-    work = np.empty((rows, n)) if scratch is None else scratch[: rows * n].reshape(rows, n)
-    np.copyto(work, keys)
+    if scratch is None or scratch.size < 2 * rows * n:
+        scratch = np.empty(2 * rows * n, dtype=np.float32)
+    rounded = scratch[: rows * n].reshape(rows, n)
+    work = scratch[rows * n: 2 * rows * n].reshape(rows, n)
+    np.copyto(rounded, keys, casting="same_kind")
+    np.copyto(work, rounded)
     work.partition(n_treated - 1, axis=1)
-    return keys <= work[:, n_treated - 1: n_treated]
+    treated = rounded <= work[:, n_treated - 1: n_treated]
+    tied = np.flatnonzero(np.count_nonzero(treated, axis=1) != n_treated)
+    if len(tied):
+        exact = np.partition(keys[tied], n_treated - 1, axis=1)[:, n_treated - 1: n_treated]
+        treated[tied] = keys[tied] <= exact
+    return treated
 
 
 def prefix_treated_sums(windows: list[tuple[int, int, np.ndarray]], permutations: int,
@@ -102,7 +117,7 @@ def prefix_treated_sums(windows: list[tuple[int, int, np.ndarray]], permutations
     out = [np.empty((permutations, cols.shape[1])) for _, _, cols in windows]
     transposed = [np.ascontiguousarray(cols.T) for _, _, cols in windows]
     keys_buffer = np.empty((min(DRAW_CHUNK, permutations), -(-largest // KEY_BLOCK) * KEY_BLOCK))
-    scratch = np.empty(min(DRAW_CHUNK, permutations) * largest)
+    scratch = np.empty(2 * min(DRAW_CHUNK, permutations) * largest, dtype=np.float32)
     for start in range(0, permutations, DRAW_CHUNK):
         draws = slice(start, min(start + DRAW_CHUNK, permutations))
         keys = prefix_keys(seed, draws, largest, keys_buffer)
