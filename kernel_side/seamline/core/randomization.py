@@ -33,6 +33,8 @@ from scipy import stats
 EXACT_LIMIT = 100_000
 CHUNK = 4096                    # assignments per block when computing statistics (memory bound)
 DRAW_CHUNK = 1024               # Monte Carlo draws per block of random keys
+KEY_DRAWS = 64                  # draws per generator of shared keys (prefix_keys)
+KEY_MEMORY = 128 * 2 ** 20      # bytes of shared keys (and their float32 copies) held at a time
 KEY_BLOCK = 256                 # units per block of shared random keys (prefix_keys)
 TIE_TOLERANCE = 100 * np.finfo(float).eps
 STATISTICS = ("difference in means", "Kolmogorov-Smirnov", "rank sum")
@@ -63,18 +65,30 @@ def draw_assignments(n: int, n_treated: int, permutations: int,
 
 def prefix_keys(seed: int, draws: slice, n: int, out: np.ndarray | None = None) -> np.ndarray:
     """(draws, n) uniform keys of units 0..n-1 (in order of distance) for the Monte Carlo draws in
-    ``draws`` (a slice within one block of DRAW_CHUNK). Each (block of draws, block of KEY_BLOCK
-    units) has its own generator seeded by (seed, draw block, unit block), so the keys of a prefix do
-    not depend on how many units follow it. ``out``: a buffer to fill (at least that large)."""
-    chunk = draws.start // DRAW_CHUNK
-    first, rows = draws.start - chunk * DRAW_CHUNK, draws.stop - draws.start
+    ``draws`` (its start a multiple of KEY_DRAWS). Each (block of KEY_DRAWS draws, block of
+    KEY_BLOCK units) has its own generator seeded by (seed, draw block, unit block), so the keys of a
+    prefix depend neither on how many units follow it nor on how many draws are taken at a time.
+    ``out``: a buffer to fill (at least that large)."""
+    rows = draws.stop - draws.start
     blocks = -(-n // KEY_BLOCK)
     if out is None or out.shape[0] < rows or out.shape[1] < blocks * KEY_BLOCK:
         out = np.empty((rows, blocks * KEY_BLOCK))
-    for b in range(blocks):
-        block = np.random.default_rng([seed, chunk, b]).random((DRAW_CHUNK, KEY_BLOCK))
-        out[:rows, b * KEY_BLOCK:(b + 1) * KEY_BLOCK] = block[first: first + rows]
+    for d in range(draws.start // KEY_DRAWS, -(-draws.stop // KEY_DRAWS)):
+        top = d * KEY_DRAWS - draws.start
+        take = slice(max(0, -top), min(KEY_DRAWS, rows - top))
+        for b in range(blocks):
+            block = np.random.default_rng([seed, d, b]).random((KEY_DRAWS, KEY_BLOCK))
+            out[top + take.start: top + take.stop, b * KEY_BLOCK:(b + 1) * KEY_BLOCK] = block[take]
     return out[:rows, :n]
+
+
+def _draw_steps(permutations: int, units: int):
+    """Slices of draws taken at a time: whole key blocks, at most DRAW_CHUNK, and few enough that
+    the keys and their float32 copies stay within KEY_MEMORY (a window of 200,000 units, integer
+    scores at 1e6 rows, would otherwise need gigabytes)."""
+    fit = KEY_MEMORY // max(1, 16 * units) // KEY_DRAWS * KEY_DRAWS
+    step = int(min(DRAW_CHUNK, max(KEY_DRAWS, fit)))
+    return [slice(start, min(start + step, permutations)) for start in range(0, permutations, step)]
 
 
 def _treated_by_keys(keys: np.ndarray, n_treated: int, scratch: np.ndarray | None = None) -> np.ndarray:
@@ -116,10 +130,11 @@ def prefix_treated_sums(windows: list[tuple[int, int, np.ndarray]], permutations
     largest = max(n for n, _, _ in windows)
     out = [np.empty((permutations, cols.shape[1])) for _, _, cols in windows]
     transposed = [np.ascontiguousarray(cols.T) for _, _, cols in windows]
-    keys_buffer = np.empty((min(DRAW_CHUNK, permutations), -(-largest // KEY_BLOCK) * KEY_BLOCK))
-    scratch = np.empty(2 * min(DRAW_CHUNK, permutations) * largest, dtype=np.float32)
-    for start in range(0, permutations, DRAW_CHUNK):
-        draws = slice(start, min(start + DRAW_CHUNK, permutations))
+    steps = _draw_steps(permutations, largest)
+    rows = steps[0].stop - steps[0].start
+    keys_buffer = np.empty((rows, -(-largest // KEY_BLOCK) * KEY_BLOCK))
+    scratch = np.empty(2 * rows * largest, dtype=np.float32)
+    for draws in steps:
         keys = prefix_keys(seed, draws, largest, keys_buffer)
         for (n, n_treated, _), cols_t, sums in zip(windows, transposed, out):
             treated = _treated_by_keys(keys[:, :n], n_treated, scratch)
@@ -131,8 +146,7 @@ def prefix_assignments(n: int, n_treated: int, permutations: int, seed: int) -> 
     """The (permutations, n) boolean assignments ``prefix_treated_sums`` uses for a window of the first
     n units (for the statistics that need the assignments themselves)."""
     out = np.empty((permutations, n), dtype=bool)
-    for start in range(0, permutations, DRAW_CHUNK):
-        draws = slice(start, min(start + DRAW_CHUNK, permutations))
+    for draws in _draw_steps(permutations, n):
         out[draws] = _treated_by_keys(prefix_keys(seed, draws, n), n_treated)
     return out
 
