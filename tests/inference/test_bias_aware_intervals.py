@@ -45,6 +45,14 @@ def test_critical_value_is_the_folded_normal_quantile(t, level):
     assert critical_value(t, level) == pytest.approx(stats.foldnorm.ppf(level, c=t), rel=1e-10)
 
 
+@pytest.mark.parametrize("level", [0.5, 0.9, 0.95, 0.99, 0.999])
+def test_critical_values_of_the_search_grid_are_the_folded_normal_quantiles(level):
+    # Reference: scipy.stats.foldnorm.ppf(level, c=t); the vectorised Newton solve the search uses
+    from seamline.core.bias_aware import critical_values
+    t = np.r_[0.0, np.geomspace(1e-6, 1e4, 200)]
+    np.testing.assert_allclose(critical_values(t, level), stats.foldnorm.ppf(level, c=t), rtol=1e-12)
+
+
 def test_critical_value_at_zero_bias_is_the_normal_one():
     # Reference: scipy.stats.norm.ppf(0.975) (no bias: the usual two-sided value; common practice)
     assert critical_value(0.0, 0.95) == pytest.approx(stats.norm.ppf(0.975), rel=1e-12)

@@ -29,6 +29,7 @@ from seamline.notebook.board import Board
 from seamline.notebook.magic import parse_spec
 from seamline.notebook.panels import BoardView
 from seamline.notebook.spec import NotApplicable
+from seamline.results.inference import LocalRandomization
 
 TIGHT = dict(rtol=1e-12, atol=1e-12)
 COVARIATES = ["age", "prior_math", "free_lunch"]
@@ -268,6 +269,31 @@ def test_a_drawn_seed_is_recorded_in_methods_and_script(sharp):
         assert isinstance(seed, int)
         assert "seed None" not in board.methods_paragraph()
         assert f"'seed': {seed}," in board.export("script")
+    finally:
+        board.close()
+
+
+def test_a_drawn_seed_stays_for_the_design_so_a_level_change_keeps_the_draws(sharp, monkeypatch):
+    # `seed: none` draws one seed per Design: a level change keeps it, so the Monte Carlo draws, the
+    # balance of the nested windows and each window's test are reused, and only the inversion moves
+    from seamline.estimate import local_randomization as lr_module
+    nested = []
+    real = lr_module._nested_balance
+    monkeypatch.setattr(lr_module, "_nested_balance", lambda *a, **k: nested.append(1) or real(*a, **k))
+    board = Board("kept seed", {**sharp.design_kwargs(), "covariates": COVARIATES}, {}, data=sharp.data.copy())
+    try:
+        first = board.wait().results["local_randomization"]
+        assert isinstance(first, LocalRandomization) and not first.exact and len(nested) == 1
+        board.set_option("level", 0.9)
+        again = board.wait().results["local_randomization"]
+        assert again.seed == first.seed and again.level == 0.9 and len(nested) == 1
+        assert (again.p_value, again.window) == (first.p_value, first.window)
+        assert again.conf_int[1] - again.conf_int[0] < first.conf_int[1] - first.conf_int[0]
+        board.set_option("level", 0.95)
+        assert board.wait().results["local_randomization"].conf_int == first.conf_int
+        # a new design (another cutoff) draws a new seed
+        board.set_option("cutoff", 41.0)
+        assert board.wait().results["local_randomization"].seed != first.seed
     finally:
         board.close()
 

@@ -21,7 +21,7 @@ import seamline
 from seamline.data import DesignData
 from seamline.demo_data import sharp_scenario
 from seamline.estimate import design as design_module
-from seamline.estimate import diagnostics, local_randomization, score_profile
+from seamline.estimate import bias_aware, diagnostics, local_randomization, score_profile
 from seamline.estimate.design import Design
 from seamline.notebook.board import boards
 from seamline.notebook.compute import compute_graph
@@ -35,7 +35,8 @@ TIGHT = dict(rtol=1e-9, atol=1e-12)   # re-reported intervals equal direct ones 
 METHODS = ("fit", "bandwidths", "bins", "sensitivity", "placebo_cutoffs", "donut", "balance", "score_profile",
            "checks", "by_cutoff", "by_group", "bias_aware", "local_randomization")
 FIT_DIAGNOSTICS = {"bins", "sensitivity", "placebo_cutoffs", "donut", "score_profile"}
-PARTS = ("binned means", "score census", "placebo designs", "nested balance")   # see PART_CHANGES
+PARTS = ("binned means", "score census", "placebo designs", "nested balance",   # see PART_CHANGES
+         "rule of thumb", "bias-aware moments", "randomization draws", "window tests")
 
 
 @pytest.fixture(autouse=True)
@@ -88,6 +89,13 @@ def calls(monkeypatch):
     wrap(score_profile, "_census", "score census", False)
     wrap(DesignData, "one_side", "placebo designs", False)
     wrap(local_randomization, "_nested_balance", "nested balance", False)
+    # the inference engines' own parts: the rule-of-thumb bound, the moments at one searched bandwidth,
+    # a pass of Monte Carlo draws over windows, a window's outcome test
+    wrap(bias_aware, "rule_of_thumb", "rule of thumb", False)
+    wrap(bias_aware._Problem, "_from_moments", "bias-aware moments", False)
+    wrap(local_randomization, "_treated_sums", "randomization draws", False)
+    wrap(local_randomization, "prefix_assignments", "randomization draws", False)
+    wrap(local_randomization._WindowOutcome, "__init__", "window tests", False)
     return counts
 
 
@@ -176,19 +184,47 @@ def test_each_change_makes_exactly_its_engine_calls(label, scenario, calls):
 # change computes them (binned means of the outcome; the score's census behind the score profile;
 # the designs of the 8 placebo cutoffs, with their prepared sides and neighbour residuals). Asserted
 # part by part, so panels added elsewhere do not disturb these rows.
+# Inference parts (notebook/compute_inference.py and the engines behind it): the rule-of-thumb bound is
+# kept per design and outcome; each searched bandwidth's moments (jumps, covariance, bias at M = 1) are
+# kept per design and specification, so a level or smoothness change evaluates only the few new
+# bandwidths of the bounded refinement (never the 60-point grid again: see
+# test_a_level_change_reads_the_kept_bandwidth_grid); the Monte Carlo draws and each window's outcome
+# test (difference in means) are kept per design, outcome, covariates, draws and seed, so a level
+# change draws nothing and tests no window again.
+NO_INFERENCE = {"rule of thumb": 0, "bias-aware moments": 0, "randomization draws": 0, "window tests": 0}
+REFINED = range(1, 8 * 30)          # the 7 bounded refinements (main + 6 sensitivity bounds), no grid
 PART_CHANGES = {
-    "level": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0},
-    "bandwidth (manual)": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0},
-    "bandwidth (another rule)": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0},
-    "kernel": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0},
-    "variance": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0},
-    "donut": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0},
+    "level": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0,
+              "rule of thumb": 0, "bias-aware moments": REFINED, "randomization draws": 0, "window tests": 0},
+    "bandwidth (manual)": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0,
+                           **NO_INFERENCE},
+    "bandwidth (another rule)": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0,
+                                 **NO_INFERENCE},
+    # a kernel is a new bias-aware specification: its own bandwidth grid (the bound reads no kernel)
+    "kernel": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0,
+               "rule of thumb": 0, "bias-aware moments": range(60, 60 + 8 * 30), "randomization draws": 0,
+               "window tests": 0},
+    "variance": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0, **NO_INFERENCE},
+    "donut": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 0, **NO_INFERENCE},
     # a new outcome: its own binned means, placebo designs and balance (rows without the outcome drop out)
-    "outcome": {"binned means": 1, "score census": 0, "placebo designs": 8, "nested balance": 1},
+    "outcome": {"binned means": 1, "score census": 0, "placebo designs": 8, "nested balance": 1,
+                "rule of thumb": 1, "randomization draws": 1},
     # a new cutoff: a new Design, so everything once
-    "cutoff": {"binned means": 1, "score census": 1, "placebo designs": 8, "nested balance": 1},
+    "cutoff": {"binned means": 1, "score census": 1, "placebo designs": 8, "nested balance": 1,
+               "rule of thumb": 1, "randomization draws": 1},
     # an edited covariate rebuilds the Design; bins, profile and placebo read no covariate, balance does
     "column: covariate": {"binned means": 0, "score census": 0, "placebo designs": 0, "nested balance": 1},
+    # a given bound re-reads the kept moments on the grid and refines; nothing of local randomization
+    "smoothness": {"nested balance": 0, "rule of thumb": 0, "bias-aware moments": REFINED,
+                   "randomization draws": 0, "window tests": 0},
+    # a given window: the balance table is kept (its key holds no window); the window's own test is new
+    "window": {"nested balance": 0, "rule of thumb": 0, "bias-aware moments": 0, "randomization draws": 1,
+               "window tests": 1},
+    # another statistic tests the outcome afresh in each window it reports (the balance is kept)
+    "statistic": {"nested balance": 0, "rule of thumb": 0, "bias-aware moments": 0},
+    # new draws: everything of local randomization once (one pass over all windows), nothing bias-aware
+    "permutations": {"nested balance": 1, "rule of thumb": 0, "bias-aware moments": 0, "randomization draws": 1},
+    "seed": {"nested balance": 1, "rule of thumb": 0, "bias-aware moments": 0, "randomization draws": 1},
 }
 
 
@@ -201,7 +237,30 @@ def test_each_change_recomputes_only_the_diagnostic_parts_it_reaches(label, scen
     _apply(b, data, change)
     b.wait()
     for part, expected in PART_CHANGES[label].items():
-        assert calls[part] == expected, f"{label}: {part} computed {calls[part]} times, expected {expected}"
+        ok = calls[part] in expected if isinstance(expected, range) else calls[part] == expected
+        assert ok, f"{label}: {part} computed {calls[part]} times, expected {expected}"
+
+
+def test_a_level_change_reads_the_kept_bandwidth_grid(scenario, monkeypatch):
+    # the bias-aware search's 60 grid bandwidths are evaluated once per design and specification: a level
+    # change evaluates only the refinement's new points, none on the grid
+    from seamline.core.bias_aware import GRID_POINTS
+    s, data = scenario
+    b = _board(s, data)
+    evaluated = []
+    real = bias_aware._Problem._from_moments
+
+    def counting(problem, h):
+        evaluated.append((problem, h[0]))
+        return real(problem, h)
+    monkeypatch.setattr(bias_aware._Problem, "_from_moments", counting)
+    b.set_option("level", 0.9)
+    b.wait()
+    assert evaluated, "the refinement at a new level evaluates a few new bandwidths"
+    problem = evaluated[0][0]
+    grid = set(np.geomspace(*problem.bandwidth_range(), GRID_POINTS).tolist())
+    assert not grid & {h for _, h in evaluated}
+    assert len(evaluated) < 7 * 30
 
 
 def test_nothing_runs_twice_when_panels_share_a_result(scenario, calls):
@@ -249,7 +308,7 @@ def test_a_score_unit_change_rebuilds_what_a_cutoff_change_rebuilds(scenario, ca
     b.wait()
     made = {name for name, n in calls.items() if n} - {"fits", "selections", *PARTS}
     assert made == CHANGES["cutoff"][1]
-    assert {part: calls[part] for part in PARTS} == PART_CHANGES["cutoff"]
+    assert {part: calls[part] for part in PART_CHANGES["cutoff"]} == PART_CHANGES["cutoff"]
     calls.clear()
     b.set_option("score_unit", None)          # back to days: every node is a cache hit
     b.wait()

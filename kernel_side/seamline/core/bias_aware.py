@@ -44,12 +44,105 @@ def critical_value(t: float, level: float) -> float:
     return float(optimize.brentq(coverage_gap, low, high, xtol=1e-14, rtol=4 * np.finfo(float).eps))
 
 
+def critical_values(t: np.ndarray, level: float) -> np.ndarray:
+    """``critical_value`` for an array of t at once (the bandwidth search's grid), by Newton's method.
+
+    On [t + z_level, t + z_(1+level)/2] the coverage Phi(c - t) - Phi(-c - t) is increasing and
+    concave in c (c > t), so Newton's iterates from the lower end rise monotonically to the root;
+    the ends are handled as ``critical_value`` handles them. Equal to it to about 1e-14.
+    """
+    t = np.abs(np.asarray(t, dtype=float))
+    low = t + special.ndtri(level)
+    high = t + special.ndtri(0.5 + level / 2.0)
+    c = low.copy()
+    for _ in range(60):
+        gap = special.ndtr(c - t) - special.ndtr(-c - t) - level
+        slope = np.exp(-0.5 * (c - t) ** 2) + np.exp(-0.5 * (c + t) ** 2)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step = np.where(slope > 0, -gap * np.sqrt(2.0 * np.pi) / slope, 0.0)
+        step = np.where(gap < 0.0, step, 0.0)              # at or past the root (or the lower end holds)
+        new = np.minimum(c + step, high)
+        if np.all(np.abs(new - c) <= 1e-15 * np.maximum(1.0, np.abs(c))):
+            c = new
+            break
+        c = new
+    return c
+
+
 def taylor_max_bias(weights: np.ndarray, x: np.ndarray, smoothness: float) -> float:
     """Worst-case bias of sum_i w_i Y_i over the Taylor class with bound ``smoothness``.
 
     Exact (attained) for any weights that reproduce an intercept and a slope on each side.
     """
     return float(0.5 * smoothness * np.sum(np.abs(weights) * np.asarray(x) ** 2))
+
+
+def side_at_bandwidth(side, h: float, kernel: str, degree: int, n_main: int, taylor: bool = True):
+    """What a bias-aware interval needs of one side at bandwidth h, from the side's window moments.
+
+    The order-``degree`` local polynomial at the cutoff is sum_i a_i Y_i with weights
+    a_i = w_i K(u_i) Q(u_i), u_i = d_i / h and Q(u) = c' r_p(s u), c = Gamma^-1 e_0 (the engine's
+    conventional smoother). Every quantity is a window sum of a series times a polynomial in u:
+
+        Gamma[j, l]  = s^(j+l) sum w K(u) u^(j+l)           limits = Gamma^-1 sum w K(u) r_p(s u) v
+        V[a, b]      = sum w^2 nn_a nn_b (K Q)(u)^2         (nearest-neighbour variance, as the engine's)
+        unit bias    = (1/2) sum |a_i| d_i^2 = (h^2 / 2) sum over the pieces of [0, 1] between the
+                       roots of Q of |sum w K(u) Q(u) u^2|  (Taylor class, bound M = 1)
+
+    so a bandwidth costs a few lookups in the moment tables (one block and a partial block each),
+    O(log n + block), instead of a pass over the rows inside it. Returns (limits (k,), V (k, k),
+    unit bias or None when ``taylor`` is false, c, rows with positive weight). Equals the engine's
+    direct window arrays up to rounding (tests/inference/test_inference_reuse.py).
+    """
+    from .kernels import kernel_poly
+    kp = kernel_poly(kernel)
+    s = float(side.sign)
+    top = 2 * (len(kp) - 1) + 2 * degree + 2          # the highest power any of the sums needs
+    mom = side.moments
+    key, series = side.series("w")
+    sw = mom.sums(key, series, h, top)
+    size = 2 * degree + 1
+    kw = np.correlate(sw, kp, mode="valid")[:size]    # sum w K(u) u^m, m = 0..2p
+    signs = s ** np.arange(size)
+    j = np.arange(degree + 1)
+    gamma = (kw * signs)[j[:, None] + j[None, :]]
+    xy = np.empty((degree + 1, n_main))
+    for a in range(n_main):
+        k, f = side.series("wv", a)
+        xy[:, a] = np.correlate(mom.sums(k, f, h, top), kp, mode="valid")[: degree + 1] * signs[: degree + 1]
+    rhs = np.zeros((degree + 1, n_main + 1))
+    rhs[0, 0] = 1.0
+    rhs[:, 1:] = xy
+    solved = np.linalg.solve(gamma, rhs)               # one factorisation for c and the coefficients
+    c, beta = solved[:, 0], solved[:, 1:]
+    limits = beta[0] + side.offsets[:n_main]
+    q = c * signs[: degree + 1]                        # Q(u) in ascending powers of u
+    g = np.convolve(kp, q)                             # (K Q)(u)
+    g2 = np.convolve(g, g)
+    cov = np.empty((n_main, n_main))
+    for a in range(n_main):
+        for b in range(a, n_main):
+            k, f = side.series("w2nn", a, b)
+            cov[a, b] = cov[b, a] = float(np.dot(g2, mom.sums(k, f, h, top)[: len(g2)]))
+    bias = None
+    if taylor:
+        f_poly = np.r_[0.0, 0.0, g]                    # F(u) = K(u) Q(u) u^2
+        if degree == 1:                                # local linear: one root, no eigenvalues
+            roots = np.array([-q[0] / q[1]]) if q[1] != 0.0 else np.array([])
+        else:
+            roots = np.polynomial.polynomial.polyroots(q) if np.any(q[1:]) else np.array([])
+        real = np.sort(roots.real[(np.abs(roots.imag) <= 1e-12 * np.maximum(1.0, np.abs(roots.real)))
+                                  & (roots.real > 0.0) & (roots.real < 1.0)])
+        powers = np.arange(len(f_poly))
+
+        def window(u: float) -> float:                 # sum_{d <= u h} w F(d / h)
+            if u <= 0.0:
+                return 0.0
+            m = sw if u == 1.0 else mom.sums(key, series, u * h, top)
+            return float(np.dot(f_poly * u ** powers, m[: len(f_poly)]))
+        values = [window(u) for u in (0.0, *real, 1.0)]
+        bias = float(0.5 * h * h * sum(abs(b - a) for a, b in zip(values[:-1], values[1:])))
+    return limits, cov, bias, c, side.count_positive(h, kernel)
 
 
 def holder_max_bias(weights: np.ndarray, distance: np.ndarray, smoothness: float) -> float:
@@ -90,32 +183,50 @@ def second_derivative_bound(x: np.ndarray, y: np.ndarray, degree: int = RULE_OF_
     """max |fitted second derivative| over the observed x of a global polynomial fitted by OLS.
 
     The polynomial degree drops to what the number of distinct x values allows; a side with fewer
-    than three distinct values gives nan (no curvature can be measured there).
+    than three distinct values gives nan (no curvature can be measured there). The fit is solved by
+    normal equations in the Legendre basis of x mapped onto [-1, 1] (well conditioned, one pass of
+    small products instead of a least-squares factorisation of the n x (degree + 1) matrix); the
+    second derivative is evaluated on 201 points spanning the observed x.
     """
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
-    degree = min(degree, len(np.unique(x)) - 1)
+    steps = np.diff(x)
+    if np.all(steps >= 0) or np.all(steps <= 0):      # a side's sorted scores: no sort needed
+        distinct = 1 + int(np.count_nonzero(steps)) if len(x) else 0
+    else:
+        distinct = len(np.unique(x))
+    degree = min(degree, distinct - 1)
     if degree < 2:
         return float("nan")
-    scale = float(np.max(np.abs(x))) or 1.0
-    coefs = np.polynomial.polynomial.polyfit(x / scale, y, degree)  # scaled for conditioning
-    second = np.polynomial.polynomial.polyder(coefs, 2) / scale ** 2
-    grid = np.linspace(x.min(), x.max(), 201) / scale
-    return float(np.max(np.abs(np.polynomial.polynomial.polyval(grid, second))))
+    lo, hi = float(np.min(x)), float(np.max(x))
+    half = 0.5 * (hi - lo)
+    t = (x - (lo + half)) / half
+    basis = np.empty((degree + 1, len(t)))             # Legendre P_0..P_degree by their recurrence
+    basis[0] = 1.0
+    basis[1] = t
+    for k in range(1, degree):
+        basis[k + 1] = ((2 * k + 1) * t * basis[k] - k * basis[k - 1]) / (k + 1)
+    coefs = np.linalg.solve(basis @ basis.T, basis @ y)
+    second = np.polynomial.legendre.legder(coefs, 2) / half ** 2
+    grid = np.linspace(-1.0, 1.0, 201)
+    return float(np.max(np.abs(np.polynomial.legendre.legval(grid, second))))
 
 
 def minimise_on_log_grid(objective: Callable[[float], float], low: float, high: float,
-                         points: int = GRID_POINTS) -> tuple[float, bool]:
+                         points: int = GRID_POINTS,
+                         on_grid: Callable[[np.ndarray], np.ndarray] | None = None) -> tuple[float, bool]:
     """Minimise a one-dimensional objective over [low, high]: a log-spaced grid, then a bounded
     refinement between the neighbours of the best grid point (the objective has small steps as
     observations enter the window, so unimodality is not assumed).
 
-    Returns the minimiser and whether it lies at an end of the range.
+    Returns the minimiser and whether it lies at an end of the range. ``on_grid``, when given, is the
+    objective at all grid points at once.
     """
     if high <= low:
         return float(low), True
     grid = np.geomspace(low, high, points)
-    values = np.array([objective(h) for h in grid])
+    # ``on_grid``: the objective at every grid point at once (the same numbers, vectorised)
+    values = np.asarray(on_grid(grid), dtype=float) if on_grid is not None else np.array([objective(h) for h in grid])
     values = np.where(np.isfinite(values), values, np.inf)
     best = int(np.argmin(values))
     lo, hi = grid[max(best - 1, 0)], grid[min(best + 1, points - 1)]

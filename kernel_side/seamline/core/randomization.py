@@ -12,7 +12,14 @@ fixed, so the null distribution of a statistic comes from recomputing it for eve
 Statistics are two-sided through their absolute value: |difference in means|, the
 Kolmogorov-Smirnov distance sup |F_1 - F_0|, and |rank sum of the treated - its null mean| (mid-ranks).
 Ties are compared with the relative tolerance scipy.stats.permutation_test uses (100 machine epsilons).
-Randomness only through an explicit numpy Generator.
+Randomness only through an explicit numpy Generator, or (``prefix_keys``) generators seeded by
+(seed, block of draws, block of units).
+
+Nested symmetric windows share their Monte Carlo draws: the units are put in order of distance to
+the cutoff, so each such window is a prefix of that order, and every draw gives each unit a uniform
+key; a window's assignment treats the n_1 units of its prefix with the smallest keys, a uniform draw
+from its C(n, n_1) assignments (``prefix_treated_sums``). A window's draws depend on its prefix only,
+not on which other windows are analysed, so one window gets the same draws alone or in a sequence.
 """
 from __future__ import annotations
 
@@ -26,6 +33,9 @@ from scipy import stats
 EXACT_LIMIT = 100_000
 CHUNK = 4096                    # assignments per block when computing statistics (memory bound)
 DRAW_CHUNK = 1024               # Monte Carlo draws per block of random keys
+KEY_DRAWS = 64                  # draws per generator of shared keys (prefix_keys)
+KEY_MEMORY = 128 * 2 ** 20      # bytes of shared keys (and their float32 copies) held at a time
+KEY_BLOCK = 256                 # units per block of shared random keys (prefix_keys)
 TIE_TOLERANCE = 100 * np.finfo(float).eps
 STATISTICS = ("difference in means", "Kolmogorov-Smirnov", "rank sum")
 
@@ -51,6 +61,94 @@ def draw_assignments(n: int, n_treated: int, permutations: int,
         picked = np.argpartition(keys, n_treated - 1, axis=1)[:, :n_treated]
         np.put_along_axis(out[start: start + len(keys)], picked, True, axis=1)
     return out, False
+
+
+def prefix_keys(seed: int, draws: slice, n: int, out: np.ndarray | None = None) -> np.ndarray:
+    """(draws, n) uniform keys of units 0..n-1 (in order of distance) for the Monte Carlo draws in
+    ``draws`` (its start a multiple of KEY_DRAWS). Each (block of KEY_DRAWS draws, block of
+    KEY_BLOCK units) has its own generator seeded by (seed, draw block, unit block), so the keys of a
+    prefix depend neither on how many units follow it nor on how many draws are taken at a time.
+    ``out``: a buffer to fill (at least that large)."""
+    rows = draws.stop - draws.start
+    blocks = -(-n // KEY_BLOCK)
+    if out is None or out.shape[0] < rows or out.shape[1] < blocks * KEY_BLOCK:
+        out = np.empty((rows, blocks * KEY_BLOCK))
+    for d in range(draws.start // KEY_DRAWS, -(-draws.stop // KEY_DRAWS)):
+        top = d * KEY_DRAWS - draws.start
+        take = slice(max(0, -top), min(KEY_DRAWS, rows - top))
+        for b in range(blocks):
+            block = np.random.default_rng([seed, d, b]).random((KEY_DRAWS, KEY_BLOCK))
+            out[top + take.start: top + take.stop, b * KEY_BLOCK:(b + 1) * KEY_BLOCK] = block[take]
+    return out[:rows, :n]
+
+
+def _draw_steps(permutations: int, units: int):
+    """Slices of draws taken at a time: whole key blocks, at most DRAW_CHUNK, and few enough that
+    the keys and their float32 copies stay within KEY_MEMORY (a window of 200,000 units, integer
+    scores at 1e6 rows, would otherwise need gigabytes)."""
+    fit = KEY_MEMORY // max(1, 16 * units) // KEY_DRAWS * KEY_DRAWS
+    step = int(min(DRAW_CHUNK, max(KEY_DRAWS, fit)))
+    return [slice(start, min(start + step, permutations)) for start in range(0, permutations, step)]
+
+
+def _treated_by_keys(keys: np.ndarray, n_treated: int, scratch: np.ndarray | None = None) -> np.ndarray:
+    """Each row's n_treated smallest keys (keys are distinct with probability one), as a mask.
+
+    The selection runs on the keys rounded to float32 (half the memory a partition moves: about
+    twice as fast), exactly: rounding is monotone, so the n_treated-th smallest rounded key is the
+    rounding of the n_treated-th smallest key, and the keys at or below it are the n_treated
+    smallest unless another key rounds to the same float32 (about 1e-4 rows in each window at n =
+    4,500); those rows are partitioned in float64. ``scratch``: a flat float32 buffer of at least
+    2 keys.size numbers (no fresh allocation per window)."""
+    rows, n = keys.shape
+    if scratch is None or scratch.size < 2 * rows * n:
+        scratch = np.empty(2 * rows * n, dtype=np.float32)
+    rounded = scratch[: rows * n].reshape(rows, n)
+    work = scratch[rows * n: 2 * rows * n].reshape(rows, n)
+    np.copyto(rounded, keys, casting="same_kind")
+    np.copyto(work, rounded)
+    work.partition(n_treated - 1, axis=1)
+    treated = rounded <= work[:, n_treated - 1: n_treated]
+    tied = np.flatnonzero(np.count_nonzero(treated, axis=1) != n_treated)
+    if len(tied):
+        exact = np.partition(keys[tied], n_treated - 1, axis=1)[:, n_treated - 1: n_treated]
+        treated[tied] = keys[tied] <= exact
+    return treated
+
+
+def prefix_treated_sums(windows: list[tuple[int, int, np.ndarray]], permutations: int,
+                        seed: int) -> list[np.ndarray]:
+    """For each window (n, n_treated, columns (n, k), units in order of distance): the (permutations,
+    k) sums of each column over the treated units of every Monte Carlo draw, all windows from one
+    pass over shared keys (``prefix_keys``; the module docstring says why each is a uniform draw).
+
+    The sums are einsum's own loops, not a BLAS product: OpenBLAS's threads spin and stall on a
+    shared machine for these thin products, even 64 draws at a time (measured at 1e6 rows, load 8 on
+    2 CPUs: 56 s against 5 s with one thread, and 3.8 s with einsum)."""
+    if not windows:
+        return []
+    largest = max(n for n, _, _ in windows)
+    out = [np.empty((permutations, cols.shape[1])) for _, _, cols in windows]
+    transposed = [np.ascontiguousarray(cols.T) for _, _, cols in windows]
+    steps = _draw_steps(permutations, largest)
+    rows = steps[0].stop - steps[0].start
+    keys_buffer = np.empty((rows, -(-largest // KEY_BLOCK) * KEY_BLOCK))
+    scratch = np.empty(2 * rows * largest, dtype=np.float32)
+    for draws in steps:
+        keys = prefix_keys(seed, draws, largest, keys_buffer)
+        for (n, n_treated, _), cols_t, sums in zip(windows, transposed, out):
+            treated = _treated_by_keys(keys[:, :n], n_treated, scratch)
+            sums[draws] = np.einsum("rn,kn->rk", treated, cols_t)
+    return out
+
+
+def prefix_assignments(n: int, n_treated: int, permutations: int, seed: int) -> np.ndarray:
+    """The (permutations, n) boolean assignments ``prefix_treated_sums`` uses for a window of the first
+    n units (for the statistics that need the assignments themselves)."""
+    out = np.empty((permutations, n), dtype=bool)
+    for draws in _draw_steps(permutations, n):
+        out[draws] = _treated_by_keys(prefix_keys(seed, draws, n), n_treated)
+    return out
 
 
 def _difference_in_means(assign: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -161,14 +259,77 @@ class RandomizationTest:
 
 class ShiftedDifference:
     """p(tau0) of the difference in means from four precomputed pieces: small enough (two vectors
-    of one value per assignment) to keep after the assignments are gone."""
+    of one value per assignment) to keep after the assignments are gone.
+
+    Draw r counts toward p(tau0) when |d_y,r - tau0 d_t,r| >= c |D_y - tau0 D_t| (c = 1 - the tie
+    tolerance), i.e. when L1 L2 >= 0 with L1 = (d_y,r - c D_y) - tau0 (d_t,r - c D_t) and L2 the same with
+    +c: a product of two linear functions of tau0. So the count is a step function whose steps are at
+    the roots of L1 and L2, and ``accepted_hull`` finds {tau0 : p(tau0) > alpha} exactly, for every
+    alpha, from one sort of the 2R roots (``_steps``, computed once): a level change is a threshold.
+    """
 
     def __init__(self, d_y: np.ndarray, d_t: np.ndarray, obs_d_y: float, obs_d_t: float, exact: bool):
         self._d_y, self._d_t, self._obs_d_y, self._obs_d_t, self.exact = d_y, d_t, obs_d_y, obs_d_t, exact
+        self._step_table: tuple[np.ndarray, np.ndarray, np.ndarray, int] | None = None
 
     def p_value_shifted(self, tau0: float) -> float:
         obs = abs(self._obs_d_y - tau0 * self._obs_d_t)
         return p_value(obs, np.abs(self._d_y - tau0 * self._d_t), self.exact)
+
+    def _p(self, count: np.ndarray) -> np.ndarray:
+        total = len(self._d_y)
+        return count / total if self.exact else (count + 1) / (total + 1)
+
+    def _steps(self):
+        """(step positions u_1 < ... < u_m, count on (u_k, u_k+1) for k = 0..m (u_0 = -inf,
+        u_m+1 = inf), count at each u_k)."""
+        if self._step_table is None:
+            c = 1.0 - TIE_TOLERANCE
+            a, b, big_a, big_b = self._d_y, self._d_t, self._obs_d_y, self._obs_d_t
+            alpha = np.stack([a - c * big_a, a + c * big_a])      # L_i(tau0) = alpha_i - tau0 beta_i
+            beta = np.stack([b - c * big_b, b + c * big_b])
+            constant_zero = np.any((beta == 0.0) & (alpha == 0.0), axis=0)   # counted at every tau0
+            left_sign = np.where(beta != 0.0, np.sign(beta), np.sign(alpha))  # sign as tau0 -> -inf
+            base = (left_sign[0] * left_sign[1] >= 0.0) | constant_zero
+            with np.errstate(divide="ignore", invalid="ignore"):
+                roots = np.where((beta != 0.0) & ~constant_zero, alpha / beta, np.nan)
+            lo, hi = np.fmin(roots[0], roots[1]), np.fmax(roots[0], roots[1])
+            has_lo, has_hi = ~np.isnan(lo), ~np.isnan(roots[0]) & ~np.isnan(roots[1])
+            flip = 1 - 2 * base.astype(np.int64)                   # +1: uncounted -> counted at the first root
+            positions = np.r_[lo[has_lo], hi[has_hi]]
+            deltas = np.r_[flip[has_lo], -flip[has_hi]]
+            # a draw is counted at its root (L1 L2 = 0 there): add it to the point unless it was already
+            # counted just left of it (the second of two equal roots is the same point)
+            adds = np.r_[(~base)[has_lo], (base & (hi != lo))[has_hi]].astype(np.int64)
+            order = np.argsort(positions, kind="stable")
+            positions, deltas, adds = positions[order], deltas[order], adds[order]
+            values, first = np.unique(positions, return_index=True)
+            delta_at = np.add.reduceat(deltas, first) if len(first) else np.zeros(0, np.int64)
+            add_at = np.add.reduceat(adds, first) if len(first) else np.zeros(0, np.int64)
+            start = int(np.sum(base))
+            open_counts = start + np.r_[0, np.cumsum(delta_at)]
+            point_counts = open_counts[:-1] + add_at
+            self._step_table = (values, open_counts, point_counts, start)
+        return self._step_table
+
+    def accepted_hull(self, alpha: float) -> tuple[tuple[float, float], bool]:
+        """{tau0 : p(tau0) > alpha} as an interval (the hull of its closure) and whether it is one
+        interval; (nan, nan) when no tau0 is accepted. Exact: the ends are steps of p."""
+        values, open_counts, point_counts, _ = self._steps()
+        m = len(values)
+        # the pieces in order: open_0, point_1, open_1, ..., point_m, open_m
+        accepted = np.empty(2 * m + 1, dtype=bool)
+        accepted[0::2] = self._p(open_counts) > alpha
+        accepted[1::2] = self._p(point_counts) > alpha
+        idx = np.flatnonzero(accepted)
+        if not len(idx):
+            return (float("nan"), float("nan")), True
+        contiguous = bool(np.all(np.diff(idx) == 1))
+        first, last = int(idx[0]), int(idx[-1])
+        # piece 2k is the open interval (u_k, u_k+1) (u_0 = -inf), piece 2k - 1 the point u_k
+        low = -np.inf if first == 0 else float(values[(first - 1) // 2]) if first % 2 else float(values[first // 2 - 1])
+        high = np.inf if last == 2 * m else float(values[last // 2]) if last % 2 == 0 else float(values[(last - 1) // 2])
+        return (low, high), contiguous
 
 
 def invert(p_of: Callable[[float], float], centre: float, scale: float, alpha: float,

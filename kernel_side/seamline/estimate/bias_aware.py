@@ -16,8 +16,10 @@ from numbers import Real
 import numpy as np
 import pandas as pd
 
-from ..core.bias_aware import (accepted_set, critical_value, half_length, holder_max_bias,
-                               minimise_on_log_grid, second_derivative_bound, taylor_max_bias)
+from ..core.bias_aware import (accepted_set, critical_value, critical_values, half_length, holder_max_bias,
+                               minimise_on_log_grid, second_derivative_bound, taylor_max_bias,
+                               side_at_bandwidth)
+from ..core.kernels import kernel_weights
 from ..data import Prepared
 from ..errors import InvalidOptionError, InvalidSmoothnessError, shown
 from ..options import KERNELS, SMOOTHNESS_CLASSES, check_level, check_option
@@ -54,20 +56,48 @@ class _Problem:
 
     def moments(self, h: tuple[float, float], cluster: bool = False) -> _Moments:
         key = (h, cluster)
-        if key not in self._cache:
-            engine = JumpEngine(self.prep, h=h, b=h, p=self.degree, q=self.degree, nu=0, kernel=self.kernel,
-                                treated_sign=self.design.treated_sign, n_main=self.n_main, direct=True)
-            eye = np.eye(self.n_main)
-            jumps = np.array([engine.jump(e) for e in eye])
-            var = lambda lam: engine.variance(lam, "neighbors", cluster=cluster)  # noqa: E731
-            cov = np.diag([var(e) for e in eye])
-            for i in range(self.n_main):          # polarisation: every variance is a quadratic form
-                for j in range(i):
-                    cov[i, j] = cov[j, i] = 0.5 * (var(eye[i] + eye[j]) - cov[i, i] - cov[j, j])
-            unit_bias = sum(self.side_bias(wa.a, side.distance[: wa.rows], 1.0)
-                            for side, wa in zip(engine.sides, engine.arrays()))
-            self._cache[key] = _Moments(jumps, cov, unit_bias, engine.counts(False))
-        return self._cache[key]
+        found = self._cache.get(key)
+        if found is None:
+            found = self._cache[key] = (self._direct(h, cluster) if cluster else self._from_moments(h))
+        return found
+
+    def _covariance(self, engine: JumpEngine, cluster: bool) -> np.ndarray:
+        eye = np.eye(self.n_main)
+        var = lambda lam: engine.variance(lam, "neighbors", cluster=cluster)  # noqa: E731
+        cov = np.diag([var(e) for e in eye])
+        for i in range(self.n_main):          # polarisation: every variance is a quadratic form
+            for j in range(i):
+                cov[i, j] = cov[j, i] = 0.5 * (var(eye[i] + eye[j]) - cov[i, i] - cov[j, j])
+        return cov
+
+    def _from_moments(self, h: tuple[float, float]) -> _Moments:
+        """The moments at one bandwidth from the sides' window moment tables
+        (``core.bias_aware.side_at_bandwidth``): the fit, the nearest-neighbour variance and (Taylor
+        class) the worst-case bias cost O(log n + block) each, so the search's ~75 bandwidths cost
+        milliseconds, not a pass over the rows inside each."""
+        taylor = self.side_bias is taylor_max_bias
+        limits, cov, unit_bias, counts = [], np.zeros((self.n_main, self.n_main)), 0.0, []
+        for side, hs in zip((self.prep.below, self.prep.above), h):
+            lim, v, bias, c, rows = side_at_bandwidth(side, hs, self.kernel, self.degree, self.n_main, taylor)
+            limits.append(lim)
+            cov += v
+            counts.append(rows)
+            if taylor:
+                unit_bias += bias
+            else:                               # Hölder: the integral needs the weights themselves
+                a = _weights(side, hs, self.kernel, self.degree, c)
+                unit_bias += self.side_bias(a, side.distance[: len(a)], 1.0)
+        jumps = self.design.treated_sign * (limits[1] - limits[0])
+        return _Moments(jumps, cov, float(unit_bias), tuple(counts))
+
+    def _direct(self, h: tuple[float, float], cluster: bool) -> _Moments:
+        """The moments from the window arrays (the cluster-robust variance needs them)."""
+        engine = JumpEngine(self.prep, h=h, b=h, p=self.degree, q=self.degree, nu=0, kernel=self.kernel,
+                            treated_sign=self.design.treated_sign, n_main=self.n_main, direct=True)
+        jumps = np.array([engine.jump(e) for e in np.eye(self.n_main)])
+        unit_bias = sum(self.side_bias(wa.a, side.distance[: wa.rows], 1.0)
+                        for side, wa in zip(engine.sides, engine.arrays()))
+        return _Moments(jumps, self._covariance(engine, cluster), unit_bias, engine.counts(False))
 
     # ---- the sharp interval and the fuzzy set at one bandwidth ---------------------------------
     def sharp(self, m: _Moments, smoothness: float):
@@ -104,8 +134,7 @@ class _Problem:
         """Half-length at a common bandwidth h (fuzzy: of the linearised ratio at its own estimate)."""
         m = self.moments((h, h))
         if self.n_main == 1:
-            est, se, bias, _ = self.sharp(m, smoothness)
-            return half_length(bias, se, self.level)
+            return half_length(smoothness * m.unit_bias, float(np.sqrt(m.cov[0, 0])), self.level)
         jd = float(m.jumps[1])
         if jd == 0.0:
             return np.inf
@@ -128,7 +157,26 @@ class _Problem:
             raise TooFewDistinctValuesError(
                 f"`degree` {self.degree} must leave at least {self.degree + 2} distinct score values on each "
                 "side of the cutoff; got fewer. Lower the degree.")
-        return minimise_on_log_grid(lambda h: self.length(h, smoothness), low, high)
+        return minimise_on_log_grid(lambda h: self.length(h, smoothness), low, high,
+                                    on_grid=(lambda grid: self.sharp_lengths(grid, smoothness))
+                                    if self.n_main == 1 else None)
+
+    def sharp_lengths(self, grid: np.ndarray, smoothness: float) -> np.ndarray:
+        """``length`` at every bandwidth of ``grid`` (sharp designs), the critical values at once."""
+        kept = [self.moments((float(h), float(h))) for h in grid]
+        se = np.sqrt(np.array([m.cov[0, 0] for m in kept]))
+        bias = smoothness * np.array([m.unit_bias for m in kept])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            half = critical_values(np.where(se > 0, bias / se, 0.0), self.level) * se
+        return np.where(se > 0, half, np.nan)
+
+
+def _weights(side, h: float, kernel: str, degree: int, c: np.ndarray) -> np.ndarray:
+    """The order-p smoother weights w_i K(d_i/h) c' r_p(s d_i/h) of the rows inside the bandwidth."""
+    rows = side.count_positive(h, kernel)
+    d = side.distance[:rows]
+    basis = np.vander(side.sign * d / h, degree + 1, increasing=True)
+    return side.w(slice(0, rows)) * kernel_weights(kernel, d / h) * (basis @ c)
 
 
 def _check_smoothness(value, fuzzy: bool):

@@ -10,15 +10,18 @@ Cattaneo, Titiunik & Vazquez-Bare 2016, 2017).
 """
 from __future__ import annotations
 
+import copy
 from functools import lru_cache
+from math import comb
 from numbers import Real
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import special
 
-from ..core.randomization import (STATISTICS, RandomizationTest, differences_in_means, draw_assignments, invert,
-                                  p_value, statistic_values)
+from ..core.randomization import (CHUNK, EXACT_LIMIT, STATISTICS, RandomizationTest, ShiftedDifference,
+                                  differences_in_means, draw_assignments, invert, p_value, prefix_assignments,
+                                  prefix_treated_sums, statistic_values)
 from ..errors import InvalidOptionError, NoBalancedWindowError, WindowTooSmallError, shown
 from ..options import check_level
 from ..results.inference import LocalRandomization
@@ -66,9 +69,27 @@ class _Units:
         self.treated = above if design.treated == "above" else ~above
         self.above = above
         self.covariates = {c: data.arrays[c][keep] for c in design.covariates if c != outcome}
-        self._order = np.argsort(self.x, kind="stable")
+        self._order = self._score_order(data, outcome, keep)
         self._sorted = self.x[self._order]
         self._zero = int(np.searchsorted(self._sorted, 0.0, side="left"))   # first unit above
+        # the order of distance to the cutoff (nearest first): a symmetric window is a prefix of it.
+        # The sides in score order are two sorted runs of distances (below reversed), which a stable
+        # sort (timsort) merges in one pass
+        runs = np.r_[self._order[: self._zero][::-1], self._order[self._zero:]]
+        merged = np.argsort(np.abs(self.x[runs]), kind="stable")
+        self.by_distance = runs[merged]
+        self._distance_sorted = np.abs(self.x[self.by_distance])
+
+    def _score_order(self, data, outcome: str, keep: np.ndarray) -> np.ndarray:
+        """Positions (among the kept units) in ascending score order: the design's own sort when it
+        keeps the same rows, else a sort of its own (the order of tied scores matters nowhere: a
+        window's units are read back in row order, or in the distance order built from this one)."""
+        rows, _ = data.sorted_rows((outcome,))
+        if len(rows) == int(keep.sum()):
+            position = np.cumsum(keep) - 1
+            if np.all(keep[rows]):
+                return position[rows]
+        return np.argsort(self.x, kind="stable")
 
     def span(self, low: float, high: float) -> tuple[int, int]:
         """Positions [start, stop) in the sorted distances of the window [low, high]: both ends
@@ -76,6 +97,23 @@ class _Units:
         tol = WINDOW_TOLERANCE * max(abs(self.cutoff), abs(low), abs(high))
         return (int(np.searchsorted(self._sorted, low - tol, side="left")),
                 int(np.searchsorted(self._sorted, high + tol, side="right")))
+
+    @property
+    def lowest(self) -> float:
+        return float(self._sorted[0])
+
+    @property
+    def highest(self) -> float:
+        return float(self._sorted[-1])
+
+    def prefix_length(self, span: tuple[int, int]) -> int | None:
+        """n when the window's units are exactly the n nearest the cutoff (a symmetric window), else None."""
+        start, stop = span
+        if stop <= start:
+            return None
+        reach = max(-self._sorted[start], self._sorted[stop - 1])
+        n = int(np.searchsorted(self._distance_sorted, reach, side="right"))
+        return n if n == stop - start else None
 
     def rows(self, span: tuple[int, int]) -> np.ndarray:
         """The window's units as row positions in row order (the order a boolean mask gives)."""
@@ -88,72 +126,101 @@ class _Units:
 
     def half_width_for(self, units: int) -> float:
         """Smallest symmetric half-width holding ``units`` units on each side (nan if impossible)."""
-        below, above = -self._sorted[: self._zero][::-1], self._sorted[self._zero:]
-        if min(len(below), len(above)) < units:
+        if min(self._zero, len(self._sorted) - self._zero) < units:
             return float("nan")
-        return float(max(below[units - 1], above[units - 1]))
+        return float(max(-self._sorted[self._zero - units], self._sorted[self._zero + units - 1]))
 
 
 @lru_cache(maxsize=4)
 def _assignments(n: int, n_treated: int, permutations: int, seed: int) -> tuple[np.ndarray, bool]:
-    """The draws for a window of this size; the balance checks of several covariates share them."""
+    """The draws of a window that is not a prefix of the distance order (or is enumerated exactly)."""
     assign, exact = draw_assignments(n, n_treated, permutations, np.random.default_rng(seed))
     assign.setflags(write=False)
     return assign, exact
 
 
-def _window_test(units: _Units, rows: np.ndarray, y: np.ndarray, statistic: str, permutations: int,
-                 seed: int) -> RandomizationTest:
-    treated = units.treated[rows]
-    assign, exact = _assignments(len(rows), int(treated.sum()), permutations, seed)
-    return RandomizationTest(y, treated, statistic, assign, exact)
+def _kept_units(design, outcome: str) -> _Units:
+    """The usable units of an outcome, sorted once per design (two sorts of every row at 1e6 rows
+    cost more than a level change may); callers copy it before choosing covariates."""
+    key = ("local randomization units", outcome)
+    found = design._inference.get(key)
+    if found is None:
+        found = design._inference[key] = _Units(design, outcome)
+    return found
 
 
-def _balance(units: _Units, rows: np.ndarray, permutations: int, seed):
-    """(minimum p-value over covariates, the covariate that attains it).
+def _exact(n: int, n_treated: int) -> bool:
+    return comb(n, n_treated) <= EXACT_LIMIT
 
-    Balance uses the difference in means whatever the outcome's statistic (convention), so that the
-    chosen window depends on the covariates only."""
-    statistic = "difference in means"
-    by_rows: dict[bytes, list] = {}   # covariates present on the same units share one pass over the draws
-    for name, z in units.covariates.items():
-        ok = rows[~np.isnan(z[rows])]
-        below = int(np.sum(~units.above[ok]))
-        if min(below, len(ok) - below) >= 1:
-            by_rows.setdefault(ok.tobytes(), [ok, []])[1].append(name)
-    p_values = {}
-    for ok, names in by_rows.values():
-        treated = units.treated[ok]
-        assign, exact = _assignments(len(ok), int(treated.sum()), permutations, seed)
-        columns = [units.covariates[name][ok] for name in names]
-        for name, z, null in zip(names, columns, differences_in_means(assign, columns)):
-            observed = float(statistic_values(statistic, treated[None, :], z)[0])
-            p_values[name] = p_value(observed, null, exact)
-    best = (np.nan, None)
-    for name in units.covariates:
-        if name in p_values and not p_values[name] >= best[0]:   # also replaces nan
-            best = (p_values[name], name)
-    return best
+
+def _window_rows(units: _Units, span) -> tuple[np.ndarray, int | None]:
+    """A window's units and, when they are the first n in order of distance, n: in distance order
+    then (the order the shared Monte Carlo keys refer to), in row order otherwise."""
+    n = units.prefix_length(span)
+    return (units.by_distance[:n], n) if n is not None else (units.rows(span), None)
+
+
+def _treated_sums(units: _Units, windows: list[tuple[np.ndarray, int | None, np.ndarray]], permutations: int,
+                  seed: int) -> list[tuple[np.ndarray, np.ndarray, bool]]:
+    """For windows (rows, prefix length or None, columns (rows, k)): the sums of each column over the
+    treated of every assignment, the observed ones, and whether the assignments are enumerated.
+    Windows that are prefixes of the distance order share one pass over shared keys
+    (``core.randomization.prefix_treated_sums``); the others draw as ``draw_assignments`` does."""
+    out: list = [None] * len(windows)
+    shared = []
+    for i, (rows, prefix, cols) in enumerate(windows):
+        treated = units.treated[rows]
+        observed = treated.astype(float) @ cols
+        n, n1 = len(rows), int(treated.sum())
+        if prefix is not None and not _exact(n, n1):
+            shared.append((i, (n, n1, cols), observed))
+            continue
+        assign, exact = _assignments(n, n1, permutations, seed)
+        sums = np.concatenate([assign[j: j + CHUNK].astype(float) @ cols for j in range(0, len(assign), CHUNK)])
+        out[i] = (sums, observed, exact)
+    for (i, _, observed), sums in zip(shared, prefix_treated_sums([w for _, w, _ in shared], permutations, seed)):
+        out[i] = (sums, observed, False)
+    return out
+
+
+def _differences(sums: np.ndarray, total: np.ndarray, n: int, n1: int) -> np.ndarray:
+    """Signed differences in means (treated - control) from the treated sums (as the statistic's own
+    formula computes them)."""
+    return sums / n1 - (total - sums) / (n - n1)
 
 
 class _WindowOutcome:
     """What the outcome's test in one window gives at every level: the estimate, the Neyman standard
     error, the p-value, and p(tau0) for the inversion. For the difference in means p(tau0) needs
-    only two vectors, so the record stays small enough to keep on the design."""
+    only two vectors (and the interval at any level is a threshold on their step table,
+    ``ShiftedDifference.accepted_hull``), so the record stays small enough to keep on the design."""
 
-    def __init__(self, units: _Units, rows: np.ndarray, statistic: str, permutations: int, seed):
-        y, treated = units.y[rows], units.treated[rows]
-        test = _window_test(units, rows, y, statistic, permutations, seed)
+    def __init__(self, y: np.ndarray, treated: np.ndarray, statistic: str, exact: bool, assignments: int,
+                 p: float, statistic_value: float, shifted: ShiftedDifference | None = None,
+                 test: RandomizationTest | None = None):
         y1, y0 = y[treated], y[~treated]
         self.estimate = float(y1.mean() - y0.mean())
         self.se = float(np.sqrt(y1.var(ddof=1) / len(y1) + y0.var(ddof=1) / len(y0)))
-        self.statistic_value = test.observed(y)
-        self.p = test.p_value(y)
-        self.exact, self.assignments = test.exact, len(test.assignments)
-        self.statistic = statistic
-        self.p_value_shifted = (test.shifted().p_value_shifted if statistic == "difference in means"
-                                else test.p_value_shifted)
-        self.keep = statistic == "difference in means"   # other statistics hold the assignments
+        self.statistic, self.exact, self.assignments = statistic, exact, assignments
+        self.p, self.statistic_value = p, statistic_value
+        self.shifted = shifted
+        self.p_value_shifted = shifted.p_value_shifted if shifted is not None else test.p_value_shifted
+        self.keep = shifted is not None       # other statistics hold the assignments
+
+    @classmethod
+    def from_sums(cls, y, treated, sums, observed, exact) -> "_WindowOutcome":
+        """From the treated sums of (y, T) over the assignments (difference in means)."""
+        n, n1 = len(y), int(treated.sum())
+        total = np.array([y.sum(), float(n1)])
+        null = _differences(sums, total, n, n1)
+        obs = _differences(observed, total, n, n1)
+        shifted = ShiftedDifference(null[:, 0], null[:, 1], float(obs[0]), float(obs[1]), exact)
+        return cls(y, treated, "difference in means", exact, len(sums), p_value(abs(obs[0]), np.abs(null[:, 0]), exact),
+                   abs(float(obs[0])), shifted=shifted)
+
+
+def _outcome_columns(units: _Units, rows: np.ndarray) -> np.ndarray:
+    return np.column_stack([units.y[rows], units.treated[rows].astype(float)])
 
 
 def _window_outcome(design, units: _Units, outcome: str, span, statistic: str, permutations: int,
@@ -161,7 +228,21 @@ def _window_outcome(design, units: _Units, outcome: str, span, statistic: str, p
     key = ("local randomization window", outcome, span, statistic, permutations, seed)
     found = design._inference.get(key)
     if found is None:
-        found = _WindowOutcome(units, units.rows(span), statistic, permutations, seed)
+        rows, prefix = _window_rows(units, span)
+        y, treated = units.y[rows], units.treated[rows]
+        if statistic == "difference in means":
+            [(sums, observed, exact)] = _treated_sums(units, [(rows, prefix, _outcome_columns(units, rows))],
+                                                      permutations, seed)
+            found = _WindowOutcome.from_sums(y, treated, sums, observed, exact)
+        else:
+            n, n1 = len(rows), int(treated.sum())
+            if prefix is not None and not _exact(n, n1):
+                assign, exact = prefix_assignments(n, n1, permutations, seed), False
+            else:
+                assign, exact = _assignments(n, n1, permutations, seed)
+            test = RandomizationTest(y, treated, statistic, assign, exact)
+            found = _WindowOutcome(y, treated, statistic, exact, len(assign), test.p_value(y), test.observed(y),
+                                   test=test)
         if found.keep:
             design._inference[key] = found
     return found
@@ -169,12 +250,15 @@ def _window_outcome(design, units: _Units, outcome: str, span, statistic: str, p
 
 def _outcome_row(part: _WindowOutcome, level: float) -> dict:
     estimate, se, p = part.estimate, part.se, part.p
-    z = stats.norm.ppf(0.5 + level / 2.0)
-    # the difference in means gets each p(tau0) in O(assignments); other statistics recompute, so
-    # they get a coarser first grid (the ends are refined by bisection either way)
-    points = 81 if part.statistic == "difference in means" else 33
-    (low, high), contiguous = invert(part.p_value_shifted, estimate, se if se > 0 else 1.0, 1.0 - level,
-                                     points=points, refine=30 if points == 81 else 16)
+    z = float(special.ndtri(0.5 + level / 2.0))   # = stats.norm.ppf, without its checks
+    if part.shifted is not None:
+        # the difference in means: p(tau0) is a step function whose steps are known, so the interval is
+        # exact at any level (a threshold on the kept step table)
+        (low, high), contiguous = part.shifted.accepted_hull(1.0 - level)
+    else:
+        # other statistics recompute the test at each tau0: a grid, then bisection at each end
+        (low, high), contiguous = invert(part.p_value_shifted, estimate, se if se > 0 else 1.0, 1.0 - level,
+                                         points=33, refine=16)
     n = part.assignments
     return {"estimate": estimate, "statistic_value": part.statistic_value, "p_value": p,
             "p_value_std_error": 0.0 if part.exact else float(np.sqrt(p * (1 - p) / n)),
@@ -185,26 +269,89 @@ def _outcome_row(part: _WindowOutcome, level: float) -> dict:
 def _balance_rows(design, units: _Units, outcome: str, widths: list[float], permutations: int,
                   seed) -> list[dict]:
     """The balance of each nested window: it depends on neither the level, the statistic nor a given
-    window, so it is kept on the design (a board's level change reuses it)."""
+    window, so it is kept on the design (a board's level change reuses it). The same pass over the
+    draws gives each window's difference-in-means test of the outcome, kept for the main result and
+    the sensitivity over windows."""
     key = ("local randomization balance", outcome, tuple(units.covariates), tuple(widths), permutations, seed)
     found = design._inference.get(key)
     if found is None:
-        found = design._inference[key] = _nested_balance(units, widths, permutations, seed)
+        rows, outcomes = _nested_balance(units, widths, permutations, seed)
+        for span, part in outcomes.items():
+            design._inference[("local randomization window", outcome, span, "difference in means", permutations,
+                               seed)] = part
+        found = design._inference[key] = rows
     return found
 
 
-def _nested_balance(units: _Units, widths: list[float], permutations: int, seed) -> list[dict]:
-    rows, by_span = [], {}
+def _nested_balance(units: _Units, widths: list[float], permutations: int,
+                    seed) -> tuple[list[dict], dict]:
+    """The balance table of the nested windows, and each window's outcome test (difference in means).
+
+    Balance uses the difference in means whatever the outcome's statistic (convention), so that the
+    chosen window depends on the covariates only. Every distinct window is one entry of a single pass
+    over the draws, its columns the covariates observed on all its units, the outcome and the
+    treatment indicator; a covariate missing on some units of a window is tested on the units that
+    have it (its own draws)."""
+    names = list(units.covariates)
+    spans = []
+    if names:      # without covariates there is no balance to test (and the outcome is tested on demand)
+        for span in dict.fromkeys(units.span(-w, w) for w in widths):
+            n_below, n_above = units.counts(span)
+            if min(n_below, n_above) >= 1:
+                spans.append(span)
+    windows, partial = [], []
+    for span in spans:
+        rows, prefix = _window_rows(units, span)
+        complete = [c for c in names if not np.isnan(units.covariates[c][rows]).any()]
+        cols = np.column_stack([*(units.covariates[c][rows] for c in complete), _outcome_columns(units, rows)])
+        windows.append((rows, prefix, cols))
+        partial.append([c for c in names if c not in complete])
+    results = _treated_sums(units, windows, permutations, seed)
+    by_span, outcomes = {}, {}
+    for span, (rows, _, cols), (sums, observed, exact), missing in zip(spans, windows, results, partial):
+        treated = units.treated[rows]
+        n, n1 = len(rows), int(treated.sum())
+        total = cols.sum(axis=0)
+        null, obs = _differences(sums, total, n, n1), _differences(observed, total, n, n1)
+        complete = [c for c in names if c not in missing]
+        p_values = {c: p_value(abs(obs[j]), np.abs(null[:, j]), exact) for j, c in enumerate(complete)}
+        p_values.update(_partial_balance(units, rows, missing, permutations, seed))
+        best = (np.nan, None)
+        for name in names:
+            if name in p_values and not p_values[name] >= best[0]:   # also replaces nan
+                best = (p_values[name], name)
+        by_span[span] = best
+        if min(n1, n - n1) >= 2:
+            outcomes[span] = _WindowOutcome.from_sums(units.y[rows], treated, sums[:, -2:], observed[-2:], exact)
+    table = []
     for w in widths:
         span = units.span(-w, w)
         n_below, n_above = units.counts(span)
-        if span not in by_span:
-            by_span[span] = (_balance(units, units.rows(span), permutations, seed) if units.covariates
-                             else (np.nan, None))
-        p_min, worst = by_span[span]
-        rows.append({"half_width": w, "n_below": n_below, "n_above": n_above, "balance_p_value": p_min,
-                     "least_balanced": worst})
-    return rows
+        p_min, worst = by_span.get(span, (np.nan, None))
+        table.append({"half_width": w, "n_below": n_below, "n_above": n_above, "balance_p_value": p_min,
+                      "least_balanced": worst})
+    return table, outcomes
+
+
+def _partial_balance(units: _Units, rows: np.ndarray, names: list[str], permutations: int, seed) -> dict:
+    """Balance p-values of covariates missing on some units of the window, each on the units that have
+    it (covariates present on the same units share their draws)."""
+    by_rows: dict[bytes, list] = {}
+    for name in names:
+        z = units.covariates[name]
+        ok = np.sort(rows[~np.isnan(z[rows])])
+        below = int(np.sum(~units.above[ok]))
+        if min(below, len(ok) - below) >= 1:
+            by_rows.setdefault(ok.tobytes(), [ok, []])[1].append(name)
+    p_values = {}
+    for ok, group in by_rows.values():
+        treated = units.treated[ok]
+        assign, exact = _assignments(len(ok), int(treated.sum()), permutations, seed)
+        columns = [units.covariates[name][ok] for name in group]
+        for name, z, null in zip(group, columns, differences_in_means(assign, columns)):
+            observed = float(statistic_values("difference in means", treated[None, :], z)[0])
+            p_values[name] = p_value(observed, null, exact)
+    return p_values
 
 
 def _sequence(units: _Units, candidates) -> list[float]:
@@ -221,7 +368,7 @@ def _sequence(units: _Units, candidates) -> list[float]:
         raise WindowTooSmallError(f"`window` must hold at least {MIN_UNITS} units on each side of the cutoff; "
                                   "got fewer on one side in all the data. Local randomization needs more "
                                   "units near the cutoff.")
-    reach = min(-units.x.min(), units.x.max())
+    reach = min(-units.lowest, units.highest)
     widths = [first * (1 + 0.5 * j) for j in range(WINDOW_STEPS)]
     return [w for w in widths if w <= reach] or [first]
 
@@ -253,7 +400,7 @@ def local_randomization(design, outcome=None, *, window=None, statistic="differe
     if seed is None:    # draw one and record it, so that the result can be reproduced
         seed = int(np.random.SeedSequence().entropy % (2 ** 63))
     seed = _check_count("seed", seed, 0)
-    units = _Units(design, outcome)
+    units = copy.copy(_kept_units(design, outcome))
     if covariates is not None:
         names = (covariates,) if isinstance(covariates, str) else tuple(covariates)
         unknown = [c for c in names if c not in units.covariates]

@@ -14,8 +14,10 @@ local_randomization   rows, the outcome column, outcome, the          ``Design.l
 
 Unlike the other nodes these read ``level``: a bias-aware critical value (a folded normal
 quantile), the set of a quadratic inequality and an inverted randomization test cannot be
-re-reported at another level by scaling a half-width, so a level change recomputes them (each
-costs well under one second on the demo data). A node that does not apply returns
+re-reported at another level by scaling a half-width, so a level change calls the engine again;
+the engine keeps on the design what reads no level (the searched bandwidths' moments, the draws'
+balance and window tests), and ``seed: none`` draws one seed per design (``drawn_seed``), so the
+call re-reports from those (tens of milliseconds at 1e6 rows). A node that does not apply returns
 ``NotApplicable`` without calling the engine: the weak-IV set on a sharp board, the bias-aware
 interval for a kink (``derivative`` 1), local randomization without a window or covariates to
 choose one by.
@@ -29,16 +31,20 @@ the result's warnings. Nothing here imports IPython, widgets or charts.
 """
 from __future__ import annotations
 
+import threading
+import weakref
 from dataclasses import dataclass, field, replace
 from typing import Any, Mapping
 
+import numpy as np
 import pandas as pd
 
 from ..errors import NoBalancedWindowError, shown
 from .spec import Failure, NotApplicable
 
 __all__ = ["CAVEAT_SOURCES", "INFERENCE_NODES", "INFERENCE_PANEL_NODES", "InferenceTable", "caveats",
-           "compute_inference", "inference_panel", "inference_parents", "sensitivity_table", "windows_table"]
+           "compute_inference", "drawn_seed", "inference_panel", "inference_parents", "sensitivity_table",
+           "windows_table"]
 
 INFERENCE_NODES: tuple[str, ...] = ("bias_aware", "weak_iv", "local_randomization")
 #: Each inference panel reads the node of its own name.
@@ -59,6 +65,22 @@ def inference_parents(*, rows: list[str], outcome_column: str, covariates: list[
         "local_randomization": [*rows, outcome_column, "outcome", *covariates, "window", "statistic",
                                 "permutations", "seed", "level"],
     }
+
+
+# ``seed: none`` draws one seed per Design, kept while the design lives: a level change (or any change
+# that keeps the design) then reuses the draws and the balance and window tests kept on the design,
+# and its p-values do not move with every change. A new design (new data, cutoff, ...) draws anew.
+_DRAWN_SEEDS: "weakref.WeakKeyDictionary[Any, int]" = weakref.WeakKeyDictionary()
+_SEEDS_LOCK = threading.Lock()
+
+
+def drawn_seed(design) -> int:
+    """The seed ``seed: none`` uses on this design (drawn on first use, then kept for the design)."""
+    with _SEEDS_LOCK:
+        seed = _DRAWN_SEEDS.get(design)
+        if seed is None:
+            seed = _DRAWN_SEEDS[design] = int(np.random.SeedSequence().entropy % (2 ** 63))
+        return seed
 
 
 def compute_inference(comp, node: str) -> Any:
@@ -84,9 +106,10 @@ def compute_inference(comp, node: str) -> Any:
             return NotApplicable("The window is chosen by covariate balance, and no covariates are declared. "
                                  "Give the window yourself, e.g. `window: 2.5` (the cutoff plus or minus 2.5) "
                                  "or `window: 37.5, 42.5`, or declare pre-treatment `covariates:`.")
+        seed = drawn_seed(design) if opts["seed"] is None else opts["seed"]
         try:
             return design.local_randomization(comp.selected, window=opts["window"], statistic=opts["statistic"],
-                                              permutations=opts["permutations"], seed=opts["seed"], level=level)
+                                              permutations=opts["permutations"], seed=seed, level=level)
         except NoBalancedWindowError as exc:
             if opts["window"] is not None:
                 raise
