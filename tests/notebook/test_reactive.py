@@ -17,8 +17,8 @@ import pandas as pd
 import pytest
 
 from seamline.errors import InvalidOptionError
-from seamline.notebook.reactive import (PANELS, DataIdentity, DependencyGraph, board_graph, column_fingerprint,
-                                        column_node, fingerprint_algorithm, fingerprints, panel_node,
+from seamline.notebook.reactive import (PANELS, DataIdentity, DependencyGraph, column_fingerprint,
+                                        column_node, fingerprint_algorithm, fingerprints,
                                         use_fingerprint_algorithm)
 
 
@@ -142,56 +142,6 @@ def test_graph_basics_and_cycle_error():
     assert g.key("c", {"a": 1, "s": 2, "b": 99}) == ("c", ("a", 1), ("s", 2))
     with pytest.raises(ValueError, match="acyclic graph; got the cycle"):
         DependencyGraph({"a": ["b"], "b": ["a"]})
-
-
-SPEC = dict(score="score", outcomes=("y1", "y2"), outcome="y1", covariates=("age", "income"),
-            cluster="school", weights="w")
-P = {p: panel_node(p) for p in PANELS}
-FIT_FAMILY = {P["fit"], P["first_stage"], P["bins"], P["first_stage_bins"], P["sensitivity"], P["placebo"],
-              P["donut"], P["score_profile"], P["checks"], "main_fit"}
-
-# (change, adjust, nodes that must go stale, nodes that must stay fresh)
-CASES = [
-    ("level", False, {P["fit"], P["first_stage"], P["sensitivity"], P["balance"], P["density"], P["checks"]},
-     {"main_fit", "selection", P["bandwidths"], P["score_profile"]}),
-    ("kernel", False, FIT_FAMILY | {"selection", P["bandwidths"], P["balance"]}, {P["density"], "design"}),
-    ("bandwidth", False, FIT_FAMILY | {P["balance"]}, {"selection", P["bandwidths"], P["density"]}),
-    ("pilot_bandwidth", False, FIT_FAMILY, {"selection", P["bandwidths"], P["density"], P["balance"]}),
-    ("donut", False, FIT_FAMILY | {"sample", P["bandwidths"], P["balance"]}, {P["density"]}),
-    ("cutoff", False, FIT_FAMILY | {"design", P["bandwidths"], P["balance"], P["density"]}, set()),
-    ("outcome", False, FIT_FAMILY | {P["bandwidths"]}, {P["balance"], P["density"], "design"}),
-    ("data", False, {"design"}, FIT_FAMILY | {P["balance"], P["density"], P["bandwidths"]}),
-    (column_node("score"), False, FIT_FAMILY | {"design", P["balance"], P["density"], P["bandwidths"]}, set()),
-    (column_node("y1"), False, FIT_FAMILY | {"design", P["bandwidths"]}, {P["balance"], P["density"]}),
-    (column_node("y2"), False, {"design", P["checks"]}, FIT_FAMILY - {P["checks"]} | {P["balance"], P["density"]}),
-    (column_node("age"), False, {"design", P["balance"], P["checks"]},
-     FIT_FAMILY - {P["checks"]} | {P["density"], P["bandwidths"]}),
-    (column_node("age"), True, FIT_FAMILY | {"design", P["balance"], P["bandwidths"]}, {P["density"]}),
-    (column_node("w"), False, FIT_FAMILY | {P["balance"], P["bandwidths"]}, {P["density"]}),
-    (column_node("unused"), False, set(), FIT_FAMILY | {"design", P["balance"], P["density"]}),
-]
-
-
-@pytest.mark.parametrize(("change", "adjust", "stale", "fresh"), CASES,
-                         ids=[f"{c}{'-adjust' if a else ''}" for c, a, _, _ in CASES])
-def test_which_results_go_stale(change, adjust, stale, fresh):
-    graph = board_graph(**SPEC, adjust=adjust)
-    got = graph.stale_after({change})
-    assert stale <= got, f"{change}: should be stale but are not: {stale - got}"
-    assert not (fresh & got), f"{change}: should stay fresh but went stale: {fresh & got}"
-
-
-def test_every_panel_is_in_the_graph_and_keys_use_only_its_sources():
-    graph = board_graph(**SPEC)
-    for p in PANELS:
-        assert panel_node(p) in graph.nodes
-    values = {s: f"v-{s}" for s in graph.sources}
-    key = graph.key(panel_node("density"), values)
-    # score_unit: a date score's distances are in that unit, so the density test reads it like the cutoff
-    assert [name for name, _ in key[1:]] == sorted(["column:score", "score", "cutoff", "score_unit", "treated",
-                                                    "level"])
-    # the main fit is cached without the level, so a new level re-reports it
-    assert "level" not in dict(graph.key("main_fit", values)[1:])
 
 
 def test_shared_fingerprints_hash_a_column_once_per_pass(frame, monkeypatch):

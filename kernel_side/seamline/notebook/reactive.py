@@ -2,10 +2,10 @@
 
 A board depends on a few *sources*: the content of each column it uses, the names and numbers of
 the design (score, cutoff, treated side, ...) and the fit options (bandwidth, kernel, level, ...).
-``board_graph`` lays out which computed results read which sources; a change to some sources marks
-exactly their descendants stale, and each result is cached under the values of the sources it
-reads, so a result whose inputs did not change is never recomputed and switching an option back
-finds the earlier result in the cache.
+``DependencyGraph`` holds which computed results read which sources (the board's own graph is laid
+out in ``compute.compute_graph``); a change to some sources marks exactly their descendants stale,
+and each result is cached under the values of the sources it reads, so a result whose inputs did
+not change is never recomputed and switching an option back finds the earlier result in the cache.
 
 Whether stale results rerun at once or wait (a paused board) is the board's policy; this module
 only holds the topology and the fingerprints. Nothing here imports IPython or widgets.
@@ -30,12 +30,10 @@ __all__ = [
     "DataIdentity",
     "DependencyGraph",
     "PANELS",
-    "board_graph",
     "column_fingerprint",
     "column_node",
     "fingerprints",
     "fingerprint_algorithm",
-    "panel_node",
     "shared_fingerprints",
     "use_fingerprint_algorithm",
 ]
@@ -47,23 +45,9 @@ PANELS: tuple[str, ...] = ("fit", "first_stage", "bins", "first_stage_bins", "ba
                            "checks",
                            "bias_aware", "weak_iv", "local_randomization")   # compute_inference
 
-#: Fit options a board passes to the engine (``level`` only re-reports a fit).
-FIT_OPTIONS: tuple[str, ...] = ("bandwidth", "kernel", "degree", "bias_degree", "pilot_bandwidth",
-                                "variance", "level", "donut", "derivative", "adjust")
-
-#: Design-level sources (names and numbers given to ``seamline.Design``; ``outcome`` is the selected one).
-DESIGN_SOURCES: tuple[str, ...] = ("score", "cutoff", "treated", "outcomes", "outcome", "takeup",
-                                   "covariates", "cluster", "weights", "score_unit")
-
-
 def column_node(name: str) -> str:
     """Name of the graph source holding the content fingerprint of column ``name``."""
     return f"column:{name}"
-
-
-def panel_node(panel: str) -> str:
-    """Name of the graph node of a result panel (``panel:donut`` differs from the option ``donut``)."""
-    return f"panel:{panel}"
 
 
 # ---- fingerprints ----------------------------------------------------------------------------
@@ -383,64 +367,3 @@ class DependencyGraph:
     def key(self, node: str, values: Mapping[str, Hashable]) -> tuple:
         """The cache key of ``node``: the current values of its sources, in a fixed order."""
         return (node,) + tuple((s, values[s]) for s in sorted(self.sources_of(node)))
-
-
-def board_graph(*, score: str, outcomes: Iterable[str], outcome: str, takeup: str | None = None,
-                covariates: Iterable[str] = (), cluster: str | None = None, weights: str | None = None,
-                adjust: bool = False) -> DependencyGraph:
-    """The dependency graph of a board for the columns of its current specification.
-
-    Sources: ``data`` (which object the data is), ``column:<name>`` for each used column's
-    content, the design names and numbers (``DESIGN_SOURCES``) and the fit options
-    (``FIT_OPTIONS``). Inner nodes: ``design`` (the Design object, rebuilt when the data object,
-    any column or design value changes), ``sample`` (the rows and
-    variables the main fit reads), ``selection`` (bandwidth selection), ``main_fit`` (the fit at
-    the reference level). The panels (``panel:<name>`` for each of ``PANELS``) read only what their numbers depend on: the
-    density test reads the score alone, balance the covariates, and ``level`` re-reports the
-    main fit without refitting it.
-
-    Returns
-    -------
-    DependencyGraph
-    """
-    covariates = tuple(covariates)
-    col = column_node
-    design_columns = [score, *outcomes, *(c for c in (takeup, cluster, weights) if c), *covariates]
-    # Columns and names every fit reads: missing values in any of them drop a row.
-    row_inputs = [col(score), *(col(c) for c in (takeup, cluster, weights) if c),
-                  "score", "cutoff", "score_unit", "treated", "takeup", "cluster", "weights", "donut"]
-    sample = [*row_inputs, col(outcome), "outcome", "adjust"]
-    if adjust:
-        sample += [*(col(c) for c in covariates), "covariates"]
-    estimator = ["kernel", "degree", "bias_degree", "variance", "derivative"]
-    parents = {
-        # "data" is the identity of the data object: rebinding rebuilds the Design, but results are
-        # keyed by column content, so an equal frame under a new name recomputes nothing.
-        "design": ["data", *(col(c) for c in design_columns), *(s for s in DESIGN_SOURCES if s != "outcome")],
-        "sample": sample,
-        "selection": ["sample", *estimator],
-        "main_fit": ["selection", "bandwidth", "pilot_bandwidth"],
-        **{panel_node(p): ["main_fit", "level"]
-           for p in ("fit", "first_stage", "bins", "first_stage_bins", "sensitivity", "placebo", "donut")},
-        panel_node("bandwidths"): ["selection"],
-        # Balance: each covariate is an outcome of its own fit, at its own bandwidth from the rule.
-        panel_node("balance"): [*row_inputs, *(col(c) for c in covariates), "covariates", *estimator, "level",
-                                "bandwidth"],
-        panel_node("density"): [col(score), "score", "cutoff", "score_unit", "treated", "level"],
-        # The score profile counts mass points overall and inside the main fit's window.
-        panel_node("score_profile"): [col(score), "score", "cutoff", "score_unit", "main_fit"],
-        # The checks summary gathers every diagnostic: it reads everything but the data's identity.
-        panel_node("checks"): [*(col(c) for c in design_columns), *DESIGN_SOURCES, "main_fit", "level"],
-        # several cutoffs, subgroups (at the headline cutoff), power from the main fit (designs_graph)
-        panel_node("by_cutoff"): [*sample, *estimator, "bandwidth", "pilot_bandwidth", "level"],
-        panel_node("subgroups"): [*sample, "groups", "headline_cutoff", *estimator, "bandwidth", "pilot_bandwidth",
-                                  "level"],
-        panel_node("power"): ["main_fit", "effect", "level"],
-        # Inference beyond the robust interval (issue 9; compute_inference.py has the board's own table).
-        panel_node("bias_aware"): [*row_inputs, col(outcome), "outcome", "kernel", "degree", "derivative",
-                                   "smoothness", "level"],
-        panel_node("weak_iv"): ["main_fit", "level"],
-        panel_node("local_randomization"): [*row_inputs, col(outcome), "outcome", *(col(c) for c in covariates),
-                                            "covariates", "window", "statistic", "permutations", "seed", "level"],
-    }
-    return DependencyGraph(parents)
