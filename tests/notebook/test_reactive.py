@@ -17,8 +17,8 @@ import pandas as pd
 import pytest
 
 from seamline.errors import InvalidOptionError
-from seamline.notebook.reactive import (PANELS, DataIdentity, DependencyGraph, column_fingerprint,
-                                        column_node, fingerprint_algorithm, fingerprints,
+from seamline.notebook.reactive import (DataIdentity, DependencyGraph, column_fingerprint,
+                                        fingerprint_algorithm, fingerprints,
                                         use_fingerprint_algorithm)
 
 
