@@ -102,6 +102,39 @@ def test_robust_cr2_at_equal_pilot_is_the_cr2_of_the_higher_degree_fit(kernel):
     assert (hi - lo) / 2 == pytest.approx(t * fit.robust_std_error, rel=1e-12)
 
 
+@pytest.mark.parametrize("kernel,degree,bandwidth,weights", [
+    ("triangular", 1, 0.5, False),
+    ("epanechnikov", 2, (0.45, 0.7), True),
+])
+def test_one_row_per_cluster_takes_the_vectorised_path_and_matches_dense_cr2(kernel, degree, bandwidth, weights):
+    """One cluster per observation (the HC2 analogue with Bell-McCaffrey degrees of freedom that
+    Imbens and Kolesar 2016 recommend without clusters): same dense reference as above."""
+    frame = clustered_data(n=400, seed=11)
+    frame["g"] = np.arange(len(frame))
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="g",
+                             weights="w" if weights else None)
+    fit = design.fit(bandwidth=bandwidth, kernel=kernel, degree=degree)
+    variance, dof = dense_cr2(frame, bandwidth, kernel, degree, weights)
+    assert fit.std_error == pytest.approx(np.sqrt(variance), rel=RTOL)
+    assert fit.dof[0] == pytest.approx(dof, rel=RTOL)
+
+
+def test_one_row_per_cluster_with_a_uniform_kernel_is_hc2_of_statsmodels():
+    # Reference: statsmodels OLS with cov_type="HC2" on the window's interacted regression (uniform
+    # kernel, no weights: the CR2 of singleton clusters is exactly HC2, Bell and McCaffrey 2002).
+    import statsmodels.api as sm
+    frame = clustered_data(n=400, seed=12)
+    frame["g"] = np.arange(len(frame))
+    fit = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="g").fit(
+        bandwidth=0.5, kernel="uniform")
+    win = frame[frame.x.abs() <= 0.5]
+    above = (win.x >= 0).astype(float)
+    exog = np.column_stack([np.ones(len(win)), above, win.x, win.x * above])
+    ols = sm.OLS(win.y.to_numpy(), exog).fit(cov_type="HC2")
+    assert fit.estimate == pytest.approx(ols.params[1], rel=1e-10)
+    assert fit.std_error == pytest.approx(ols.bse[1], rel=1e-9)
+
+
 def test_degrees_of_freedom_lie_below_the_number_of_clusters_and_grow_with_it():
     # Bell-McCaffrey degrees of freedom never exceed G - 1 for a contrast (Imbens and Kolesar 2016).
     dofs = []
