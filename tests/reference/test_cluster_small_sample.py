@@ -135,6 +135,41 @@ def test_one_row_per_cluster_with_a_uniform_kernel_is_hc2_of_statsmodels():
     assert fit.std_error == pytest.approx(ols.bse[1], rel=1e-9)
 
 
+@pytest.mark.parametrize("kernel,degree,bandwidth,weights", [
+    ("triangular", 1, 0.5, False),
+    ("epanechnikov", 2, (0.45, 0.7), True),
+])
+def test_unclustered_bias_reduced_variance_is_cr2_of_single_rows_with_t_critical_values(kernel, degree, bandwidth,
+                                                                                        weights):
+    """variance="bias-reduced" without clusters: the dense CR2 of one-row clusters (Bell and McCaffrey
+    2002; Imbens and Kolesar 2016) and scipy.stats.t critical values on its degrees of freedom."""
+    frame = clustered_data(n=400, seed=13)
+    singles = frame.assign(g=np.arange(len(frame)))
+    fit = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", weights="w" if weights else None).fit(
+        bandwidth=bandwidth, kernel=kernel, degree=degree, variance="bias-reduced")
+    variance, dof = dense_cr2(singles, bandwidth, kernel, degree, weights)
+    assert fit.std_error == pytest.approx(np.sqrt(variance), rel=RTOL)
+    assert fit.dof[0] == pytest.approx(dof, rel=RTOL)
+    t = stats.t.ppf(0.975, dof)
+    assert fit.conf_int == pytest.approx((fit.estimate - t * fit.std_error, fit.estimate + t * fit.std_error),
+                                         rel=1e-12)
+    robust_variance, robust_dof = dense_cr2(singles, bandwidth, kernel, degree + 1, weights)
+    at_equal_pilot = seamline.Design(frame, score="x", cutoff=0.0, outcome="y",
+                                     weights="w" if weights else None).fit(
+        bandwidth=bandwidth, pilot_bandwidth=bandwidth, kernel=kernel, degree=degree, variance="bias-reduced")
+    assert at_equal_pilot.robust_std_error == pytest.approx(np.sqrt(robust_variance), rel=RTOL)
+    assert at_equal_pilot.dof[1] == pytest.approx(robust_dof, rel=RTOL)
+
+
+def test_unclustered_bias_reduced_selects_the_default_bandwidths():
+    frame = clustered_data(n=600, seed=14)
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y")
+    default, reduced = design.fit(), design.fit(variance="bias-reduced")
+    assert reduced.bandwidth == default.bandwidth and reduced.pilot_bandwidth == default.pilot_bandwidth
+    assert reduced.estimate == default.estimate and reduced.variance == "bias-reduced"
+    assert "degrees of freedom" in " ".join(reduced.notes())
+
+
 def test_degrees_of_freedom_lie_below_the_number_of_clusters_and_grow_with_it():
     # Bell-McCaffrey degrees of freedom never exceed G - 1 for a contrast (Imbens and Kolesar 2016).
     dofs = []

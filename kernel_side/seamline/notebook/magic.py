@@ -430,7 +430,7 @@ def cutoff(line: str, cell: str, *, shell=None):
         bandwidth: mse          # mse | mse-split | coverage | ik | a number | two numbers
         kernel: triangular      # triangular | uniform | epanechnikov
         degree: 1
-        variance: neighbors     # neighbors | hc0 | hc1 | hc2 | hc3
+        variance: neighbors     # neighbors | hc0 | hc1 | hc2 | hc3 | bias-reduced
         level: 0.95
         donut: 0
         groups: region          # optional: subgroup effects by a pre-treatment column

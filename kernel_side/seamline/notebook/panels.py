@@ -45,7 +45,7 @@ _KERNELS = ("triangular", "uniform", "epanechnikov")
 _DEGREES = (("0 (local constant)", 0), ("1 (local linear)", 1), ("2 (local quadratic)", 2),
             ("3 (local cubic)", 3))
 _VARIANCES = (("nearest neighbours", "neighbors"), ("HC0", "hc0"), ("HC1", "hc1"), ("HC2", "hc2"),
-              ("HC3", "hc3"))
+              ("HC3", "hc3"), ("HC2, small-sample t (bias-reduced)", "bias-reduced"))
 _LEVELS = (("90%", 0.90), ("95%", 0.95), ("99%", 0.99))
 _FORMATS = (("LaTeX", "latex"), ("Markdown", "markdown"), ("CSV", "csv"), ("SVG", "svg"),
             ("PNG", "png"))
