@@ -70,15 +70,14 @@ def bias_reduced_variance(sides: tuple[FitRows, ...]) -> tuple[float, float]:
     row_of = np.concatenate([np.arange(len(s.weights)) for s in sides])
     order = np.argsort(codes, kind="stable")
     bounds = np.flatnonzero(np.diff(codes[order])) + 1
-    groups = np.split(order, bounds)
-
-    n_groups = len(groups)
+    n_groups = len(bounds) + 1
     width = 2 * sum(r)                     # per side: t_g = R_g' v_g and s_g = R_g' K_g v_g
     u = np.zeros((n_groups, width))
     d = np.zeros(n_groups)
-    variance = 0.0
     if n_groups == len(codes):             # one row per cluster (HC2-like): B_g is a number
         return _single_rows(sides, blocks, r, order, side_of, row_of, u, d)
+    groups = np.split(order, bounds)
+    variance = 0.0
     for g, members in enumerate(groups):
         parts = [(j, row_of[members[side_of[members] == j]]) for j in range(len(sides))]
         parts = [(j, rows) for j, rows in parts if len(rows)]
