@@ -13,7 +13,7 @@ from .errors import InvalidOptionError, shown
 Kernel = Literal["triangular", "uniform", "epanechnikov"]
 BandwidthRule = Literal["mse", "mse-split", "coverage", "ik"]
 PilotRule = Literal["nearer-half", "two-step"]   # rules for the pilot (bias) bandwidth; see core.bandwidth
-Variance = Literal["neighbors", "hc0", "hc1", "hc2", "hc3"]
+Variance = Literal["neighbors", "hc0", "hc1", "hc2", "hc3", "bias-reduced"]
 Side = Literal["above", "below"]
 DensityMethod = Literal["local-cdf", "binned"]
 BinMethod = Literal["equal-width", "equal-count"]

@@ -8,7 +8,10 @@ Kalyanaraman 2012), as written out in tests/reference/test_monte_carlo.py. Three
     validate_monte_carlo.py intervals [replications] [n ...]
                                                    robust coverage and mean interval length per pilot
                                                    (bias) bandwidth rule and ratio rho = h/b, Models 1-3
-                                                   (default 1000 replications at n = 500 and 2000)
+                                                   (default 1000 replications at n = 500 and 2000);
+                                                   --rules "a;b" runs only the named rows of
+                                                   INTERVAL_RULES (the neighbour-variance row, the
+                                                   base of the length ratios, always runs)
     validate_monte_carlo.py measure                the larger runs whose results the Monte Carlo
                                                    tests record (tests/reference/test_monte_carlo.py,
                                                    the placebo test in tests/diagnostics)
@@ -62,8 +65,9 @@ def measure() -> None:
         a = np.vstack([fits(model, 500, 500, 100 + s) for s in range(16)])
         print(f"Model {model}, n = 500, default fit:", summary(a, MODELS[model][2]), flush=True)
     h = MODELS[1][3]
-    a = np.vstack([fits(1, 500, 500, 900 + s, bandwidth=h, pilot_bandwidth=h) for s in range(8)])
-    print(f"Model 1, n = 500, h = b = {h}:", summary(a, MODELS[1][2]), flush=True)
+    a = np.vstack([fits(1, 500, 500, 900 + s, bandwidth=h, pilot_bandwidth=h, variance="neighbors")
+                   for s in range(8)])
+    print(f"Model 1, n = 500, h = b = {h}, neighbour variance:", summary(a, MODELS[1][2]), flush=True)
     sys.path.insert(0, str(ROOT / "tests" / "diagnostics"))
     from test_diagnostics import lee
     shares = []
@@ -101,54 +105,99 @@ def table(reps: int) -> None:
     print("Monte Carlo SE of a 95% coverage rate at this many replications:", f"{np.sqrt(0.95 * 0.05 / reps):.4f}")
 
 
-# Candidates for the robust interval at estimated bandwidths (issue 9): (label, fit options, b = h?).
-# "b = h" refits at the selected h with the bias fit at h too (rho = 1, Calonico, Cattaneo & Farrell 2018).
-INTERVAL_RULES = (
-    ("nearer-half pilot (default)", {}, False),
-    ("nearer-half, coverage h", {"bandwidth": "coverage"}, False),
-    ("nearer-half, b = h", {}, True),
-    ("nearer-half, coverage h, b = h", {"bandwidth": "coverage"}, True),
-    ("two-step pilot (CCT 2014)", {"pilot_bandwidth": "two-step"}, False),
-    ("two-step, coverage h", {"pilot_bandwidth": "two-step", "bandwidth": "coverage"}, False),
-    ("two-step, b = h", {"pilot_bandwidth": "two-step"}, True),
-    ("two-step, coverage h, b = h", {"pilot_bandwidth": "two-step", "bandwidth": "coverage"}, True),
-    ("nearer-half, HC3 variance", {"variance": "hc3"}, False),   # not a pilot rule: the variance's share
-)
+# Candidates for the robust interval at estimated bandwidths (issue 9): name -> (label, fit options, refit).
+# The pilot-rule rows keep the earlier default variance (neighbours, normal critical values), the
+# variance rows the default bandwidths. A refit starts from the first fit's selected bandwidths: "b = h"
+# puts the bias fit at the selected h (rho = 1, Calonico, Cattaneo & Farrell 2018); "HC3 interval" keeps
+# the selection and computes the interval's variance with HC3; "HC2 + BM dof" computes it as CR2 with one
+# cluster per observation (a cluster design, the check that the default "bias-reduced" variance, which
+# computes the same without clusters, is what was measured) and t critical values on the Bell-McCaffrey
+# degrees of freedom (Bell and McCaffrey 2002; Imbens and Kolesar 2016, who recommend the pair in small
+# samples without clusters too).
+NN = {"variance": "neighbors"}
 
 
-def interval_rows(model: int, n: int, reps: int, seed: int, options: dict, same_b: bool) -> np.ndarray:
+def _same_b(variance="neighbors"):
+    def refit(design, data, f):
+        return design.fit(bandwidth=f.bandwidth, pilot_bandwidth=f.bandwidth, variance=variance)
+    return refit
+
+
+def _at_bandwidths(variance):
+    def refit(design, data, f):
+        return design.fit(bandwidth=f.bandwidth, pilot_bandwidth=f.pilot_bandwidth, variance=variance)
+    return refit
+
+
+def _bell_mccaffrey(design, data, f):
+    own = seamline.Design(data.assign(unit=np.arange(len(data))), score="x", cutoff=0.0, outcome="y",
+                          cluster="unit")  # bias-reduced cluster variance, one cluster per row
+    return own.fit(bandwidth=f.bandwidth, pilot_bandwidth=f.pilot_bandwidth)
+
+
+INTERVAL_RULES = {
+    "neighbors": ("neighbour variance (earlier default)", NN, None),
+    "default": ("bias-reduced variance (default)", {}, None),
+    "coverage": ("NN: nearer-half, coverage h", {**NN, "bandwidth": "coverage"}, None),
+    "b=h": ("NN: nearer-half, b = h", NN, _same_b()),
+    "coverage,b=h": ("NN: nearer-half, coverage h, b = h", {**NN, "bandwidth": "coverage"}, _same_b()),
+    "two-step": ("NN: two-step pilot (CCT 2014)", {**NN, "pilot_bandwidth": "two-step"}, None),
+    "two-step,coverage": ("NN: two-step, coverage h", {**NN, "pilot_bandwidth": "two-step",
+                                                       "bandwidth": "coverage"}, None),
+    "two-step,b=h": ("NN: two-step, b = h", {**NN, "pilot_bandwidth": "two-step"}, _same_b()),
+    "two-step,coverage,b=h": ("NN: two-step, coverage h, b = h",
+                              {**NN, "pilot_bandwidth": "two-step", "bandwidth": "coverage"}, _same_b()),
+    "hc3": ("nearer-half, HC3 variance", {"variance": "hc3"}, None),
+    "hc2": ("nearer-half, HC2 variance", {"variance": "hc2"}, None),
+    "hc3-interval": ("NN bandwidths, HC3 interval", NN, _at_bandwidths("hc3")),
+    "hc2-interval": ("NN bandwidths, HC2 interval", NN, _at_bandwidths("hc2")),
+    "hc2-bm": ("NN bandwidths, HC2 + BM dof", NN, _bell_mccaffrey),
+    "hc3,coverage": ("HC3, coverage h", {"variance": "hc3", "bandwidth": "coverage"}, None),
+    "hc3,b=h": ("HC3, b = h", {"variance": "hc3"}, _same_b("hc3")),
+    "hc3,two-step": ("HC3, two-step pilot", {"variance": "hc3", "pilot_bandwidth": "two-step"}, None),
+}
+DEFAULT_INTERVAL_RULES = ("neighbors", "default", "coverage", "b=h", "coverage,b=h", "two-step",
+                          "two-step,coverage", "two-step,b=h", "two-step,coverage,b=h", "hc3")
+
+
+def interval_rows(model: int, n: int, reps: int, seed: int, options: dict, refit) -> np.ndarray:
     """Rows of (robust low, robust high, h, b) for one candidate; same seeds for every candidate."""
     rng = np.random.default_rng(seed)
     rows = []
     for _ in range(reps):
-        design = seamline.Design(draw(model, n, rng), score="x", cutoff=0.0, outcome="y")
+        data = draw(model, n, rng)
+        design = seamline.Design(data, score="x", cutoff=0.0, outcome="y")
         f = design.fit(**options)
-        if same_b:
-            f = design.fit(bandwidth=f.bandwidth, pilot_bandwidth=f.bandwidth)
+        if refit is not None:
+            f = refit(design, data, f)
         rows.append((*f.robust_conf_int, f.bandwidth[0], f.pilot_bandwidth[0]))
     return np.array(rows)
 
 
-def intervals(reps: int, sizes: tuple[int, ...]) -> None:
-    """Robust coverage, mean length (and its ratio to the default's), median h and b per candidate."""
-    print("cov = robust 95% coverage, len = mean length (x default), h / b = median bandwidth / pilot")
+def intervals(reps: int, sizes: tuple[int, ...], names: tuple[str, ...] = DEFAULT_INTERVAL_RULES) -> None:
+    """Robust coverage, mean length (and its ratio to the earlier default's), median h and b per candidate.
+
+    The earlier default (neighbour variance) always runs first: lengths are relative to it."""
+    names = ("neighbors",) + tuple(n for n in names if n != "neighbors")
+    print("cov = robust 95% coverage, len = mean length (x neighbour-variance row), h / b = median bandwidth / pilot")
     for n in sizes:
         print(f"\nn = {n}, {reps} draws per model")
-        print(f"{'rule':>31} | " + " | ".join(f"M{m} {'cov':>5} {'len':>6} {'(x)':>5} {'h':>6} {'b':>6}"
+        print(f"{'rule':>33} | " + " | ".join(f"M{m} {'cov':>5} {'len':>6} {'(x)':>5} {'h':>6} {'b':>6}"
                                                 for m in (1, 2, 3)) + " | min cov")
         base = {}
-        for label, options, same_b in INTERVAL_RULES:
+        for name in names:
+            label, options, refit = INTERVAL_RULES[name]
             cells, covs = [], []
             for model in (1, 2, 3):
                 tau = MODELS[model][2]
-                a = interval_rows(model, n, reps, 1000 * model + n, options, same_b)
+                a = interval_rows(model, n, reps, 1000 * model + n, options, refit)
                 cov = np.mean((a[:, 0] <= tau) & (tau <= a[:, 1]))
                 length = np.mean(a[:, 1] - a[:, 0])
                 base.setdefault(model, length)
                 covs.append(cov)
                 cells.append(f"   {cov:5.3f} {length:6.4f} {length / base[model]:5.2f} "
                              f"{np.median(a[:, 2]):6.4f} {np.median(a[:, 3]):6.4f}")
-            print(f"{label:>31} | " + " | ".join(cells) + f" | {min(covs):.3f}", flush=True)
+            print(f"{label:>33} | " + " | ".join(cells) + f" | {min(covs):.3f}", flush=True)
     print("Monte Carlo SE of a 95% coverage rate at this many replications:", f"{np.sqrt(0.95 * 0.05 / reps):.4f}")
 
 
@@ -174,8 +223,16 @@ if __name__ == "__main__":
     if command == "measure":
         measure()
     elif command == "intervals":
-        intervals(int(sys.argv[2]) if len(sys.argv) > 2 else 1000,
-                  tuple(int(v) for v in sys.argv[3:]) or (500, 2000))
+        args = sys.argv[2:]
+        names = DEFAULT_INTERVAL_RULES
+        if "--rules" in args:  # --rules name,name;name... (names of INTERVAL_RULES, separated by ';')
+            at = args.index("--rules")
+            names = tuple(args[at + 1].split(";"))
+            unknown = [n for n in names if n not in INTERVAL_RULES]
+            if unknown:
+                sys.exit(f"unknown rule {unknown}; choose from {'; '.join(INTERVAL_RULES)}")
+            args = args[:at] + args[at + 2:]
+        intervals(int(args[0]) if args else 1000, tuple(int(v) for v in args[1:]) or (500, 2000), names)
     elif command == "sweep":
         sys.exit(1 if sweep(int(sys.argv[2]) if len(sys.argv) > 2 else 10) else 0)
     else:

@@ -102,6 +102,74 @@ def test_robust_cr2_at_equal_pilot_is_the_cr2_of_the_higher_degree_fit(kernel):
     assert (hi - lo) / 2 == pytest.approx(t * fit.robust_std_error, rel=1e-12)
 
 
+@pytest.mark.parametrize("kernel,degree,bandwidth,weights", [
+    ("triangular", 1, 0.5, False),
+    ("epanechnikov", 2, (0.45, 0.7), True),
+])
+def test_one_row_per_cluster_takes_the_vectorised_path_and_matches_dense_cr2(kernel, degree, bandwidth, weights):
+    """One cluster per observation (the HC2 analogue with Bell-McCaffrey degrees of freedom that
+    Imbens and Kolesar 2016 recommend without clusters): same dense reference as above."""
+    frame = clustered_data(n=400, seed=11)
+    frame["g"] = np.arange(len(frame))
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="g",
+                             weights="w" if weights else None)
+    fit = design.fit(bandwidth=bandwidth, kernel=kernel, degree=degree)
+    variance, dof = dense_cr2(frame, bandwidth, kernel, degree, weights)
+    assert fit.std_error == pytest.approx(np.sqrt(variance), rel=RTOL)
+    assert fit.dof[0] == pytest.approx(dof, rel=RTOL)
+
+
+def test_one_row_per_cluster_with_a_uniform_kernel_is_hc2_of_statsmodels():
+    # Reference: statsmodels OLS with cov_type="HC2" on the window's interacted regression (uniform
+    # kernel, no weights: the CR2 of singleton clusters is exactly HC2, Bell and McCaffrey 2002).
+    import statsmodels.api as sm
+    frame = clustered_data(n=400, seed=12)
+    frame["g"] = np.arange(len(frame))
+    fit = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="g").fit(
+        bandwidth=0.5, kernel="uniform")
+    win = frame[frame.x.abs() <= 0.5]
+    above = (win.x >= 0).astype(float)
+    exog = np.column_stack([np.ones(len(win)), above, win.x, win.x * above])
+    ols = sm.OLS(win.y.to_numpy(), exog).fit(cov_type="HC2")
+    assert fit.estimate == pytest.approx(ols.params[1], rel=1e-10)
+    assert fit.std_error == pytest.approx(ols.bse[1], rel=1e-9)
+
+
+@pytest.mark.parametrize("kernel,degree,bandwidth,weights", [
+    ("triangular", 1, 0.5, False),
+    ("epanechnikov", 2, (0.45, 0.7), True),
+])
+def test_unclustered_bias_reduced_variance_is_cr2_of_single_rows_with_t_critical_values(kernel, degree, bandwidth,
+                                                                                        weights):
+    """variance="bias-reduced" without clusters: the dense CR2 of one-row clusters (Bell and McCaffrey
+    2002; Imbens and Kolesar 2016) and scipy.stats.t critical values on its degrees of freedom."""
+    frame = clustered_data(n=400, seed=13)
+    singles = frame.assign(g=np.arange(len(frame)))
+    fit = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", weights="w" if weights else None).fit(
+        bandwidth=bandwidth, kernel=kernel, degree=degree, variance="bias-reduced")
+    variance, dof = dense_cr2(singles, bandwidth, kernel, degree, weights)
+    assert fit.std_error == pytest.approx(np.sqrt(variance), rel=RTOL)
+    assert fit.dof[0] == pytest.approx(dof, rel=RTOL)
+    t = stats.t.ppf(0.975, dof)
+    assert fit.conf_int == pytest.approx((fit.estimate - t * fit.std_error, fit.estimate + t * fit.std_error),
+                                         rel=1e-12)
+    robust_variance, robust_dof = dense_cr2(singles, bandwidth, kernel, degree + 1, weights)
+    at_equal_pilot = seamline.Design(frame, score="x", cutoff=0.0, outcome="y",
+                                     weights="w" if weights else None).fit(
+        bandwidth=bandwidth, pilot_bandwidth=bandwidth, kernel=kernel, degree=degree, variance="bias-reduced")
+    assert at_equal_pilot.robust_std_error == pytest.approx(np.sqrt(robust_variance), rel=RTOL)
+    assert at_equal_pilot.dof[1] == pytest.approx(robust_dof, rel=RTOL)
+
+
+def test_unclustered_bias_reduced_selects_the_default_bandwidths():
+    frame = clustered_data(n=600, seed=14)
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y")
+    default, reduced = design.fit(), design.fit(variance="bias-reduced")
+    assert reduced.bandwidth == default.bandwidth and reduced.pilot_bandwidth == default.pilot_bandwidth
+    assert reduced.estimate == default.estimate and reduced.variance == "bias-reduced"
+    assert "degrees of freedom" in " ".join(reduced.notes())
+
+
 def test_degrees_of_freedom_lie_below_the_number_of_clusters_and_grow_with_it():
     # Bell-McCaffrey degrees of freedom never exceed G - 1 for a contrast (Imbens and Kolesar 2016).
     dofs = []
@@ -138,10 +206,15 @@ def test_a_fuzzy_design_uses_cr2_for_the_ratio_and_the_first_stage():
     assert fit.first_stage.dof[0] == pytest.approx(sharp.dof[0], rel=1e-10)
 
 
-def test_unclustered_fits_are_untouched():
+def test_unclustered_fits_have_no_cluster_variance_and_normal_critical_values_off_the_default():
     frame = clustered_data()
-    fit = seamline.Design(frame, score="x", cutoff=0.0, outcome="y").fit(bandwidth=0.5)
-    assert fit.dof == (None, None) and fit.cluster_variance is None
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y")
+    for variance in ("neighbors", "hc0", "hc1", "hc2", "hc3"):
+        fit = design.fit(bandwidth=0.5, variance=variance)
+        assert fit.dof == (None, None) and fit.cluster_variance is None
+    default = design.fit(bandwidth=0.5)     # the default: bias-reduced, t critical values
+    assert default.variance == "bias-reduced" and default.cluster_variance is None
+    assert all(d is not None and d > 1 for d in default.dof)
 
 
 def test_unknown_cluster_variance_is_refused():

@@ -69,6 +69,12 @@ def _as_names(value, argument: str) -> tuple[str, ...]:
     return names
 
 
+
+def _selection_variance(variance: str) -> str:
+    """The variance the bandwidth selectors use: "bias-reduced" selects with the neighbour variance
+    (the bandwidths of the default rule; validate_monte_carlo.py intervals measured it so)."""
+    return "neighbors" if variance == "bias-reduced" else variance
+
 class Design:
     """A regression discontinuity (cutoff) design.
 
@@ -258,8 +264,9 @@ class Design:
     def _variance_fn(self, spec: FitSpec):
         """Per-side conventional variance for the bandwidth selectors."""
         clustered = self.cluster is not None
-        if use_fast_variance(spec.variance, spec.bias_degree) and not clustered:
-            kind = "neighbors" if spec.variance == "neighbors" else "hc0"
+        variance = _selection_variance(spec.variance)
+        if use_fast_variance(variance, spec.bias_degree) and not clustered:
+            kind = "neighbors" if variance == "neighbors" else "hc0"
             return lambda sf, lam: variance_fast(sf, lam, kind, False)
 
         def direct(sf: SideFit, lam: np.ndarray) -> float:
@@ -268,9 +275,9 @@ class Design:
             if clustered:
                 _, inv = np.unique(sf.side.clusters[: wa.rows], return_inverse=True)
                 return float(np.sum(np.bincount(inv, weights=wa.a * resid) ** 2))
-            if spec.variance == "neighbors":
+            if variance == "neighbors":
                 return float(np.sum(wa.a ** 2 * (sf.side.nn_residuals()[: wa.rows] @ lam) ** 2))
-            power = {"hc0": 0, "hc1": 0, "hc2": 1, "hc3": 2}[spec.variance]
+            power = {"hc0": 0, "hc1": 0, "hc2": 1, "hc3": 2}[variance]
             return float(np.sum(wa.a ** 2 * resid ** 2 / (1 - np.minimum(wa.lev_h, 1 - 1e-12)) ** power))
         return direct
 
@@ -311,7 +318,7 @@ class Design:
             return
         kdeg = {"triangular": 1, "uniform": 0, "epanechnikov": 2}[spec.kernel]
         q = spec.bias_degree
-        hc = spec.variance != "neighbors"
+        hc = _selection_variance(spec.variance) != "neighbors"
         # highest power any step asks for: the curvature pilot (order q+1 with its bias column, uniform
         # kernel), the order-q pilot fits (with kernel), and the variances (squared kernel, and for
         # HC the squared residual polynomial); a later, larger request rebuilds the tables
@@ -320,7 +327,7 @@ class Design:
             r = q + 1  # the two-step pilot's global order-(r+1) fit and local order-r fits
             degree = max(degree, 2 * r + 4, 2 * r + 2 + kdeg, 2 * r + 2 * kdeg + (2 * r if hc else 0))
         for side in (prep.below, prep.above):
-            side.warm(spec.variance, degree)
+            side.warm(_selection_variance(spec.variance), degree)
 
     def _bandwidths_for(self, spec: FitSpec, prep: Prepared, fuzzy: bool, n_main: int):
         rule = spec.bandwidth
@@ -367,7 +374,7 @@ class Design:
 
     # ---- the public API ------------------------------------------------------------------------
     def fit(self, outcome=None, *, bandwidth="mse", kernel="triangular", degree=1, bias_degree=None,
-            pilot_bandwidth=None, variance="neighbors", level=0.95, donut=0.0, derivative=0,
+            pilot_bandwidth=None, variance="bias-reduced", level=0.95, donut=0.0, derivative=0,
             adjust=False, cluster_variance="bias-reduced") -> Fit:
         """Estimate the jump at the cutoff by local polynomial regression on each side.
 
@@ -385,8 +392,11 @@ class Design:
             Calonico, Cattaneo and Titiunik 2014: curvature from a local fit at its own MSE bandwidth,
             with a regulariser). With ``cluster`` the default is the main bandwidth, b = h, after
             Calonico, Cattaneo and Farrell 2018.
-        variance : "neighbors" (3 nearest neighbours), "hc0", "hc1", "hc2" or "hc3"; a design with
-            ``cluster`` always uses the cluster-robust variance.
+        variance : "bias-reduced" (default: HC2 as the bias-reduced variance with one cluster per observation, with t critical values
+            on its Bell-McCaffrey degrees of freedom; Imbens and Kolesar 2016; bandwidths are selected
+            with the neighbour variance; HC2 with normal critical values under ``adjust``),
+            "neighbors" (3 nearest neighbours), "hc0", "hc1", "hc2" or "hc3"; a design with ``cluster``
+            always uses the cluster-robust variance.
         level : confidence level; donut : exclude observations closer than this to the cutoff;
         derivative : 1 estimates the jump in slope (kink designs); adjust : covariate adjustment
             (Calonico-Cattaneo-Farrell-Titiunik 2019).
@@ -446,6 +456,9 @@ class Design:
         dofs: dict[tuple[str, bool], float | None] = {}
 
         def var(lam, robust, name="main"):
+            if not clustered and spec.variance == "bias-reduced" and engine.adjustment is None:
+                value, dofs[(name, robust)] = engine.single_row_variance(lam, robust)
+                return value
             if not clustered:
                 return engine.variance(lam, spec.variance, robust=robust)
             value, dofs[(name, robust)] = engine.cluster_variance(lam, robust, spec.cluster_variance)
@@ -520,7 +533,7 @@ class Design:
         return out
 
     def bandwidths(self, outcome=None, *, kernel="triangular", degree=1, bias_degree=None,
-                   variance="neighbors", donut=0.0, derivative=0, adjust=False) -> pd.DataFrame:
+                   variance="bias-reduced", donut=0.0, derivative=0, adjust=False) -> pd.DataFrame:
         """Every bandwidth rule side by side (rows: rule; columns: bandwidth and pilot, per side)."""
         rows = []
         for rule in ("mse", "mse-split", "coverage", "ik"):

@@ -107,6 +107,10 @@ class JumpEngine:
     def variance(self, lam: np.ndarray, variance: str, robust: bool = False,
                  cluster: bool = False) -> float:
         """Variance of jump(lam) (conventional, or of the bias-corrected estimate when robust)."""
+        if variance == "bias-reduced":
+            if self.adjustment is None and not cluster:
+                return self.single_row_variance(lam, robust)[0]
+            variance = "hc2"   # covariate adjustment pools across sides: HC2 (see single_row_variance)
         if not self.direct and not cluster and use_fast_variance(variance, self.q):
             kind = "neighbors" if variance == "neighbors" else "hc0"
             total = sum(variance_fast(f, lam, kind, robust) for f in self.fits)
@@ -131,8 +135,23 @@ class JumpEngine:
             value = self._variance_direct(lam, "hc0", robust, True)
             return value, float(self._clusters_in_window(robust) - 1)
         self._variance_direct(lam, "hc0", robust, True)   # the same checks (two clusters per side)
+        return bias_reduced_variance(self._fit_rows(lam, robust, [s.clusters for s in self.sides]))
+
+    def single_row_variance(self, lam: np.ndarray, robust: bool) -> tuple[float, float]:
+        """HC2 analogue of the bias-reduced variance and its Bell-McCaffrey degrees of freedom.
+
+        The CR2 variance with one cluster per observation (Bell and McCaffrey 2002), which Imbens and
+        Kolesar (2016, Review of Economics and Statistics 98(4)) recommend without clusters too, with
+        t critical values on those degrees of freedom. Not defined here with covariate adjustment
+        (the fit pools the covariate coefficients across sides): ``variance`` then uses HC2 with
+        normal critical values.
+        """
+        below = self.sides[0].n
+        return bias_reduced_variance(self._fit_rows(lam, robust, [np.arange(below), below + np.arange(self.sides[1].n)]))
+
+    def _fit_rows(self, lam: np.ndarray, robust: bool, codes: list[np.ndarray]) -> tuple[FitRows, ...]:
         rows = []
-        for side, wa in zip(self.sides, self.arrays()):
+        for side, wa, side_codes in zip(self.sides, self.arrays(), codes):
             weights = self.sign * side.sign * (wa.abc if robust else wa.a)
             fit_weights = wa.kw_b if robust else wa.kw_h
             # The rows of this estimator: those it weights and those of the fit behind its residuals.
@@ -141,8 +160,8 @@ class JumpEngine:
                                 residuals=((wa.resid_b if robust else wa.resid_h) @ lam)[used],
                                 basis=(wa.rq if robust else wa.rp)[used],
                                 fit_weights=fit_weights[used],
-                                clusters=side.clusters[: wa.rows][used]))
-        return bias_reduced_variance(tuple(rows))
+                                clusters=side_codes[: wa.rows][used]))
+        return tuple(rows)
 
     def _clusters_in_window(self, robust: bool) -> int:
         codes = []
@@ -204,6 +223,7 @@ class JumpEngine:
         """Sandwich covariance of the order-p coefficients (u = x/h units) on side ``index``."""
         sf, side = self.fits[index], self.sides[index]
         p = self.p
+        variance = "hc2" if variance == "bias-reduced" else variance   # pointwise bands: its HC2 part
         if not self.direct and not cluster and use_fast_variance(variance, self.q):
             kind = "neighbors" if variance == "neighbors" else "hc0"
             kp = kernel_poly(self.kernel)

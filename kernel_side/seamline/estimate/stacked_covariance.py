@@ -24,7 +24,7 @@ import pandas as pd
 
 from .options import FitSpec
 
-HC_POWER = {"hc0": 0, "hc1": 0, "hc2": 1, "hc3": 2}
+HC_POWER = {"hc0": 0, "hc1": 0, "hc2": 1, "hc3": 2, "bias-reduced": 1}   # bias-reduced: its HC2 part
 
 
 def _spec(design, fit_options: dict) -> FitSpec | None:

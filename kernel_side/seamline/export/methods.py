@@ -29,6 +29,8 @@ _VARIANCE_TEXT = {
     "hc1": "the heteroskedasticity-robust HC1 variance estimator",
     "hc2": "the heteroskedasticity-robust HC2 variance estimator",
     "hc3": "the heteroskedasticity-robust HC3 variance estimator",
+    "bias-reduced": "the bias-reduced (HC2) variance estimator with t critical values on Bell-McCaffrey "
+                    "degrees of freedom (Imbens and Kolesar 2016)",
 }
 
 

@@ -185,7 +185,9 @@ class Fit(Reported):
         notes = [
             f"Local polynomial of degree {self.degree}, {self.kernel} kernel, bandwidth {bw} ({rule}); "
             f"bias correction with degree {self.bias_degree}; variance: {self.variance}"
-            + (f" ({self.n_clusters} clusters{self._cluster_note()})" if self.n_clusters else "") + ".",
+            + (f" ({self.n_clusters} clusters{self._cluster_note()})" if self.n_clusters else "")
+            + (f" (t critical values with {self.dof[1]:.1f} degrees of freedom, Bell and McCaffrey 2002)"
+               if self.variance == "bias-reduced" and self.dof[1] is not None else "") + ".",
             f"Observations used: {self.n_used[0]} below, {self.n_used[1]} above; "
             f"{self.n_dropped} rows dropped for missing values"
             + (f"; {self.n_donut} inside the donut of radius {self.length(self.donut)}" if self.donut > 0 else "")
