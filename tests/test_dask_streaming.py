@@ -284,3 +284,18 @@ def test_progress_of_the_streamed_passes(folder):
     with reading_progress(lambda done, total: seen.append((done, total))):
         seamline.Design(folder, reading="streamed", **KWARGS)       # the summary pass, one task per file
     assert seen == [(k, len(SIZES)) for k in range(1, len(SIZES) + 1)]
+
+
+def test_progress_of_the_score_pass_over_batches(folder, monkeypatch):
+    """The score pass computes a few partitions at a time; progress counts over the whole pass."""
+    import seamline.streaming_diagnostics as streamed
+    from seamline.partitioned import reading_progress
+    monkeypatch.setattr(streamed, "_in_flight", lambda: 3)           # batches of 3 and 1 files
+    design = seamline.Design(folder, reading="streamed", **KWARGS)
+    seen = []
+    with reading_progress(lambda done, total: seen.append((done, total))):
+        design.density_test()
+    assert seen == [(k, len(SIZES)) for k in range(1, len(SIZES) + 1)]
+    below, above, lengths = design._data._scores[None]
+    assert list(lengths) == list(SIZES)                               # rows read per file, in order
+    assert np.all(np.diff(below) >= 0) and np.all(np.diff(above) >= 0)
