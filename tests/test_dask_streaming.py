@@ -74,6 +74,85 @@ def test_streamed_fits_equal_memory_without_gathering(folder, memory):
     assert design._data._gathered is None           # no fit above needed the gathered columns
 
 
+DENSITY_FIELDS = ("statistic", "p_value", "density_below", "density_above", "ci_below", "ci_above", "bandwidth",
+                  "tie_share")
+BINNED_FIELDS = ("weight_sum", "mean", "score_mean", "std_error", "ci_low", "ci_high")
+
+
+def same_density(got, want, name="", exact=False):
+    assert got.n_used == want.n_used and got.n_total == want.n_total, name
+    for field in DENSITY_FIELDS:
+        if exact:     # local-CDF: the same arithmetic on the same sorted scores
+            assert np.array_equal(getattr(got, field), getattr(want, field)), f"{name} {field}"
+        else:
+            np.testing.assert_allclose(getattr(got, field), getattr(want, field), rtol=REL, atol=0,
+                                       err_msg=f"{name} {field}")
+    assert got.warnings == want.warnings, name
+
+
+def same_bins(got, want, name=""):
+    a, b = got.binned, want.binned
+    assert got.number == want.number and a.rule == b.rule, name
+    assert np.array_equal(a.count, b.count) and list(a.side) == list(b.side), name        # counts identical
+    assert np.array_equal(a.left, b.left) and np.array_equal(a.right, b.right), name      # edges exact
+    for field in BINNED_FIELDS:
+        np.testing.assert_allclose(getattr(a, field), getattr(b, field), rtol=REL, atol=0, equal_nan=True,
+                                   err_msg=f"{name} {field}")
+    for column in ("x", "fit", "ci_low", "ci_high"):
+        np.testing.assert_allclose(got.curve_frame[column], want.curve_frame[column], rtol=REL, atol=0,
+                                   err_msg=f"{name} curve {column}")
+
+
+BIN_OPTIONS = {"default": ((), {}), "z equal-count": (("z", "equal-count"), {}),
+               "numbers": ((None, "equal-width", (5, 7)), {}), "mimicking": ((), dict(rule="mimic-variance")),
+               "equal-count scaled": ((None, "equal-count"), dict(scale=2.0))}
+
+
+def test_density_tests_and_bins_read_only_the_sorted_score(folder, memory):
+    """Streamed: the score gathered and sorted per side, the outcome summed in passes; nothing else
+    gathered. Missing scores and outcomes, uneven files, a file with no rows near the cutoff."""
+    design = seamline.Design(folder, reading="streamed", **KWARGS)
+    same_density(design.density_test(), memory.density_test(), "local-cdf", exact=True)
+    same_density(design.density_test(level=0.9), memory.density_test(level=0.9), "level 0.9", exact=True)
+    same_density(design.density_test(degree=3, kernel="epanechnikov"),
+                 memory.density_test(degree=3, kernel="epanechnikov"), "local-cdf cubic", exact=True)
+    same_density(design.density_test("binned"), memory.density_test("binned"), "binned")
+    same_density(design.density_test("binned", bin_width=0.01), memory.density_test("binned", bin_width=0.01),
+                 "binned width", exact=True)
+    for name, (args, options) in BIN_OPTIONS.items():
+        same_bins(design.bins(*args, **options), memory.bins(*args, **options), name)
+    assert design._data._gathered is None           # no result above gathered the design's columns
+    # the density test's rows (a score) and z's bins rows (z has no missing value) are one array;
+    # y drops rows of its own, so its bins sort their own scores
+    assert len(design._data._scores) == 2
+    below, above, _ = design._data._scores[None]
+    assert len(below) + len(above) == memory.density_test().n_total[0] + memory.density_test().n_total[1]
+
+
+def test_streamed_bins_with_weights_and_ties():
+    """Weights (zero and missing ones), a tied score (equal-width exact; equal-count bounds inside a
+    run of ties fall back to the gathered columns), on many dask partitions."""
+    rng = np.random.default_rng(21)
+    n = 20_000
+    x = np.round(rng.normal(0.1, 1.0, n), 2)                 # ties
+    w = rng.uniform(0.2, 3.0, n)
+    w[::97] = 0.0
+    w[5::211] = np.nan
+    y = np.cos(x) + 0.3 * (x >= 0.1) + rng.normal(0, 0.5, n)
+    y[3::157] = np.nan
+    frame = pd.DataFrame({"x": x, "y": y, "w": w})
+    kwargs = dict(score="x", cutoff=0.1, outcome="y", weights="w")
+    got = seamline.Design(dd.from_pandas(frame, npartitions=7), reading="streamed", **kwargs)
+    want = seamline.Design(frame, **kwargs)
+    same_density(got.density_test(), want.density_test(), "weighted design, tied score", exact=True)
+    same_bins(got.bins(), want.bins(), "weighted, tied")
+    same_bins(got.bins(number=(20, 30)), want.bins(number=(20, 30)), "weighted, tied, numbers")
+    assert got._data._gathered is None
+    same_bins(got.bins(method="equal-count", number=(20, 30)), want.bins(method="equal-count", number=(20, 30)),
+              "equal-count inside ties")
+    assert got._data._gathered is not None          # that one needed the input order of tied rows
+
+
 def test_every_result_equals_memory_on_the_streamed_route(folder, memory):
     """Results off the streamed route (donuts, density tests, bins, donut ...) use the gathered columns."""
     assert_same(results(seamline.Design(folder, reading="streamed", **KWARGS)), results(memory))
@@ -151,11 +230,17 @@ def test_two_worker_processes_streamed(folder, memory):
         with distributed.get_task_stream(client) as stream:
             design = seamline.Design(folder, reading="streamed", **KWARGS)
             fit = design.fit()
+            density, bins = design.density_test(), design.bins()
         assert len(client.scheduler_info()["workers"]) == 2
         ran = [str(task["key"]) for task in stream.data]
         assert sum("_summary_part" in key for key in ran) == len(SIZES)     # passes ran on the workers
         assert any("_window_part" in key for key in ran)
+        assert sum("_score_part" in key for key in ran) == 2 * len(SIZES)   # density test's rows, then y's
+        assert sum("_bins_part" in key for key in ran) == 4 * len(SIZES)    # the bins' four passes
     same_fit(fit, memory.fit(), "cluster")
+    same_density(density, memory.density_test(), "cluster", exact=True)
+    same_bins(bins, memory.bins(), "cluster")
+    assert design._data._gathered is None
 
 
 def test_automatic_reading_streams_only_large_inputs(folder, monkeypatch):
@@ -199,3 +284,18 @@ def test_progress_of_the_streamed_passes(folder):
     with reading_progress(lambda done, total: seen.append((done, total))):
         seamline.Design(folder, reading="streamed", **KWARGS)       # the summary pass, one task per file
     assert seen == [(k, len(SIZES)) for k in range(1, len(SIZES) + 1)]
+
+
+def test_progress_of_the_score_pass_over_batches(folder, monkeypatch):
+    """The score pass computes a few partitions at a time; progress counts over the whole pass."""
+    import seamline.streaming_diagnostics as streamed
+    from seamline.partitioned import reading_progress
+    monkeypatch.setattr(streamed, "_in_flight", lambda: 3)           # batches of 3 and 1 files
+    design = seamline.Design(folder, reading="streamed", **KWARGS)
+    seen = []
+    with reading_progress(lambda done, total: seen.append((done, total))):
+        design.density_test()
+    assert seen == [(k, len(SIZES)) for k in range(1, len(SIZES) + 1)]
+    below, above, lengths = design._data._scores[None]
+    assert list(lengths) == list(SIZES)                               # rows read per file, in order
+    assert np.all(np.diff(below) >= 0) and np.all(np.diff(above) >= 0)

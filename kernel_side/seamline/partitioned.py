@@ -24,9 +24,9 @@ Memory bound
 The gathered design columns, 8 bytes x rows x columns (numeric columns), plus, while the partitions
 are joined, one more copy of the largest column, plus the partitions being read at that moment (one
 per dask thread or worker); the user's own columns that the design does not name are never read. After gathering, the in-memory engine's own working memory applies (see
-DEVELOPERS.md, "Partitioned inputs"). The rows are *not* streamed: results that a streaming pass
-could summarise (global counts, moments, fine histograms) are still computed from gathered rows, so
-a dataset larger than memory does not fit. That is the next step, and it is not done yet.
+DEVELOPERS.md, "Partitioned inputs"). On this (gathered) route the rows are *not* streamed, so a
+dataset larger than memory does not fit; the bounded-memory route is ``seamline.streaming``
+(``Design(..., reading="streamed")``).
 """
 from __future__ import annotations
 

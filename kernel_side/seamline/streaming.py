@@ -25,8 +25,9 @@ Passes (for one set of variables; each reads only the design's columns)
 What is exact: fits at manual bandwidths and at the "mse", "mse-split", "coverage" and "ik" rules with
 the "nearer-half" or "two-step" pilot, with any variance, equal the in-memory results up to the
 order of floating-point sums (relative differences ~1e-12; counts identical). Everything else
-(donuts, fuzzy designs, clusters, density tests, bins, placebo cutoffs, balance tables ...) is
-computed on the gathered route (``partitioned.gather_frame``), exactly, the first time it is asked for.
+(donuts, fuzzy designs, clusters, placebo cutoffs, balance tables ...) is
+computed on the gathered route (``partitioned.gather_frame``), exactly, the first time it is asked for;
+except density tests and bins, which gather only the sorted score (``streaming_diagnostics``).
 
 Memory bound: the window (per row about 8 bytes x (2 + 2 x variables) plus moment tables of about
 (degree + 1) / 512 numbers per row per series), the histograms (3 x 65536 counts per partition in
@@ -97,6 +98,8 @@ def _summary_part(part: pd.DataFrame, plan: dict) -> dict:
                                float(np.nanmin(a)) if np.any(~np.isnan(a)) else np.nan,
                                float(np.nanmax(a)) if np.any(~np.isnan(a)) else np.nan,
                                bool(np.any(a > 0)))
+    # the density test keeps every row with a score, whatever the outcome and weights (as in memory)
+    out["score_below"] = int(np.count_nonzero(arrays[plan["score"]] < plan["cutoff"]))
     xs = x[keep]
     out["n"] = len(xs)
     out["mean"] = float(xs.mean()) if len(xs) else 0.0
@@ -117,6 +120,7 @@ def _merge_summaries(a: dict, b: dict) -> dict:
     n = a["n"] + b["n"]
     delta = b["mean"] - a["mean"]
     out = {"rows": a["rows"] + b["rows"], "dropped": a["dropped"] + b["dropped"], "n": n,
+           "score_below": a["score_below"] + b["score_below"],
            "mean": a["mean"] + delta * b["n"] / n if n else 0.0,
            "m2": a["m2"] + b["m2"] + (delta ** 2 * a["n"] * b["n"] / n if n else 0.0),
            "score_hist": a["score_hist"] + b["score_hist"], "checks": {}}
@@ -236,6 +240,7 @@ class StreamingData:
         self._gathered = None
         self._summaries: dict[tuple, dict] = {}
         self._windows: dict[tuple, object] = {}
+        self._scores: dict = {}                  # sorted scores per row set (streaming_diagnostics)
         self.passes = 0                          # passes over the data so far (benchmarks report it)
         self._check(self._summary(outcomes[:1]))
 
@@ -248,7 +253,7 @@ class StreamingData:
         return self._gathered
 
     def __getattr__(self, name):
-        if name.startswith("__") or name in ("_gathered", "_gathered_loader"):
+        if name.startswith("__") or name in ("_gathered", "_gathered_loader", "_scores"):
             raise AttributeError(name)
         return getattr(self.gathered, name)
 

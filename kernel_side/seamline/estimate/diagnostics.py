@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from .. import streaming_diagnostics as streamed
 from ..core.binning import binned_means
 from ..core.density import density_test as core_density_test
 from ..core.density import with_level as density_at_level
@@ -100,6 +101,9 @@ def density_test(design, method: str = "local-cdf", *, level: float = 0.95, **op
         # the level changes only the intervals: re-report the (cached) test at the reference level
         base = design.density_test(method, level=REFERENCE_LEVEL, **options)
         est = density_at_level(base.estimate, checked)
+    elif design.streamed:
+        # the bounded-memory route: only the sorted score is gathered (seamline.streaming_diagnostics)
+        est = streamed.density_test(design._data, method, dict(options, level=level))
     else:
         data = design._data
         if method == "local-cdf" and data.weights is None and data.cluster_codes is None:
@@ -449,29 +453,29 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
     method = check_option("method", method, BIN_METHODS)
     rule = check_option("rule", rule, BIN_RULES)
     outcome = design._outcome(outcome)
-    data = design._data
-    x, y = data.arrays[design.score], data.arrays[outcome]
-    w = data.weights
-    if w is None and not (_has_nan(x) or _has_nan(y)):
-        ok = slice(None)        # views, not copies (read only: the user's data is never modified)
-    else:
-        ok = ~np.isnan(x) & ~np.isnan(y)
-        if w is not None:
-            ok &= ~np.isnan(w) & (w > 0)
-        if ok.all():
-            ok = slice(None)
     level = fit_options.get("level", 0.95)
     # The binned means read the score, the outcome and the bin options only: kept on the design, so
     # bins at another bandwidth (a board's slider) redraw the fitted curves and nothing else.
     key = ("binned_means", outcome, method, _frozen_value(number), rule, float(scale), float(level))
     binned = design._diagnostics.get(key)
     if binned is None:
-        order = _sorted_positions(data, ok)
-        # every row in the design's one sort: its sorted score is kept (the fit's preparation made it)
-        sorted_score = data._ordered_score() if order is not None and order is data._score_order() else None
-        binned = design._diagnostics[key] = binned_means(
-            x[ok], y[ok], design.cutoff, method=method, number=number, rule=rule, scale=scale,
-            weights=None if w is None else w[ok], level=level, order=order, sorted_score=sorted_score)
+        options = dict(method=method, number=number, rule=rule, scale=scale, level=level)
+        if design.streamed:
+            try:   # the bounded-memory route: the sorted score in memory, the outcome in passes
+                binned = streamed.binned_means(design._data, outcome, **options)
+            except InvalidOptionError:
+                if method != "equal-count":
+                    raise
+                # equal-count bounds inside a run of tied scores need the input order: gathered route
+        if binned is None:
+            x, y, w, ok = _bins_rows(design, outcome)
+            data = design._data
+            order = _sorted_positions(data, ok)
+            # every row in the design's one sort: its sorted score is kept (the fit's preparation made it)
+            sorted_score = data._ordered_score() if order is not None and order is data._score_order() else None
+            binned = binned_means(x[ok], y[ok], design.cutoff, weights=None if w is None else w[ok], order=order,
+                                  sorted_score=sorted_score, **options)
+        design._diagnostics[key] = binned
     fit = design.fit(outcome, **fit_options)
     spec = design._spec(outcome, **_spec_options(fit, fit_options))
     engine, _, _, _ = design._engine(spec)
@@ -487,12 +491,27 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
     curve = pd.concat(parts, ignore_index=True)
     global_frame = None
     if global_degree is not None:
+        x, y, _, ok = _bins_rows(design, outcome)
         global_frame = _global_polynomial(x[ok], y[ok], design.cutoff, int(global_degree))
     number_used = tuple(int(v) for v in np.atleast_1d(binned.number)) if np.ndim(binned.number) else (
         int(binned.number), int(binned.number))
     return Bins(outcome=outcome, score=design.score, cutoff=design.cutoff, method=method, rule=binned.rule,
                 number=number_used, level=level, binned=binned, curve_frame=curve, global_frame=global_frame,
                 fit=fit, warnings=fit.warnings)
+
+
+def _bins_rows(design, outcome: str) -> tuple:
+    """(score, outcome, weights, rows kept) of the in-memory bins: rows with a score, an outcome and
+    a positive weight (a slice when every row is kept)."""
+    data = design._data
+    x, y = data.arrays[design.score], data.arrays[outcome]
+    w = data.weights
+    if w is None and not (_has_nan(x) or _has_nan(y)):
+        return x, y, w, slice(None)    # views, not copies (read only: the user's data is never modified)
+    ok = ~np.isnan(x) & ~np.isnan(y)
+    if w is not None:
+        ok &= ~np.isnan(w) & (w > 0)
+    return x, y, w, slice(None) if ok.all() else ok
 
 
 def _has_nan(v: np.ndarray, chunk: int = 1 << 16) -> bool:

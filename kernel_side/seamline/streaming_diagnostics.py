@@ -1,0 +1,159 @@
+"""The density test and bins of a streamed design: the sorted score in memory, the outcome in passes.
+
+On the bounded-memory route (``streaming.StreamingData``) these two results do not gather the
+design's columns. They need the score in ascending order on each side (ranks, ties, spacings), and
+nothing else that a pass could not sum, so:
+
+* one pass gathers only the score column of the rows the in-memory result keeps, straight into two
+  preallocated float64 arrays (one per side; their sizes come from the summary pass), which are then
+  sorted in place. The density test keeps every row with a score (in memory it ignores the outcome
+  and the weights too); bins keep the rows with a score, an outcome and a positive weight (as
+  ``estimate.diagnostics.bins``), and share the density test's arrays when those are the same rows.
+  Partitions are computed a few at a time (twice the scheduler's threads), so no more than that many
+  partitions' scores wait beside the arrays;
+* the density test is ``core.density.density_test_sorted`` on them (local-CDF: the in-memory result bit
+  for bit; binned with the default bin width: its sd summed in sorted order, equal up to rounding);
+* bins are ``core.bins_streamed.binned_means_streamed`` with ``passes`` over the partitions on the
+  active dask scheduler: one task per partition (the score, outcome and weight columns only) running
+  our chunk function, then a tree of its ``combine``. Four passes. Counts and edges exact, sums
+  equal up to their order.
+
+Memory bound: 8 bytes per kept row (the sorted scores, kept on the design for later calls), plus the
+partitions in flight; the bins' passes add per partition a few arrays of its length in the workers.
+The chunk functions close over the sorted scores: on a distributed cluster they travel to each
+worker once per pass (one graph key), which costs the score's size in network and worker memory.
+"""
+from __future__ import annotations
+
+import os
+import uuid
+
+import numpy as np
+
+from .core.bins_streamed import binned_means_streamed
+from .core.density import density_test_sorted
+from .errors import DataSourceError
+from .partitioned import _REPORT
+from .streaming import _columns, _compute, _tree
+
+
+def _plan(data, variables: tuple[str, ...] | None) -> dict:
+    """The columns and row rule of a pass: ``variables`` None is every row with a score."""
+    if variables is None:
+        return {"columns": [data.score_name], "score": data.score_name, "cutoff": data.cutoff,
+                "variables": [], "weights": None}
+    weights = [data.weights_name] if data.weights_name else []
+    return {"columns": list(dict.fromkeys([data.score_name, *variables, *weights])), "score": data.score_name,
+            "cutoff": data.cutoff, "variables": list(variables), "weights": data.weights_name}
+
+
+def _score_part(part, plan: dict) -> tuple:
+    """(rows read, kept scores below the cutoff, kept scores at or above it) of one partition."""
+    x, _, _, keep, _, arrays = _columns(part, plan)
+    raw = arrays[plan["score"]]
+    return len(raw), raw[keep & (raw < plan["cutoff"])], raw[keep & (raw >= plan["cutoff"])]
+
+
+def _bins_part(part, plan: dict, chunk, start: int) -> dict:
+    """One of ``binned_means_streamed``'s chunk functions on one partition's kept rows."""
+    _, values, w, keep, _, arrays = _columns(part, plan)
+    return chunk(arrays[plan["score"]][keep], values[keep, 0], None if w is None else w[keep], start)
+
+
+def _in_flight() -> int:
+    """Partitions computed at a time while the scores are gathered: twice the scheduler's threads."""
+    try:
+        from distributed import default_client
+        threads = sum(default_client().nthreads().values())
+    except (ImportError, ValueError):           # no distributed client: a local scheduler is active
+        import dask
+        threads = dask.config.get("num_workers", None) or os.cpu_count() or 1
+    return max(2, 2 * int(threads))
+
+
+def _row_set(data, variables: tuple[str, ...] | None):
+    """The key of the rows a result keeps, and (below, above) counts from the summaries.
+
+    Bins' rows (score, outcome and weight usable) are a subset of the density test's (score usable);
+    when the summary counts as many, they are the same rows and share one gathered array.
+    """
+    s = next(iter(data._summaries.values()))     # the first summary: every partition's score counts
+    score_count = s["checks"][data.score_name][0]
+    every = (s["score_below"], score_count - s["score_below"])
+    if variables is None:
+        return None, every
+    own = data._summary(variables)
+    if own["n"] == score_count:
+        return None, every
+    return variables, (own["below"]["n"], own["above"]["n"])
+
+
+def sorted_scores(data, variables: tuple[str, ...] | None = None):
+    """(below, above, rows per partition): each side's kept scores in ascending order, gathered once.
+
+    ``variables`` None: every row with a score; otherwise the rows usable for ``variables``.
+    """
+    import dask
+    key, (n_below, n_above) = _row_set(data, variables)
+    held = data._scores.get(key)
+    if held is not None:
+        return held
+    plan = _plan(data, key)
+    parts = data.frame[plan["columns"]].to_delayed()       # only these columns are read
+    below, above = np.empty(n_below), np.empty(n_above)
+    lengths, at_below, at_above = [], 0, 0
+    report, step = _REPORT.get(), _in_flight()
+    for lo in range(0, len(parts), step):
+        batch = parts[lo:lo + step]
+        token = None
+        if report is not None:          # progress over the whole pass, not per batch
+            token = _REPORT.set(lambda done, total, lo=lo: report(lo + done, len(parts)))
+        try:
+            got = _compute(*[dask.delayed(_score_part, pure=True)(p, plan) for p in batch], name="_score_part")
+        finally:
+            if token is not None:
+                _REPORT.reset(token)
+        for rows, b, a in got:
+            if at_below + len(b) > n_below or at_above + len(a) > n_above:
+                break
+            below[at_below:at_below + len(b)] = b
+            above[at_above:at_above + len(a)] = a
+            at_below, at_above = at_below + len(b), at_above + len(a)
+            lengths.append(rows)
+        del got
+    if (at_below, at_above) != (n_below, n_above) or len(lengths) != len(parts):
+        raise DataSourceError(f"the data must not change while a design reads them; got {at_below + at_above} "
+                              f"rows with a score where the first pass counted {n_below + n_above}. Build the "
+                              "Design again on data that stay fixed.")
+    data.passes += 1
+    below.sort()                        # in place: no copy of either side
+    above.sort()
+    held = data._scores[key] = (below, above, np.asarray(lengths, dtype=np.int64))
+    return held
+
+
+def density_test(data, method: str, options: dict):
+    """The density test of a streamed design (``core.density.density_test_sorted``)."""
+    below, above, _ = sorted_scores(data)
+    return density_test_sorted(below, above, data.cutoff, method=method, **options)
+
+
+def binned_means(data, outcome: str, **options):
+    """``binning.binned_means`` of a streamed design's rows for ``outcome``, the sums made in passes."""
+    import dask
+    variables = (outcome,)
+    below, above, lengths = sorted_scores(data, variables)
+    plan = _plan(data, variables)
+    parts = data.frame[plan["columns"]].to_delayed()
+    starts = np.concatenate(([0], np.cumsum(lengths)[:-1]))    # input row of each partition's first row
+
+    def passes(chunk, combine):
+        # the chunk function (it holds the sorted scores) is one graph key, not part of every task
+        fn = dask.delayed(chunk, name=f"seamline-bins-chunk-{uuid.uuid4().hex}")
+        tasks = [dask.delayed(_bins_part, pure=True)(p, plan, fn, int(start)) for p, start in zip(parts, starts)]
+        (out,) = _compute(_tree(tasks, combine), name="_bins_part", total=len(parts))
+        data.passes += 1
+        return out
+
+    return binned_means_streamed(below, above, data.cutoff, passes, weighted=data.weights_name is not None,
+                                 **options)
