@@ -53,6 +53,7 @@ from ..estimate.design import Design
 from ..estimate.options import resolve
 from .compute import NodeCache, balance_rule, compute_graph, panel_key
 from .exports import CHART_FORMATS, TABLE_FORMATS, export_result, methods_text
+from ..partitioned import data_identity, is_partitioned
 from .reactive import PANELS, DataIdentity, column_node, fingerprints, shared_fingerprints
 from .designs_spec import cutoff_column, cutoff_layout, cutoff_text
 from .inference_keys import INFERENCE_DEFAULTS
@@ -302,6 +303,7 @@ class Board(Scheduler):
         self._cache = NodeCache(_CACHE_SIZE)
         self._design: Design | None = None
         self._design_key: tuple | None = None
+        self._reading: tuple[int, int] | None = None    # (done, total) partitions while a Design reads them
         self.updated_at: _dt.datetime | None = None
         self.paused = False
         self.closed = False
@@ -442,6 +444,12 @@ class Board(Scheduler):
             return self._status()
 
     @property
+    def reading(self) -> tuple[int, int] | None:
+        """(done, total) partitions read while the Design of a dask DataFrame or Parquet input is
+        being built; None otherwise (never waits)."""
+        return self._reading
+
+    @property
     def stale(self) -> bool:
         """Whether the inputs changed while paused and the results still show the earlier ones
         (never waits; ``refresh()`` or ``resume()`` brings them up to date)."""
@@ -454,7 +462,7 @@ class Board(Scheduler):
             inputs = self._inputs
             return BoardState(name=self.name, results=dict(self._results), errors=dict(self._errors),
                               pending=self._pending(), status=self._status(), paused=self.paused,
-                              stale=self._target is not self._inputs,
+                              stale=self._target is not self._inputs, reading=self._reading,
                               updated_at=self.updated_at, options={"outcome": inputs.selected, **inputs.options},
                               spec=dict(inputs.spec), outcomes=tuple(inputs.spec["outcome"]))
 
@@ -526,7 +534,11 @@ class Board(Scheduler):
             except NameError as exc:
                 new, error = data, f"`data` is read from the notebook variable `{self._data_name}`: {exc}"
             if not self._identity.same(new):
-                data, self._identity, version, changed = new, DataIdentity(new), version + 1, True
+                # a partitioned input rebound to a collection with the same dask token (or the same
+                # files, unchanged) is the same data: the new object is kept, nothing recomputes
+                same = is_partitioned(new) and is_partitioned(data) and data_identity(new) == data_identity(data)
+                data, self._identity, changed = new, DataIdentity(new), True
+                version += 0 if same else 1
         if self._namespace is not None:
             for key, variable in self._spec_variables.items():
                 try:
@@ -698,6 +710,7 @@ class Board(Scheduler):
             "stale": state.stale,
             "paused": state.paused,
             "updated_at": None if state.updated_at is None else state.updated_at.isoformat(timespec="seconds"),
+            "reading": None if state.reading is None else list(state.reading),
             "error": state.errors.get("fit") or self._target.error,
         }
 

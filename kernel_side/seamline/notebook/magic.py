@@ -67,7 +67,7 @@ class ParsedSpec:
     """A parsed declaration: the arguments of one ``Board(...)`` call, plus line numbers."""
     name: str
     data: Any
-    data_name: str
+    data_name: str | None          # None for a quoted Parquet path
     design_kwargs: dict[str, Any]
     fit_options: dict[str, Any]
     spec_variables: dict[str, str] = field(default_factory=dict)
@@ -343,18 +343,23 @@ def parse_spec(body: str, namespace: dict[str, Any], *, name: str = "board", fir
                               f"{', '.join(f'`{k}`' for k in missing)}. Add a line for each, e.g. {lines}.")
     from .board import coerce_value, lookup
     data_text, data_line = raw["data"]
-    if not _NAME.match(data_text):
-        raise _fail(data_line, f"`data` must be the name of a DataFrame variable; got {shown(data_text)}. Write e.g. "
-                               "`data: pupils` (expressions are not evaluated).")
-    try:
-        data = lookup(namespace, data_text)
-    except NameError as exc:
-        raise _fail(data_line, str(exc)) from None
-    columns = _columns_of(data)
-    if columns is None:
-        raise _fail(data_line, f"`data` must be a DataFrame (pandas, or an Arrow/polars table); got "
-                               f"{type(data).__name__} from `{data_text}`. Convert it with pandas.DataFrame(...).")
-    if name == data_text.split(".")[0]:
+    if _quoted(data_text):
+        data, data_text = _parquet_path(data_text, data_line)
+        columns = _parquet_columns(data, data_line)
+    elif not _NAME.match(data_text):
+        raise _fail(data_line, f"`data` must be the name of a DataFrame variable or a quoted Parquet path; got "
+                               f"{shown(data_text)}. Write e.g. `data: pupils` or `data: \"pupils/*.parquet\"` "
+                               "(expressions are not evaluated).")
+    else:
+        try:
+            data = lookup(namespace, data_text)
+        except NameError as exc:
+            raise _fail(data_line, str(exc)) from None
+        columns = _columns_of(data)
+        if columns is None:
+            raise _fail(data_line, f"`data` must be a DataFrame (pandas, dask, or an Arrow/polars table); got "
+                                   f"{type(data).__name__} from `{data_text}`. Convert it with pandas.DataFrame(...).")
+    if data_text is not None and name == data_text.split(".")[0]:
         raise _fail(1, f"the board name must differ from the data variable; got `{name}` for both. Rename the "
                        f"board, e.g. `%%cutoff {name}_board`.")
     resolver = _Resolver(namespace, columns)
@@ -375,6 +380,40 @@ def parse_spec(body: str, namespace: dict[str, Any], *, name: str = "board", fir
                        f"by `{next(k for k, v in resolver.variables.items() if v == clash[0])}`. Rename the board.")
     return ParsedSpec(name=name, data=data, data_name=data_text, design_kwargs=design, fit_options=options,
                       spec_variables=dict(resolver.variables), lines=lines)
+
+
+def _quoted(text: str) -> bool:
+    return len(text) >= 2 and text[0] == text[-1] and text[0] in "'\""
+
+
+def _parquet_path(text: str, line: int) -> tuple[str, None]:
+    """A quoted ``data`` value: a Parquet file, a folder of Parquet files or a glob of them."""
+    import os
+    from ..partitioned import PARQUET_SUFFIXES
+    path = os.path.expanduser(text[1:-1].strip())
+    if not (path.lower().endswith(PARQUET_SUFFIXES) or os.path.isdir(path)):
+        raise _fail(line, f"`data` in quotes must be a Parquet path (a file or glob ending in "
+                          f"{', '.join(PARQUET_SUFFIXES)}, or a folder of Parquet files); got {shown(text)}. Write e.g. "
+                          "`data: \"pupils/*.parquet\"`, or name a DataFrame variable without quotes (other files: "
+                          "read them into a DataFrame in a cell above).")
+    return path, None
+
+
+def _parquet_columns(path: str, line: int) -> list[str]:
+    """The column names of the Parquet files a path names (the first file's schema; no rows read)."""
+    from ..errors import SeamlineError
+    from ..partitioned import parquet_files
+    try:
+        import pyarrow.parquet as pq
+        return list(pq.read_schema(parquet_files(path)[0]).names)
+    except ImportError:
+        from ..partitioned import INSTALL_HINT
+        raise _fail(line, f"`data` as a Parquet path needs pyarrow and dask. {INSTALL_HINT}") from None
+    except SeamlineError as exc:
+        raise _fail(line, str(exc)) from None
+    except OSError as exc:
+        raise _fail(line, f"`data` path {shown(path)} must be readable Parquet; got {type(exc).__name__}: {exc}. "
+                          "Check that the files are Parquet files.") from None
 
 
 def _columns_of(data: Any) -> list[str] | None:
@@ -403,7 +442,11 @@ def build_board(spec: ParsedSpec, namespace: dict[str, Any]):
     try:
         board = Board(spec.name, spec.design_kwargs, spec.fit_options, data=spec.data, data_name=spec.data_name,
                       namespace=namespace, spec_variables=spec.spec_variables, autorun=False)
-        board.validate()      # the columns and the cutoff against the data
+        from ..partitioned import is_partitioned
+        if not is_partitioned(spec.data):
+            board.validate()      # the columns and the cutoff against the data
+        # a dask DataFrame or Parquet path is read on the board's worker (the header counts the
+        # partitions); its column names were checked above from metadata, other errors show in the panel
     except SeamlineError as exc:
         message = str(exc)
         raise _fail(_line_of(message, spec.lines), message) from None

@@ -620,8 +620,9 @@ class BoardView(widgets.VBox):
                     return
                 self._progress.max = max(int(total), 1)
                 self._progress.value = min(int(done), self._progress.max)
-                self._progress.description = "recomputing"
-                self._progress.tooltip = f"computing the {label}"
+                reading = label == "partitions read"
+                self._progress.description = "reading" if reading else "recomputing"
+                self._progress.tooltip = f"{done} of {total} partitions read" if reading else f"computing the {label}"
                 if waiting:
                     self._progress.layout.visibility = "visible"
         except Exception:  # noqa: BLE001 - a progress display must never fail a recompute

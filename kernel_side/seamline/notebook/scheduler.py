@@ -24,6 +24,7 @@ from typing import Any
 
 from ..errors import InvalidOptionError, SeamlineError, WaitTimeoutError, shown
 from ..estimate.design import Design
+from ..partitioned import is_partitioned, reading_progress
 from .compute import Computation, panel_order
 from .exports import LABELS
 from .reactive import DependencyGraph
@@ -37,6 +38,8 @@ log = logging.getLogger("seamline")
 #: computed at once) and before it computes panels nobody is looking at.
 SETTLE_DELAY = 0.15
 IDLE_DELAY = 0.4
+#: Seconds between two header updates while partitions are read (the last one is always sent).
+READING_NOTE_EVERY = 0.2
 
 def live_front_end() -> bool:
     """Whether seamline's JupyterLab front end is connected to this kernel (its channel is open).
@@ -93,6 +96,7 @@ class BoardState:
     options: Mapping[str, Any]
     spec: Mapping[str, Any]
     outcomes: tuple[str, ...]
+    reading: tuple[int, int] | None = None     # (done, total) partitions while a partitioned input is read
 
 
 
@@ -225,10 +229,38 @@ class Scheduler:
         with self._lock:
             if self._design is not None and self._design_key == key:
                 return self._design
-        design = Design(target.data, **target.design_kwargs())
+        if is_partitioned(target.data):
+            design = self._read_partitions(target)
+        else:
+            design = Design(target.data, **target.design_kwargs())
         with self._lock:
             self._design, self._design_key = design, key
         return design
+
+    def _read_partitions(self, target: Inputs) -> Design:
+        """Build the Design of a dask DataFrame or Parquet input, reporting "done of total"
+        partitions to the header (``reading``) and the progress bar while they are read."""
+        last = [0.0]
+
+        def report(done: int, total: int) -> None:
+            with self._lock:
+                self._reading = (int(done), int(total))
+            now = time.monotonic()
+            if done >= total or now - last[0] >= READING_NOTE_EVERY:    # a header per partition is too many
+                last[0] = now
+                self._notify({"status"})
+                self._progress(done, total, "partitions read")
+
+        with self._lock:
+            self._reading = (0, 0)
+        self._notify({"status"})
+        try:
+            with reading_progress(report):
+                return Design(target.data, **target.design_kwargs())
+        finally:
+            with self._lock:
+                self._reading = None
+            self._notify({"status"})
 
     def _work(self, target: Inputs, todo: list[str]) -> None:
         if target.error is not None:

@@ -279,6 +279,10 @@ def _status_text(board) -> str:
     status = str(getattr(board, "status", "") or "")
     updated = getattr(board, "updated_at", None)
     when = f"updated at {updated:%H:%M:%S}" if isinstance(updated, datetime) else "not computed yet"
+    reading = getattr(board, "reading", None)
+    if status == "recomputing" and reading:
+        done, total = reading
+        return f"reading partitions: {done} of {total}..." if total else "reading partitions..."
     if status == "recomputing":
         return "recomputing..."
     if status == "stale":
