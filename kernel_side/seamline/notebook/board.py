@@ -877,9 +877,11 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
 
     Parameters
     ----------
-    data : DataFrame
+    data : DataFrame, dask DataFrame or Parquet path
         Never modified. In-place edits of the columns the board uses are picked up after each
-        notebook cell (when running inside IPython).
+        notebook cell (when running inside IPython). A dask DataFrame or a path / glob of Parquet
+        files is read on the board's worker (the header counts the partitions); its changes are
+        detected from dask's token or the files' sizes and modification times, never by reading rows.
     score, cutoff, outcome, treated, takeup, covariates, cluster, weights, score_unit
         The design, as for ``seamline.Design`` (``cutoff`` may name a column of per-unit cutoffs
         or list increasing cumulative cutoffs; ``score_unit`` -- "hours", "days" (the default),

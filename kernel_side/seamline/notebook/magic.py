@@ -459,7 +459,8 @@ def cutoff(line: str, cell: str, *, shell=None):
     Usage::
 
         %%cutoff tutoring
-        data: pupils            # a DataFrame in the notebook
+        data: pupils            # a DataFrame (pandas or dask) in the notebook, or a quoted
+                                # Parquet path: "pupils/*.parquet"
         score: reading_score    # the running variable
         cutoff: 40              # a number, a column of per-unit cutoffs, increasing numbers
                                 # (30, 60: cumulative cutoffs), or a notebook variable

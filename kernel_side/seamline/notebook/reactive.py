@@ -236,7 +236,10 @@ def fingerprints(data: Any, columns: Iterable[str]) -> dict[str, bytes]:
     """
     names = list(dict.fromkeys(columns))
     if is_partitioned(data):
-        identity = data_identity(data).encode()
+        try:
+            identity = data_identity(data).encode()
+        except OSError as exc:        # a file removed between listing and stat: the Design will say so
+            identity = f"unreadable|{type(exc).__name__}|{exc}".encode()
         return {name: identity for name in names}
     parts, done = {}, {}
     for name in names:
