@@ -167,3 +167,39 @@ def test_pending_panels_are_marked_and_never_shown_as_current(sharp, gate):
     gate.set()
     b.wait()
     assert not b.state().pending and b.status == "fresh"
+
+
+def test_a_newer_change_stops_a_long_background_computation(monkeypatch):
+    # Local randomization draws its assignments in blocks; here each block is held 50 ms (about 30 s in
+    # all), so only the interruption between blocks lets the new headline through in time. Data of its
+    # own, so that no result kept from another test of this process answers without drawing.
+    from seamline.core import randomization
+    sharp = sharp_scenario(n=2000, seed=29)
+    real, entered, stopped = randomization.prefix_treated_sums, threading.Event(), []
+
+    def slow(windows, permutations, seed):
+        if threading.current_thread().name.startswith("seamline-board") and not stopped:
+            entered.set()
+            try:
+                for _ in range(600):
+                    randomization.checkpoint()
+                    time.sleep(0.05)
+            except BaseException:
+                stopped.append(True)
+                raise
+        return real(windows, permutations, seed)
+
+    from seamline.estimate import local_randomization
+    monkeypatch.setattr(local_randomization, "prefix_treated_sums", slow)
+    b = seamline.board(sharp.data, **_kwargs(sharp), panels=["fit", "local_randomization"],
+                       permutations=2000)
+    b.wait("fit")
+    threading.Thread(target=lambda: b.wait("local_randomization"), daemon=True).start()
+    assert entered.wait(10)                       # the worker is inside the long draws ...
+    b.set_option("bandwidth", 3.0)                # ... when the user changes the bandwidth
+    b.wait("fit", timeout=10)                     # without the interruption: about 30 s
+    assert b.fit.bandwidth == (3.0, 3.0) and stopped == [True]
+    b.wait(timeout=60)                            # the stopped panel is computed again, for these inputs
+    ref = Design(sharp.data, **_kwargs(sharp)).fit(bandwidth=3.0)
+    np.testing.assert_allclose(b.fit.robust_conf_int, ref.robust_conf_int, **TIGHT)
+    assert b.results["local_randomization"] is not None and b.status == "fresh"

@@ -30,6 +30,8 @@ from typing import Callable
 import numpy as np
 from scipy import stats
 
+from .interrupt import checkpoint
+
 EXACT_LIMIT = 100_000
 CHUNK = 4096                    # assignments per block when computing statistics (memory bound)
 DRAW_CHUNK = 1024               # Monte Carlo draws per block of random keys
@@ -57,6 +59,7 @@ def draw_assignments(n: int, n_treated: int, permutations: int,
         return out, True
     out = np.zeros((permutations, n), dtype=bool)
     for start in range(0, permutations, DRAW_CHUNK):   # random keys in blocks bound the memory
+        checkpoint()
         keys = rng.random((min(DRAW_CHUNK, permutations - start), n))
         picked = np.argpartition(keys, n_treated - 1, axis=1)[:, :n_treated]
         np.put_along_axis(out[start: start + len(keys)], picked, True, axis=1)
@@ -135,6 +138,7 @@ def prefix_treated_sums(windows: list[tuple[int, int, np.ndarray]], permutations
     keys_buffer = np.empty((rows, -(-largest // KEY_BLOCK) * KEY_BLOCK))
     scratch = np.empty(2 * rows * largest, dtype=np.float32)
     for draws in steps:
+        checkpoint()                    # a board's newer change stops this between blocks of draws
         keys = prefix_keys(seed, draws, largest, keys_buffer)
         for (n, n_treated, _), cols_t, sums in zip(windows, transposed, out):
             treated = _treated_by_keys(keys[:, :n], n_treated, scratch)
@@ -147,6 +151,7 @@ def prefix_assignments(n: int, n_treated: int, permutations: int, seed: int) -> 
     n units (for the statistics that need the assignments themselves)."""
     out = np.empty((permutations, n), dtype=bool)
     for draws in _draw_steps(permutations, n):
+        checkpoint()
         out[draws] = _treated_by_keys(prefix_keys(seed, draws, n), n_treated)
     return out
 
@@ -198,6 +203,7 @@ def differences_in_means(assign: np.ndarray, columns: list[np.ndarray]) -> list[
     columns = [np.asarray(y, dtype=float) for y in columns]
     blocks: list[list[np.ndarray]] = [[] for _ in columns]
     for i in range(0, len(assign), CHUNK):
+        checkpoint()
         a = assign[i: i + CHUNK].astype(float)
         for out, y in zip(blocks, columns):
             out.append(_difference_in_means(a, y))
@@ -339,6 +345,7 @@ def invert(p_of: Callable[[float], float], centre: float, scale: float, alpha: f
     its edge), then ``refine`` bisection steps at each end of the accepted run."""
     for _ in range(8):
         grid = np.linspace(centre - 8 * scale, centre + 8 * scale, points)
+        checkpoint()
         accepted = np.array([p_of(t) > alpha for t in grid])
         if not accepted.any():
             return (float("nan"), float("nan")), True
@@ -352,6 +359,7 @@ def invert(p_of: Callable[[float], float], centre: float, scale: float, alpha: f
 
     def edge(inside: float, outside: float) -> float:
         for _ in range(refine):
+            checkpoint()
             mid = 0.5 * (inside + outside)
             if p_of(mid) > alpha:
                 inside = mid

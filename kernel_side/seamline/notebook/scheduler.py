@@ -23,6 +23,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from ..errors import InvalidOptionError, SeamlineError, WaitTimeoutError, shown
+from ..core.interrupt import Interrupted, stop_when
 from ..estimate.design import Design
 from ..partitioned import is_partitioned, reading_progress
 from .compute import Computation, panel_order
@@ -288,7 +289,12 @@ class Scheduler:
             cached = comp.is_cached(panel)
             if not cached:
                 self._progress(done, total, LABELS[panel])
-            value = comp.panel(panel)
+            try:
+                # a newer change or a closed board stops a long computation between its blocks of work
+                with stop_when(lambda: self._target is not target or self.closed):
+                    value = comp.panel(panel)
+            except Interrupted:
+                return                          # nothing stored; the loop takes the newest inputs
             done += 0 if cached else 1
             self._publish(target, {panel: value})
         if total:
