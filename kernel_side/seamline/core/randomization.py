@@ -94,29 +94,66 @@ def _draw_steps(permutations: int, units: int):
     return [slice(start, min(start + step, permutations)) for start in range(0, permutations, step)]
 
 
-def _treated_by_keys(keys: np.ndarray, n_treated: int, scratch: np.ndarray | None = None) -> np.ndarray:
+def _blocked_keys(seed: int, draws: slice, blocks: int, out: np.ndarray) -> np.ndarray:
+    """The keys of ``prefix_keys`` for the first ``blocks`` unit blocks, laid out (unit block, draw,
+    unit in the block) so that each generator fills its part of ``out`` in place; draws.start a
+    multiple of KEY_DRAWS. A part of fewer than KEY_DRAWS draws gets the generator's first numbers,
+    as the rows of its full block would."""
+    rows = draws.stop - draws.start
+    for d in range(draws.start // KEY_DRAWS, -(-draws.stop // KEY_DRAWS)):
+        top = d * KEY_DRAWS - draws.start
+        for b in range(blocks):
+            np.random.default_rng([seed, d, b]).random(out=out[b, top: min(top + KEY_DRAWS, rows)])
+    return out[:blocks, :rows]
+
+
+def _treated_by_keys(keys: np.ndarray, n_treated: int, rounded: np.ndarray | None = None,
+                     work: np.ndarray | None = None, out: np.ndarray | None = None) -> np.ndarray:
     """Each row's n_treated smallest keys (keys are distinct with probability one), as a mask.
 
     The selection runs on the keys rounded to float32 (half the memory a partition moves: about
     twice as fast), exactly: rounding is monotone, so the n_treated-th smallest rounded key is the
     rounding of the n_treated-th smallest key, and the keys at or below it are the n_treated
     smallest unless another key rounds to the same float32 (about 1e-4 rows in each window at n =
-    4,500); those rows are partitioned in float64. ``scratch``: a flat float32 buffer of at least
-    2 keys.size numbers (no fresh allocation per window)."""
-    rows, n = keys.shape
-    if scratch is None or scratch.size < 2 * rows * n:
-        scratch = np.empty(2 * rows * n, dtype=np.float32)
-    rounded = scratch[: rows * n].reshape(rows, n)
-    work = scratch[rows * n: 2 * rows * n].reshape(rows, n)
-    np.copyto(rounded, keys, casting="same_kind")
-    np.copyto(work, rounded)
+    4,500); those rows are partitioned in float64. ``keys``: the keys, or a function giving the keys
+    of some rows (only tied rows need them). ``rounded``: the keys rounded (else computed);
+    ``work``: the same numbers in any order within each row, partitioned here in place (else a
+    copy of ``rounded``); ``out``: a boolean array of that shape for the mask."""
+    rows_of = keys if callable(keys) else keys.__getitem__
+    if rounded is None:
+        rounded = keys.astype(np.float32)
+    rows, n = rounded.shape
+    if work is None:
+        work = rounded.copy()
+    treated = np.empty((rows, n), dtype=bool) if out is None else out
     work.partition(n_treated - 1, axis=1)
-    treated = rounded <= work[:, n_treated - 1: n_treated]
-    tied = np.flatnonzero(np.count_nonzero(treated, axis=1) != n_treated)
-    if len(tied):
-        exact = np.partition(keys[tied], n_treated - 1, axis=1)[:, n_treated - 1: n_treated]
-        treated[tied] = keys[tied] <= exact
+    np.less_equal(rounded, work[:, n_treated - 1: n_treated], out=treated)
+    # every row has at least n_treated keys at or below its n_treated-th smallest: one count of the
+    # whole block tells whether any row has a float32 tie
+    if np.count_nonzero(treated) != rows * n_treated:
+        tied = np.flatnonzero(np.count_nonzero(treated, axis=1) != n_treated)
+        exact_keys = rows_of(tied)
+        exact = np.partition(exact_keys, n_treated - 1, axis=1)[:, n_treated - 1: n_treated]
+        treated[tied] = exact_keys <= exact
     return treated
+
+
+def _binary(column: np.ndarray) -> bool:
+    return bool(np.all((column == 0.0) | (column == 1.0)))
+
+
+def _counts(treated: np.ndarray, packed_columns: np.ndarray) -> np.ndarray:
+    """(rows, k) sums of 0/1 columns over each row's treated units, as bit counts: sums of whole
+    numbers, so exactly what a floating-point sum in any order gives."""
+    packed = np.packbits(treated, axis=1)
+    out = np.empty((len(treated), len(packed_columns)))
+    for j, column in enumerate(packed_columns):
+        out[:, j] = _bit_count(packed & column).sum(axis=1)
+    return out
+
+
+_BITS = np.array([bin(v).count("1") for v in range(256)], dtype=np.uint8)
+_bit_count = getattr(np, "bitwise_count", lambda a: _BITS[a])      # numpy < 2.0 has no bitwise_count
 
 
 def prefix_treated_sums(windows: list[tuple[int, int, np.ndarray]], permutations: int,
@@ -125,24 +162,51 @@ def prefix_treated_sums(windows: list[tuple[int, int, np.ndarray]], permutations
     k) sums of each column over the treated units of every Monte Carlo draw, all windows from one
     pass over shared keys (``prefix_keys``; the module docstring says why each is a uniform draw).
 
-    The sums are einsum's own loops, not a BLAS product: OpenBLAS's threads spin and stall on a
-    shared machine for these thin products, even 64 draws at a time (measured at 1e6 rows, load 8 on
-    2 CPUs: 56 s against 5 s with one thread, and 3.8 s with einsum)."""
+    Per block of draws the keys are rounded to float32 once for all windows (each window's are a
+    prefix), and one more float32 copy is partitioned in place window after window, smallest
+    first: a partition permutes a prefix within itself, so every larger prefix still holds its own
+    numbers (no copy per window). Columns of zeros and ones (the treatment indicator, dummy
+    covariates) are summed as bit counts of the packed assignments; the others with einsum's own
+    loops, not a BLAS product: OpenBLAS's threads spin and stall on a shared machine for these thin
+    products, even 64 draws at a time (measured at 1e6 rows, load 8 on 2 CPUs: 56 s against 5 s with
+    one thread, and 3.8 s with einsum). The sums are the same numbers, bit for bit, as one einsum
+    over all columns of a freshly selected mask per window."""
     if not windows:
         return []
     largest = max(n for n, _, _ in windows)
+    blocks = -(-largest // KEY_BLOCK)
     out = [np.empty((permutations, cols.shape[1])) for _, _, cols in windows]
-    transposed = [np.ascontiguousarray(cols.T) for _, _, cols in windows]
+    plans = []
+    for _, _, cols in windows:
+        binary = np.array([_binary(cols[:, j]) for j in range(cols.shape[1])], dtype=bool)
+        plans.append((np.flatnonzero(~binary), np.ascontiguousarray(cols[:, ~binary].T),
+                      np.flatnonzero(binary), np.packbits(cols[:, binary].T.astype(bool), axis=1)))
     steps = _draw_steps(permutations, largest)
     rows = steps[0].stop - steps[0].start
-    keys_buffer = np.empty((rows, -(-largest // KEY_BLOCK) * KEY_BLOCK))
-    scratch = np.empty(2 * rows * largest, dtype=np.float32)
+    keys_buffer = np.empty((blocks, rows, KEY_BLOCK))
+    rounded_buffer = np.empty((rows, blocks * KEY_BLOCK), dtype=np.float32)
+    work_buffer = np.empty_like(rounded_buffer)
+    mask = np.empty(rows * largest, dtype=bool)
+    ascending = sorted(range(len(windows)), key=lambda i: windows[i][0])
     for draws in steps:
         checkpoint()                    # a board's newer change stops this between blocks of draws
-        keys = prefix_keys(seed, draws, largest, keys_buffer)
-        for (n, n_treated, _), cols_t, sums in zip(windows, transposed, out):
-            treated = _treated_by_keys(keys[:, :n], n_treated, scratch)
-            sums[draws] = np.einsum("rn,kn->rk", treated, cols_t)
+        keys = _blocked_keys(seed, draws, blocks, keys_buffer)
+        size = len(keys[0])
+        rounded, work = rounded_buffer[:size], work_buffer[:size]
+        np.copyto(rounded.reshape(size, blocks, KEY_BLOCK), keys.transpose(1, 0, 2), casting="same_kind")
+        np.copyto(work, rounded)
+
+        def keys_of(tied: np.ndarray, keys=keys) -> np.ndarray:
+            return keys[:, tied].transpose(1, 0, 2).reshape(len(tied), -1)
+        for i in ascending:
+            n, n_treated, _ = windows[i]
+            general, general_t, binary, packed = plans[i]
+            treated = _treated_by_keys(lambda tied, n=n: keys_of(tied)[:, :n], n_treated, rounded[:, :n],
+                                       work[:, :n], mask[: size * n].reshape(size, n))
+            if len(general):
+                out[i][draws, general] = np.einsum("rn,kn->rk", treated, general_t)
+            if len(binary):
+                out[i][draws, binary] = _counts(treated, packed)
     return out
 
 
