@@ -115,7 +115,10 @@ def _treated_by_keys(keys: np.ndarray, n_treated: int, rounded: np.ndarray | Non
     twice as fast), exactly: rounding is monotone, so the n_treated-th smallest rounded key is the
     rounding of the n_treated-th smallest key, and the keys at or below it are the n_treated
     smallest unless another key rounds to the same float32 (about 1e-4 rows in each window at n =
-    4,500); those rows are partitioned in float64. ``keys``: the keys, or a function giving the keys
+    4,500); those rows are partitioned in float64. The float32 numbers are partitioned and compared
+    through their bit patterns read as int32: for numbers >= 0 these are in the same order (IEEE 754),
+    and numpy partitions int32 about 1.5 times as fast as float32 (no NaN ordering).
+    ``keys``: the keys, or a function giving the keys
     of some rows (only tied rows need them). ``rounded``: the keys rounded (else computed);
     ``work``: the same numbers in any order within each row, partitioned here in place (else a
     copy of ``rounded``); ``out``: a boolean array of that shape for the mask."""
@@ -126,8 +129,9 @@ def _treated_by_keys(keys: np.ndarray, n_treated: int, rounded: np.ndarray | Non
     if work is None:
         work = rounded.copy()
     treated = np.empty((rows, n), dtype=bool) if out is None else out
+    work = work.view(np.int32)
     work.partition(n_treated - 1, axis=1)
-    np.less_equal(rounded, work[:, n_treated - 1: n_treated], out=treated)
+    np.less_equal(rounded.view(np.int32), work[:, n_treated - 1: n_treated], out=treated)
     # every row has at least n_treated keys at or below its n_treated-th smallest: one count of the
     # whole block tells whether any row has a float32 tie
     if np.count_nonzero(treated) != rows * n_treated:
