@@ -71,3 +71,26 @@ def test_a_float32_tie_is_resolved_on_the_exact_keys():
     rounded = keys.astype(np.float32)
     treated = r._treated_by_keys(lambda rows: keys[rows], 2, rounded, rounded.copy())
     np.testing.assert_array_equal(treated, [[False, False, True, True], [True, True, False, False]])
+
+
+def test_a_float32_tie_inside_the_block_wise_pass(monkeypatch):
+    # the first draw's keys all round to the float32 0.5 (0.5 + i 1e-12 for unit i): every window's
+    # threshold is tied there, so that row is selected on its float64 keys: its first n_treated units
+    rng = np.random.default_rng(8)
+    cols = columns(700, rng)
+    windows = [(300, 140, cols[:300]), (700, 330, cols)]
+    plain = r.prefix_treated_sums(windows, 300, seed=2)
+    original = r._blocked_keys
+
+    def tied_first_draw(seed, draws, blocks, out):
+        keys = original(seed, draws, blocks, out)
+        if draws.start == 0:
+            keys[:, 0, :] = 0.5 + 1e-12 * np.arange(blocks * r.KEY_BLOCK).reshape(blocks, r.KEY_BLOCK)
+        return keys
+    monkeypatch.setattr(r, "_blocked_keys", tied_first_draw)
+    got = r.prefix_treated_sums(windows, 300, seed=2)
+    for (n, n_treated, c), sums, before in zip(windows, got, plain):
+        first = np.zeros((1, n), dtype=bool)
+        first[0, :n_treated] = True
+        np.testing.assert_array_equal(sums[0], np.einsum("rn,kn->rk", first, np.ascontiguousarray(c.T))[0])
+        np.testing.assert_array_equal(sums[1:], before[1:])

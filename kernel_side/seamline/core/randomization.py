@@ -116,12 +116,12 @@ def _treated_by_keys(keys: np.ndarray, n_treated: int, rounded: np.ndarray | Non
     rounding of the n_treated-th smallest key, and the keys at or below it are the n_treated
     smallest unless another key rounds to the same float32 (about 1e-4 rows in each window at n =
     4,500); those rows are partitioned in float64. The float32 numbers are partitioned and compared
-    through their bit patterns read as int32: for numbers >= 0 these are in the same order (IEEE 754),
-    and numpy partitions int32 about 1.5 times as fast as float32 (no NaN ordering).
-    ``keys``: the keys, or a function giving the keys
-    of some rows (only tied rows need them). ``rounded``: the keys rounded (else computed);
-    ``work``: the same numbers in any order within each row, partitioned here in place (else a
-    copy of ``rounded``); ``out``: a boolean array of that shape for the mask."""
+    through their bit patterns read as int32: for numbers >= 0 (keys are in [0, 1)) these are in the
+    same order (IEEE 754), and numpy partitions int32 about 1.5 times as fast as float32 (no NaN
+    ordering). ``keys``: the keys, or a function giving the keys of some rows (only tied rows need
+    them); ``rounded``: the keys rounded (else computed); ``work``: the same numbers in any order
+    within each row, partitioned here in place (else a copy of ``rounded``); ``out``: a boolean
+    array of that shape for the mask."""
     rows_of = keys if callable(keys) else keys.__getitem__
     if rounded is None:
         rounded = keys.astype(np.float32)
