@@ -9,7 +9,6 @@ ipywidgets nor IPython.
 from __future__ import annotations
 
 import html
-import math
 from collections.abc import Iterable, Mapping
 from typing import Any
 
@@ -115,10 +114,5 @@ def _count(value) -> str:
 
 
 def _p_text(value) -> str:
-    try:
-        p = float(value)
-    except (TypeError, ValueError):
-        return "p n/a"
-    if not math.isfinite(p):
-        return "p n/a"
-    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+    """A p-value in the header's prose: "p = 0.042", "p < 0.001" or "p n/a" (the charts' formats)."""
+    return "p n/a" if charts._p(value) == "n/a" else charts._p_is(value)
