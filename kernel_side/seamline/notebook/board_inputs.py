@@ -130,8 +130,6 @@ def read_notebook(board) -> dict[str, Any] | None:
                 error=error)
 
 
-
-
 def read_columns(spec: Mapping[str, Any]) -> tuple[str, ...]:
     """The data columns a declaration reads (only these are fingerprinted)."""
     # a cutoff column and the groups column are read too (seamline.notebook.designs_spec)
