@@ -20,118 +20,46 @@ import seamline
 from seamline.errors import ColumnNotFoundError, ColumnTypeError, DataSourceError, DuplicateColumnError
 from seamline.partitioned import data_identity, gather_frame, reading_progress
 
-REL = 1e-8          # the agreement the partitioned route promises (issue target)
-KWARGS = dict(score="x", cutoff=0.0, outcome=["y", "z"], covariates=["c"], treated="above")
-SIZES = (1700, 260, 900, 2100)       # uneven partitions; the second holds no rows near the cutoff
-
-
-def pieces(seed=12):
-    """Test data generated here (seeded): missing values in the outcome, the score and a covariate."""
-    rng = np.random.default_rng(seed)
-    out = []
-    for k, size in enumerate(SIZES):
-        x = rng.uniform(-0.99, -0.8, size) if k == 1 else rng.uniform(-1, 1, size)
-        c = rng.normal(size=size)
-        y = 1.0 + 0.8 * x - 0.5 * x ** 2 + 0.25 * (x >= 0) + 0.2 * c + rng.normal(0, 0.3, size)
-        z = rng.poisson(3, size).astype(np.int64)           # an integer outcome, converted like pandas does
-        frame = pd.DataFrame({"x": x, "y": y, "z": z, "c": c, "note": ["text"] * size})
-        frame.loc[frame.index[::89], "y"] = np.nan
-        frame.loc[frame.index[5::211], "x"] = np.nan
-        frame.loc[frame.index[7::301], "c"] = np.nan
-        out.append(frame)
-    return out
+from _partitioned_data import KWARGS, SIZES, assert_same, pieces, results
 
 
 @pytest.fixture(scope="module")
-def folder(tmp_path_factory):
-    path = tmp_path_factory.mktemp("parquet")
-    for k, frame in enumerate(pieces()):
-        pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), path / f"part-{k}.parquet")
-    return path
+def want(memory_design):
+    return results(memory_design)
 
 
-@pytest.fixture(scope="module")
-def memory():
-    return seamline.Design(pd.concat(pieces(), ignore_index=True), **KWARGS)
+def test_parquet_folder_equals_memory(parquet_folder, want):
+    assert_same(results(seamline.Design(parquet_folder, **KWARGS)), want)
 
 
-def results(design):
-    """Every result the issue names, as tables (plus the fits' own fields)."""
-    fit = design.fit()
-    manual = design.fit(bandwidth=(0.3, 0.4), pilot_bandwidth=0.6, variance="hc2")
-    tables = {
-        "fit": fit.table(), "manual": manual.table(),
-        "fit-ik": design.fit(bandwidth="ik").table(),
-        "fit-adjusted": design.fit(adjust=True, variance="hc1").table(),
-        "integer outcome": design.fit("z", bandwidth="coverage").table(),
-        "bandwidths": design.bandwidths(),
-        "density local-cdf": design.density_test().table(),
-        "density binned": design.density_test("binned").table(),
-        "bins": design.bins().table(),
-        "balance": design.balance().table(),
-        "sensitivity": design.sensitivity().table(),
-        "placebo": design.placebo_cutoffs().table(),
-        "donut": design.donut().table(),
-    }
-    counts = {"n_used": fit.n_used, "n_total": fit.n_total, "n_dropped": fit.n_dropped,
-              "manual n_used": manual.n_used, "manual n_dropped": manual.n_dropped}
-    return tables, counts
-
-
-def assert_same(got, want):
-    got_tables, got_counts = got
-    want_tables, want_counts = want
-    assert got_counts == want_counts
-    for name, table in want_tables.items():
-        other = got_tables[name]
-        assert list(other.columns) == list(table.columns), name
-        for column in table.columns:
-            a, b = other[column].to_numpy(), table[column].to_numpy()
-            if pd.api.types.is_integer_dtype(table[column]):
-                np.testing.assert_array_equal(a, b, err_msg=f"{name}: {column}")      # counts identical
-            elif pd.api.types.is_float_dtype(table[column]):
-                np.testing.assert_allclose(a, b, rtol=REL, atol=0, equal_nan=True, err_msg=f"{name}: {column}")
-            else:
-                assert [str(v) for v in a] == [str(v) for v in b], f"{name}: {column}"
-
-
-@pytest.fixture(scope="module")
-def want(memory):
-    return results(memory)
-
-
-def test_parquet_folder_equals_memory(folder, want):
-    assert_same(results(seamline.Design(folder, **KWARGS)), want)
-
-
-def test_parquet_glob_and_dask_frame_equal_memory(folder, want, memory):
-    design = seamline.Design(str(folder / "part-*.parquet"), **KWARGS)
+def test_parquet_glob_and_dask_frame_equal_memory(parquet_folder, want, memory_design):
+    design = seamline.Design(str(parquet_folder / "part-*.parquet"), **KWARGS)
     assert_same(results(design), want)
-    frame = dd.read_parquet(sorted(str(p) for p in folder.glob("*.parquet")))
+    frame = dd.read_parquet(sorted(str(p) for p in parquet_folder.glob("*.parquet")))
     assert_same(results(seamline.Design(frame, **KWARGS)), want)
 
 
-def test_missing_rows_are_counted_as_in_memory(folder):
+def test_missing_rows_are_counted_as_in_memory(parquet_folder):
     data = pd.concat(pieces(), ignore_index=True)
-    fit = seamline.Design(folder, **KWARGS).fit()
+    fit = seamline.Design(parquet_folder, **KWARGS).fit()
     # First principles: rows missing the score or the outcome are dropped and counted.
     assert fit.n_dropped == int((data["x"].isna() | data["y"].isna()).sum())
 
 
-def test_only_the_design_columns_are_read(folder):
-    frame = gather_frame(folder, ["x", "y"])
+def test_only_the_design_columns_are_read(parquet_folder):
+    frame = gather_frame(parquet_folder, ["x", "y"])
     assert list(frame.columns) == ["x", "y"] and len(frame) == sum(SIZES)
     assert frame["x"].dtype == np.float64
 
 
-def test_two_worker_processes(folder, want):
+def test_two_worker_processes(parquet_folder, want):
     import dask.distributed as distributed
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=None) as cluster, distributed.Client(cluster) as client:
         seen = []
         with distributed.get_task_stream(client) as stream, \
                 reading_progress(lambda done, total: seen.append((done, total))):
-            design = seamline.Design(folder, **KWARGS)
+            design = seamline.Design(parquet_folder, **KWARGS)
         assert len(client.scheduler_info()["workers"]) == 2
         ran = [str(task["key"]) for task in stream.data]
         assert sum("_partition_arrays" in key for key in ran) == len(SIZES)    # read on the workers
@@ -140,12 +68,12 @@ def test_two_worker_processes(folder, want):
     assert seen[-1] == (len(SIZES), len(SIZES))     # one report per partition, read through futures
 
 
-def test_progress_on_the_local_scheduler(folder):
+def test_progress_on_the_local_scheduler(parquet_folder):
     seen = []
     with reading_progress(lambda done, total: seen.append((done, total))):
-        seamline.Design(folder, **KWARGS)
+        seamline.Design(parquet_folder, **KWARGS)
     assert seen == [(k, len(SIZES)) for k in range(1, len(SIZES) + 1)]
-    seamline.Design(folder, **KWARGS)               # outside the block nothing is reported
+    seamline.Design(parquet_folder, **KWARGS)               # outside the block nothing is reported
     assert len(seen) == len(SIZES)
 
 

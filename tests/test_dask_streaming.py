@@ -19,9 +19,7 @@ import seamline
 from seamline.errors import CutoffOutOfRangeError, InvalidOptionError, NonFiniteValueError, OneSidedDataError
 from seamline.streaming import GATHER_LIMIT, sort_keys
 
-from test_dask_inputs import KWARGS, SIZES, assert_same, pieces, results
-
-REL = 1e-8
+from _partitioned_data import KWARGS, REL, SIZES, assert_same, pieces, results
 
 STREAMED_FITS = {
     "default": {},
@@ -39,19 +37,6 @@ STREAMED_FITS = {
 }
 
 
-@pytest.fixture(scope="module")
-def folder(tmp_path_factory):
-    path = tmp_path_factory.mktemp("parquet")
-    for k, frame in enumerate(pieces()):
-        pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), path / f"part-{k}.parquet")
-    return path
-
-
-@pytest.fixture(scope="module")
-def memory():
-    return seamline.Design(pd.concat(pieces(), ignore_index=True), **KWARGS)
-
-
 def same_fit(got, want, name=""):
     assert got.n_used == want.n_used and got.n_total == want.n_total, name
     assert got.n_dropped == want.n_dropped and got.n_effective_robust == want.n_effective_robust, name
@@ -64,13 +49,13 @@ def same_fit(got, want, name=""):
     assert got.warnings == want.warnings, name
 
 
-def test_streamed_fits_equal_memory_without_gathering(folder, memory):
-    design = seamline.Design(folder, reading="streamed", **KWARGS)
+def test_streamed_fits_equal_memory_without_gathering(parquet_folder, memory_design):
+    design = seamline.Design(parquet_folder, reading="streamed", **KWARGS)
     assert design.streamed
     for name, options in STREAMED_FITS.items():
         options = dict(options)
         same_fit(design.fit(options.pop("outcome", None), **options),
-                 memory.fit(STREAMED_FITS[name].get("outcome"), **options), name)
+                 memory_design.fit(STREAMED_FITS[name].get("outcome"), **options), name)
     assert design._data._gathered is None           # no fit above needed the gathered columns
 
 
@@ -108,25 +93,25 @@ BIN_OPTIONS = {"default": ((), {}), "z equal-count": (("z", "equal-count"), {}),
                "equal-count scaled": ((None, "equal-count"), dict(scale=2.0))}
 
 
-def test_density_tests_and_bins_read_only_the_sorted_score(folder, memory):
+def test_density_tests_and_bins_read_only_the_sorted_score(parquet_folder, memory_design):
     """Streamed: the score gathered and sorted per side, the outcome summed in passes; nothing else
     gathered. Missing scores and outcomes, uneven files, a file with no rows near the cutoff."""
-    design = seamline.Design(folder, reading="streamed", **KWARGS)
-    same_density(design.density_test(), memory.density_test(), "local-cdf", exact=True)
-    same_density(design.density_test(level=0.9), memory.density_test(level=0.9), "level 0.9", exact=True)
+    design = seamline.Design(parquet_folder, reading="streamed", **KWARGS)
+    same_density(design.density_test(), memory_design.density_test(), "local-cdf", exact=True)
+    same_density(design.density_test(level=0.9), memory_design.density_test(level=0.9), "level 0.9", exact=True)
     same_density(design.density_test(degree=3, kernel="epanechnikov"),
-                 memory.density_test(degree=3, kernel="epanechnikov"), "local-cdf cubic", exact=True)
-    same_density(design.density_test("binned"), memory.density_test("binned"), "binned")
-    same_density(design.density_test("binned", bin_width=0.01), memory.density_test("binned", bin_width=0.01),
+                 memory_design.density_test(degree=3, kernel="epanechnikov"), "local-cdf cubic", exact=True)
+    same_density(design.density_test("binned"), memory_design.density_test("binned"), "binned")
+    same_density(design.density_test("binned", bin_width=0.01), memory_design.density_test("binned", bin_width=0.01),
                  "binned width", exact=True)
     for name, (args, options) in BIN_OPTIONS.items():
-        same_bins(design.bins(*args, **options), memory.bins(*args, **options), name)
+        same_bins(design.bins(*args, **options), memory_design.bins(*args, **options), name)
     assert design._data._gathered is None           # no result above gathered the design's columns
     # the density test's rows (a score) and z's bins rows (z has no missing value) are one array;
     # y drops rows of its own, so its bins sort their own scores
     assert len(design._data._scores) == 2
     below, above, _ = design._data._scores[None]
-    assert len(below) + len(above) == memory.density_test().n_total[0] + memory.density_test().n_total[1]
+    assert len(below) + len(above) == memory_design.density_test().n_total[0] + memory_design.density_test().n_total[1]
 
 
 def test_streamed_bins_with_weights_and_ties():
@@ -153,9 +138,9 @@ def test_streamed_bins_with_weights_and_ties():
     assert got._data._gathered is not None          # that one needed the input order of tied rows
 
 
-def test_every_result_equals_memory_on_the_streamed_route(folder, memory):
+def test_every_result_equals_memory_on_the_streamed_route(parquet_folder, memory_design):
     """Results off the streamed route (donuts, density tests, bins, donut ...) use the gathered columns."""
-    assert_same(results(seamline.Design(folder, reading="streamed", **KWARGS)), results(memory))
+    assert_same(results(seamline.Design(parquet_folder, reading="streamed", **KWARGS)), results(memory_design))
 
 
 def test_a_dask_frame_with_weights_and_many_partitions():
@@ -223,12 +208,12 @@ def test_sort_keys_keep_the_order():
     assert np.all(np.diff(keys.astype(object)) >= 0)
 
 
-def test_two_worker_processes_streamed(folder, memory):
+def test_two_worker_processes_streamed(parquet_folder, memory_design):
     import dask.distributed as distributed
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=None) as cluster, distributed.Client(cluster) as client:
         with distributed.get_task_stream(client) as stream:
-            design = seamline.Design(folder, reading="streamed", **KWARGS)
+            design = seamline.Design(parquet_folder, reading="streamed", **KWARGS)
             fit = design.fit()
             density, bins = design.density_test(), design.bins()
         assert len(client.scheduler_info()["workers"]) == 2
@@ -237,29 +222,29 @@ def test_two_worker_processes_streamed(folder, memory):
         assert any("_window_part" in key for key in ran)
         assert sum("_score_part" in key for key in ran) == 2 * len(SIZES)   # density test's rows, then y's
         assert sum("_bins_part" in key for key in ran) == 4 * len(SIZES)    # the bins' four passes
-    same_fit(fit, memory.fit(), "cluster")
-    same_density(density, memory.density_test(), "cluster", exact=True)
-    same_bins(bins, memory.bins(), "cluster")
+    same_fit(fit, memory_design.fit(), "cluster")
+    same_density(density, memory_design.density_test(), "cluster", exact=True)
+    same_bins(bins, memory_design.bins(), "cluster")
     assert design._data._gathered is None
 
 
-def test_automatic_reading_streams_only_large_inputs(folder, monkeypatch):
+def test_automatic_reading_streams_only_large_inputs(parquet_folder, monkeypatch):
     import seamline.streaming as streaming
-    assert not seamline.Design(folder, **KWARGS).streamed           # 4960 rows: gathered
+    assert not seamline.Design(parquet_folder, **KWARGS).streamed           # 4960 rows: gathered
     monkeypatch.setattr(streaming, "STREAM_ABOVE_ROWS", 1000)
-    assert seamline.Design(folder, **KWARGS).streamed
-    assert not seamline.Design(folder, reading="gathered", **KWARGS).streamed
+    assert seamline.Design(parquet_folder, **KWARGS).streamed
+    assert not seamline.Design(parquet_folder, reading="gathered", **KWARGS).streamed
 
 
 # ---- bad input ----------------------------------------------------------------------------------
-def test_streamed_reading_names_what_stops_it(folder):
+def test_streamed_reading_names_what_stops_it(parquet_folder):
     with pytest.raises(InvalidOptionError, match=r"`reading` \"streamed\" needs numeric columns, one numeric cutoff "
                                                  r"and no take-up or cluster; got a cluster variable\. Use "
                                                  r"reading=\"gathered\""):
-        seamline.Design(folder, reading="streamed", cluster="z", **KWARGS)
+        seamline.Design(parquet_folder, reading="streamed", cluster="z", **KWARGS)
     with pytest.raises(InvalidOptionError, match=r"`reading` must be one of \"automatic\", \"streamed\", \"gathered\"; "
                                                  r"got 'stream'"):
-        seamline.Design(folder, reading="stream", **KWARGS)
+        seamline.Design(parquet_folder, reading="stream", **KWARGS)
 
 
 def test_streamed_checks_match_memory(tmp_path):
@@ -278,20 +263,20 @@ def test_streamed_checks_match_memory(tmp_path):
         design.fit()
 
 
-def test_progress_of_the_streamed_passes(folder):
+def test_progress_of_the_streamed_passes(parquet_folder):
     from seamline.partitioned import reading_progress
     seen = []
     with reading_progress(lambda done, total: seen.append((done, total))):
-        seamline.Design(folder, reading="streamed", **KWARGS)       # the summary pass, one task per file
+        seamline.Design(parquet_folder, reading="streamed", **KWARGS)       # the summary pass, one task per file
     assert seen == [(k, len(SIZES)) for k in range(1, len(SIZES) + 1)]
 
 
-def test_progress_of_the_score_pass_over_batches(folder, monkeypatch):
+def test_progress_of_the_score_pass_over_batches(parquet_folder, monkeypatch):
     """The score pass computes a few partitions at a time; progress counts over the whole pass."""
     import seamline.streaming_diagnostics as streamed
     from seamline.partitioned import reading_progress
     monkeypatch.setattr(streamed, "_in_flight", lambda: 3)           # batches of 3 and 1 files
-    design = seamline.Design(folder, reading="streamed", **KWARGS)
+    design = seamline.Design(parquet_folder, reading="streamed", **KWARGS)
     seen = []
     with reading_progress(lambda done, total: seen.append((done, total))):
         design.density_test()

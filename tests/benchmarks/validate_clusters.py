@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 
 import seamline
+from seamline.estimate.bandwidth_choice import selection
 
 JUMP = 0.5
 GROUPS = (20, 60, 200)
@@ -44,8 +45,8 @@ def mse_pilot(design: seamline.Design) -> float:
                         pilot_bandwidth=None, variance="neighbors", level=0.95, donut=0.0, derivative=0,
                         adjust=False)
     prep = design._data.prepare(("y",), 0.0)
-    selection, _ = design._selection(spec, prep, False, 1)
-    return selection.b_common
+    chosen, _ = selection(design, spec, prep, False, 1)
+    return chosen.b_common
 
 
 def one_cell(groups: int, sd_cluster: float, reps: int) -> np.ndarray:

@@ -20,7 +20,7 @@ import pytest
 import seamline
 from seamline.data import DesignData
 from seamline.demo_data import sharp_scenario
-from seamline.estimate import design as design_module
+from seamline.estimate import bandwidth_choice
 from seamline.estimate import bias_aware, diagnostics, local_randomization, score_profile
 from seamline.estimate.design import Design
 from seamline.notebook.board import boards
@@ -82,7 +82,7 @@ def calls(monkeypatch):
     for name in METHODS:
         wrap(Design, name, name, True)
     wrap(Design, "_fit", "fits", False)
-    wrap(design_module, "mse_selection", "selections", False)
+    wrap(bandwidth_choice, "mse_selection", "selections", False)
     wrap(diagnostics, "density_test", "density", False)
     # the parts of diagnostics that read no fit option, kept on the Design (every real computation)
     wrap(diagnostics, "binned_means", "binned means", False)

@@ -19,6 +19,8 @@ from typing import Callable
 import numpy as np
 from scipy import optimize, special
 
+from .legendre import legendre_rows
+
 # Degree of the global polynomial of the smoothness rule of thumb (Armstrong & Kolesar 2020 use a
 # quartic on each side; from memory).
 RULE_OF_THUMB_DEGREE = 4
@@ -201,11 +203,7 @@ def second_derivative_bound(x: np.ndarray, y: np.ndarray, degree: int = RULE_OF_
     lo, hi = float(np.min(x)), float(np.max(x))
     half = 0.5 * (hi - lo)
     t = (x - (lo + half)) / half
-    basis = np.empty((degree + 1, len(t)))             # Legendre P_0..P_degree by their recurrence
-    basis[0] = 1.0
-    basis[1] = t
-    for k in range(1, degree):
-        basis[k + 1] = ((2 * k + 1) * t * basis[k] - k * basis[k - 1]) / (k + 1)
+    basis = legendre_rows(t, degree)                   # Legendre P_0..P_degree
     coefs = np.linalg.solve(basis @ basis.T, basis @ y)
     second = np.polynomial.legendre.legder(coefs, 2) / half ** 2
     grid = np.linspace(-1.0, 1.0, 201)

@@ -19,6 +19,7 @@ import numpy as np
 
 from ..errors import InvalidOptionError, InvalidWeightsError, OneSidedDataError, shown
 from ..options import BIN_METHODS, BIN_RULES, check_option
+from .legendre import legendre_rows
 from .sorted_sample import (  # noqa: F401  (importable from here, as before)
     CHUNK,
     Gathered,
@@ -333,24 +334,12 @@ def _t_chunks(x: np.ndarray, to_t: tuple[float, float, float]):
 
 
 def _legendre_chunks(x: np.ndarray, to_t: tuple[float, float, float], deg: int):
-    """(rows, P_k(t) for k <= deg) chunk by chunk, in one reused buffer.
-
-    Rows of P are contiguous; the recurrence is P_(k+1) = ((2k + 1) t P_k - k P_(k-1)) / (k + 1).
-    """
+    """(rows, P_k(t) for k <= deg) chunk by chunk, in one reused buffer (rows of P contiguous)."""
     basis = np.empty((deg + 1, min(CHUNK, x.size)))
     scratch = np.empty(min(CHUNK, x.size))
     for rows, tc in _t_chunks(x, to_t):
         m = tc.size
-        b, tmp = basis[:, :m], scratch[:m]
-        b[0] = 1.0
-        if deg >= 1:
-            b[1] = tc
-        for k in range(1, deg):
-            np.multiply(tc, b[k], out=tmp)
-            tmp *= (2 * k + 1) / (k + 1)
-            np.multiply(b[k - 1], k / (k + 1), out=b[k + 1])
-            np.subtract(tmp, b[k + 1], out=b[k + 1])
-        yield rows, b
+        yield rows, legendre_rows(tc, deg, out=basis[:, :m], scratch=scratch[:m])
 
 
 def _rule_numbers(k: BinConstants, method: str) -> tuple[float, int]:

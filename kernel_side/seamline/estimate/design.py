@@ -3,23 +3,22 @@ from __future__ import annotations
 
 from collections import OrderedDict
 from dataclasses import replace
-from math import factorial
 
 import numpy as np
 import pandas as pd
 
-from ..core.bandwidth import Selection, coverage_factor, ik_bandwidth, mse_selection
-from ..core.kernels import normal_reference_constant
-from ..core.locpoly import SideFit, variance_fast, window_arrays
+from ..core.bandwidth import Selection
 from ..core.window_side import WindowTooNarrow
-from ..data import DesignData, Prepared, as_frame, check_columns, column_names
-from ..streaming import READINGS, STREAMED_RULES, StreamingData, streamable_frame
+from ..data import DesignData, Prepared, as_frame
+from ..streaming import READINGS, StreamingData
 from ..errors import CutoffTypeError, InvalidOptionError, shown
 from ..options import SIDES, check_option
-from ..time_score import TIME_CAUTION, is_time_value, looks_like_date
+from ..time_score import TIME_CAUTION, is_time_value
 from ..results.fit import Fit
-from .engine import JumpEngine, check_support, use_fast_variance
-from .multiple_cutoffs import CutoffNotChosen, CutoffPlan, plan_cutoffs
+from .bandwidth_choice import bandwidths_for, pilot_rule, warm
+from .design_reading import prepared_sides, read_data
+from .engine import JumpEngine, check_support
+from .multiple_cutoffs import CutoffPlan
 from .options import FitSpec, resolve
 
 FEW_OBSERVATIONS = 20   # common practice: flag windows with fewer effective observations per side
@@ -27,7 +26,6 @@ WEAK_F = 10.0           # common practice (Staiger & Stock 1997): F < 10 flags a
 FEW_CLUSTERS = 30       # Cameron & Miller (2015): cluster-robust inference is fragile with few clusters
 FEW_DISTINCT = 10       # convention: warn when a side has fewer distinct score values in the window
 REFERENCE_LEVEL = 0.95
-DEFAULT_PILOT_RULE = "nearer-half"   # pilot (bias) bandwidth rule of unclustered fits without a manual pilot
 FIT_CACHE = 512         # fits kept per design (small records)
 ENGINE_CACHE = 16       # fitted engines kept per design (they may hold window arrays)
 DIAGNOSTIC_CACHE = 64   # diagnostic results kept per design (frozen; each holds a few tables)
@@ -68,12 +66,6 @@ def _as_names(value, argument: str) -> tuple[str, ...]:
         raise InvalidOptionError(f"`{argument}` must be column names (strings); got {shown(value)}.")
     return names
 
-
-
-def _selection_variance(variance: str) -> str:
-    """The variance the bandwidth selectors use: "bias-reduced" selects with the neighbour variance
-    (the bandwidths of the default rule; validate_monte_carlo.py intervals measured it so)."""
-    return "neighbors" if variance == "bias-reduced" else variance
 
 class Design:
     """A regression discontinuity (cutoff) design.
@@ -125,7 +117,7 @@ class Design:
             self._subsets = {}
             self._data, self.cutoff, self.time_scale = data, cutoff, None
         else:
-            self._init_data(data, score, cutoff, takeup, cluster, weights, score_unit)
+            read_data(self, data, score, cutoff, takeup, cluster, weights, score_unit)
         self._selections: dict[tuple, Selection] = {}
         self._needed: dict[tuple, float] = {}     # radius each streamed variable set's window must reach
         # Bounded: a slider session makes many specifications, and engines hold window arrays.
@@ -139,58 +131,6 @@ class Design:
         # Placebo-cutoff designs by (side, cutoff, outcome), with their prepared sides
         # (estimate.diagnostics._placebo_design).
         self._placebos: Bounded = Bounded(PLACEBO_DESIGNS)
-
-    def _init_data(self, data, score, cutoff, takeup, cluster, weights, score_unit) -> None:
-        """Read the user's data: the declared columns, the cutoff layout, the validated arrays."""
-        # Only the declared columns are read (a lazy frame computes nothing else); a pandas frame is
-        # used as it is. Several cutoffs (a column, or cumulative numbers) are read in
-        # seamline.estimate.multiple_cutoffs; a date score takes one cutoff date (seamline.time_score).
-        self._source = data
-        columns = (*self.outcomes, *(c for c in (takeup, cluster, weights) if c), *self.covariates)
-        names = column_names(data)
-        # A text cutoff names a column of per-unit cutoffs, unless it is an ISO date (a date score's cutoff).
-        cutoff_column = (cutoff,) if isinstance(cutoff, str) and (
-            cutoff in names if names is not None else not looks_like_date(cutoff)) else ()
-        roles = {score: "score", **dict.fromkeys(cutoff_column, "cutoff"),
-                 **{o: "outcome" for o in self.outcomes}, **({takeup: "takeup"} if takeup else {}),
-                 **{c: "covariates" for c in self.covariates}, **({cluster: "cluster"} if cluster else {}),
-                 **({weights: "weights"} if weights else {})}
-        check_columns(data, roles)
-        self._declared = dict(score=score, cutoff=cutoff, outcome=self.outcomes, treated=self.treated,
-                              takeup=takeup, covariates=self.covariates, cluster=cluster, weights=weights,
-                              score_unit=score_unit)
-        frame = streamable_frame(data, roles, self.reading, cutoff=cutoff, takeup=takeup, cluster=cluster,
-                                 score_unit=score_unit)
-        if frame is not None:
-            # The bounded-memory route (seamline.streaming): nothing is gathered now; the gathered
-            # columns are read only if a result off that route asks for them.
-            self._frame_loader = lambda: as_frame(data, list(roles), roles)
-            self._plan = CutoffPlan("single", (float(cutoff),), None, score, float(cutoff), None)
-            self.cutoff_layout, self.cutoffs, self.cutoff_column = "single", (float(cutoff),), None
-            self._subsets = {}
-            self._data = StreamingData(frame, score=score, cutoff=cutoff, outcomes=self.outcomes,
-                                       covariates=self.covariates, weights=weights, gathered=lambda: DesignData(
-                                           self._frame, score=score, cutoff=cutoff, outcomes=self.outcomes,
-                                           takeup=None, covariates=self.covariates, cluster=None,
-                                           weights=weights))
-            self.cutoff, self.time_scale = self._data.cutoff, None
-            return
-        self._frame = as_frame(data, list(roles), roles)
-        self._plan = plan = plan_cutoffs(self._frame, score, cutoff, columns, score_unit)
-        self.cutoff_layout, self.cutoffs, self.cutoff_column = plan.layout, plan.cutoffs, plan.column
-        self.score = plan.score          # a cutoff column: score - cutoff, at 0
-        self._subsets: dict = {}
-        self.time_scale = None
-        if plan.layout == "cumulative":
-            self._data = CutoffNotChosen(plan.cutoffs)
-            self.cutoff = None
-        else:
-            self._data = DesignData(plan.frame, score=plan.score, cutoff=plan.cutoff, outcomes=self.outcomes,
-                                    takeup=takeup, covariates=self.covariates, cluster=cluster, weights=weights,
-                                    score_unit=score_unit if plan.layout == "single" else None)
-            # A date score is measured as the distance from the cutoff date: the numeric cutoff is 0.
-            self.cutoff = self._data.cutoff
-            self.time_scale = self._data.time_scale
 
     @property
     def _frame(self):
@@ -207,12 +147,6 @@ class Design:
     def streamed(self) -> bool:
         """True when the design's data are read on the bounded-memory route (``reading``)."""
         return isinstance(self._data, StreamingData)
-
-    def _prepared(self, spec: FitSpec, variables: tuple[str, ...]) -> Prepared:
-        """The prepared sides of a fit: a window of the streamed data when the fit can use one."""
-        if self.streamed and spec.donut == 0 and (isinstance(spec.bandwidth, tuple) or spec.bandwidth in STREAMED_RULES):
-            return self._data.window(variables, radius=self._needed.get(variables))
-        return self._data.prepare(variables, spec.donut)
 
     @property
     def treated_sign(self) -> int:
@@ -260,117 +194,6 @@ class Design:
             if not np.allclose(side.values[:, 1] + side.offsets[1], assigned, atol=0, rtol=0):
                 return True
         return False
-
-    def _variance_fn(self, spec: FitSpec):
-        """Per-side conventional variance for the bandwidth selectors."""
-        clustered = self.cluster is not None
-        variance = _selection_variance(spec.variance)
-        if use_fast_variance(variance, spec.bias_degree) and not clustered:
-            kind = "neighbors" if variance == "neighbors" else "hc0"
-            return lambda sf, lam: variance_fast(sf, lam, kind, False)
-
-        def direct(sf: SideFit, lam: np.ndarray) -> float:
-            wa = window_arrays(sf)
-            resid = wa.resid_h @ lam
-            if clustered:
-                _, inv = np.unique(sf.side.clusters[: wa.rows], return_inverse=True)
-                return float(np.sum(np.bincount(inv, weights=wa.a * resid) ** 2))
-            if variance == "neighbors":
-                return float(np.sum(wa.a ** 2 * (sf.side.nn_residuals()[: wa.rows] @ lam) ** 2))
-            power = {"hc0": 0, "hc1": 0, "hc2": 1, "hc3": 2}[variance]
-            return float(np.sum(wa.a ** 2 * resid ** 2 / (1 - np.minimum(wa.lev_h, 1 - 1e-12)) ** power))
-        return direct
-
-    def _selection(self, spec: FitSpec, prep: Prepared, fuzzy: bool, n_main: int) -> tuple[Selection, np.ndarray]:
-        """MSE selection for the spec's target (outcome, fuzzy ratio, or covariate-adjusted outcome)."""
-        pilot_rule = spec.pilot_bandwidth if isinstance(spec.pilot_bandwidth, str) else DEFAULT_PILOT_RULE
-        key = (prep.variables, spec.donut, spec.kernel, spec.degree, spec.bias_degree, spec.derivative,
-               spec.variance, pilot_rule)
-        if key in self._selections:
-            return self._selections[key]
-        n_vars = len(prep.variables)
-        lam = np.zeros(n_vars)
-        lam[0] = 1.0
-        p, q, nu = spec.degree, spec.bias_degree, spec.derivative
-        if fuzzy or n_vars > n_main:
-            # Pilot fit at the rule-of-thumb bandwidth gives tau (fuzzy) and gamma (covariates).
-            c = normal_reference_constant(spec.kernel) * prep.score_scale * prep.n_total ** (-0.2)
-            c = max(c, *(s.bandwidth_for_distinct(q + 2, spec.kernel) for s in (prep.below, prep.above)))
-            pilot = JumpEngine(prep, h=(c, c), b=(c, c), p=p, q=q, nu=nu, kernel=spec.kernel,
-                               treated_sign=self.treated_sign, n_main=n_main,
-                               covariate_names=prep.variables[n_main:])
-            main = np.zeros(n_main)
-            main[0] = 1.0
-            if fuzzy:
-                d = np.zeros(n_main)
-                d[1] = 1.0
-                main = main - pilot.jump(main) / pilot.jump(d) * d
-            lam = pilot._full(main)
-        sel = mse_selection(prep.below, prep.above, p=p, q=q, nu=nu, kernel=spec.kernel, lam=lam,
-                            variance_fn=self._variance_fn(spec), score_scale=prep.score_scale,
-                            n_total=prep.n_total, pilot_rule=pilot_rule)
-        self._selections[key] = (sel, lam)
-        return sel, lam
-
-    def _warm(self, prep: Prepared, spec: FitSpec) -> None:
-        """Build each side's moment tables in one pass, to the degree the selectors and variances use."""
-        if self.cluster is not None or spec.adjust:
-            return
-        kdeg = {"triangular": 1, "uniform": 0, "epanechnikov": 2}[spec.kernel]
-        q = spec.bias_degree
-        hc = _selection_variance(spec.variance) != "neighbors"
-        # highest power any step asks for: the curvature pilot (order q+1 with its bias column, uniform
-        # kernel), the order-q pilot fits (with kernel), and the variances (squared kernel, and for
-        # HC the squared residual polynomial); a later, larger request rebuilds the tables
-        degree = max(2 * q + 4, 2 * q + 2 + kdeg, 2 * q + 2 * kdeg + (2 * q if hc else 0))
-        if (spec.pilot_bandwidth if isinstance(spec.pilot_bandwidth, str) else DEFAULT_PILOT_RULE) == "two-step":
-            r = q + 1  # the two-step pilot's global order-(r+1) fit and local order-r fits
-            degree = max(degree, 2 * r + 4, 2 * r + 2 + kdeg, 2 * r + 2 * kdeg + (2 * r if hc else 0))
-        for side in (prep.below, prep.above):
-            side.warm(_selection_variance(spec.variance), degree)
-
-    def _bandwidths_for(self, spec: FitSpec, prep: Prepared, fuzzy: bool, n_main: int):
-        rule = spec.bandwidth
-        manual_b = isinstance(spec.pilot_bandwidth, tuple)
-        if isinstance(rule, tuple) and (manual_b or self.cluster is not None):
-            b = spec.pilot_bandwidth if manual_b else rule  # clustered: b = h below
-            return rule, b, "manual", []  # nothing to select
-        sel, lam = self._selection(spec, prep, fuzzy, n_main)
-        warnings = list(sel.warnings)
-        b = (sel.b_common, sel.b_common)
-        if rule == "mse":
-            h = (sel.h_common, sel.h_common)
-        elif rule == "mse-split":
-            h, b = sel.h_split, sel.b_split
-        elif rule == "coverage":
-            f = coverage_factor(prep.n_total, spec.degree)
-            h = (sel.h_common * f, sel.h_common * f)
-        elif rule == "ik":
-            hik, w = ik_bandwidth(prep.below, prep.above, kernel=spec.kernel, lam=lam,
-                                  score_sd=prep.score_sd, n_total=prep.n_total)
-            warnings += w
-            h = (hik, hik)
-        else:
-            h = rule
-        if manual_b:
-            b = spec.pilot_bandwidth
-        elif self.cluster is not None and spec.pilot_bandwidth is None:
-            # Clustered samples: the bias fit uses the main bandwidth (b = h). Calonico, Cattaneo and
-            # Farrell (2018, JASA, "On the effect of bias estimation on coverage accuracy in
-            # nonparametric inference") show that rho = h/b = 1 gives the robust bias-corrected interval
-            # good coverage. The MSE pilot, selected from CR0 cluster sums, came out small in our
-            # clustered Monte Carlo, so few clusters carried the bias fit and intervals under-covered
-            # (tests/benchmarks/validate_clusters.py). A pilot the user gives is kept.
-            b = h
-        return h, b, ("manual" if isinstance(rule, tuple) else rule), warnings
-
-    def _pilot_rule(self, spec: FitSpec) -> str:
-        """How the fit's pilot (bias) bandwidth is chosen (mirrors ``_bandwidths_for``)."""
-        if isinstance(spec.pilot_bandwidth, tuple):
-            return "manual"
-        if self.cluster is not None and (spec.pilot_bandwidth is None or isinstance(spec.bandwidth, tuple)):
-            return "main bandwidth"
-        return spec.pilot_bandwidth or DEFAULT_PILOT_RULE
 
     # ---- the public API ------------------------------------------------------------------------
     def fit(self, outcome=None, *, bandwidth="mse", kernel="triangular", degree=1, bias_degree=None,
@@ -432,9 +255,9 @@ class Design:
     def _engine_once(self, spec: FitSpec) -> tuple[JumpEngine, bool, str, list[str]]:
         fuzzy = self._is_fuzzy(spec.outcome, spec.donut)
         variables, n_main = self._variables(spec, fuzzy)
-        prep = self._prepared(spec, variables)
-        self._warm(prep, spec)
-        h, b, rule, warnings = self._bandwidths_for(spec, prep, fuzzy, n_main)
+        prep = prepared_sides(self, spec, variables)
+        warm(self, prep, spec)
+        h, b, rule, warnings = bandwidths_for(self, spec, prep, fuzzy, n_main)
         engine = self._engines.get(spec)
         if engine is None:
             check_support(prep, h, b, spec.degree, spec.bias_degree, spec.kernel)
@@ -473,7 +296,7 @@ class Design:
                       donut=spec.donut, treated=self.treated, cutoff=self.cutoff, score=self.score,
                       adjusted=spec.adjust, covariates=variables[n_main:], time_scale=self.time_scale,
                       cluster_variance=spec.cluster_variance if clustered else None,
-                      pilot_rule=self._pilot_rule(spec))
+                      pilot_rule=pilot_rule(self, spec))
         gamma = () if engine.adjustment is None else tuple(engine.adjustment.gamma[:, 0])
         if self.takeup and not fuzzy and spec.outcome != self.takeup:
             warnings.append(f"Take-up column {self.takeup!r} equals assignment on every row: the design is "
@@ -545,7 +368,7 @@ class Design:
             fuzzy = self._is_fuzzy(spec.outcome, spec.donut)
             variables, n_main = self._variables(spec, fuzzy)
             prep = self._data.prepare(variables, spec.donut)
-            h, b, _, _ = self._bandwidths_for(spec, prep, fuzzy, n_main)
+            h, b, _, _ = bandwidths_for(self, spec, prep, fuzzy, n_main)
             rows.append((rule, h[0], h[1], b[0], b[1]))
         return pd.DataFrame(rows, columns=["rule", "bandwidth_below", "bandwidth_above", "pilot_below",
                                            "pilot_above"])

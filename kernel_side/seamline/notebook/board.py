@@ -31,36 +31,36 @@ why; the kernel keeps working and the next change is picked up.
 
 Boards are made by the ``%%cutoff`` cell magic or from Python with :func:`board`. Nothing here
 imports IPython or ipywidgets at module level.
+
+This module holds the ``Board`` class's core (its state, subscriptions and actions) and the
+builder; beside it: ``board_inputs`` (the declaration's checks, snapshots of the inputs, reading
+the notebook), ``board_outputs`` (summary, methods paragraph, exports and display, a base class),
+``board_registry`` (``boards``, ``find``, the after-cell hook) and ``scheduler`` (the worker, a
+base class). Names other modules import from here are re-exported.
 """
 from __future__ import annotations
 
 import datetime as _dt
 import itertools
 import logging
-import math
-import sys
 import threading
 import time
-import warnings
-import weakref
 from collections import Counter
 from collections.abc import Callable, Iterable, Iterator, Mapping
-from pathlib import Path
 from typing import Any
 
 from ..errors import InvalidOptionError, SeamlineError, shown
 from ..estimate.design import Design
-from ..estimate.options import resolve
-from .compute import NodeCache, balance_rule, compute_graph, panel_key
-from .exports import CHART_FORMATS, TABLE_FORMATS, export_result, methods_text
-from ..partitioned import data_identity, is_partitioned
-from .reactive import PANELS, DataIdentity, column_node, fingerprints, shared_fingerprints
-from .designs_spec import cutoff_column, cutoff_layout, cutoff_text
+from .board_inputs import (check_selected, declaration, read_columns, read_notebook, snapshot, sources_changed,
+                           validate_options)
+from .board_outputs import BoardOutputs
+from .board_registry import boards, current_shell, default_name, find, forget, install_hook, register
+from .compute import NodeCache
+from .reactive import PANELS, DataIdentity, fingerprints
+from .designs_spec import cutoff_text
 from .inference_keys import INFERENCE_DEFAULTS
-from .spec import (BOARD_KEYS, DESIGN_KEYS, FIT_DEFAULTS, OPTION_DEFAULTS, REQUIRED_KEYS, SPEC_KEYS, NotApplicable,
+from .spec import (BOARD_KEYS, DESIGN_KEYS, OPTION_DEFAULTS, REQUIRED_KEYS, SPEC_KEYS, NotApplicable,
                    coerce_value, lookup)
-from .spec import _EXAMPLE_COLUMN
-from . import scheduler
 from .scheduler import IDLE_DELAY, SETTLE_DELAY, BoardState, Inputs, Scheduler, live_front_end
 
 __all__ = [
@@ -72,6 +72,7 @@ __all__ = [
     "NotApplicable",
     "board",
     "boards",
+    "find",
     "install_hook",
     "DESIGN_KEYS",
     "OPTION_DEFAULTS",
@@ -85,81 +86,6 @@ log = logging.getLogger("seamline")
 
 _CACHE_SIZE = 256
 STATUSES = ("fresh", "stale", "recomputing", "error")
-
-
-# ---- the registry ---------------------------------------------------------------------------------
-_SERIAL = itertools.count(1)
-_NAMES = itertools.count(1)         # default names of boards made from Python
-_REGISTRY: dict[int, weakref.ref] = {}
-
-
-def boards() -> list["Board"]:
-    """Every live (not closed, not garbage-collected) board, oldest first."""
-    out = []
-    for serial in sorted(_REGISTRY):
-        b = _REGISTRY[serial]()
-        if b is None or b.closed:
-            _REGISTRY.pop(serial, None)
-        else:
-            out.append(b)
-    return out
-
-
-def find(name: str, namespace: Mapping | None = None) -> "Board | None":
-    """The newest live board called ``name`` (bound to ``namespace`` when given)."""
-    for b in reversed(boards()):
-        if b.name == name and (namespace is None or b._namespace is namespace):
-            return b
-    return None
-
-
-def _after_cell(shell, *args) -> None:
-    """post_run_cell callback: every live board of this shell checks its inputs."""
-    namespace = getattr(shell, "user_ns", None)
-    headless = not scheduler.live_front_end()
-    with shared_fingerprints():     # boards reading the same columns hash them once per cell
-        for b in boards():
-            if b._namespace is not None and b._namespace is not namespace:
-                continue
-            try:
-                b.check_inputs()
-                if headless:
-                    b.wait()
-                    b._update_displays()
-            except Exception:   # a board must never break the kernel; it records its own errors
-                log.exception("seamline: checking board %r after a cell failed", b.name)
-
-
-def install_hook(shell) -> None:
-    """Register one ``post_run_cell`` callback on an IPython shell (idempotent, also across
-    ``%reload_ext``: a callback left by an earlier import of this module is replaced)."""
-    callbacks = shell.events.callbacks.get("post_run_cell", [])
-    for cb in list(callbacks):
-        if getattr(cb, "_seamline_hook", False):
-            if getattr(cb, "_seamline_module", None) is sys.modules[__name__]:
-                return
-            shell.events.unregister("post_run_cell", cb)
-    shell_ref = weakref.ref(shell)
-
-    def seamline_after_cell(*args):
-        shell = shell_ref()
-        if shell is not None:
-            _after_cell(shell, *args)
-
-    seamline_after_cell._seamline_hook = True
-    seamline_after_cell._seamline_module = sys.modules[__name__]
-    shell.events.register("post_run_cell", seamline_after_cell)
-
-
-def _current_shell():
-    """The running IPython shell, without importing IPython when it is not loaded."""
-    if "IPython" not in sys.modules:
-        return None
-    try:
-        from IPython import get_ipython
-    except ImportError:  # pragma: no cover
-        return None
-    return get_ipython()
 
 
 class _LiveResults(Mapping):
@@ -186,7 +112,7 @@ class _LiveResults(Mapping):
 
 
 # ---- the board ------------------------------------------------------------------------------------
-class Board(Scheduler):
+class Board(BoardOutputs, Scheduler):
     """A live cutoff design: results for every panel, kept in step with the notebook off the main thread.
 
     Parameters
@@ -252,30 +178,7 @@ class Board(Scheduler):
             data = lookup(namespace, data_name)
         self._identity = DataIdentity(data)
 
-        design = dict(design_kwargs)
-        unknown = sorted(set(design) - set(DESIGN_KEYS) - set(BOARD_KEYS))
-        if unknown:
-            raise InvalidOptionError(f"`design_kwargs` must hold design keys only; got {shown(unknown)}. "
-                                     f"Use keys among {', '.join((*DESIGN_KEYS, *BOARD_KEYS))}.")
-        for key in ("score", "cutoff", "outcome"):
-            if key not in design:
-                raise InvalidOptionError(f"`{key}` must be declared; got nothing. Add it, e.g. "
-                                         f"`{key}: {'40' if key == 'cutoff' else _EXAMPLE_COLUMN[key]}`.")
-        spec: dict[str, Any] = {"treated": "above", "takeup": None, "covariates": (), "cluster": None,
-                                "weights": None, "score_unit": None, **dict.fromkeys(BOARD_KEYS)}
-        for key, value in design.items():
-            spec[key] = coerce_value(key, value, self._spec_variables.get(key))
-        options = dict(fit_options or {})
-        selected = options.pop("outcome", None)
-        unknown = sorted(set(options) - set(OPTION_DEFAULTS))
-        if unknown:
-            raise InvalidOptionError(f"`fit_options` must be fit options; got {shown(unknown)}. "
-                                     f"Use keys among {', '.join(OPTION_DEFAULTS)}.")
-        opts: dict[str, Any] = dict(OPTION_DEFAULTS)
-        for key, value in options.items():
-            opts[key] = coerce_value(key, value, self._spec_variables.get(key))
-        selected = _check_selected(spec, selected if selected is not None else spec["outcome"][0])
-        _validate_options(spec, selected, opts)
+        spec, opts, selected = declaration(design_kwargs, fit_options, self._spec_variables)
         self._seen: dict[str, Any] = {}
         if namespace is not None:
             for key in self._spec_variables:
@@ -291,8 +194,8 @@ class Board(Scheduler):
         self._lock = threading.RLock()
         self._changed = threading.Condition(self._lock)    # notified on every input change and result
         self._generation = itertools.count(1)
-        self._inputs = self._snapshot(data=data, data_version=0, spec=spec, options=opts, selected=selected,
-                                      prints=fingerprints(data, _columns(spec)), error=None)
+        self._inputs = snapshot(self, data=data, data_version=0, spec=spec, options=opts, selected=selected,
+                                prints=fingerprints(data, read_columns(spec)), error=None)
         self._target = self._inputs          # the inputs the results must reach (lags while paused)
         self._target_since = time.monotonic()
         self._results: dict[str, Any] = {p: None for p in self._panels}
@@ -316,42 +219,18 @@ class Board(Scheduler):
         self._view = None
         self._handles: list = []
         self._fallback_dirty = False
-        self._serial = next(_SERIAL)
-        _REGISTRY[self._serial] = weakref.ref(self)
+        self._serial = register(self)
         if autorun:
             self._kick()
 
     # ---- snapshots of the inputs ------------------------------------------------------------
-    def _snapshot(self, *, data, data_version, spec, options, selected, prints, error) -> Inputs:
-        """Freeze one set of inputs with each panel's key (called under the lock or in __init__)."""
-        generation = next(self._generation)
-        if error is not None:
-            keys = {p: ("unusable inputs", generation) for p in self._panels}
-            return Inputs(generation, data, data_version, dict(spec), dict(options), selected, dict(prints), error,
-                           keys=keys)
-        graph = compute_graph(score=spec["score"], outcomes=spec["outcome"], outcome=selected,
-                              takeup=spec["takeup"], covariates=spec["covariates"], cluster=spec["cluster"],
-                              weights=spec["weights"], adjust=bool(options["adjust"]),
-                              cutoff_layout=cutoff_layout(spec), cutoff_column=cutoff_column(spec),
-                              groups=spec["groups"])
-        values: dict[str, Any] = {column_node(c): fp for c, fp in prints.items()}
-        values.update(spec)
-        values.update(options)
-        values["outcomes"] = values.pop("outcome")
-        values["outcome"] = selected
-        values["data"] = data_version
-        values["balance_rule"] = balance_rule(options["bandwidth"])
-        keys = {p: panel_key(graph, values, p, options["level"]) for p in self._panels}
-        return Inputs(generation, data, data_version, dict(spec), dict(options), selected, dict(prints), None,
-                       graph, values, keys)
-
     def _replace_inputs(self, *, accept: bool, **changes) -> Inputs:
         """New inputs from the current ones with ``changes`` (under the lock); the worker is told."""
         old = self._inputs
         fields = dict(data=old.data, data_version=old.data_version, spec=old.spec, options=old.options,
                       selected=old.selected, prints=old.fingerprints, error=old.error)
         fields.update(changes)
-        self._inputs = self._snapshot(**fields)
+        self._inputs = snapshot(self, **fields)
         if accept:
             self._accept()
         return self._inputs
@@ -426,7 +305,7 @@ class Board(Scheduler):
     @property
     def columns(self) -> tuple[str, ...]:
         """The data columns the board reads (only these are fingerprinted)."""
-        return _columns(self._inputs.spec)
+        return read_columns(self._inputs.spec)
 
     @property
     def panels(self) -> tuple[str, ...]:
@@ -521,54 +400,6 @@ class Board(Scheduler):
                 log.exception("seamline: an on_progress subscriber of board %r failed", self.name)
 
     # ---- inputs -----------------------------------------------------------------------------
-    def _read_notebook(self) -> dict[str, Any] | None:
-        """Read the notebook: data identity, spec variables, column fingerprints (under the lock).
-        Returns the changed fields of the inputs, or None when nothing the board reads changed."""
-        old = self._inputs
-        data, version, error = old.data, old.data_version, None
-        spec, options, selected = dict(old.spec), dict(old.options), old.selected
-        changed = False
-        if self._namespace is not None and self._data_name is not None:
-            try:
-                new = lookup(self._namespace, self._data_name)
-            except NameError as exc:
-                new, error = data, f"`data` is read from the notebook variable `{self._data_name}`: {exc}"
-            if not self._identity.same(new):
-                # a partitioned input rebound to a collection with the same dask token (or the same
-                # files, unchanged) is the same data: the new object is kept, nothing recomputes
-                same = is_partitioned(new) and is_partitioned(data) and data_identity(new) == data_identity(data)
-                data, self._identity, changed = new, DataIdentity(new), True
-                version += 0 if same else 1
-        if self._namespace is not None:
-            for key, variable in self._spec_variables.items():
-                try:
-                    value = coerce_value(key, lookup(self._namespace, variable), variable)
-                except (NameError, InvalidOptionError) as exc:
-                    error = error or f"`{key}` is read from the notebook variable `{variable}`: {exc}"
-                    continue
-                if self._seen.get(key, _MISSING) != value:
-                    self._seen[key] = value
-                    changed = True
-                    if key in spec:
-                        spec[key] = value
-                        if key in ("outcome", "covariates") and selected not in (*spec["outcome"],
-                                                                                  *spec["covariates"]):
-                            selected = spec["outcome"][0]
-                    else:
-                        options[key] = value
-        if error is None and changed:
-            try:
-                _validate_options(spec, selected, options)
-            except SeamlineError as exc:
-                error = str(exc)
-        prints = fingerprints(data, _columns(spec))
-        if prints != old.fingerprints or error != old.error:
-            changed = True
-        if not changed:
-            return None
-        return dict(data=data, data_version=version, spec=spec, options=options, selected=selected, prints=prints,
-                    error=error)
-
     # ---- the public actions -------------------------------------------------------------------
     def check_inputs(self) -> set[str]:
         """Look for changed inputs (called after every notebook cell) and start updating what they
@@ -585,12 +416,12 @@ class Board(Scheduler):
             return set()
         with self._lock:
             old = self._inputs
-            changes = self._read_notebook()
+            changes = read_notebook(self)
             if changes is None:
                 return set()
             new = self._replace_inputs(accept=not self.paused, **changes)
         self._notify({"status"})
-        return _sources_changed(old, new)
+        return sources_changed(old, new)
 
     def refresh(self, force: bool = False) -> None:
         """Bring every result up to date (also when paused); returns at once, reads wait.
@@ -607,7 +438,7 @@ class Board(Scheduler):
                 self._keys.clear()
                 self._design, self._design_key = None, None
                 self._replace_inputs(accept=False, data_version=self._inputs.data_version + 1)
-            changes = self._read_notebook()
+            changes = read_notebook(self)
             if changes is not None:
                 self._replace_inputs(accept=False, **changes)
             self._accept()
@@ -641,10 +472,10 @@ class Board(Scheduler):
             inputs = self._inputs
             spec, options, selected = dict(inputs.spec), dict(inputs.options), inputs.selected
             if name == "outcome" and isinstance(value, str):
-                selected = _check_selected(spec, value)
+                selected = check_selected(spec, value)
             elif name in OPTION_DEFAULTS:
                 options[name] = coerce_value(name, value)
-                _validate_options(spec, selected, options)
+                validate_options(spec, selected, options)
             elif name in DESIGN_KEYS or name in BOARD_KEYS:
                 spec[name] = coerce_value(name, value)
                 if selected not in (*spec["outcome"], *spec["covariates"]):
@@ -657,10 +488,10 @@ class Board(Scheduler):
                     self._accept()
                 return
             prints = dict(inputs.fingerprints)
-            missing = [c for c in _columns(spec) if c not in prints]
+            missing = [c for c in read_columns(spec) if c not in prints]
             if missing:                       # a newly named column: fingerprint only that one
                 prints.update(fingerprints(inputs.data, missing))
-            prints = {c: prints[c] for c in _columns(spec)}
+            prints = {c: prints[c] for c in read_columns(spec)}
             self._replace_inputs(accept=True, spec=spec, options=options, selected=selected, prints=prints)
         self._kick()
         self._notify({"status"})
@@ -670,7 +501,7 @@ class Board(Scheduler):
         with self._lock:
             self.closed = True
             self._changed.notify_all()
-        _REGISTRY.pop(self._serial, None)
+        forget(self._serial)
         self._change_callbacks.clear()
         self._progress_callbacks.clear()
         view, self._view = self._view, None
@@ -680,189 +511,6 @@ class Board(Scheduler):
             except Exception:
                 log.exception("seamline: closing the view of board %r failed", self.name)
         self._handles.clear()
-
-    # ---- presentation ------------------------------------------------------------------------
-    def summary(self) -> dict[str, Any]:
-        """A JSON-ready summary for the front end and headers (never waits: a pending headline
-        is reported with status "recomputing").
-
-        Returns
-        -------
-        dict
-            name, score, cutoff, outcome, kind, estimate, robust_ci ([low, high] or None),
-            level, status, stale, paused, updated_at (ISO 8601 or None), error (or None).
-        """
-        state = self.state()
-        fit = state.results.get("fit")
-        fit = None if isinstance(fit, NotApplicable) else fit
-        return {
-            "name": self.name,
-            "score": state.spec["score"],
-            # cumulative cutoffs as text ("30, 60"), which the front end shows as written
-            "cutoff": cutoff_text(state.spec["cutoff"]) if isinstance(state.spec["cutoff"], tuple)
-            else state.spec["cutoff"],
-            "outcome": state.options["outcome"],
-            "kind": None if fit is None else fit.kind,
-            "estimate": None if fit is None else _json_float(fit.estimate),
-            "robust_ci": None if fit is None else [_json_float(v) for v in fit.robust_conf_int],
-            "level": state.options["level"],
-            "status": state.status,
-            "stale": state.stale,
-            "paused": state.paused,
-            "updated_at": None if state.updated_at is None else state.updated_at.isoformat(timespec="seconds"),
-            "reading": None if state.reading is None else list(state.reading),
-            "error": state.errors.get("fit") or self._target.error,
-        }
-
-    def _current_state(self) -> BoardState:
-        """The state once every panel belongs to the current inputs (waits unless paused)."""
-        if not self.paused:
-            self.wait()
-        return self.state()
-
-    def methods_paragraph(self) -> str:
-        """The specification and results in prose for a paper's methods section (see
-        ``seamline.export.methods.methods_paragraph``); waits for current results."""
-        state = self._current_state()
-        fit = state.results.get("fit")
-        return methods_text(None if isinstance(fit, NotApplicable) else fit, state.results, state.errors,
-                            state.spec["weights"])
-
-    def export(self, what: str, fmt: str = "latex", path: str | Path | None = None, *,
-               data_path: str | Path | None = None) -> str | bytes:
-        """Render one table, chart or the methods paragraph of the current results (waits for
-        them); write it when ``path`` is given.
-
-        Parameters
-        ----------
-        what : "estimate", "sensitivity", "balance", "density", "placebo", "donut", "bins",
-            "bandwidths", "first_stage", "by_cutoff", "decomposition" (a cutoff column), "subgroups",
-            "power" (the curve), "sample_size", the inference tables "intervals", "bias_aware",
-            "bias_aware_sensitivity", "weak_iv", "local_randomization", "windows",
-            "randomization_sensitivity" (``compute_inference.EXPORTS``; charts of
-            "bias_aware_sensitivity" and "windows"), "methods", or "script": a standalone Python script that
-            rebuilds every number of the board from the data file ``data_path`` (CSV or Parquet;
-            without it, a marked constant to edit), see ``seamline.export.script``
-        fmt : tables: "latex" (booktabs), "markdown", "csv", "html", "text";
-            charts: "svg", "png"; methods: "text", "markdown", "latex", "html"
-        path : file to write (replaced if it exists); nothing is written without it
-
-        Returns
-        -------
-        str, or bytes for "png"
-        """
-        if what == "script":
-            from ..export.script import board_script
-            return board_script(self, path, data_path=data_path)
-        from ..options import check_option
-        check_option("fmt", fmt, TABLE_FORMATS + CHART_FORMATS)
-        state = self._current_state()
-        if state.stale:
-            warnings.warn(f"Board {shown(self.name)} is stale (paused with pending changes): the export shows the "
-                          "results before those changes. Call refresh() first.", UserWarning, stacklevel=2)
-        return export_result(state, what, fmt, path, weights=state.spec["weights"])
-
-    # ---- display -------------------------------------------------------------------------------
-    @property
-    def view(self):
-        """The board's widget view (``seamline.notebook.panels.BoardView``), made on first use."""
-        if self._view is None:
-            try:
-                from .panels import BoardView
-            except ImportError as exc:
-                raise ImportError("seamline's board view needs ipywidgets and altair: install them with "
-                                  "`pip install seamline` (ipywidgets is a dependency); the results are in board.results "
-                                  f"meanwhile ({exc}).") from exc
-            self._view = BoardView(self)
-        return self._view
-
-    def _mimebundle(self, charts: bool = True) -> dict[str, Any]:
-        """One output bundle: the live widget view plus a static HTML rendition (text/html) that
-        notebook viewers and nbconvert show when widgets are not live."""
-        view = self.view
-        from .panels import mimebundle
-        bundle = dict(mimebundle(view, charts=charts))
-        bundle["text/plain"] = repr(self)
-        return bundle
-
-    def show(self):
-        """Display the board (widget view + static fallback) in the notebook; returns the handle.
-
-        Without a live front end (headless runs) it first waits for every panel, so the saved
-        output is complete; with one, the static copy follows once the board is idle."""
-        from IPython.display import display
-        live = scheduler.live_front_end()
-        if not live:
-            self.wait()
-        handle = display(self._mimebundle(charts=not live), raw=True, display_id=True)
-        if handle is not None:
-            self._handles = [*self._handles[-3:], handle]
-        self._fallback_dirty = live
-        return handle
-
-    def _ipython_display_(self) -> None:
-        self.show()
-
-    def _update_displays(self) -> None:
-        """Refresh the static fallback of this board's displayed outputs, so a saved notebook shows
-        the current numbers (after a cell when headless; when idle with a live front end)."""
-        if not (self._fallback_dirty and self._handles):
-            return
-        self._fallback_dirty = False
-        try:
-            bundle = self._mimebundle()
-        except Exception:
-            log.exception("seamline: rendering the static rendition of board %r failed", self.name)
-            return
-        for handle in list(self._handles):
-            handle.update(bundle, raw=True)
-
-
-_MISSING = object()
-
-
-def _columns(spec: Mapping[str, Any]) -> tuple[str, ...]:
-    # a cutoff column and the groups column are read too (seamline.notebook.designs_spec)
-    names = [spec["score"], *spec["outcome"], *(c for c in (spec["takeup"], spec["cluster"], spec["weights"]) if c),
-             *spec["covariates"], *(c for c in (cutoff_column(spec), spec.get("groups")) if c)]
-    return tuple(dict.fromkeys(names))
-
-
-def _check_selected(spec: Mapping[str, Any], outcome: Any) -> str:
-    allowed = tuple(spec["outcome"]) + tuple(spec["covariates"])
-    if not isinstance(outcome, str) or outcome not in allowed:
-        raise InvalidOptionError(f"`outcome` must be one of the declared outcomes or covariates "
-                                 f"[{', '.join(shown(a) for a in allowed)}]; got {shown(outcome)}. Declare it first.")
-    return outcome
-
-
-def _validate_options(spec: Mapping[str, Any], selected: str, options: Mapping[str, Any]) -> None:
-    resolve(selected, has_covariates=bool(spec["covariates"]), **{k: v for k, v in options.items() if k in FIT_DEFAULTS})
-
-
-def _sources_changed(old: Inputs, new: Inputs) -> set[str]:
-    """The source names that differ between two snapshots of the inputs."""
-    changes = set()
-    if new.data_version != old.data_version:
-        changes.add("data")
-    for name, fp in new.fingerprints.items():
-        if old.fingerprints.get(name) != fp:
-            changes.add(column_node(name))
-    for key in new.spec:
-        if new.spec[key] != old.spec.get(key):
-            changes.add(key)
-    for key in new.options:
-        if new.options[key] != old.options.get(key):
-            changes.add(key)
-    if new.selected != old.selected:
-        changes.add("outcome")
-    if new.error != old.error:
-        changes.add("inputs")
-    return changes
-
-
-def _json_float(value: float) -> float | None:
-    return float(value) if value is not None and math.isfinite(value) else None
 
 
 # ---- the Python builder -----------------------------------------------------------------------------
@@ -916,7 +564,7 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
     >>> b.status
     'fresh'
     """
-    shell = _current_shell()
+    shell = current_shell()
     namespace = getattr(shell, "user_ns", None) if data_name is not None else None
     if data_name is not None and namespace is None:
         raise InvalidOptionError(f"`data_name` needs a running notebook to follow; got {shown(data_name)} outside "
@@ -936,7 +584,7 @@ def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", t
         raise InvalidOptionError(f"`board` got unknown settings {shown(unknown)}; use the design keys, the fit "
                                  f"options or {', '.join(INFERENCE_DEFAULTS)}. Check the spelling.")
     fit_options.update(inference)
-    b = Board(name or f"board{next(_NAMES)}", design_kwargs, fit_options, data=data, data_name=data_name,
+    b = Board(name or default_name(), design_kwargs, fit_options, data=data, data_name=data_name,
               namespace=namespace, panels=panels)
     if shell is not None and hasattr(shell, "events"):
         install_hook(shell)

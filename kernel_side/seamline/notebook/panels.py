@@ -12,6 +12,9 @@ kernel: failures are shown inside the panel (class ``seamline-error``).
 
 This module imports ipywidgets when it is imported; ``%load_ext seamline`` does not import it.
 
+The controls are built and synced in ``panels_controls`` and the export buttons in
+``panels_exports`` (base classes of ``BoardView``); the tabs' HTML comes from ``static``.
+
 CSS classes (for styling and browser tests): ``seamline-board`` (the whole view),
 ``seamline-header-box``, ``seamline-controls``, ``seamline-progress``, ``seamline-tabs``,
 ``seamline-panel-<name>`` for name in estimate, bandwidths, balance, density, first-stage,
@@ -22,119 +25,23 @@ produced), ``seamline-error`` (an error box).
 """
 from __future__ import annotations
 
-import base64
-import html
-import os
 import threading
 from collections import OrderedDict
 from collections.abc import Iterable
 from typing import Any
 
 import ipywidgets as widgets
-import pandas as pd
 
-from . import charts, panels_designs, panels_inference, static
-from .controls_designs import DesignsControls
+from . import charts, panels_designs, static
+from .panels_controls import ViewControls
+from .panels_exports import ViewExports
 from .static import PANEL_EXPORTS, PANEL_RESULTS, PANELS, error_html, header_html, panel_html
 
 __all__ = ["BoardView", "mimebundle"]
 
-_RULES = (("MSE-optimal", "mse"), ("MSE-optimal, each side", "mse-split"),
-          ("coverage-optimal", "coverage"), ("Imbens-Kalyanaraman", "ik"), ("manual", "manual"))
-_KERNELS = ("triangular", "uniform", "epanechnikov")
-_DEGREES = (("0 (local constant)", 0), ("1 (local linear)", 1), ("2 (local quadratic)", 2),
-            ("3 (local cubic)", 3))
-_VARIANCES = (("nearest neighbours", "neighbors"), ("HC0", "hc0"), ("HC1", "hc1"), ("HC2", "hc2"),
-              ("HC3", "hc3"), ("HC2, small-sample t (bias-reduced)", "bias-reduced"))
-_LEVELS = (("90%", 0.90), ("95%", 0.95), ("99%", 0.99))
-_FORMATS = (("LaTeX", "latex"), ("Markdown", "markdown"), ("CSV", "csv"), ("SVG", "svg"),
-            ("PNG", "png"))
-_EXTENSIONS = {"latex": "tex", "markdown": "md", "csv": "csv", "svg": "svg", "png": "png",
-               "html": "html", "text": "txt"}
-_MIME = {"latex": "text/x-tex", "markdown": "text/markdown", "csv": "text/csv",
-         "svg": "image/svg+xml", "png": "image/png", "html": "text/html", "text": "text/plain"}
-_CONTROL = {"description_width": "70px"}
-_PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
-
 
 def _css(panel: str) -> str:
     return f"seamline-panel-{panel.replace('_', '-')}"
-
-
-def _safe_name(text: str) -> str:
-    keep = "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in text)
-    return keep.strip("_") or "seamline"
-
-
-def _png_bytes(value: Any) -> bytes:
-    """The PNG an export returned: raw bytes, base64 text, or a path to the written file."""
-    if isinstance(value, (bytes, bytearray)):
-        return bytes(value)
-    text = str(value)
-    if os.path.isfile(text):
-        with open(text, "rb") as handle:
-            return handle.read()
-    data = base64.b64decode(text.split(",", 1)[-1], validate=False)
-    if not data.startswith(_PNG_MAGIC):
-        raise ValueError("the PNG export returned neither PNG bytes, base64 text nor a file path")
-    return data
-
-
-def download_link(data: bytes | str, filename: str, fmt: str) -> str:
-    """An ``<a download>`` link carrying the file in a data URI (works without a server round trip).
-
-    Parameters
-    ----------
-    data : bytes or str
-        File content (text is encoded as UTF-8).
-    filename : str
-        Suggested file name (shown escaped).
-    fmt : str
-        Export format, which sets the MIME type.
-
-    Returns
-    -------
-    str
-    """
-    raw = data.encode("utf-8") if isinstance(data, str) else bytes(data)
-    mime = _MIME.get(fmt, "application/octet-stream")
-    uri = f"data:{mime};base64,{base64.b64encode(raw).decode('ascii')}"
-    name = html.escape(filename, quote=True)
-    return (f'<a class="seamline-download" download="{name}" href="{uri}" '
-            f'style="font-size:12px">download {name}</a> '
-            f'<span style="font-size:11px;color:#777">({len(raw):,} bytes)</span>')
-
-
-def _board_options(state) -> dict[str, Any]:
-    """The options the board's current inputs hold, completed from its current fit.
-
-    The manual bandwidth shown is the one the inputs hold (never an older fit's, so a slider
-    being dragged does not jump back); under a rule it is the current fit's selected bandwidth."""
-    options: dict[str, Any] = dict(getattr(state, "options", None) or {})
-    bandwidth = options.get("bandwidth")
-    if isinstance(bandwidth, (int, float)):
-        options["_bandwidth_now"] = float(bandwidth)
-    elif isinstance(bandwidth, tuple):
-        options["_bandwidth_now"] = float(bandwidth[0])
-    fit = static._fit(state)
-    if fit is not None and "fit" not in getattr(state, "pending", ()):
-        options.setdefault("outcome", fit.outcome)
-        options.setdefault("kernel", fit.kernel)
-        options.setdefault("degree", fit.degree)
-        options.setdefault("level", fit.level)
-        options.setdefault("donut", fit.donut)
-        options.setdefault("variance", fit.variance)
-        options["_resolved_variance"] = fit.variance
-        options.setdefault("_bandwidth_now", float(fit.bandwidth[0]))
-    return options
-
-
-def _outcomes(state) -> tuple[str, ...]:
-    outcomes = getattr(state, "outcomes", None)
-    if outcomes:
-        return tuple(outcomes)
-    fit = static._fit(state)
-    return (fit.outcome,) if fit is not None else ()
 
 
 #: The charts each tab draws (export names understood by ``charts.chart_for``).
@@ -146,7 +53,7 @@ TAB_CHARTS: dict[str, tuple[str, ...]] = {
 }
 
 
-class BoardView(widgets.VBox):
+class BoardView(ViewControls, ViewExports, widgets.VBox):
     """Header, controls and diagnostic tabs of a seamline board, kept in step with the board.
 
     Parameters
@@ -281,219 +188,6 @@ class BoardView(widgets.VBox):
                 self._render([tab])
         except Exception as exc:  # noqa: BLE001 - the view must never raise into the kernel
             self._header.value = error_html(f"{type(exc).__name__}: {exc}", title="The view could not update")
-
-    # ---- controls -------------------------------------------------------------------------
-    def _build_controls(self) -> widgets.Box:
-        lay = widgets.Layout(width="235px", margin="2px 10px 2px 0")
-        self._outcome = widgets.Dropdown(options=_outcomes(self.board) or ("",), description="outcome",
-                                         style=_CONTROL, layout=lay)
-        self._rule = widgets.Dropdown(options=_RULES, description="bandwidth", style=_CONTROL, layout=lay)
-        self._manual = widgets.FloatSlider(value=1.0, min=0.01, max=10.0, step=0.01, readout_format=".3g",
-                                           description="manual h", continuous_update=False,
-                                           style=_CONTROL, layout=widgets.Layout(width="300px"))
-        self._kernel = widgets.Dropdown(options=_KERNELS, description="kernel", style=_CONTROL, layout=lay)
-        self._degree = widgets.Dropdown(options=_DEGREES, description="degree", style=_CONTROL, layout=lay)
-        self._variance = widgets.Dropdown(options=_VARIANCES, description="variance", style=_CONTROL,
-                                          layout=lay)
-        self._donut = widgets.BoundedFloatText(value=0.0, min=0.0, max=1e12, step=0.1,
-                                               description="donut", style=_CONTROL, layout=lay,
-                                               continuous_update=False)
-        self._level = widgets.Dropdown(options=_LEVELS, description="CI level", style=_CONTROL, layout=lay)
-        self._smoothness = panels_inference.smoothness_control(lay)     # M of the bias-aware interval
-        self._smoothness.observe(self._changed("smoothness"), names="value")
-        # the Local randomization tab's own controls (shown in that tab, not in this row)
-        self._lr_controls, self._window, self._statistic = panels_inference.randomization_controls(lay)
-        self._window.observe(self._changed("window"), names="value")
-        self._statistic.observe(self._changed("statistic"), names="value")
-        for control, name in ((self._outcome, "outcome"), (self._kernel, "kernel"),
-                              (self._degree, "degree"), (self._variance, "variance"),
-                              (self._donut, "donut"), (self._level, "level")):
-            control.observe(self._changed(name), names="value")
-            control.add_class(f"seamline-control-{name}")
-        self._rule.observe(self._rule_changed, names="value")
-        self._rule.add_class("seamline-control-bandwidth")
-        self._manual.observe(self._manual_changed, names="value")
-        self._manual.add_class("seamline-control-manual-bandwidth")
-        self._designs = DesignsControls(self)         # effect (power) and headline cutoff
-        box = widgets.Box(
-            [self._outcome, self._rule, self._manual, self._kernel, self._degree, self._variance,
-             self._donut, self._level, self._smoothness, *self._designs.widgets],
-            layout=widgets.Layout(display="flex", flex_flow="row wrap",
-                                  border_top="1px solid #e0e0e0", padding="6px 0 4px 0"))
-        box.add_class("seamline-controls")
-        return box
-
-    def _changed(self, name: str):
-        def handler(change):
-            if not self._syncing:
-                self._apply(name, change["new"])
-        return handler
-
-    def _rule_changed(self, change):
-        if self._syncing:
-            return
-        manual = change["new"] == "manual"
-        self._manual.disabled = not manual
-        self._apply("bandwidth", float(self._manual.value) if manual else change["new"])
-
-    def _manual_changed(self, change):
-        if not self._syncing and self._rule.value == "manual":
-            self._apply("bandwidth", float(change["new"]))
-
-    def _apply(self, name: str, value: Any) -> None:
-        """Pass one control change to the board; show a failure beside the controls. The board
-        calls back (``_on_change``) to show the change; nothing else is sent per change, so a
-        dragged slider's messages are handled quickly."""
-        try:
-            self.board.set_option(name, value)
-            if self._message.value:
-                self._message.value = ""
-        except Exception as exc:  # noqa: BLE001 - the user sees it; the kernel lives on
-            self._message.value = error_html(f"{type(exc).__name__}: {exc}",
-                                             title=f"The {name} was not changed")
-            self._sync_controls()
-
-    def _sync_controls(self) -> None:
-        """Show the board's current options in the controls without calling back into the board.
-
-        Each control's options, value and state change under one ``hold_sync``, so the front end
-        receives them as one update (never a value that is not among the options).
-        """
-        state = self.board.state()
-        opts = _board_options(state)
-        self._syncing = True
-        try:
-            outcomes = _outcomes(state)
-            with self._outcome.hold_sync():
-                if outcomes and tuple(self._outcome.options) != outcomes:
-                    self._outcome.options = outcomes
-                if opts.get("outcome") in outcomes:
-                    self._outcome.value = opts["outcome"]
-                self._outcome.disabled = len(outcomes) < 2
-            self._sync_bandwidth(opts, state)
-            if opts.get("kernel") in _KERNELS:
-                self._kernel.value = opts["kernel"]
-            degree = opts.get("degree")
-            if degree is not None:
-                self._set_choice(self._degree, _DEGREES, int(degree), f"{int(degree)}")
-            with self._variance.hold_sync():
-                if opts.get("_resolved_variance") == "cluster":
-                    # a declared cluster column fixes the variance to cluster-robust
-                    self._set_choice(self._variance, (("cluster-robust (design has clusters)", "cluster"),),
-                                     "cluster", "cluster")
-                    self._variance.disabled = True
-                else:
-                    variance = opts.get("variance")
-                    if variance not in [v for _label, v in _VARIANCES]:
-                        variance = "neighbors"
-                    self._set_choice(self._variance, _VARIANCES, variance, variance)
-                    self._variance.disabled = False
-            donut = opts.get("donut")
-            if donut is not None:
-                self._donut.value = float(donut)
-            level = opts.get("level")
-            if level is not None:
-                self._set_choice(self._level, _LEVELS, float(level), f"{100 * float(level):g}%")
-            self._designs.sync(state)
-            if "smoothness" in opts:
-                self._smoothness.value = panels_inference.smoothness_text(opts["smoothness"])
-            if "window" in opts:
-                self._window.value = panels_inference.window_text(opts["window"])
-            if opts.get("statistic") in self._statistic.options:
-                self._statistic.value = opts["statistic"]
-        finally:
-            self._syncing = False
-
-    @staticmethod
-    def _set_choice(control, base, value, label) -> None:
-        options = [tuple(o) for o in base]
-        if value not in [v for _l, v in options]:
-            options.append((label, value))
-        with control.hold_sync():
-            if [tuple(o) for o in control.options] != options:
-                control.options = options
-            control.value = value
-
-    def _sync_bandwidth(self, opts: dict[str, Any], state) -> None:
-        rule = opts.get("bandwidth")
-        now = opts.get("_bandwidth_now")
-        selectors = state.results.get("bandwidths")
-        values = []
-        if isinstance(selectors, pd.DataFrame) and len(selectors):
-            values = [float(v) for v in selectors[["bandwidth_below", "bandwidth_above"]].to_numpy().ravel()]
-        inside = now is not None and self._manual.min <= now <= self._manual.max and self._manual.max > 1.0001
-        if now is not None and not values:
-            values.append(float(now))
-        if inside and rule is not None and not isinstance(rule, str):
-            values = []               # a manual value inside the range: keep the range, move the handle
-            with self._manual.hold_sync():
-                self._manual.value = float(now)
-        if values:
-            low, high = 0.25 * min(values), 2.5 * max(values)
-            step = max((high - low) / 400.0, 1e-6)
-            with self._manual.hold_sync():
-                # widen before narrowing so the slider never holds min > max on the way
-                self._manual.max = max(high, self._manual.min)
-                self._manual.min = low
-                self._manual.max = high
-                self._manual.step = step
-                if now is not None:
-                    self._manual.value = min(max(float(now), low), high)
-        if isinstance(rule, str) and rule in dict((v, k) for k, v in _RULES):
-            self._rule.value = rule
-            self._manual.disabled = rule != "manual"
-        elif rule is not None:
-            self._rule.value = "manual"
-            self._manual.disabled = False
-
-    # ---- exports --------------------------------------------------------------------------
-    def _export_bar(self, panel: str) -> None:
-        """Fill a tab's export bar (once, when the tab is first rendered)."""
-        bar, out = self._export_bars[panel]
-        if bar.children:
-            return
-        rows = []
-        for what in PANEL_EXPORTS[panel]:
-            label = widgets.HTML(f'<span style="font-size:12px;color:#555">Export {html.escape(what.replace("_", " "))}:</span>')
-            buttons = [label]
-            for title, fmt in _FORMATS if what in charts.CHART_NAMES else _FORMATS[:3]:   # tables only
-                button = widgets.Button(description=title, layout=self._button_layout, style=self._button_style,
-                                        tooltip=f"{title} of the {what.replace('_', ' ')} "
-                                                f"{'chart' if fmt in ('svg', 'png') else 'table'}")
-                button.add_class("seamline-export-button")
-                button.add_class(f"seamline-export-{fmt}")
-                button.on_click(lambda _b, w=what, f=fmt: self._export(w, f, out))
-                buttons.append(button)
-            row = widgets.HBox(buttons, layout=widgets.Layout(align_items="center", flex_flow="row wrap"))
-            self._export_rows[what] = row
-            rows.append(row)
-        bar.children = rows
-
-    def _export(self, what: str, fmt: str, out: widgets.VBox) -> None:
-        """Run ``board.export(what, fmt)`` and show the text and a download link (or the error)."""
-        name = _safe_name(f"{getattr(self.board, 'name', 'seamline')}_{what}")
-        filename = f"{name}.{_EXTENSIONS.get(fmt, 'txt')}"
-        try:
-            if what == "methods":
-                paragraph = getattr(self.board, "methods_paragraph", None)
-                text = paragraph() if callable(paragraph) else self.board.export("methods", "text")
-            else:
-                text = self.board.export(what, fmt)
-            if fmt == "png":
-                data = _png_bytes(text)
-                shown = [widgets.HTML(download_link(data, filename, fmt))]
-            elif fmt == "svg":
-                shown = [widgets.HTML(download_link(str(text), filename, fmt))]
-            else:
-                area = widgets.Textarea(value=str(text), layout=widgets.Layout(width="100%", height="160px"))
-                area.add_class("seamline-export-text")
-                shown = [area, widgets.HTML(download_link(str(text), filename, fmt))]
-        except Exception as exc:  # noqa: BLE001
-            shown = [widgets.HTML(error_html(f"{type(exc).__name__}: {exc}",
-                                             title=f"Export of {what} as {fmt} failed"))]
-        close = widgets.Button(description="close", layout=widgets.Layout(width="auto", height="24px"))
-        close.on_click(lambda _b: setattr(out, "children", ()))
-        out.children = (*shown, close)
 
     # ---- rendering ------------------------------------------------------------------------
     def _busy(self, on: bool) -> None:

@@ -5,8 +5,8 @@ A board's inputs are frozen into ``Inputs`` snapshots; the worker computes towar
 shows after ``SETTLE_DELAY`` without changes, the rest after ``IDLE_DELAY``. It checks between two
 intermediate results whether a newer target superseded its snapshot; results are published
 only for the target they were computed for. ``Scheduler`` holds this logic as a base class of
-``Board`` (``board.py`` holds the inputs, the public actions and the presentation). All state is
-guarded by the board's lock; ``wait`` blocks on its condition.
+``Board`` (``board.py`` holds the public actions, ``board_inputs`` the inputs and ``board_outputs``
+the presentation). All state is guarded by the board's lock; ``wait`` blocks on its condition.
 
 Nothing here imports IPython or widgets.
 """

@@ -6,12 +6,14 @@ a cell's output bundle, which nbconvert, notebook viewers and a kernel-less Jupy
 HTML is self-contained: inline styles, SVG drawn kernel-side by vl-convert (no script, no CDN),
 every piece of user text escaped.
 
+The styles, defensive reads of a board, escaped fragments and number formats are in
+``static_parts``; this module builds the header, the panels and the static copy from them.
+
 This module imports neither ipywidgets nor IPython; Altair and vl-convert load on the first chart.
 """
 from __future__ import annotations
 
 import contextvars
-import html
 import math
 from collections import OrderedDict
 from collections.abc import Iterable, Mapping
@@ -24,6 +26,10 @@ from ..errors import shown
 from ..results.base import CAUTION
 from ..time_score import TIME_CAUTION
 from . import charts, panels_designs, panels_inference, time_axes
+# The building blocks; panels_designs and panels_inference read them through this module.
+from .static_parts import (_BOX, _DIM, _NOTE, _ROW, _TABLES, _count, _errors, _esc, _figure, _fit, _info_html,
+                           _number, _p_text, _pending, _results, _table_html, _warnings_html, error_html,
+                           pending_note)
 
 __all__ = [
     "PANELS",
@@ -84,19 +90,6 @@ EXPORT_RESULTS: Mapping[str, str] = {
     "randomization_sensitivity": "local_randomization",
 }
 
-_esc = html.escape
-
-_BOX = ("font-family:var(--jp-ui-font-family, Helvetica, Arial, sans-serif);font-size:13px;"
-        "line-height:1.4;color:var(--jp-ui-font-color1, #222)")
-_ROW = "display:flex;flex-wrap:wrap;gap:14px 22px;align-items:flex-start"
-_TABLES = "flex:1 1 380px;min-width:0;max-width:100%;overflow-x:auto"
-_NOTE = "color:var(--jp-ui-font-color2, #555);font-size:12px;margin:2px 0 8px 0;max-width:58em"
-_ERROR = ("border-left:3px solid #b3261e;background:#fbeeed;color:#5c1410;padding:6px 10px;"
-          "margin:4px 0;font-size:12px;white-space:pre-wrap")
-_WARN = ("border-left:3px solid #b07a2a;background:#fbf5ea;color:#4a3410;padding:4px 10px;"
-         "margin:4px 0;font-size:12px")
-_INFO = ("border-left:3px solid #8c8c8c;background:#f4f4f4;color:#333;padding:6px 10px;"
-         "margin:4px 0;font-size:12px")
 
 # A small cache of rendered charts keyed by the identity of the result objects they draw. Each
 # entry keeps those objects alive, so an id cannot be reused by a new object while the entry lives.
@@ -105,24 +98,11 @@ _SVG_CACHE_SIZE = 48
 # Whether panel fragments carry their SVG charts (the static copy) or leave them to the browser
 # (the live view draws Vega-Lite specs itself); set per call by panel_html / static_html.
 _DRAW_CHARTS: contextvars.ContextVar[bool] = contextvars.ContextVar("seamline_draw_charts", default=True)
-_PENDING = ("border-left:3px solid #1d6470;background:#eef5f6;color:#1d3b40;padding:4px 10px;"
-            "margin:4px 0;font-size:12px")
-_DIM = "opacity:0.45"
 
 
 # ---------------------------------------------------------------------------------------------
-# Reading a board defensively (a failed or missing result must not break the page)
+# What belongs to a panel: its errors, its exports (the board readers are in static_parts)
 # ---------------------------------------------------------------------------------------------
-def _results(board) -> Mapping[str, Any]:
-    results = getattr(board, "results", None)
-    return results if isinstance(results, Mapping) else {}
-
-
-def _errors(board) -> Mapping[str, str]:
-    errors = getattr(board, "errors", None)
-    return errors if isinstance(errors, Mapping) else {}
-
-
 def _panel_errors(board, panel: str) -> list[str]:
     """Error messages that belong to a panel: its own and those of the results it shows."""
     errors = _errors(board)
@@ -136,55 +116,11 @@ def _panel_errors(board, panel: str) -> list[str]:
     return out
 
 
-def _fit(board):
-    fit = _results(board).get("fit")
-    return None if charts.not_applicable_reason(fit) is not None else fit
-
-
 def export_available(board, what: str) -> bool:
     """Whether the board has a current result to export under ``what``."""
     key = EXPORT_RESULTS.get(what, what)
     value = _results(board).get(key)
     return charts.not_applicable_reason(value) is None and panels_designs.has_table(value, what)
-
-
-def error_html(message: str, *, title: str = "This panel could not be computed") -> str:
-    """An error box (class ``seamline-error``) with the message escaped."""
-    return (f'<div class="seamline-error" style="{_ERROR}"><b>{_esc(title)}.</b> '
-            f"{_esc(str(message))}</div>")
-
-
-def _info_html(message: str) -> str:
-    return f'<div class="seamline-info" style="{_INFO}">{_esc(message)}</div>'
-
-
-def _warnings_html(warnings: Iterable[str]) -> str:
-    items = [w for w in dict.fromkeys(str(w) for w in warnings if w)]
-    if not items:
-        return ""
-    body = "".join(f"<li>{_esc(w)}</li>" for w in items)
-    return (f'<div class="seamline-warnings" style="{_WARN}"><b>Check:</b>'
-            f'<ul style="margin:2px 0 0 0;padding-left:18px">{body}</ul></div>')
-
-
-def _table_html(obj, title: str = "") -> str:
-    """HTML of a result table through the result's own (escaping) renderer."""
-    if obj is None:
-        return ""
-    if isinstance(obj, pd.DataFrame):   # a plain frame (the bandwidth rules): reader labels too
-        from ..export.labels import labelled_model
-        from ..export.render import to_html
-        return to_html(labelled_model(obj, title=title))
-    render = getattr(obj, "_repr_html_", None)
-    if render is None:
-        return f"<pre>{_esc(str(obj))}</pre>"
-    return render()
-
-
-def _figure(svg: str) -> str:
-    # The SVG keeps its own size on a wide page and shrinks with a narrow one.
-    svg = svg.replace("<svg ", '<svg style="max-width:100%;height:auto" ', 1)
-    return f'<div class="seamline-chart">{svg}</div>'
 
 
 # ---------------------------------------------------------------------------------------------
@@ -230,18 +166,6 @@ def chart_svg(board, what: str) -> str:
     return svg
 
 
-def _pending(board) -> frozenset:
-    """The results of a board (state) that do not yet belong to its current inputs."""
-    pending = getattr(board, "pending", None)
-    return frozenset(pending) if pending else frozenset()
-
-
-def pending_note(what: str) -> str:
-    """The notice a panel shows while its result is being recomputed for the new inputs."""
-    return (f'<div class="seamline-pending" style="{_PENDING}">Updating {_esc(what)} for the current settings; '
-            "the numbers below (dimmed) belong to the previous ones.</div>")
-
-
 def _chart_or_error(board, what: str) -> str:
     if not _DRAW_CHARTS.get():
         return ""
@@ -254,27 +178,6 @@ def _chart_or_error(board, what: str) -> str:
 # ---------------------------------------------------------------------------------------------
 # Header
 # ---------------------------------------------------------------------------------------------
-def _number(value) -> str:
-    return charts.number(value)
-
-
-def _count(value) -> str:
-    try:
-        return f"{int(value):,}"
-    except (TypeError, ValueError):
-        return "n/a"
-
-
-def _p_text(value) -> str:
-    try:
-        p = float(value)
-    except (TypeError, ValueError):
-        return "p n/a"
-    if not math.isfinite(p):
-        return "p n/a"
-    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
-
-
 def _status_text(board) -> str:
     status = str(getattr(board, "status", "") or "")
     updated = getattr(board, "updated_at", None)
