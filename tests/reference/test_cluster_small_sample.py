@@ -138,6 +138,7 @@ def test_one_row_per_cluster_with_a_uniform_kernel_is_hc2_of_statsmodels():
 @pytest.mark.parametrize("kernel,degree,bandwidth,weights", [
     ("triangular", 1, 0.5, False),
     ("epanechnikov", 2, (0.45, 0.7), True),
+    ("uniform", 0, (0.35, 0.6), True),
 ])
 def test_unclustered_bias_reduced_variance_is_cr2_of_single_rows_with_t_critical_values(kernel, degree, bandwidth,
                                                                                         weights):
