@@ -12,6 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..core.cluster_variance import FitRows, bias_reduced_variance, single_row_variance
+from ..core.single_row_binned import single_row_variance_binned
 from ..core.kernels import kernel_poly
 from ..core.locpoly import SideFit, WindowArrays, _omega_terms, fit_side, variance_fast, window_arrays
 from ..core.moments import window_gram
@@ -146,6 +147,12 @@ class JumpEngine:
         (the fit pools the covariate coefficients across sides): ``variance`` then uses HC2 with
         normal critical values.
         """
+        if not self.direct:
+            # Wide unweighted windows: sums from binned moments, with no pass over the rows.
+            windows = [f.side.count_positive(max(f.h, f.b) if robust else f.h, self.kernel) for f in self.fits]
+            binned = single_row_variance_binned(self.fits, lam, robust, windows)
+            if binned is not None:
+                return binned
         sides = []
         for side, wa in zip(self.sides, self.arrays()):
             # Every row of the window: rows that neither weight nor fit contribute zero terms.
