@@ -37,7 +37,7 @@ def fit_both(frame, monkeypatch, takeup=None, **options):
     monkeypatch.setattr(single_row_binned, "MIN_ROWS", 10 ** 12)
     rows = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", takeup=takeup).fit(
         variance="bias-reduced", **options)
-    monkeypatch.setattr(single_row_binned, "MIN_ROWS", 20_000)
+    monkeypatch.setattr(single_row_binned, "MIN_ROWS", 20_000)   # the test windows are smaller than the default
     calls = []
     original = single_row_binned._binned
     monkeypatch.setattr(single_row_binned, "_binned", lambda *a: calls.append(1) or original(*a))

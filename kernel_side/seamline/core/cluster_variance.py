@@ -139,12 +139,14 @@ def single_row_variance(sides: tuple[FitRows, ...]) -> tuple[float, float]:
         m2 = m1 @ kernel_moments[1][hankel] @ m1                    # G^-1 R'K^2R G^-1
         b = 1.0 + _quadratic_form(m2, u) - 2.0 * k * _quadratic_form(m1, u)
         d = np.where(b > _SINGULAR, side.weights ** 2 / np.maximum(b, _SINGULAR), 0.0)
-        variance += float(d @ side.residuals ** 2)
-        trace += float(d @ b)                              # sum d_i + sum f_i
+        # Sums by einsum, not BLAS: a threaded BLAS call on vectors this long can stall for tens of
+        # milliseconds when the machine's cores are busy.
+        variance += float(np.einsum("i,i->", d, side.residuals ** 2))
+        trace += float(np.einsum("i,i->", d, b))          # sum d_i + sum f_i
         moments = _moments(np.stack([d, d * k, d * k * k]), u, 2 * r - 1)
         p_rr, p_rk, p_kk = (moments[j][hankel] for j in range(3))
         wp = np.block([[m2, -m1], [-m1, np.zeros_like(m1)]]) @ np.block([[p_rr, p_rk], [p_rk.T, p_kk]])
-        trace_sq += float(d @ (d * (2.0 * b - 1.0)) + np.trace(wp @ wp))   # sum d^2 + 2 sum d f + tr(WPWP)
+        trace_sq += float(np.einsum("i,i->", d, d * (2.0 * b - 1.0)) + np.trace(wp @ wp))   # sum d^2 + 2 sum d f + tr(WPWP)
     return variance, (float(trace ** 2 / trace_sq) if trace_sq > 0 else float("nan"))
 
 
@@ -167,7 +169,7 @@ def _moments(weights: np.ndarray, u: np.ndarray, count: int) -> np.ndarray:
     out = np.empty((weights.shape[0], count))
     power = np.ones_like(u)
     for m in range(count):
-        out[:, m] = weights @ power
+        out[:, m] = np.einsum("ji,i->j", weights, power)
         if m + 1 < count:
             power *= u
     return out

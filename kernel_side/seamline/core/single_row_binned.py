@@ -30,7 +30,7 @@ from .kernels import kernel_poly
 from .side import Side
 
 ORDER = 8                 # Taylor terms (d - c)^0 .. (d - c)^ORDER
-MIN_ROWS = 20_000         # below this many window rows per side the row-by-row pass is as cheap
+MIN_ROWS = 100_000        # below this many window rows on a side the row-by-row pass is cheaper
 _WIDEST = 1.0 / 32        # a bin wider than this share of the window is summed row by row
 _TARGET_BINS = 2048
 DEGREE = 20              # highest power of x a summed polynomial may have (16 are used at q = 2)
@@ -38,36 +38,49 @@ DEGREE = 20              # highest power of x a summed polynomial may have (16 a
 
 @dataclass(frozen=True)
 class SideBins:
-    """Bins of a side's sorted rows with their moments sum Y (d - c)^k, k <= ORDER."""
-    starts: np.ndarray     # (G + 1,) first row of each bin, and n
+    """Bins of a side's first sorted rows with their moments sum Y (d - c)^k, k <= ORDER. Every bin
+    holds ``size`` rows; rows past the last whole bin are summed row by row."""
+    starts: np.ndarray     # (G + 1,) first row of each bin, and the end of the last
     low: np.ndarray        # (G,) smallest and largest distance in each bin
     high: np.ndarray
     centre: np.ndarray     # (G,) (low + high) / 2
     moments: np.ndarray    # (Y, G, ORDER + 1): Y = 1, then y_v, then y_v y_w (v <= w)
-    n_vars: int
 
 
-def side_bins(side: Side, n_vars: int) -> SideBins:
-    """Bins and moments of ``side`` for its first ``n_vars`` variables (cached on the side)."""
+def side_bins(side: Side, n_vars: int, rows: int) -> SideBins:
+    """Bins and moments of ``side``'s first variables, covering at least its first ``rows`` rows
+    (cached on the side and extended, by doubling, when a wider window needs more). The bins depend
+    only on the side, so a sum does not depend on which windows came before."""
     cache = side.__dict__.setdefault("_single_row_bins", {})
-    if n_vars not in cache:
-        d, n = side.distance, side.n
-        size = max(64, -(-n // _TARGET_BINS))
-        starts = np.r_[np.arange(0, n, size), n]
-        low, high = d[starts[:-1]], d[starts[1:] - 1]
-        centre = 0.5 * (low + high)
-        t = d - np.repeat(centre, np.diff(starts))
-        vals = side.values[:, :n_vars]
-        series = [None] + [vals[:, v] for v in range(n_vars)]
-        series += [vals[:, v] * vals[:, w] for v in range(n_vars) for w in range(v, n_vars)]
-        moments = np.empty((len(series), len(centre), ORDER + 1))
-        power = np.ones(n)
-        for k in range(ORDER + 1):
-            for j, y in enumerate(series):
-                moments[j, :, k] = np.add.reduceat(power if y is None else y * power, starts[:-1])
-            power *= t
-        cache[n_vars] = SideBins(starts, low, high, centre, moments, n_vars)
+    size = max(64, -(-side.n // _TARGET_BINS))
+    held = cache.get(n_vars)
+    if held is None or (held.starts[-1] < rows and held.starts[-1] + size <= side.n):
+        have = 0 if held is None else int(held.starts[-1])
+        want = min(side.n // size, max(-(-rows // size), 2 * have // size))
+        cache[n_vars] = _build_bins(side, n_vars, size, want)
     return cache[n_vars]
+
+
+def _build_bins(side: Side, n_vars: int, size: int, count: int, chunk: int = 256) -> SideBins:
+    starts = np.arange(count + 1) * size
+    d = side.distance[: count * size].reshape(count, size)
+    low, high = d[:, 0], d[:, -1]
+    centre = 0.5 * (low + high)
+    vals = side.values[: count * size, :n_vars].reshape(count, size, n_vars)
+    pairs = [(v, w) for v in range(n_vars) for w in range(v, n_vars)]
+    moments = np.empty((1 + n_vars + len(pairs), count, ORDER + 1))
+    for g0 in range(0, count, chunk):        # a few bins at a time: (chunk, size, ORDER + 1) temporaries
+        g1 = min(count, g0 + chunk)
+        t = d[g0:g1] - centre[g0:g1, None]
+        powers = np.empty((g1 - g0, size, ORDER + 1))
+        powers[..., 0] = 1.0
+        for k in range(1, ORDER + 1):
+            np.multiply(powers[..., k - 1], t, out=powers[..., k])
+        v = vals[g0:g1]
+        series = np.concatenate([np.ones((g1 - g0, size, 1)), v] + [v[..., i: i + 1] * v[..., j: j + 1]
+                                                                    for i, j in pairs], axis=2)
+        moments[:, g0:g1, :] = np.matmul(series.transpose(0, 2, 1), powers).transpose(1, 0, 2)
+    return SideBins(starts, low, high, centre, moments)
 
 
 def usable(side: Side, window_rows: int) -> bool:
@@ -144,8 +157,8 @@ class _Sums:
         side = sf.side
         self.big = max(sf.h, sf.b) if robust else sf.h
         self.zones = _zones(sf, lam, robust, self.big)
-        bins = side_bins(side, len(lam))
-        last = int(np.searchsorted(bins.starts, window_rows, side="left"))   # bins touching the window
+        bins = side_bins(side, len(lam), window_rows)
+        last = min(int(np.searchsorted(bins.starts, window_rows, side="left")), len(bins.centre))
         low, high = bins.low[:last], bins.high[:last]
         narrow = ((high - low) <= _WIDEST * self.big) & (bins.starts[1: last + 1] <= window_rows)
         covered = np.zeros(last, dtype=bool)
@@ -161,6 +174,7 @@ class _Sums:
             yy = sum((1.0 if v == w else 2.0) * lam[v] * lam[w] * m[1 + nv + j] for j, (v, w) in enumerate(pairs))
             self.smooth.append((bins.centre[:last][take] / self.big, (m[0], y, yy)))
         rows = [np.arange(bins.starts[g], min(bins.starts[g + 1], window_rows)) for g in np.flatnonzero(~covered)]
+        rows.append(np.arange(bins.starts[-1], window_rows))     # past the last whole bin
         rows = np.concatenate(rows) if rows else np.zeros(0, dtype=int)
         d = side.distance[rows]
         self.direct = []             # per zone: (x, y) of the rows summed one by one
@@ -195,14 +209,15 @@ class _Sums:
             else:
                 w = s
             # V_n = sum_bins sum_j C(n, j) xc^(n - j) w_j
-            z_mat = np.vander(xc, DEGREE + 1, increasing=True).T @ w   # (DEGREE + 1, ORDER + 1)
+            # (DEGREE + 1, ORDER + 1); einsum rather than a threaded BLAS call (see cluster_variance)
+            z_mat = np.einsum("gn,gk->nk", np.vander(xc, DEGREE + 1, increasing=True), w)
             out = np.array([sum(comb(n, j) * z_mat[n - j, j] for j in range(min(n, ORDER) + 1))
                             for n in range(DEGREE + 1)])
             xd, yd = self.direct[z]
             weight = yd ** y
             if power:
                 weight = weight / P.polyval(xd, self.b_polys[z]) ** power
-            out += np.vander(xd, DEGREE + 1, increasing=True).T @ weight
+            out += np.einsum("gn,g->n", np.vander(xd, DEGREE + 1, increasing=True), weight)
             self._cache[key] = out
         return self._cache[key]
 
