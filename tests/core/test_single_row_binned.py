@@ -106,3 +106,35 @@ def test_weighted_designs_and_small_windows_go_row_by_row(frame):
     windows = [f.side.count_positive(f.h, f.kernel) for f in engine.fits]
     assert single_row_binned.single_row_variance_binned(engine.fits, np.eye(1)[0], False, windows) is None
     assert engine_fit.std_error > 0
+
+
+def test_donut_and_placebo_sides_take_their_bins_from_the_design_sides(frame, monkeypatch):
+    """A donut's tail and a placebo cutoff's sides are runs of the design's sorted sides: their bins
+    are the design's, moved and re-centred (reversed for a placebo side's near part)."""
+    def both(run):
+        monkeypatch.setattr(single_row_binned, "MIN_ROWS", 10 ** 12)
+        rows = run(seamline.Design(frame, score="x", cutoff=0.0, outcome="y"))
+        monkeypatch.setattr(single_row_binned, "MIN_ROWS", 20_000)
+        cut = []
+        original = single_row_binned._cut_bins
+        monkeypatch.setattr(single_row_binned, "_cut_bins", lambda *a: cut.append(a[-1]) or original(*a))
+        binned = run(seamline.Design(frame, score="x", cutoff=0.0, outcome="y"))
+        monkeypatch.setattr(single_row_binned, "_cut_bins", original)
+        return rows, binned, cut
+
+    def donut(design):
+        design.fit(variance="bias-reduced", bandwidth=0.5)
+        return design.fit(variance="bias-reduced", bandwidth=0.5, donut=0.04)
+
+    rows, binned, cut = both(donut)
+    assert cut and not any(cut)                      # tails, not reversed
+    assert binned.std_error == pytest.approx(rows.std_error, rel=1e-10)
+    assert binned.robust_std_error == pytest.approx(rows.robust_std_error, rel=1e-10)
+    assert binned.dof[1] == pytest.approx(rows.dof[1], rel=1e-7)
+
+    def placebo(design):
+        design.fit(variance="bias-reduced", bandwidth=0.5)
+        return design.placebo_cutoffs(cutoffs=[0.3, -0.35], variance="bias-reduced", bandwidth=0.25).table()
+    rows, binned, cut = both(placebo)
+    assert True in cut and False in cut              # a head reversed and a tail
+    pd.testing.assert_frame_equal(binned, rows, check_exact=False, rtol=1e-9)

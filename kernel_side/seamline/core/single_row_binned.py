@@ -49,8 +49,13 @@ class SideBins:
 
 def side_bins(side: Side, n_vars: int, rows: int) -> SideBins:
     """Bins and moments of ``side``'s first variables, covering at least its first ``rows`` rows
-    (cached on the side and extended, by doubling, when a wider window needs more). The bins depend
-    only on the side, so a sum does not depend on which windows came before."""
+    (cached on the side and extended, by doubling, when a wider window needs more). A side cut from
+    another (a donut's tail, a placebo cutoff's side: ``Side.cut_from``) takes the bins of the side it
+    is cut from, moved to its own distances and means, so a donut or placebo fit reads no rows for
+    them. The bins depend only on the sides, so a sum does not depend on which windows came before."""
+    base = side._nn_base
+    if base is not None and base[0].values.shape[1] == side.values.shape[1]:
+        return _cut_bins(side, n_vars, rows, *base)
     cache = side.__dict__.setdefault("_single_row_bins", {})
     size = max(64, -(-side.n // _TARGET_BINS))
     held = cache.get(n_vars)
@@ -59,6 +64,37 @@ def side_bins(side: Side, n_vars: int, rows: int) -> SideBins:
         want = min(side.n // size, max(-(-rows // size), 2 * have // size))
         cache[n_vars] = _build_bins(side, n_vars, size, want)
     return cache[n_vars]
+
+
+def _cut_bins(side: Side, n_vars: int, rows: int, base: Side, start: int, reversed_: bool) -> SideBins:
+    """The whole bins of ``base`` that lie inside ``side`` (its rows ``start + i``, or reversed
+    ``start - 1 - i``), in ``side``'s distances (d' = d - shift, or shift - d) and centred on its means."""
+    full = side_bins(base, n_vars, start if reversed_ else start + rows)
+    b_starts = full.starts
+    if reversed_:
+        keep = np.flatnonzero(b_starts[1:] <= start)[::-1]
+        shift = side.distance[0] + base.distance[start - 1] if len(keep) else 0.0
+        new_starts = start - np.r_[b_starts[keep + 1], b_starts[keep[-1]] if len(keep) else start]
+        centre = shift - full.centre[keep]
+        moments = full.moments[:, keep, :] * (-1.0) ** np.arange(ORDER + 1)   # (d' - c') = -(d - c)
+    else:
+        keep = np.flatnonzero(b_starts[:-1] >= start)
+        shift = base.distance[start] - side.distance[0] if start < base.n else 0.0
+        new_starts = np.r_[b_starts[keep], b_starts[keep[-1] + 1] if len(keep) else start] - start
+        centre = full.centre[keep] - shift
+        moments = full.moments[:, keep, :].copy()
+    if not len(keep):
+        new_starts = np.zeros(1, dtype=int)
+    # Re-centre the variables: y' = y + delta with delta = base offsets - this side's offsets.
+    delta = (base.offsets - side.offsets)[:n_vars]
+    pairs = [(v, w) for v in range(n_vars) for w in range(v, n_vars)]
+    one, ys = moments[0], moments[1: 1 + n_vars].copy()
+    for j, (v, w) in enumerate(pairs):
+        moments[1 + n_vars + j] += delta[w] * ys[v] + delta[v] * ys[w] + delta[v] * delta[w] * one
+    moments[1: 1 + n_vars] += delta[:, None, None] * one
+    low = side.distance[new_starts[:-1]] if len(keep) else np.zeros(0)
+    high = side.distance[new_starts[1:] - 1] if len(keep) else np.zeros(0)
+    return SideBins(new_starts, low, high, centre, moments)
 
 
 def _build_bins(side: Side, n_vars: int, size: int, count: int, chunk: int = 256) -> SideBins:
@@ -174,6 +210,7 @@ class _Sums:
             yy = sum((1.0 if v == w else 2.0) * lam[v] * lam[w] * m[1 + nv + j] for j, (v, w) in enumerate(pairs))
             self.smooth.append((bins.centre[:last][take] / self.big, (m[0], y, yy)))
         rows = [np.arange(bins.starts[g], min(bins.starts[g + 1], window_rows)) for g in np.flatnonzero(~covered)]
+        rows.append(np.arange(min(bins.starts[0], window_rows)))  # before the first whole bin
         rows.append(np.arange(bins.starts[-1], window_rows))     # past the last whole bin
         rows = np.concatenate(rows) if rows else np.zeros(0, dtype=int)
         d = side.distance[rows]
