@@ -30,10 +30,19 @@ from .kernels import kernel_poly
 from .side import Side
 
 ORDER = 8                 # Taylor terms (d - c)^0 .. (d - c)^ORDER
-MIN_ROWS = 100_000        # below this many window rows on a side the row-by-row pass is cheaper
+MIN_ROWS = 30_000         # below this many window rows on a side the row-by-row pass is cheaper
 _WIDEST = 1.0 / 32        # a bin wider than this share of the window is summed row by row
 _TARGET_BINS = 2048
 DEGREE = 20              # highest power of x a summed polynomial may have (16 are used at q = 2)
+
+
+# Index tables for the moment contractions (see _Sums._moments).
+_SHIFT = np.add.outer(np.arange(ORDER + 1), np.arange(ORDER + 1))          # [j, m] -> j + m
+_BINOMIAL_N, _BINOMIAL_J = (a.ravel() for a in np.meshgrid(np.arange(DEGREE + 1), np.arange(ORDER + 1), indexing="ij"))
+_keep = _BINOMIAL_J <= _BINOMIAL_N
+_BINOMIAL_N, _BINOMIAL_J = _BINOMIAL_N[_keep], _BINOMIAL_J[_keep]
+_BINOMIAL = np.array([comb(int(n), int(j)) for n, j in zip(_BINOMIAL_N, _BINOMIAL_J)], dtype=float)
+del _keep
 
 
 @dataclass(frozen=True)
@@ -241,21 +250,27 @@ class _Sums:
             if power:
                 inv = _reciprocal(_series(self.b_polys[z], xc))
                 c = inv if power == 1 else _times(inv, inv)
-                # w_j = sum_{k >= j} c_(k - j) s_k: the series of 1/B^power folded into the moments
-                w = np.stack([np.einsum("ij,ij->i", c[:, : ORDER + 1 - j], s[:, j:]) for j in range(ORDER + 1)], 1)
+                # w_j = sum_{m} c_m s_(j + m): the series of 1/B^power folded into the moments
+                padded = np.concatenate([s, np.zeros_like(s)], axis=1)
+                w = np.einsum("gm,gjm->gj", c, padded[:, _SHIFT])
             else:
                 w = s
-            # V_n = sum_bins sum_j C(n, j) xc^(n - j) w_j
-            # (DEGREE + 1, ORDER + 1); einsum rather than a threaded BLAS call (see cluster_variance)
-            z_mat = np.einsum("gn,gk->nk", np.vander(xc, DEGREE + 1, increasing=True), w)
-            out = np.array([sum(comb(n, j) * z_mat[n - j, j] for j in range(min(n, ORDER) + 1))
-                            for n in range(DEGREE + 1)])
+            # V_n = sum_bins sum_j C(n, j) xc^(n - j) w_j; einsum rather than a threaded BLAS call
+            z_mat = np.einsum("gn,gk->nk", self._vander(z), w)      # (DEGREE + 1, ORDER + 1)
+            out = np.bincount(_BINOMIAL_N, weights=_BINOMIAL * z_mat[_BINOMIAL_N - _BINOMIAL_J, _BINOMIAL_J],
+                              minlength=DEGREE + 1)
             xd, yd = self.direct[z]
             weight = yd ** y
             if power:
                 weight = weight / P.polyval(xd, self.b_polys[z]) ** power
             out += np.einsum("gn,g->n", np.vander(xd, DEGREE + 1, increasing=True), weight)
             self._cache[key] = out
+        return self._cache[key]
+
+    def _vander(self, z: int) -> np.ndarray:
+        key = ("vander", z)
+        if key not in self._cache:
+            self._cache[key] = np.vander(self.smooth[z][0], DEGREE + 1, increasing=True)
         return self._cache[key]
 
 
