@@ -10,7 +10,8 @@ Kalyanaraman 2012), as written out in tests/reference/test_monte_carlo.py. Three
                                                    (bias) bandwidth rule and ratio rho = h/b, Models 1-3
                                                    (default 1000 replications at n = 500 and 2000);
                                                    --rules "a;b" runs only the named rows of
-                                                   INTERVAL_RULES (the default row always runs)
+                                                   INTERVAL_RULES (the neighbour-variance row, the
+                                                   base of the length ratios, always runs)
     validate_monte_carlo.py measure                the larger runs whose results the Monte Carlo
                                                    tests record (tests/reference/test_monte_carlo.py,
                                                    the placebo test in tests/diagnostics)
@@ -64,8 +65,9 @@ def measure() -> None:
         a = np.vstack([fits(model, 500, 500, 100 + s) for s in range(16)])
         print(f"Model {model}, n = 500, default fit:", summary(a, MODELS[model][2]), flush=True)
     h = MODELS[1][3]
-    a = np.vstack([fits(1, 500, 500, 900 + s, bandwidth=h, pilot_bandwidth=h) for s in range(8)])
-    print(f"Model 1, n = 500, h = b = {h}:", summary(a, MODELS[1][2]), flush=True)
+    a = np.vstack([fits(1, 500, 500, 900 + s, bandwidth=h, pilot_bandwidth=h, variance="neighbors")
+                   for s in range(8)])
+    print(f"Model 1, n = 500, h = b = {h}, neighbour variance:", summary(a, MODELS[1][2]), flush=True)
     sys.path.insert(0, str(ROOT / "tests" / "diagnostics"))
     from test_diagnostics import lee
     shares = []
@@ -104,16 +106,20 @@ def table(reps: int) -> None:
 
 
 # Candidates for the robust interval at estimated bandwidths (issue 9): name -> (label, fit options, refit).
-# A refit starts from the first fit's selected bandwidths: "b = h" puts the bias fit at the selected h
-# (rho = 1, Calonico, Cattaneo & Farrell 2018); "hc3 at default bandwidths" keeps the default selection
-# (neighbour variances) and computes the interval's variance with HC3; "hc2, Bell-McCaffrey" computes it
-# as CR2 with one cluster per observation (= HC2 with the fit's kernel weights) and a t critical value
-# with the Bell-McCaffrey degrees of freedom (Bell and McCaffrey 2002; Imbens and Kolesar 2016, who
-# recommend this pair for small samples without clusters too).
-def _same_b(variance=None):
+# The pilot-rule rows keep the earlier default variance (neighbours, normal critical values), the
+# variance rows the default bandwidths. A refit starts from the first fit's selected bandwidths: "b = h"
+# puts the bias fit at the selected h (rho = 1, Calonico, Cattaneo & Farrell 2018); "HC3 interval" keeps
+# the selection and computes the interval's variance with HC3; "HC2 + BM dof" computes it as CR2 with one
+# cluster per observation (a cluster design, the check that the default "bias-reduced" variance, which
+# computes the same without clusters, is what was measured) and t critical values on the Bell-McCaffrey
+# degrees of freedom (Bell and McCaffrey 2002; Imbens and Kolesar 2016, who recommend the pair in small
+# samples without clusters too).
+NN = {"variance": "neighbors"}
+
+
+def _same_b(variance="neighbors"):
     def refit(design, data, f):
-        extra = {} if variance is None else {"variance": variance}
-        return design.fit(bandwidth=f.bandwidth, pilot_bandwidth=f.bandwidth, **extra)
+        return design.fit(bandwidth=f.bandwidth, pilot_bandwidth=f.bandwidth, variance=variance)
     return refit
 
 
@@ -125,31 +131,33 @@ def _at_bandwidths(variance):
 
 def _bell_mccaffrey(design, data, f):
     own = seamline.Design(data.assign(unit=np.arange(len(data))), score="x", cutoff=0.0, outcome="y",
-                          cluster="unit")
+                          cluster="unit")  # bias-reduced cluster variance, one cluster per row
     return own.fit(bandwidth=f.bandwidth, pilot_bandwidth=f.pilot_bandwidth)
 
 
 INTERVAL_RULES = {
-    "default": ("nearer-half pilot (default)", {}, None),
-    "coverage": ("nearer-half, coverage h", {"bandwidth": "coverage"}, None),
-    "b=h": ("nearer-half, b = h", {}, _same_b()),
-    "coverage,b=h": ("nearer-half, coverage h, b = h", {"bandwidth": "coverage"}, _same_b()),
-    "two-step": ("two-step pilot (CCT 2014)", {"pilot_bandwidth": "two-step"}, None),
-    "two-step,coverage": ("two-step, coverage h", {"pilot_bandwidth": "two-step", "bandwidth": "coverage"}, None),
-    "two-step,b=h": ("two-step, b = h", {"pilot_bandwidth": "two-step"}, _same_b()),
-    "two-step,coverage,b=h": ("two-step, coverage h, b = h",
-                              {"pilot_bandwidth": "two-step", "bandwidth": "coverage"}, _same_b()),
+    "neighbors": ("neighbour variance (earlier default)", NN, None),
+    "default": ("bias-reduced variance (default)", {}, None),
+    "coverage": ("NN: nearer-half, coverage h", {**NN, "bandwidth": "coverage"}, None),
+    "b=h": ("NN: nearer-half, b = h", NN, _same_b()),
+    "coverage,b=h": ("NN: nearer-half, coverage h, b = h", {**NN, "bandwidth": "coverage"}, _same_b()),
+    "two-step": ("NN: two-step pilot (CCT 2014)", {**NN, "pilot_bandwidth": "two-step"}, None),
+    "two-step,coverage": ("NN: two-step, coverage h", {**NN, "pilot_bandwidth": "two-step",
+                                                       "bandwidth": "coverage"}, None),
+    "two-step,b=h": ("NN: two-step, b = h", {**NN, "pilot_bandwidth": "two-step"}, _same_b()),
+    "two-step,coverage,b=h": ("NN: two-step, coverage h, b = h",
+                              {**NN, "pilot_bandwidth": "two-step", "bandwidth": "coverage"}, _same_b()),
     "hc3": ("nearer-half, HC3 variance", {"variance": "hc3"}, None),
     "hc2": ("nearer-half, HC2 variance", {"variance": "hc2"}, None),
-    "hc3-interval": ("default bandwidths, HC3 interval", {}, _at_bandwidths("hc3")),
-    "hc2-interval": ("default bandwidths, HC2 interval", {}, _at_bandwidths("hc2")),
-    "hc2-bm": ("default bandwidths, HC2 + BM dof", {}, _bell_mccaffrey),
+    "hc3-interval": ("NN bandwidths, HC3 interval", NN, _at_bandwidths("hc3")),
+    "hc2-interval": ("NN bandwidths, HC2 interval", NN, _at_bandwidths("hc2")),
+    "hc2-bm": ("NN bandwidths, HC2 + BM dof", NN, _bell_mccaffrey),
     "hc3,coverage": ("HC3, coverage h", {"variance": "hc3", "bandwidth": "coverage"}, None),
     "hc3,b=h": ("HC3, b = h", {"variance": "hc3"}, _same_b("hc3")),
     "hc3,two-step": ("HC3, two-step pilot", {"variance": "hc3", "pilot_bandwidth": "two-step"}, None),
 }
-DEFAULT_INTERVAL_RULES = ("default", "coverage", "b=h", "coverage,b=h", "two-step", "two-step,coverage",
-                          "two-step,b=h", "two-step,coverage,b=h", "hc3")
+DEFAULT_INTERVAL_RULES = ("neighbors", "default", "coverage", "b=h", "coverage,b=h", "two-step",
+                          "two-step,coverage", "two-step,b=h", "two-step,coverage,b=h", "hc3")
 
 
 def interval_rows(model: int, n: int, reps: int, seed: int, options: dict, refit) -> np.ndarray:
@@ -167,11 +175,11 @@ def interval_rows(model: int, n: int, reps: int, seed: int, options: dict, refit
 
 
 def intervals(reps: int, sizes: tuple[int, ...], names: tuple[str, ...] = DEFAULT_INTERVAL_RULES) -> None:
-    """Robust coverage, mean length (and its ratio to the default's), median h and b per candidate.
+    """Robust coverage, mean length (and its ratio to the earlier default's), median h and b per candidate.
 
-    The default row always runs first: lengths are relative to it."""
-    names = ("default",) + tuple(n for n in names if n != "default")
-    print("cov = robust 95% coverage, len = mean length (x default), h / b = median bandwidth / pilot")
+    The earlier default (neighbour variance) always runs first: lengths are relative to it."""
+    names = ("neighbors",) + tuple(n for n in names if n != "neighbors")
+    print("cov = robust 95% coverage, len = mean length (x neighbour-variance row), h / b = median bandwidth / pilot")
     for n in sizes:
         print(f"\nn = {n}, {reps} draws per model")
         print(f"{'rule':>33} | " + " | ".join(f"M{m} {'cov':>5} {'len':>6} {'(x)':>5} {'h':>6} {'b':>6}"

@@ -389,7 +389,7 @@ def test_every_panel_equals_the_direct_design_call_after_a_setting(name, value, 
     b.wait()
     spec = {**s.design_kwargs(), "covariates": ["age", "prior_math", "free_lunch"]}
     options = {"outcome": spec["outcome"][0], "bandwidth": "mse", "kernel": "triangular", "degree": 1,
-               "bias_degree": None, "pilot_bandwidth": None, "variance": "neighbors", "level": 0.95,
+               "bias_degree": None, "pilot_bandwidth": None, "variance": "bias-reduced", "level": 0.95,
                "donut": 0.0, "derivative": 0, "adjust": False}
     inference = {}
     if name in options:

@@ -138,6 +138,7 @@ def test_one_row_per_cluster_with_a_uniform_kernel_is_hc2_of_statsmodels():
 @pytest.mark.parametrize("kernel,degree,bandwidth,weights", [
     ("triangular", 1, 0.5, False),
     ("epanechnikov", 2, (0.45, 0.7), True),
+    ("uniform", 0, (0.35, 0.6), True),
 ])
 def test_unclustered_bias_reduced_variance_is_cr2_of_single_rows_with_t_critical_values(kernel, degree, bandwidth,
                                                                                         weights):
@@ -206,10 +207,15 @@ def test_a_fuzzy_design_uses_cr2_for_the_ratio_and_the_first_stage():
     assert fit.first_stage.dof[0] == pytest.approx(sharp.dof[0], rel=1e-10)
 
 
-def test_unclustered_fits_are_untouched():
+def test_unclustered_fits_have_no_cluster_variance_and_normal_critical_values_off_the_default():
     frame = clustered_data()
-    fit = seamline.Design(frame, score="x", cutoff=0.0, outcome="y").fit(bandwidth=0.5)
-    assert fit.dof == (None, None) and fit.cluster_variance is None
+    design = seamline.Design(frame, score="x", cutoff=0.0, outcome="y")
+    for variance in ("neighbors", "hc0", "hc1", "hc2", "hc3"):
+        fit = design.fit(bandwidth=0.5, variance=variance)
+        assert fit.dof == (None, None) and fit.cluster_variance is None
+    default = design.fit(bandwidth=0.5)     # the default: bias-reduced, t critical values
+    assert default.variance == "bias-reduced" and default.cluster_variance is None
+    assert all(d is not None and d > 1 for d in default.dof)
 
 
 def test_unknown_cluster_variance_is_refused():

@@ -34,9 +34,9 @@ class FitRows:
     """One side's weighted polynomial fit, as the variance needs it (rows of the window only)."""
     weights: np.ndarray       # estimator weights a_i (sign of the side included)
     residuals: np.ndarray     # residuals e_i of the fit
-    basis: np.ndarray         # (rows, r) polynomial basis r(x_i)
+    basis: np.ndarray         # (rows, r) polynomial basis r(x_i) = (1, u_i, u_i^2, ...)
     fit_weights: np.ndarray   # kernel x sampling weights of the fit, K_i
-    clusters: np.ndarray      # cluster codes (non-negative integers)
+    clusters: np.ndarray | None = None   # cluster codes (non-negative integers); None: one row each
 
     @property
     def bread(self) -> np.ndarray:
@@ -63,6 +63,8 @@ def bias_reduced_variance(sides: tuple[FitRows, ...]) -> tuple[float, float]:
     -------
     (variance, degrees_of_freedom)
     """
+    if any(s.clusters is None for s in sides):
+        return single_row_variance(sides)
     blocks = [_blocks(s) for s in sides]
     r = [s.basis.shape[1] for s in sides]
     codes = np.concatenate([s.clusters for s in sides])
@@ -75,7 +77,7 @@ def bias_reduced_variance(sides: tuple[FitRows, ...]) -> tuple[float, float]:
     u = np.zeros((n_groups, width))
     d = np.zeros(n_groups)
     if n_groups == len(codes):             # one row per cluster (HC2-like): B_g is a number
-        return _single_rows(sides, blocks, r, order, side_of, row_of, u, d)
+        return single_row_variance(sides)
     groups = np.split(order, bounds)
     variance = 0.0
     for g, members in enumerate(groups):
@@ -113,24 +115,64 @@ def bias_reduced_variance(sides: tuple[FitRows, ...]) -> tuple[float, float]:
     return variance, _degrees_of_freedom(blocks, u, d)
 
 
-def _single_rows(sides, blocks, r, order, side_of, row_of, u, d) -> tuple[float, float]:
-    """The loop of ``bias_reduced_variance`` when every cluster is one row, vectorised per side:
-    B_i = 1 + r_i' M2 r_i - 2 K_i r_i' M1 r_i, v_i = a_i B_i^(-1/2) (0 where B_i vanishes)."""
-    variance, col = 0.0, 0
-    for j, side in enumerate(sides):
-        at = np.flatnonzero(side_of[order] == j)       # positions of side j's rows among the groups
-        rows = row_of[order][at]
-        basis, k = side.basis[rows], side.fit_weights[rows]
-        m1, m2 = blocks[j]
-        b = (1.0 + np.einsum("ij,jk,ik->i", basis, m2, basis)
-             - 2.0 * k * np.einsum("ij,jk,ik->i", basis, m1, basis))
-        v = np.where(b > _SINGULAR, side.weights[rows] / np.sqrt(np.maximum(b, _SINGULAR)), 0.0)
-        variance += float(np.sum((v * side.residuals[rows]) ** 2))
-        d[at] = v ** 2
-        u[at, col: col + r[j]] = basis * v[:, None]
-        u[at, col + r[j]: col + 2 * r[j]] = basis * (k * v)[:, None]
-        col += 2 * r[j]
-    return variance, _degrees_of_freedom(blocks, u, d)
+def single_row_variance(sides: tuple[FitRows, ...]) -> tuple[float, float]:
+    """``bias_reduced_variance`` when every cluster is one row (HC2 with Bell-McCaffrey degrees of
+    freedom), in a few passes over each side's rows: no cluster codes are read or sorted.
+
+    With one row per cluster, B_i = 1 + r_i' M2 r_i - 2 K_i r_i' M1 r_i is a number and
+    v_i = a_i B_i^(-1/2) (0 where B_i vanishes). The pieces of the degrees of freedom reduce to
+    d_i = v_i^2, f_i = d_i (B_i - 1) and, per side, P = U'U with u_i = v_i [r_i, K_i r_i]: every sum
+    is over rows, and P is a (2r x 2r) matrix per side because a row touches its own side only.
+    The basis rows are powers (1, u, u^2, ...) of one variable, so each quadratic form r_i' M r_i is a
+    polynomial in u_i (evaluated by Horner's rule) and P is read off the moments sum d_i K_i^j u_i^m:
+    about fifteen times fewer operations than the matrix products. Rows where both a_i and K_i are
+    zero contribute nothing, so ``clusters`` is not read.
+    """
+    variance = trace = trace_sq = 0.0
+    for side in sides:
+        r = side.basis.shape[1]
+        u = side.basis[:, 1] if r > 1 else np.zeros(len(side.weights))
+        k = side.fit_weights
+        hankel = np.add.outer(np.arange(r), np.arange(r))
+        kernel_moments = _moments(np.stack([k, k * k]), u, 2 * r - 1)
+        m1 = np.linalg.inv(kernel_moments[0][hankel])                # G^-1, G = R'KR
+        m2 = m1 @ kernel_moments[1][hankel] @ m1                    # G^-1 R'K^2R G^-1
+        b = 1.0 + _quadratic_form(m2, u) - 2.0 * k * _quadratic_form(m1, u)
+        d = np.where(b > _SINGULAR, side.weights ** 2 / np.maximum(b, _SINGULAR), 0.0)
+        # Sums by einsum, not BLAS: a threaded BLAS call on vectors this long can stall for tens of
+        # milliseconds when the machine's cores are busy.
+        variance += float(np.einsum("i,i->", d, side.residuals ** 2))
+        trace += float(np.einsum("i,i->", d, b))          # sum d_i + sum f_i
+        moments = _moments(np.stack([d, d * k, d * k * k]), u, 2 * r - 1)
+        p_rr, p_rk, p_kk = (moments[j][hankel] for j in range(3))
+        wp = np.block([[m2, -m1], [-m1, np.zeros_like(m1)]]) @ np.block([[p_rr, p_rk], [p_rk.T, p_kk]])
+        trace_sq += float(np.einsum("i,i->", d, d * (2.0 * b - 1.0)) + np.trace(wp @ wp))   # sum d^2 + 2 sum d f + tr(WPWP)
+    return variance, (float(trace ** 2 / trace_sq) if trace_sq > 0 else float("nan"))
+
+
+def _quadratic_form(m: np.ndarray, u: np.ndarray) -> np.ndarray:
+    """r_i' M r_i for r_i = (1, u_i, ..., u_i^(r-1)): the polynomial with coefficients
+    c_m = sum_{j+l=m} M_jl, by Horner's rule."""
+    r = m.shape[0]
+    coef = np.zeros(2 * r - 1)
+    for j in range(r):
+        coef[j: j + r] += m[j]
+    out = np.full(len(u), coef[-1])
+    for c in coef[-2::-1]:
+        out *= u
+        out += c
+    return out
+
+
+def _moments(weights: np.ndarray, u: np.ndarray, count: int) -> np.ndarray:
+    """sum_i weights[j, i] u_i^m for m < count: one (rows x j) product per power."""
+    out = np.empty((weights.shape[0], count))
+    power = np.ones_like(u)
+    for m in range(count):
+        out[:, m] = np.einsum("ji,i->j", weights, power)
+        if m + 1 < count:
+            power *= u
+    return out
 
 
 def _degrees_of_freedom(blocks, u: np.ndarray, d: np.ndarray) -> float:

@@ -12,6 +12,7 @@ and covariates, and used as the internal cross-check).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from math import factorial
 
 import numpy as np
@@ -171,10 +172,21 @@ class WindowArrays:
     rp: np.ndarray            # r_p(s d / h)
     resid_h: np.ndarray       # (rows, k) residuals of the order-p fit at h
     resid_b: np.ndarray       # (rows, k) residuals of the order-q fit at b
-    lev_h: np.ndarray         # leverage in the order-p weighted fit
-    lev_b: np.ndarray         # leverage in the order-q weighted fit
     kw_b: np.ndarray          # w * K(d/b)
     rq: np.ndarray            # r_q(s d / b)
+    gamma_p: np.ndarray       # the order-p fit's weighted cross-product matrix (for the leverages)
+    gamma_q: np.ndarray
+
+    # Leverages only for the HC2/HC3 direct passes: computed on first use, not with every window.
+    @cached_property
+    def lev_h(self) -> np.ndarray:
+        """Leverage in the order-p weighted fit."""
+        return self.kw_h * np.einsum("ij,ij->i", self.rp @ np.linalg.inv(self.gamma_p), self.rp)
+
+    @cached_property
+    def lev_b(self) -> np.ndarray:
+        """Leverage in the order-q weighted fit."""
+        return self.kw_b * np.einsum("ij,ij->i", self.rq @ np.linalg.inv(self.gamma_q), self.rq)
 
 
 def window_arrays(sf: SideFit) -> WindowArrays:
@@ -191,6 +203,4 @@ def window_arrays(sf: SideFit) -> WindowArrays:
     vals = side.values[:rows]
     resid_h = vals - rp @ sf.beta_h
     resid_b = vals - rq @ sf.beta_b
-    lev_h = kw_h * np.einsum("ij,ij->i", rp @ np.linalg.inv(sf.gamma_p), rp)
-    lev_b = kw_b * np.einsum("ij,ij->i", rq @ np.linalg.inv(sf.gamma_q), rq)
-    return WindowArrays(rows, a, abc, kw_h, rp, resid_h, resid_b, lev_h, lev_b, kw_b, rq)
+    return WindowArrays(rows, a, abc, kw_h, rp, resid_h, resid_b, kw_b, rq, sf.gamma_p, sf.gamma_q)

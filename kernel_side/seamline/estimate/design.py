@@ -197,7 +197,7 @@ class Design:
 
     # ---- the public API ------------------------------------------------------------------------
     def fit(self, outcome=None, *, bandwidth="mse", kernel="triangular", degree=1, bias_degree=None,
-            pilot_bandwidth=None, variance="neighbors", level=0.95, donut=0.0, derivative=0,
+            pilot_bandwidth=None, variance="bias-reduced", level=0.95, donut=0.0, derivative=0,
             adjust=False, cluster_variance="bias-reduced") -> Fit:
         """Estimate the jump at the cutoff by local polynomial regression on each side.
 
@@ -215,11 +215,11 @@ class Design:
             Calonico, Cattaneo and Titiunik 2014: curvature from a local fit at its own MSE bandwidth,
             with a regulariser). With ``cluster`` the default is the main bandwidth, b = h, after
             Calonico, Cattaneo and Farrell 2018.
-        variance : "neighbors" (3 nearest neighbours), "hc0", "hc1", "hc2", "hc3" or "bias-reduced"
-            (HC2 as the bias-reduced variance with one cluster per observation, with t critical values
+        variance : "bias-reduced" (default: HC2 as the bias-reduced variance with one cluster per observation, with t critical values
             on its Bell-McCaffrey degrees of freedom; Imbens and Kolesar 2016; bandwidths are selected
-            with the neighbour variance; HC2 with normal critical values under ``adjust``); a design
-            with ``cluster`` always uses the cluster-robust variance.
+            with the neighbour variance; HC2 with normal critical values under ``adjust``),
+            "neighbors" (3 nearest neighbours), "hc0", "hc1", "hc2" or "hc3"; a design with ``cluster``
+            always uses the cluster-robust variance.
         level : confidence level; donut : exclude observations closer than this to the cutoff;
         derivative : 1 estimates the jump in slope (kink designs); adjust : covariate adjustment
             (Calonico-Cattaneo-Farrell-Titiunik 2019).
@@ -356,7 +356,7 @@ class Design:
         return out
 
     def bandwidths(self, outcome=None, *, kernel="triangular", degree=1, bias_degree=None,
-                   variance="neighbors", donut=0.0, derivative=0, adjust=False) -> pd.DataFrame:
+                   variance="bias-reduced", donut=0.0, derivative=0, adjust=False) -> pd.DataFrame:
         """Every bandwidth rule side by side (rows: rule; columns: bandwidth and pilot, per side)."""
         rows = []
         for rule in ("mse", "mse-split", "coverage", "ik"):

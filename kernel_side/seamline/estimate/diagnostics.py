@@ -535,7 +535,7 @@ def _sorted_positions(data, ok) -> np.ndarray | None:
 def _spec_options(fit, fit_options: dict) -> dict:
     """The resolve() keywords of a fit made with ``fit_options`` (so its cached engine is found)."""
     opts = dict(bandwidth="mse", kernel="triangular", degree=1, bias_degree=None, pilot_bandwidth=None,
-                variance="neighbors", level=0.95, donut=0.0, derivative=0, adjust=False)
+                variance="bias-reduced", level=0.95, donut=0.0, derivative=0, adjust=False)
     opts.update({k: v for k, v in fit_options.items() if k in opts})
     return opts
 

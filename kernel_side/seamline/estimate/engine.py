@@ -11,7 +11,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..core.cluster_variance import FitRows, bias_reduced_variance
+from ..core.cluster_variance import FitRows, bias_reduced_variance, single_row_variance
+from ..core.single_row_binned import single_row_variance_binned
 from ..core.kernels import kernel_poly
 from ..core.locpoly import SideFit, WindowArrays, _omega_terms, fit_side, variance_fast, window_arrays
 from ..core.moments import window_gram
@@ -146,8 +147,20 @@ class JumpEngine:
         (the fit pools the covariate coefficients across sides): ``variance`` then uses HC2 with
         normal critical values.
         """
-        below = self.sides[0].n
-        return bias_reduced_variance(self._fit_rows(lam, robust, [np.arange(below), below + np.arange(self.sides[1].n)]))
+        if not self.direct:
+            # Wide unweighted windows: sums from binned moments, with no pass over the rows.
+            windows = [f.side.count_positive(max(f.h, f.b) if robust else f.h, self.kernel) for f in self.fits]
+            binned = single_row_variance_binned(self.fits, lam, robust, windows)
+            if binned is not None:
+                return binned
+        sides = []
+        for side, wa in zip(self.sides, self.arrays()):
+            # Every row of the window: rows that neither weight nor fit contribute zero terms.
+            sides.append(FitRows(weights=self.sign * side.sign * (wa.abc if robust else wa.a),
+                                 residuals=(wa.resid_b if robust else wa.resid_h) @ lam,
+                                 basis=wa.rq if robust else wa.rp,
+                                 fit_weights=wa.kw_b if robust else wa.kw_h))
+        return single_row_variance(tuple(sides))
 
     def _fit_rows(self, lam: np.ndarray, robust: bool, codes: list[np.ndarray]) -> tuple[FitRows, ...]:
         rows = []

@@ -517,7 +517,7 @@ class Board(BoardOutputs, Scheduler):
 def board(data, *, score: str, cutoff: float, outcome, treated: str = "above", takeup: str | None = None,
           covariates=None, cluster: str | None = None, weights: str | None = None, score_unit: str | None = None,
           bandwidth="mse", kernel: str = "triangular", degree: int = 1, bias_degree: int | None = None,
-          pilot_bandwidth=None, variance: str = "neighbors", level: float = 0.95, donut: float = 0.0,
+          pilot_bandwidth=None, variance: str = "bias-reduced", level: float = 0.95, donut: float = 0.0,
           derivative: int = 0, adjust: bool = False, groups: str | None = None, effect: float | None = None,
           headline_cutoff: float | None = None, name: str | None = None, data_name: str | None = None,
           panels: Iterable[str] | None = None, **inference) -> Board:

@@ -51,7 +51,7 @@ _EXAMPLES = {
     "data": "pupils", "score": "reading_score", "cutoff": "40", "treated": "below",
     "outcome": "math_gain, attendance", "takeup": "attended", "covariates": "age, prior_math",
     "cluster": "school", "weights": "sample_weight", "score_unit": "weeks", "bandwidth": "mse", "kernel": "triangular",
-    "degree": "1", "bias_degree": "2", "pilot_bandwidth": "4.0", "variance": "neighbors",
+    "degree": "1", "bias_degree": "2", "pilot_bandwidth": "4.0", "variance": "bias-reduced",
     "level": "0.95", "donut": "0", "derivative": "0", "adjust": "false",
     "groups": "region", "effect": "0.2", "headline_cutoff": "60",
     "smoothness": "0.5", "window": "2.5", "statistic": "rank sum", "permutations": "10000", "seed": "20260314",
@@ -474,7 +474,7 @@ def cutoff(line: str, cell: str, *, shell=None):
         bandwidth: mse          # mse | mse-split | coverage | ik | a number | two numbers
         kernel: triangular      # triangular | uniform | epanechnikov
         degree: 1
-        variance: neighbors     # neighbors | hc0 | hc1 | hc2 | hc3 | bias-reduced
+        variance: bias-reduced  # bias-reduced | neighbors | hc0 | hc1 | hc2 | hc3
         level: 0.95
         donut: 0
         groups: region          # optional: subgroup effects by a pre-treatment column

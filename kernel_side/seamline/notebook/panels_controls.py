@@ -25,8 +25,8 @@ _RULES = (("MSE-optimal", "mse"), ("MSE-optimal, each side", "mse-split"),
 _KERNELS = ("triangular", "uniform", "epanechnikov")
 _DEGREES = (("0 (local constant)", 0), ("1 (local linear)", 1), ("2 (local quadratic)", 2),
             ("3 (local cubic)", 3))
-_VARIANCES = (("nearest neighbours", "neighbors"), ("HC0", "hc0"), ("HC1", "hc1"), ("HC2", "hc2"),
-              ("HC3", "hc3"), ("HC2, small-sample t (bias-reduced)", "bias-reduced"))
+_VARIANCES = (("HC2, small-sample t (bias-reduced)", "bias-reduced"), ("nearest neighbours", "neighbors"),
+              ("HC0", "hc0"), ("HC1", "hc1"), ("HC2", "hc2"), ("HC3", "hc3"))
 _LEVELS = (("90%", 0.90), ("95%", 0.95), ("99%", 0.99))
 _CONTROL = {"description_width": "70px"}
 
@@ -168,7 +168,7 @@ class ViewControls:
                 else:
                     variance = opts.get("variance")
                     if variance not in [v for _label, v in _VARIANCES]:
-                        variance = "neighbors"
+                        variance = "bias-reduced"
                     self._set_choice(self._variance, _VARIANCES, variance, variance)
                     self._variance.disabled = False
             donut = opts.get("donut")

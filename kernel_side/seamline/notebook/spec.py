@@ -36,7 +36,7 @@ BOARD_KEYS: tuple[str, ...] = ("groups", "effect", "headline_cutoff")
 #: Fit options and their defaults (the engine's defaults).
 FIT_DEFAULTS: dict[str, Any] = {
     "bandwidth": "mse", "kernel": "triangular", "degree": 1, "bias_degree": None,
-    "pilot_bandwidth": None, "variance": "neighbors", "level": 0.95, "donut": 0.0,
+    "pilot_bandwidth": None, "variance": "bias-reduced", "level": 0.95, "donut": 0.0,
     "derivative": 0, "adjust": False,
 }
 #: Every board option: the fit options, then the inference settings (``inference_keys``), which
