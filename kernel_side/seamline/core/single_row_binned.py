@@ -248,8 +248,7 @@ class _Sums:
             xc, moments = self.smooth[z]
             s = moments[y]                                       # (G, ORDER + 1): sum y^j (x - xc)^k
             if power:
-                inv = _reciprocal(_series(self.b_polys[z], xc))
-                c = inv if power == 1 else _times(inv, inv)
+                c = self._inverse_b(z, power)
                 # w_j = sum_{m} c_m s_(j + m): the series of 1/B^power folded into the moments
                 padded = np.concatenate([s, np.zeros_like(s)], axis=1)
                 w = np.einsum("gm,gjm->gj", c, padded[:, _SHIFT])
@@ -265,6 +264,17 @@ class _Sums:
                 weight = weight / P.polyval(xd, self.b_polys[z]) ** power
             out += np.einsum("gn,g->n", np.vander(xd, DEGREE + 1, increasing=True), weight)
             self._cache[key] = out
+        return self._cache[key]
+
+    def _inverse_b(self, z: int, power: int) -> np.ndarray:
+        """Series of 1/B^power at zone z's bin centres (one per zone and power)."""
+        key = ("inverse", z, power)
+        if key not in self._cache:
+            if power == 1:
+                self._cache[key] = _reciprocal(_series(self.b_polys[z], self.smooth[z][0]))
+            else:
+                inv = self._inverse_b(z, 1)
+                self._cache[key] = _times(inv, inv)
         return self._cache[key]
 
     def _vander(self, z: int) -> np.ndarray:
