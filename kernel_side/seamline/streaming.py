@@ -241,6 +241,7 @@ class StreamingData:
         self._summaries: dict[tuple, dict] = {}
         self._windows: dict[tuple, object] = {}
         self._scores: dict = {}                  # sorted scores per row set (streaming_diagnostics)
+        self._pilots: dict = {}                  # the bins' pilot sums per outcome, made in the score pass
         self.passes = 0                          # passes over the data so far (benchmarks report it)
         self._check(self._summary(outcomes[:1]))
 
@@ -253,7 +254,7 @@ class StreamingData:
         return self._gathered
 
     def __getattr__(self, name):
-        if name.startswith("__") or name in ("_gathered", "_gathered_loader", "_scores"):
+        if name.startswith("__") or name in ("_gathered", "_gathered_loader", "_scores", "_pilots"):
             raise AttributeError(name)
         return getattr(self.gathered, name)
 

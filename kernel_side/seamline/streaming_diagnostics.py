@@ -30,7 +30,7 @@ import uuid
 
 import numpy as np
 
-from .core.bins_streamed import binned_means_streamed
+from .core.bins_streamed import binned_means_streamed, combine, pilot_chunk
 from .core.density import density_test_sorted
 from .errors import DataSourceError
 from .partitioned import _REPORT
@@ -47,11 +47,17 @@ def _plan(data, variables: tuple[str, ...] | None) -> dict:
             "cutoff": data.cutoff, "variables": list(variables), "weights": data.weights_name}
 
 
-def _score_part(part, plan: dict) -> tuple:
-    """(rows read, kept scores below the cutoff, kept scores at or above it) of one partition."""
+def _score_part(part, plan: dict, pilot) -> tuple:
+    """(rows read, kept scores below the cutoff, kept scores at or above it, the bins' pilot sums or
+    None) of one partition; ``pilot``: (the bins' plan, ``pilot_chunk``) or None."""
     x, _, _, keep, _, arrays = _columns(part, plan)
     raw = arrays[plan["score"]]
-    return len(raw), raw[keep & (raw < plan["cutoff"])], raw[keep & (raw >= plan["cutoff"])]
+    sums = None
+    if pilot is not None:
+        bins_plan, chunk = pilot
+        _, values, w, rows, _, arrays = _columns(part, bins_plan)
+        sums = chunk(arrays[plan["score"]][rows], values[rows, 0], None if w is None else w[rows], 0)
+    return len(raw), raw[keep & (raw < plan["cutoff"])], raw[keep & (raw >= plan["cutoff"])], sums
 
 
 def _bins_part(part, plan: dict, chunk, start: int) -> dict:
@@ -99,7 +105,15 @@ def sorted_scores(data, variables: tuple[str, ...] | None = None):
     if held is not None:
         return held
     plan = _plan(data, key)
+    # the bins' pilot sums (pass 1 of binned_means_streamed) ride on this pass, for the first outcome
+    outcome = next(iter(data._summaries))
+    pilot, s = None, data._summaries[outcome]
+    if outcome not in data._pilots and s["below"]["n"] and s["above"]["n"]:
+        bins_plan = _plan(data, outcome)
+        pilot = (bins_plan, pilot_chunk(data.cutoff, s["below"]["far"], s["above"]["far"]))
+        plan["columns"] = list(dict.fromkeys(plan["columns"] + bins_plan["columns"]))
     parts = data.frame[plan["columns"]].to_delayed()       # only these columns are read
+    sums = None
     below, above = np.empty(n_below), np.empty(n_above)
     lengths, at_below, at_above = [], 0, 0
     report, step = _REPORT.get(), _in_flight()
@@ -109,11 +123,14 @@ def sorted_scores(data, variables: tuple[str, ...] | None = None):
         if report is not None:          # progress over the whole pass, not per batch
             token = _REPORT.set(lambda done, total, lo=lo: report(lo + done, len(parts)))
         try:
-            got = _compute(*[dask.delayed(_score_part, pure=True)(p, plan) for p in batch], name="_score_part")
+            got = _compute(*[dask.delayed(_score_part, pure=True)(p, plan, pilot) for p in batch],
+                           name="_score_part")
         finally:
             if token is not None:
                 _REPORT.reset(token)
-        for rows, b, a in got:
+        for rows, b, a, part_sums in got:
+            if pilot is not None:
+                sums = part_sums if sums is None else combine(sums, part_sums)
             if at_below + len(b) > n_below or at_above + len(a) > n_above:
                 break
             below[at_below:at_below + len(b)] = b
@@ -126,6 +143,8 @@ def sorted_scores(data, variables: tuple[str, ...] | None = None):
                               f"rows with a score where the first pass counted {n_below + n_above}. Build the "
                               "Design again on data that stay fixed.")
     data.passes += 1
+    if pilot is not None:
+        data._pilots[outcome] = (s["below"]["far"], s["above"]["far"], sums)
     below.sort()                        # in place: no copy of either side
     above.sort()
     held = data._scores[key] = (below, above, np.asarray(lengths, dtype=np.int64))
@@ -156,4 +175,4 @@ def binned_means(data, outcome: str, **options):
         return out
 
     return binned_means_streamed(below, above, data.cutoff, passes, weighted=data.weights_name is not None,
-                                 **options)
+                                 pilot=data._pilots.get(variables), **options)

@@ -14,15 +14,19 @@ dataset holding only the sorted score in memory), ``binned_means_streamed`` comp
   Each call returns a dict of float arrays; with dask, one ``dask.delayed(chunk)`` per partition
   and a tree of ``combine`` on the active scheduler do it.
 
-The passes (four; each reads every row once):
+The passes (three, or two when the caller brings the pilot's sums; each reads every row once):
   1. the global quartic pilot of each side, by normal equations in the Legendre basis (the
-     in-memory fit, summed in another order);
+     in-memory fit, summed in another order). Its sums need only each side's largest distance
+     from the cutoff, so a caller may make them in a pass it runs anyway (``pilot_chunk``; the
+     streamed design does so while it gathers the scores) and hand them over as ``pilot``;
   2. the pilot's squared residuals: their sum and their trapezoid over the sorted scores. A row's
      trapezoid weight is half the spacings on either side of it (its rank is found by searching
      the sorted side); on a side with tied scores the trapezoid runs over the runs of equal scores
      with their first and last members in input order, which ``combine`` keeps (4 numbers per run);
-  3. per bin: weight sum, weighted outcome and score sums, rows with positive weight;
-  4. per bin: the squared weighted deviations from the bin mean.
+  3. per bin: weight sum, weighted outcome and score sums, rows with positive weight, and the
+     squared weighted deviations from the bin mean, as per-chunk means and sums of squares about
+     them merged pairwise by ``combine`` (Chan, Golub and LeVeque's update: stable, and exactly 0
+     for a bin whose outcome is constant), so no fourth pass over the rows is needed.
 The slope sums of the pilot and the bins' bounds need the sorted scores only.
 
 What is exact: counts, bin edges and bounds are those of ``binned_means``; every other number
@@ -58,17 +62,30 @@ from .bin_number import (
 from .binning import BinnedMeans, _frozen, _sorted_bins
 from .density_sample import sorted_sides
 
-__all__ = ["binned_means_streamed", "combine"]
+__all__ = ["binned_means_streamed", "combine", "pilot_chunk"]
 
 
 def combine(a: dict, b: dict) -> dict:
     """Fold two chunk results: sums add; "first"/"last" keep the member with the least/greatest
-    input position of each run (position arrays "first_pos"/"last_pos", NaN where a chunk had none)."""
+    input position of each run (position arrays "first_pos"/"last_pos", NaN where a chunk had none);
+    "mu2"/"m2" (per-bin means and sums of squares about them, weights "c2") merge as Chan et al.'s
+    pairwise update does."""
     out = {}
     for key, value in a.items():
-        if key.split(".")[-1] in ("first", "last", "first_pos", "last_pos"):
+        if key.split(".")[-1] in ("first", "last", "first_pos", "last_pos", "mu2", "m2"):
             continue
         out[key] = value + b[key]
+    for side in SIDES:
+        if f"{side}.m2" not in a:
+            continue
+        # sums of squares about each chunk's mean (weights w^2), merged pairwise: Chan et al.'s update
+        ca, cb = a[f"{side}.c2"], b[f"{side}.c2"]
+        n = ca + cb
+        with np.errstate(invalid="ignore", divide="ignore"):
+            share = np.where(n > 0, cb / n, 0.0)
+        delta = b[f"{side}.mu2"] - a[f"{side}.mu2"]
+        out[f"{side}.mu2"] = a[f"{side}.mu2"] + delta * share
+        out[f"{side}.m2"] = a[f"{side}.m2"] + b[f"{side}.m2"] + delta * delta * ca * share
     for end, better in (("first", np.less), ("last", np.greater)):
         for side in SIDES:
             pk, vk = f"{side}.{end}_pos", f"{side}.{end}"
@@ -79,6 +96,11 @@ def combine(a: dict, b: dict) -> dict:
             out[pk] = np.where(take_b, pb, pa)
             out[vk] = np.where(take_b, b[vk], a[vk])
     return out
+
+
+def _to_t(cutoff: float, span: float, side: str) -> tuple[float, float, float]:
+    """The map of a side's scores onto [-1, 1] (the pilot's Legendre variable)."""
+    return (cutoff, 2.0 / (span if span > 0 else 1.0), 1.0 if side == "below" else -1.0)
 
 
 class _Side:
@@ -93,7 +115,7 @@ class _Side:
         self.runs = n_runs(xs)
         self.ties = self.runs < n
         self.deg = 0 if self.span == 0.0 else max(0, min(degree, self.runs - 1, n - 2))
-        self.to_t = (cutoff, 2.0 / (self.span if self.span > 0 else 1.0), 1.0 if side == "below" else -1.0)
+        self.to_t = _to_t(cutoff, self.span, side)
         self.starts = run_starts(xs) if self.ties else None
         self.run_values = xs[self.starts] if self.ties else None
         self.power = None
@@ -144,22 +166,38 @@ class _Side:
         return slope2, spacings
 
 
-def _pilot_chunk(sides):
+def _pilot_chunk(cutoff: float, specs):
+    """The pilot's normal equations, per side: ``specs`` (side, to_t, degree)."""
     def chunk(x, y, w, start):
         out = {}
-        for s in sides:
-            keep = s.rows_of(x)
+        for side, to_t, deg in specs:
+            keep = x < cutoff if side == "below" else x >= cutoff
             xs_, ys_ = x[keep], y[keep]
             ws_ = None if w is None else w[keep]
-            gram = np.zeros((s.deg + 1, s.deg + 1))
-            rhs = np.zeros(s.deg + 1)
-            for rows, basis in _legendre_chunks(xs_, s.to_t, s.deg):
+            gram = np.zeros((deg + 1, deg + 1))
+            rhs = np.zeros(deg + 1)
+            for rows, basis in _legendre_chunks(xs_, to_t, deg):
                 weighted = basis if ws_ is None else basis * ws_[rows]
                 gram += weighted @ basis.T
                 rhs += weighted @ ys_[rows]
-            out[f"{s.side}.gram"], out[f"{s.side}.rhs"] = gram, rhs
+            out[f"{side}.gram"], out[f"{side}.rhs"] = gram, rhs
         return out
     return chunk
+
+
+def pilot_chunk(cutoff: float, span_below: float, span_above: float):
+    """The chunk function of pass 1 for a caller that folds it into a pass of its own.
+
+    ``span_below``/``span_above``: each side's largest distance |x - cutoff| among the rows the bins
+    keep (float64, as ``abs(x - cutoff)`` gives it). Fold its results with ``combine`` and hand
+    ``(span_below, span_above, folded)`` to ``binned_means_streamed(pilot=...)``: it uses them when
+    the spans equal those of the sorted scores, and runs the pass itself otherwise. The sums are
+    made at degree ``PILOT_DEGREE``; a side of fewer distinct scores reads their leading block
+    (the Legendre basis of a lower degree is the leading rows of this one).
+    """
+    cutoff = float(cutoff)
+    return _pilot_chunk(cutoff, [(side, _to_t(cutoff, span, side), PILOT_DEGREE)
+                                 for side, span in zip(SIDES, (span_below, span_above))])
 
 
 def _residual_chunk(sides):
@@ -196,8 +234,9 @@ def _residual_chunk(sides):
     return chunk
 
 
-def _bin_chunk(sides, layouts, weighted: bool, means=None):
-    """Per-bin sums (pass 3), or squared deviations from ``means`` (pass 4)."""
+def _bin_chunk(sides, layouts, weighted: bool):
+    """Per-bin sums (pass 3), with each chunk's w^2-weighted bin means and squared deviations
+    about them ("c2", "mu2", "m2"; ``combine`` merges them)."""
     def chunk(x, y, w, start):
         out = {}
         for s, (edges, bounds, method, j) in zip(sides, layouts):
@@ -205,21 +244,24 @@ def _bin_chunk(sides, layouts, weighted: bool, means=None):
             xs_, ys_ = x[keep], y[keep]
             ws_ = None if w is None else w[keep]
             k = _bin_of(s, xs_, edges, bounds, method, j)
-            if means is None:
-                out[f"{s.side}.count"] = np.bincount(k, minlength=j).astype(float)
-                out[f"{s.side}.wsum"] = np.bincount(k, weights=ws_, minlength=j) if weighted else \
-                    out[f"{s.side}.count"].copy()
-                wy = ys_ if ws_ is None else ws_ * ys_
-                wx = xs_ if ws_ is None else ws_ * xs_
-                out[f"{s.side}.ysum"] = np.bincount(k, weights=wy, minlength=j)
-                out[f"{s.side}.xsum"] = np.bincount(k, weights=wx, minlength=j)
-                out[f"{s.side}.m"] = (np.bincount(k, weights=(ws_ > 0).astype(float), minlength=j)
-                                      if weighted else out[f"{s.side}.count"].copy())
-            else:
-                dev = ys_ - means[s.side][k]
-                if ws_ is not None:
-                    dev *= ws_
-                out[f"{s.side}.ss"] = np.bincount(k, weights=np.square(dev), minlength=j)
+            count = out[f"{s.side}.count"] = np.bincount(k, minlength=j).astype(float)
+            out[f"{s.side}.wsum"] = np.bincount(k, weights=ws_, minlength=j) if weighted else count.copy()
+            wy = ys_ if ws_ is None else ws_ * ys_
+            wx = xs_ if ws_ is None else ws_ * xs_
+            out[f"{s.side}.ysum"] = np.bincount(k, weights=wy, minlength=j)
+            out[f"{s.side}.xsum"] = np.bincount(k, weights=wx, minlength=j)
+            out[f"{s.side}.m"] = (np.bincount(k, weights=(ws_ > 0).astype(float), minlength=j)
+                                  if weighted else count.copy())
+            w2 = None if ws_ is None else np.square(ws_)
+            c2 = count.copy() if w2 is None else np.bincount(k, weights=w2, minlength=j)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                mu2 = np.where(c2 > 0, (out[f"{s.side}.ysum"] if w2 is None else
+                                        np.bincount(k, weights=w2 * ys_, minlength=j)) / c2, 0.0)
+            dev = np.square(ys_ - mu2[k])
+            if w2 is not None:
+                dev *= w2
+            out[f"{s.side}.c2"], out[f"{s.side}.mu2"] = c2, mu2
+            out[f"{s.side}.m2"] = np.bincount(k, weights=dev, minlength=j)
         return out
     return chunk
 
@@ -236,7 +278,8 @@ def _bin_of(s: _Side, x: np.ndarray, edges: np.ndarray, bounds: np.ndarray, meth
 
 def binned_means_streamed(below, above, cutoff: float, passes, *, weighted: bool = False,
                           method: str = "equal-width", number: int | tuple[int, int] | None = None,
-                          rule: str = "imse", scale: float = 1.0, level: float = 0.95) -> BinnedMeans:
+                          rule: str = "imse", scale: float = 1.0, level: float = 0.95,
+                          pilot: tuple | None = None) -> BinnedMeans:
     """``binning.binned_means`` from each side's sorted scores and passes over the rows elsewhere.
 
     Parameters
@@ -244,9 +287,12 @@ def binned_means_streamed(below, above, cutoff: float, passes, *, weighted: bool
     below, above : each side's scores in ascending order (scores < cutoff, scores >= cutoff).
     cutoff : the cutoff c.
     passes : ``passes(chunk, combine)`` runs ``chunk(x, y, w, start)`` on every chunk of rows and
-        folds the dicts it returns with ``combine`` (see the module docstring). Called four times.
+        folds the dicts it returns with ``combine`` (see the module docstring). Called three
+        times, or twice when ``pilot`` is used.
     weighted : whether the caller's chunks carry weights (``w`` not None).
     method, number, rule, scale, level : as in ``binning.binned_means``.
+    pilot : ``(span_below, span_above, sums)``, the folded results of ``pilot_chunk`` over the same
+        rows (optional; ignored when its spans are not those of ``below`` and ``above``).
 
     Returns
     -------
@@ -262,10 +308,13 @@ def binned_means_streamed(below, above, cutoff: float, passes, *, weighted: bool
     sides = [_Side(part, cutoff, side) for part, side in zip(sample.parts, SIDES)]
     fixed = check_number_pair(number, (sides[0].n, sides[1].n))
 
-    # pass 1: the pilot on each side
-    got = passes(_pilot_chunk(sides), combine)
+    # pass 1: the pilot on each side (or the caller's sums of it, made at PILOT_DEGREE)
+    if pilot is not None and (pilot[0], pilot[1]) == (sides[0].span, sides[1].span):
+        got = pilot[2]
+    else:
+        got = passes(_pilot_chunk(cutoff, [(s.side, s.to_t, s.deg) for s in sides]), combine)
     for s in sides:
-        gram, rhs = got[f"{s.side}.gram"], got[f"{s.side}.rhs"]
+        gram, rhs = got[f"{s.side}.gram"][:s.deg + 1, :s.deg + 1], got[f"{s.side}.rhs"][:s.deg + 1]
         try:
             coef = np.linalg.solve(gram, rhs)
         except np.linalg.LinAlgError:
@@ -304,7 +353,7 @@ def binned_means_streamed(below, above, cutoff: float, passes, *, weighted: bool
                     f"falls inside a run of tied scores; got \"equal-count\" with such a run {s.side} the "
                     "cutoff. Use method=\"equal-width\", or binned_means on the rows in memory.")
         layouts.append((edges, bounds, method, j))
-    # pass 3: per-bin sums; pass 4: squared deviations from the bin means
+    # pass 3: per-bin sums, with sums of squares about the chunks' means
     got = passes(_bin_chunk(sides, layouts, weighted), combine)
     means, parts = {}, []
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -316,12 +365,13 @@ def binned_means_streamed(below, above, cutoff: float, passes, *, weighted: bool
                     f"{int(got[f'{s.side}.count'].sum())} rows {s.side} the cutoff for {s.n} sorted scores. "
                     "Pass the same rows (missing values dropped) to both.")
             means[s.side] = got[f"{s.side}.ysum"] / got[f"{s.side}.wsum"]
-        sq = passes(_bin_chunk(sides, layouts, weighted, means), combine)
         for s, (edges, bounds, _, j) in zip(sides, layouts):
             wsum, m = got[f"{s.side}.wsum"], got[f"{s.side}.m"]
             mean = means[s.side].copy()
             score_mean = got[f"{s.side}.xsum"] / wsum
-            se = np.sqrt(sq[f"{s.side}.ss"] / wsum ** 2 * m / (m - 1))
+            # sum w^2 (y - mean)^2 = sum w^2 (y - mu2)^2 + c2 (mu2 - mean)^2, mu2 the w^2-weighted mean
+            ss = got[f"{s.side}.m2"] + got[f"{s.side}.c2"] * np.square(got[f"{s.side}.mu2"] - mean)
+            se = np.sqrt(ss / wsum ** 2 * m / (m - 1))
             se[m < 2] = np.nan
             empty = wsum <= 0
             mean[empty] = score_mean[empty] = se[empty] = np.nan
