@@ -118,3 +118,16 @@ def test_the_workload_passes_and_equals_memory(folder):
     for field in ("mean", "std_error", "score_mean"):
         close(getattr(a, field), getattr(b, field))
     assert design._data._gathered is None
+
+
+@pytest.mark.parametrize("tied", [False, True])
+def test_blocked_ranks_equal_a_plain_search(tied):
+    # numpy.searchsorted (side="left") is the reference for the blocked search of the residual pass
+    from seamline.core.bins_streamed import _Side
+    rng = np.random.default_rng(8)
+    for n in (1, 255, 256, 257, 5000):
+        xs = np.sort(rng.integers(0, max(n // 3, 1), n).astype(float) if tied else rng.uniform(0, 1, n))
+        side = _Side(xs, -1.0, "above")
+        for m in (0, 1, 700):
+            q = np.sort(np.concatenate([rng.choice(xs, m), [-5.0, 5.0, xs[0], xs[-1]]]))
+            assert np.array_equal(side.ranks(q), np.searchsorted(xs, q, side="left")), (n, m)

@@ -57,7 +57,9 @@ def _score_part(part, plan: dict, pilot) -> tuple:
         bins_plan, chunk = pilot
         _, values, w, rows, _, arrays = _columns(part, bins_plan)
         sums = chunk(arrays[plan["score"]][rows], values[rows, 0], None if w is None else w[rows], 0)
-    return len(raw), raw[keep & (raw < plan["cutoff"])], raw[keep & (raw >= plan["cutoff"])], sums
+    # each partition's scores sorted here, in parallel: the caller's sort then merges sorted runs
+    below, above = np.sort(raw[keep & (raw < plan["cutoff"])]), np.sort(raw[keep & (raw >= plan["cutoff"])])
+    return len(raw), below, above, sums
 
 
 def _bins_part(part, plan: dict, chunk, start: int) -> dict:
@@ -145,8 +147,10 @@ def sorted_scores(data, variables: tuple[str, ...] | None = None):
     data.passes += 1
     if pilot is not None:
         data._pilots[outcome] = (s["below"]["far"], s["above"]["far"], sums)
-    below.sort()                        # in place: no copy of either side
-    above.sort()
+    # in place (no copy of either side); the pieces came sorted, so timsort only merges their runs
+    # (its merge buffer is at most half a side, for a moment)
+    below.sort(kind="stable")
+    above.sort(kind="stable")
     held = data._scores[key] = (below, above, np.asarray(lengths, dtype=np.int64))
     return held
 

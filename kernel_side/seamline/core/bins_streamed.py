@@ -64,6 +64,8 @@ from .density_sample import sorted_sides
 
 __all__ = ["binned_means_streamed", "combine", "pilot_chunk"]
 
+STRIDE = 256       # scores per block of ``_Side.ranks``
+
 
 def combine(a: dict, b: dict) -> dict:
     """Fold two chunk results: sums add; "first"/"last" keep the member with the least/greatest
@@ -132,11 +134,28 @@ class _Side:
         _horner(self.power, self.t(x), out)
         return out
 
+    def ranks(self, x: np.ndarray) -> np.ndarray:
+        """``np.searchsorted(self.xs, x, side="left")`` for ascending ``x``, block by block: the ranks
+        of every STRIDE-th score of ``x`` bound the stretch of the sorted side where the scores
+        between them lie, and each block is searched in its stretch only. On a side of 5e7 scores a
+        plain search misses the cache at nearly every step; this takes about half as long."""
+        xs = self.xs
+        out = np.empty(len(x), dtype=np.intp)
+        if not len(x):
+            return out
+        bounds = np.append(np.searchsorted(xs, x[::STRIDE], side="left"),
+                           np.searchsorted(xs, x[-1:], side="right"))
+        for i, a in enumerate(range(0, len(x), STRIDE)):
+            lo, hi = bounds[i], bounds[i + 1]
+            out[a:a + STRIDE] = np.searchsorted(xs[lo:hi], x[a:a + STRIDE], side="left")
+            out[a:a + STRIDE] += lo
+        return out
+
     def trapezoid_weight(self, x: np.ndarray) -> np.ndarray:
         """Half the spacings either side of each (untied) score, plus the stretch to the cutoff for
         the score nearest it: sum_k s2_k w_k is the trapezoid of s2 over the side's support."""
         xs, n = self.xs, self.n
-        k = np.searchsorted(xs, x, side="left")
+        k = self.ranks(x)
         before = np.where(k > 0, xs[k] - xs[np.maximum(k - 1, 0)], 0.0)
         after = np.where(k < n - 1, xs[np.minimum(k + 1, n - 1)] - xs[k], 0.0)
         w = 0.5 * (before + after)
@@ -203,7 +222,7 @@ def pilot_chunk(cutoff: float, span_below: float, span_above: float):
 def _residual_chunk(sides):
     def chunk(x, y, w, start):
         out = {}
-        positions = start + np.arange(x.size, dtype=float)
+        positions = None                              # input positions: only a tied side reads them
         for s in sides:
             keep = s.rows_of(x)
             xs_ = x[keep]
@@ -216,6 +235,8 @@ def _residual_chunk(sides):
                 out[f"{s.side}.trapezoid"] = np.array([np.sum(s2[order] * s.trapezoid_weight(xs_[order]))])
                 continue
             run = np.searchsorted(s.run_values, xs_, side="left")
+            if positions is None:
+                positions = start + np.arange(x.size, dtype=float)
             pos = positions[keep]
             if run.size == 0:
                 for end in ("first", "last"):
