@@ -17,10 +17,14 @@ Passes (for one set of variables; each reads only the design's columns)
    than ``GATHER_LIMIT`` values, refined on the next 16 bits of the key first), sorted, and read.
    Exact: these are the very order statistics a sort of all rows gives.
 3. Pilot sums and window: per side, the sums sum w u^m and sum w u^m (v - mean) of the curvature
-   pilot over its nearer half (and the whole side, for the two-step pilot), u = sign d / top; in
-   the same pass the rows with distance <= R (the window) are gathered.
+   pilot over its nearer half (and the whole side, for the two-step pilot), u = sign d / top (made
+   block by block, ``_power_sums``); in the same pass the rows with distance <= R (the window) are
+   gathered, each partition's rows sorted by distance in the worker, so that the caller's stable
+   sort only merges runs.
    A result that needs rows beyond the window's exact part asks for a wider window: one more pass
-   gathers the rows between the old and the new radius.
+   gathers the rows between the old and the new radius (appended after the held rows, which are
+   all nearer and are not sorted again).
+After every pass the memory it freed is handed back to the system (``release_memory``).
 
 What is exact: fits at manual bandwidths and at the "mse", "mse-split", "coverage" and "ik" rules with
 the "nearer-half" or "two-step" pilot, with any variance, equal the in-memory results up to the
