@@ -63,10 +63,23 @@ def _score_part(part, plan: dict, pilot) -> tuple:
     return len(raw), raw[keep & (raw < plan["cutoff"])], raw[keep & (raw >= plan["cutoff"])], sums
 
 
+BINS_ROWS = 1 << 18      # kept rows per call of a bins chunk function (its temporaries stay small)
+
+
 def _bins_part(part, plan: dict, chunk, start: int) -> dict:
-    """One of ``binned_means_streamed``'s chunk functions on one partition's kept rows."""
+    """One of ``binned_means_streamed``'s chunk functions on one partition's kept rows, BINS_ROWS
+    rows at a time (folded with ``combine``): the chunk's temporaries (masks, sort orders, ranks)
+    are a few arrays of that many rows instead of the partition's length. ``start`` + i numbers
+    the i-th kept row: increasing, as the chunk functions need."""
     _, values, w, keep, _, arrays = _columns(part, plan)
-    return chunk(arrays[plan["score"]][keep], values[keep, 0], None if w is None else w[keep], start)
+    x, y = arrays[plan["score"]][keep], values[keep, 0]
+    w = None if w is None else w[keep]
+    out = None
+    for a in range(0, max(len(x), 1), BINS_ROWS):
+        rows = slice(a, a + BINS_ROWS)
+        got = chunk(x[rows], y[rows], None if w is None else w[rows], start + a)
+        out = got if out is None else combine(out, got)
+    return out
 
 
 def _in_flight() -> int:
