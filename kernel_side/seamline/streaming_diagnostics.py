@@ -22,7 +22,7 @@ nothing else that a pass could not sum, so:
   Counts and edges exact, sums equal up to their order.
 
 Memory bound: 8 bytes per kept row (the sorted scores, kept on the design for later calls), plus the
-partitions in flight; the bins' passes add per partition a few arrays of its length in the workers.
+partitions in flight; the bins' passes add per partition a few arrays of BINS_ROWS rows in the workers.
 The chunk functions close over the sorted scores: on a distributed cluster they travel to each
 worker once per pass (one graph key), which costs the score's size in network and worker memory.
 """

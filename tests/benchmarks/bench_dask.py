@@ -187,6 +187,8 @@ def streamed(n: int, curved: bool = False) -> None:
             f"{name.strip('_').replace('_part', '')} {seconds / one_pass['seconds']:.1f}"
             for (name, _), seconds in merged.items())
             + f"; outside the passes {(work['seconds'] - sum(merged.values())) / one_pass['seconds']:.1f}")
+        print(f"    CPU time (user + system; steadier than wall time on a shared machine): {work['cpu']:.1f} s "
+              f"against {one_pass['cpu']:.1f} s for the summing pass, ratio {work['cpu'] / one_pass['cpu']:.1f}")
         print(f"    peak memory {work['peak'] / GB:.2f} GB (after the fit {work['peak_fit'] / GB:.2f} GB) | budget "
               f"{budget / GB:.2f} GB | ratio {work['peak'] / budget:.2f} (target <= 1); the summing pass alone "
               f"peaks at {one_pass['peak'] / GB:.2f} GB")
@@ -197,6 +199,7 @@ def streamed(n: int, curved: bool = False) -> None:
 def child(task: str, folder: str, n: int) -> None:
     import dask.dataframe as dd       # imported before the clock starts: the unit is one pass, not an import
     t0 = time.perf_counter()
+    cpu0 = sum(resource.getrusage(resource.RUSAGE_SELF)[:2])      # CPU seconds, user + system
     if task.startswith("write"):
         write_parquet(folder, n, max(8, n // 2_000_000), seed=1000, curved=task == "write-curved")
     elif task == "pass":
@@ -229,8 +232,10 @@ def child(task: str, folder: str, n: int) -> None:
         design = seamline.Design(folder, reading="gathered", **KWARGS)
         design.fit(), design.density_test(), design.bins()
     seconds = time.perf_counter() - t0
-    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024.0
-    print(json.dumps({"seconds": seconds, "peak": peak, **(extra if task == "streamed" else {})}))
+    usage = resource.getrusage(resource.RUSAGE_SELF)
+    peak = usage.ru_maxrss * 1024.0
+    cpu = usage.ru_utime + usage.ru_stime - cpu0
+    print(json.dumps({"seconds": seconds, "peak": peak, "cpu": cpu, **(extra if task == "streamed" else {})}))
 
 
 def main(n_equal: int = 4_000_000, n_memory: int = 10_000_000, n_large: int = 100_000_000,
