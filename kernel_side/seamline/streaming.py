@@ -216,6 +216,16 @@ def _window_part(part: pd.DataFrame, plan: dict, sides: dict) -> dict:
     """Per side: pilot sums (when asked) and the rows with inner < distance <= radius."""
     x, values, w, keep, _, _ = _columns(part, plan)
     out = {}
+    if not any(ask["pilots"] or ask.get("cubic") is not None for ask in sides.values()):
+        # a widening: only the rows of a band of distances, picked from the whole partition at once
+        # (the same rows, values and order as the side arrays below would give)
+        ax = np.abs(x)
+        for name, sign in (("below", -1.0), ("above", 1.0)):
+            ask = sides[name]
+            rows = np.flatnonzero(keep & (ax > ask["inner"]) & (ax <= ask["radius"]) & ((x < 0) if sign < 0 else (x >= 0)))
+            rows = rows[np.argsort(ax[rows], kind="stable")]
+            out[name] = {"rows": (ax[rows], values[rows], None if w is None else w[rows])}
+        return out
     for name, sign in (("below", -1.0), ("above", 1.0)):
         ask = sides[name]
         mask = keep & ((x < 0) if sign < 0 else (x >= 0))
