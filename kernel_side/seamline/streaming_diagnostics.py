@@ -63,7 +63,7 @@ def _score_part(part, plan: dict, pilot) -> tuple:
     return len(raw), raw[keep & (raw < plan["cutoff"])], raw[keep & (raw >= plan["cutoff"])], sums
 
 
-BINS_ROWS = 1 << 18      # kept rows per call of a bins chunk function (its temporaries stay small)
+BINS_ROWS = 1 << 20      # kept rows per call of a bins chunk function (its temporaries stay bounded)
 
 
 def _bins_part(part, plan: dict, chunk, start: int) -> dict:

@@ -57,7 +57,6 @@ from .bin_number import (
     check_scale,
     choose,
     n_runs,
-    run_starts,
 )
 from .binning import BinnedMeans, _frozen, _sorted_bins
 from .density_sample import sorted_sides
@@ -65,6 +64,7 @@ from .density_sample import sorted_sides
 __all__ = ["binned_means_streamed", "combine", "pilot_chunk"]
 
 STRIDE = 256       # scores per block of ``_Side.ranks``
+BLOCKED_FROM = 1 << 23   # sides of at least this many scores (64 MB) are searched block by block
 
 
 def combine(a: dict, b: dict) -> dict:
@@ -105,6 +105,12 @@ def _to_t(cutoff: float, span: float, side: str) -> tuple[float, float, float]:
     return (cutoff, 2.0 / (span if span > 0 else 1.0), 1.0 if side == "below" else -1.0)
 
 
+def _tied_values(xs: np.ndarray) -> np.ndarray:
+    """The values that occur more than once in a sorted array (ascending, each once), chunk by chunk."""
+    found = [z[1:][z[1:] == z[:-1]] for z in (xs[a:a + CHUNK + 1] for a in range(0, max(xs.size - 1, 0), CHUNK))]
+    return np.unique(np.concatenate(found)) if found else np.empty(0)
+
+
 class _Side:
     """One side's sorted scores and the scalars the passes need."""
 
@@ -118,9 +124,26 @@ class _Side:
         self.ties = self.runs < n
         self.deg = 0 if self.span == 0.0 else max(0, min(degree, self.runs - 1, n - 2))
         self.to_t = _to_t(cutoff, self.span, side)
-        self.starts = run_starts(xs) if self.ties else None
-        self.run_values = xs[self.starts] if self.ties else None
+        # the tied values only (a run of one score needs no input order): on a nearly continuous
+        # side of 5e7 scores with a few repeated values, arrays per run would cost 16 bytes a score
+        self.tied = _tied_values(xs) if self.ties else None
+        self.tie_weights = self._tie_weights() if self.ties else None
         self.power = None
+
+    def _tie_weights(self) -> tuple[np.ndarray, np.ndarray]:
+        """Trapezoid weights of each tied run's first and last member (input order): half the
+        spacing to the previous and to the next distinct score, plus the stretch to the cutoff for
+        the run nearest it."""
+        xs, n, tv = self.xs, self.n, self.tied
+        lo = np.searchsorted(xs, tv, side="left")
+        hi = np.searchsorted(xs, tv, side="right")
+        first = np.where(lo > 0, 0.5 * (tv - xs[np.maximum(lo - 1, 0)]), 0.0)
+        last = np.where(hi < n, 0.5 * (xs[np.minimum(hi, n - 1)] - tv), 0.0)
+        if self.side == "below":
+            last = last + np.where(hi == n, self.cutoff - xs[-1], 0.0)
+        else:
+            first = first + np.where(lo == 0, xs[0] - self.cutoff, 0.0)
+        return first, last
 
     def rows_of(self, x: np.ndarray) -> np.ndarray:
         return x < self.cutoff if self.side == "below" else x >= self.cutoff
@@ -138,8 +161,12 @@ class _Side:
         """``np.searchsorted(self.xs, x, side="left")`` for ascending ``x``, block by block: the ranks
         of every STRIDE-th score of ``x`` bound the stretch of the sorted side where the scores
         between them lie, and each block is searched in its stretch only. On a side of 5e7 scores a
-        plain search misses the cache at nearly every step; this takes about half as long."""
+        plain search misses the cache at nearly every step; this takes about half as long (0.17
+        against 0.30 s per 1e6 scores). Below BLOCKED_FROM scores (5e6: both 31-33 ms per 6e5
+        scores) the plain search is used."""
         xs = self.xs
+        if xs.size < BLOCKED_FROM:                 # a side that fits the caches: one search is faster
+            return np.searchsorted(xs, x, side="left")
         out = np.empty(len(x), dtype=np.intp)
         if not len(x):
             return out
@@ -228,28 +255,35 @@ def _residual_chunk(sides):
             xs_ = x[keep]
             s2 = np.square(y[keep] - s.pilot_at(xs_))
             out[f"{s.side}.sigma2"] = np.array([np.sum(s2)])
+            # the chunk's scores sorted first: searching ascending keys walks the sorted side
+            # once instead of jumping about it (several times faster on a large side)
+            order = np.argsort(xs_)
+            xo, so = xs_[order], s2[order]
             if not s.ties:
-                # the chunk's scores sorted first: searching ascending keys walks the sorted side
-                # once instead of jumping about it (several times faster on a large side)
-                order = np.argsort(xs_)
-                out[f"{s.side}.trapezoid"] = np.array([np.sum(s2[order] * s.trapezoid_weight(xs_[order]))])
+                out[f"{s.side}.trapezoid"] = np.array([np.sum(so * s.trapezoid_weight(xo))])
                 continue
-            run = np.searchsorted(s.run_values, xs_, side="left")
+            # a score met once on the side has the untied weight; a tied run's first and last
+            # members (least and greatest input position, kept by ``combine``) carry its weights
+            j = np.searchsorted(s.tied, xo, side="left")
+            in_run = (j < s.tied.size) & (s.tied[np.minimum(j, max(s.tied.size - 1, 0))] == xo) \
+                if s.tied.size else np.zeros(xo.size, dtype=bool)
+            alone = ~in_run
+            out[f"{s.side}.trapezoid"] = np.array([np.sum(so[alone] * s.trapezoid_weight(xo[alone]))])
             if positions is None:
                 positions = start + np.arange(x.size, dtype=float)
-            pos = positions[keep]
+            run, pos, s2r = j[in_run], positions[keep][order][in_run], so[in_run]
             if run.size == 0:
                 for end in ("first", "last"):
-                    out[f"{s.side}.{end}_pos"] = out[f"{s.side}.{end}"] = np.full(s.runs, np.nan)
+                    out[f"{s.side}.{end}_pos"] = out[f"{s.side}.{end}"] = np.full(s.tied.size, np.nan)
                 continue
             order = np.lexsort((pos, run))
-            run, pos, s2 = run[order], pos[order], s2[order]
+            run, pos, s2r = run[order], pos[order], s2r[order]
             heads = np.flatnonzero(np.r_[True, run[1:] != run[:-1]])
             tails = np.r_[heads[1:] - 1, run.size - 1]
             for end, at in (("first", heads), ("last", tails)):
-                p = np.full(s.runs, np.nan)
-                v = np.full(s.runs, np.nan)
-                p[run[at]], v[run[at]] = pos[at], s2[at]
+                p = np.full(s.tied.size, np.nan)
+                v = np.full(s.tied.size, np.nan)
+                p[run[at]], v[run[at]] = pos[at], s2r[at]
                 out[f"{s.side}.{end}_pos"], out[f"{s.side}.{end}"] = p, v
         return out
     return chunk
@@ -347,13 +381,10 @@ def binned_means_streamed(below, above, cutoff: float, passes, *, weighted: bool
     for s in sides:
         slope2, spacings = s.slope_sums()
         sigma2 = float(got[f"{s.side}.sigma2"][0])
-        if s.ties:
-            first, last = got[f"{s.side}.first"], got[f"{s.side}.last"]
-            int_sigma2 = float(np.sum(0.5 * (last[:-1] + first[1:]) * np.diff(s.run_values)))
-            nearest = last[-1] if s.side == "below" else first[0]
-            int_sigma2 += float(nearest * (cutoff - s.xs[-1] if s.side == "below" else s.xs[0] - cutoff))
-        else:
-            int_sigma2 = float(got[f"{s.side}.trapezoid"][0])
+        int_sigma2 = float(got[f"{s.side}.trapezoid"][0])
+        if s.ties:                 # sum over runs of (last_r + first_(r+1)) / 2 x spacing, by run
+            w_first, w_last = s.tie_weights
+            int_sigma2 += float(np.sum(got[f"{s.side}.first"] * w_first) + np.sum(got[f"{s.side}.last"] * w_last))
         average = sigma2 / s.n
         consts.append(BinConstants(
             bias_equal_width=s.span ** 2 / 12.0 * (slope2 / s.n),
