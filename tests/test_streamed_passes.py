@@ -155,3 +155,25 @@ def test_bins_in_row_blocks_within_a_partition(monkeypatch):
         for field in ("mean", "std_error", "score_mean", "weight_sum"):
             close(getattr(got, field), getattr(want, field))
     assert design._data._gathered is None
+
+
+@pytest.mark.parametrize("weighted", [False, True])
+def test_a_nearly_continuous_side_with_a_few_tied_scores(weighted):
+    """A few repeated values on a continuous side (as 1e8 uniform draws give): the tied runs are
+    kept per tied value, and the bins equal binned_means (reference, as above)."""
+    rng = np.random.default_rng(9)
+    x = rng.uniform(-1.0, 1.0, 30_000)
+    x[100:140] = x[5]                      # one run of 41 equal scores
+    x[200:203] = x[7]                      # and one of 4
+    x[300] = x[9]                          # and a pair
+    y = np.sin(3 * x) + 0.2 * (x >= 0) + rng.normal(0.0, 0.3, x.size)
+    w = rng.uniform(0.5, 2.0, x.size) if weighted else None
+    below, above = sides(x, 0.0)
+    got = binned_means_streamed(below, above, 0.0, array_passes(x, y, w, chunk_rows=1000), weighted=weighted)
+    want = binned_means(x, y, 0.0, weights=w)
+    assert got.number == want.number and np.array_equal(got.count, want.count)
+    for field in ("mean", "std_error", "score_mean"):
+        close(getattr(got, field), getattr(want, field))
+    for side in ("below", "above"):
+        assert getattr(got.selection, side).variance_equal_width == pytest.approx(
+            getattr(want.selection, side).variance_equal_width, rel=RTOL)
