@@ -151,10 +151,11 @@ LARGE_N = 20_000
 @pytest.mark.parametrize("model,reps", [
     (2, 100),
     pytest.param(1, 150, marks=pytest.mark.xfail(strict=True, reason=(
-        "issue 9: the curvature pilot (a polynomial on the nearer half of each side) does not track Model 1's "
+        "known limitation (DEVELOPERS.md, Coverage at estimated bandwidths): the curvature pilot "
+        "(a polynomial on the nearer half of each side) does not track Model 1's "
         "curvature, which changes sign near the cutoff; median h/population about 1.25 at n = 20000"))),
     pytest.param(3, 100, marks=pytest.mark.xfail(strict=True, reason=(
-        "issue 9: same pilot limitation on Model 3; median h/population about 0.78 at n = 20000"))),
+        "known limitation: the same pilot on Model 3; median h/population about 0.78 at n = 20000"))),
 ])
 def test_median_selected_bandwidth_near_population_value_at_large_n(model, reps):
     """The population median of the default (MSE) bandwidth lies within +-10% of the population value
