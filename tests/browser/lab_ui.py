@@ -144,8 +144,15 @@ def save_notebook(page: Page, lab, name: str) -> dict:
     while path.stat().st_mtime_ns == before and time.monotonic() < deadline:
         time.sleep(0.2)
     assert path.stat().st_mtime_ns != before, f"{name} was not saved"
-    time.sleep(0.3)
-    return json.loads(path.read_text())
+    # The server may still be writing the file (an empty or partial read on a busy machine): read
+    # until the text is a whole JSON document.
+    while True:
+        time.sleep(0.3)
+        try:
+            return json.loads(path.read_text())
+        except json.JSONDecodeError:
+            if time.monotonic() > deadline:
+                raise
 
 
 def screenshot(page: Page, name: str) -> Path:
