@@ -146,6 +146,7 @@ def save_notebook(page: Page, lab, name: str) -> dict:
     assert path.stat().st_mtime_ns != before, f"{name} was not saved"
     # The server may still be writing the file (an empty or partial read on a busy machine): read
     # until the text is a whole JSON document.
+    deadline = time.monotonic() + 30
     while True:
         time.sleep(0.3)
         try:
