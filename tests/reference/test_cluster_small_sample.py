@@ -21,7 +21,7 @@ from scipy import stats
 
 import seamline
 
-from _references import build_window, contrast
+from _references import build_window, contrast, wls_reference
 
 RTOL = 1e-9
 
@@ -120,19 +120,15 @@ def test_one_row_per_cluster_takes_the_vectorised_path_and_matches_dense_cr2(ker
 
 
 def test_one_row_per_cluster_with_a_uniform_kernel_is_hc2_of_statsmodels():
-    # Reference: statsmodels OLS with cov_type="HC2" on the window's interacted regression (uniform
+    # Reference: statsmodels (`wls_reference`, unit weights) with cov_type="HC2" on the window's interacted regression (uniform
     # kernel, no weights: the CR2 of singleton clusters is exactly HC2, Bell and McCaffrey 2002).
-    import statsmodels.api as sm
     frame = clustered_data(n=400, seed=12)
     frame["g"] = np.arange(len(frame))
     fit = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="g").fit(
         bandwidth=0.5, kernel="uniform")
-    win = frame[frame.x.abs() <= 0.5]
-    above = (win.x >= 0).astype(float)
-    exog = np.column_stack([np.ones(len(win)), above, win.x, win.x * above])
-    ols = sm.OLS(win.y.to_numpy(), exog).fit(cov_type="HC2")
-    assert fit.estimate == pytest.approx(ols.params[1], rel=1e-10)
-    assert fit.std_error == pytest.approx(ols.bse[1], rel=1e-9)
+    ref = wls_reference(frame.x, frame.y, 0.0, 0.5, kernel="uniform", cov_type="hc2")
+    assert fit.estimate == pytest.approx(ref.estimate, rel=1e-10)
+    assert fit.std_error == pytest.approx(ref.std_error, rel=1e-9)
 
 
 @pytest.mark.parametrize("kernel,degree,bandwidth,weights", [

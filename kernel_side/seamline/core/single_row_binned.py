@@ -14,7 +14,7 @@ about 1e-12 relative for the variance (its polynomials have degree <= 12 at a bi
 rational part's series converges like the leverage, below 1e-4 at the window sizes this path is used
 for) and 1e-10 to 1e-8 for the degrees of freedom (degree 16-20 polynomials), whose effect on the t
 quantile at thousands of degrees of freedom is below 1e-12 (checked against the row-by-row
-computation in tests/core/test_single_row_binned.py).
+computation in tests/reference/test_single_row_binned.py).
 
 Unweighted sides only: with sampling weights B depends on each row's weight, not on d alone.
 """

@@ -1,9 +1,9 @@
 """The single-row bias-reduced variance over wide windows from binned moments.
 
 References:
-- statsmodels OLS with cov_type="HC2" on the window's interacted regression (uniform kernel, no
-  weights: the CR2 of one-row clusters is HC2, Bell and McCaffrey 2002), at a window of about
-  60,000 rows per side, where the binned path is used.
+- statsmodels with cov_type="HC2" on the window's interacted regression
+  (`_references.wls_reference`; uniform kernel, no weights: the CR2 of one-row clusters is HC2,
+  Bell and McCaffrey 2002), at a window of about 60,000 rows per side, where the binned path is used.
 - The row-by-row computation (itself checked against a dense CR2 and statsmodels in
   tests/reference/test_cluster_small_sample.py) for the other kernels, degrees, pilot bandwidths,
   fuzzy contrasts and the Bell-McCaffrey degrees of freedom.
@@ -17,6 +17,8 @@ import pytest
 
 import seamline
 from seamline.core import single_row_binned
+
+from _references import wls_reference
 
 
 def wide_data(n=240_000, seed=3):
@@ -48,14 +50,10 @@ def fit_both(frame, monkeypatch, takeup=None, **options):
 
 
 def test_uniform_kernel_matches_statsmodels_hc2(frame, monkeypatch):
-    import statsmodels.api as sm
     _, fit = fit_both(frame, monkeypatch, bandwidth=0.5, kernel="uniform")
-    win = frame[frame.x.abs() <= 0.5]
-    above = (win.x >= 0).astype(float)
-    exog = np.column_stack([np.ones(len(win)), above, win.x, win.x * above])
-    ols = sm.OLS(win.y.to_numpy(), exog).fit(cov_type="HC2")
-    assert fit.estimate == pytest.approx(ols.params[1], rel=1e-10)
-    assert fit.std_error == pytest.approx(ols.bse[1], rel=1e-9)
+    ref = wls_reference(frame.x, frame.y, 0.0, 0.5, kernel="uniform", cov_type="hc2")
+    assert fit.estimate == pytest.approx(ref.estimate, rel=1e-10)
+    assert fit.std_error == pytest.approx(ref.std_error, rel=1e-9)
 
 
 @pytest.mark.parametrize("options", [
