@@ -120,8 +120,9 @@ def test_one_row_per_cluster_takes_the_vectorised_path_and_matches_dense_cr2(ker
 
 
 def test_one_row_per_cluster_with_a_uniform_kernel_is_hc2_of_statsmodels():
-    # Reference: statsmodels (`wls_reference`, unit weights) with cov_type="HC2" on the window's interacted regression (uniform
-    # kernel, no weights: the CR2 of singleton clusters is exactly HC2, Bell and McCaffrey 2002).
+    # Reference: statsmodels (`wls_reference`, unit weights) with cov_type="HC2" on the window's
+    # interacted regression (uniform kernel, no weights: the CR2 of singleton clusters is exactly
+    # HC2, Bell and McCaffrey 2002).
     frame = clustered_data(n=400, seed=12)
     frame["g"] = np.arange(len(frame))
     fit = seamline.Design(frame, score="x", cutoff=0.0, outcome="y", cluster="g").fit(
