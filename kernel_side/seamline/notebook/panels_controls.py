@@ -25,7 +25,7 @@ _RULES = (("MSE-optimal", "mse"), ("MSE-optimal, each side", "mse-split"),
 _KERNELS = ("triangular", "uniform", "epanechnikov")
 _DEGREES = (("0 (local constant)", 0), ("1 (local linear)", 1), ("2 (local quadratic)", 2),
             ("3 (local cubic)", 3))
-_VARIANCES = (("HC2, small-sample t (bias-reduced)", "bias-reduced"), ("nearest neighbours", "neighbors"),
+_VARIANCES = (("bias-reduced HC2", "bias-reduced"), ("nearest neighbours", "neighbors"),
               ("HC0", "hc0"), ("HC1", "hc1"), ("HC2", "hc2"), ("HC3", "hc3"))
 _LEVELS = (("90%", 0.90), ("95%", 0.95), ("99%", 0.99))
 _CONTROL = {"description_width": "70px"}
