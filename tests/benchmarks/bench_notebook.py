@@ -7,7 +7,8 @@ beside its target (invented data: seamline.demo_data.sharp_scenario, score, outc
   L3. level change: all panels                                        <= 0.3x
   L4. set_option returns                                              <= max(20 ms, 0.2x)
   L5. 30 changes in a row, settled after the last (the last value wins)  <= 8x
-  L6. n = 1e5 with the widget view: view built / bandwidth change to fresh panels  <= 0.5 s / <= 0.3 s
+  L6. n = 1e5 with the widget view: view built / bandwidth change to the open tab redrawn
+      (its numbers and its charts, the board settle delay included)          <= 0.5 s / <= 0.3 s
   L7. n = 1e7: bandwidth change -> headline                           <= 100 ms
 "All panels" in L1-L3 and L5 are the panels issue 8 set targets for; the inference panels added
 later (bias-aware interval, weak-instrument-robust set, local randomization: permutation tests
@@ -43,6 +44,7 @@ import seamline
 from _timing import timed  # tests/benchmarks/ is on sys.path when a script runs
 from seamline.demo_data import sharp_scenario
 from seamline.notebook.board import Board
+from seamline.notebook.static import PANEL_RESULTS
 from seamline.notebook.reactive import fingerprint_algorithm, fingerprints, use_fingerprint_algorithm
 
 
@@ -222,6 +224,24 @@ def live_board(n: int) -> None:
     b.close()
 
 
+def _until_open_tab_drawn(view, b, since: float, timeout: float = 30.0) -> None:
+    """Poll (without awaiting, which would skip the board's settle delay) until what the user
+    sees is current: the board fresh, the open tab's panel text re-rendered for the new inputs
+    and each of its charts redrawn from the new results (or cleared where none applies)."""
+    tab = view._open_tab()
+    before = [tuple(output.outputs) for _, output in view._charts[tab]]
+    while time.perf_counter() - since < timeout:
+        time.sleep(0.002)
+        if b.status != "fresh" or view._paint or view._painting:
+            continue
+        if b.state().pending & {"fit", *PANEL_RESULTS[tab]}:
+            continue
+        now = [tuple(output.outputs) for _, output in view._charts[tab]]
+        if all(n != o or not n for n, o in zip(now, before)):
+            return
+    raise TimeoutError(f"the {tab} tab was not redrawn within {timeout} s")
+
+
 def live_view(n: int = 100_000) -> None:
     import seamline.notebook.scheduler as board_module
     from seamline.notebook.board import board as make_board
@@ -249,12 +269,12 @@ def live_view(n: int = 100_000) -> None:
             start = time.perf_counter()
             view._rule.value = "manual"
             view._manual.value = round(h * (1.05 + 0.05 * i), 4)
-            b.wait("fit", "bins")                    # the headline and the open tab, rendered
+            _until_open_tab_drawn(view, b, start)
             times.append(time.perf_counter() - start)
         t_change = statistics.median(times)
         print(f"{'[L6] n = 1e5, widget view built':46s} {t_view * 1e3:9.1f} ms (target <= 500 ms) "
               f"{'ok' if t_view <= 0.5 else 'MISS'}")
-        print(f"{'[L6] n = 1e5, bandwidth change to fresh panels':46s} {t_change * 1e3:9.1f} ms (target <= 300 ms) "
+        print(f"{'[L6] n = 1e5, bandwidth change, open tab redrawn':46s} {t_change * 1e3:9.1f} ms (target <= 300 ms) "
               f"{'ok' if t_change <= 0.3 else 'MISS'}")
         print(f"{'     (once per kernel: importing Altair, first chart)':46s} {t_altair * 1e3:9.1f} ms")
         view.close()

@@ -439,3 +439,45 @@ def test_every_chart_spec_compiles_with_vega_lite_5(what, sharp_board, fuzzy_boa
     assert "url" not in str(spec.get("datasets", {})) and "'url'" not in str(spec.get("data", {}))
     svg = vl_convert.vegalite_to_svg(spec, vl_version="5.8")
     assert "<path" in svg or "<rect" in svg or "<circle" in svg or "<line" in svg
+
+
+# The live view's specs skip Altair's general data sanitizer (charts_render._inline_frames) and
+# set the shared look in place (charts_style._configure). Reference: Altair's own serialisation
+# of the same chart (``to_dict``, which sanitizes every frame itself) must give the same spec.
+@pytest.mark.parametrize("what", charts.CHART_NAMES)
+def test_live_specs_equal_altairs_own_serialisation(what, sharp_board, fuzzy_board):
+    board = fuzzy_board if what == "first_stage" else sharp_board
+    if what in ("by_cutoff", "subgroups"):
+        from seamline.demo_cutoffs import district_cutoffs_scenario
+        sc = district_cutoffs_scenario(3000, seed=23)
+        board = Board("districts", {**sc.design_kwargs(), "groups": "owner"}, {}, data=sc.data)
+    state = board.wait()
+    expected = charts.chart_for(state, what).to_dict(validate=False)
+    live = charts.to_vega_lite(charts.chart_for(state, what))
+    live.pop("$schema"), expected.pop("$schema")
+    assert live == expected
+
+
+def test_inlined_frame_values_match_altairs_sanitizer():
+    # Reference: Altair's default data transformer (sanitize, then records) on the same frame.
+    import altair as alt
+    from altair.utils.data import to_values
+    from seamline.notebook.charts_render import _inline_frames
+    frame = pd.DataFrame({
+        "f": [1.5, np.nan, np.inf, -np.inf, 2.0],
+        "i": np.arange(5, dtype=np.int64),
+        "u": np.arange(5, dtype=np.uint8),
+        "b": [True, False, True, False, True],
+        "s": ["a", None, "c", "d", "e"],
+        "o": pd.Series(["x", 1, 2.5, None, np.nan], dtype=object),
+        "t": pd.array(["p", None, "r", "s", "t"], dtype="string"),
+    })
+    chart = alt.layer(alt.Chart(frame).mark_point().encode(x=alt.X("f:Q"), y=alt.Y("i:Q")),
+                      alt.Chart(frame.assign(day=pd.date_range("2024-01-01", periods=5)))
+                      .mark_point().encode(x=alt.X("day:T"), y=alt.Y("u:Q")))
+    expected = [to_values(layer.data)["values"] for layer in chart.layer]
+    _inline_frames(chart)
+    assert chart.layer[0].data == {"values": expected[0]}
+    assert isinstance(chart.layer[1].data, pd.DataFrame)      # dates: left to Altair
+    assert all(type(a) is type(b) for row_a, row_b in zip(chart.layer[0].data["values"], expected[0])
+               for a, b in zip(row_a.values(), row_b.values()))

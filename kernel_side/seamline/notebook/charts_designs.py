@@ -50,15 +50,15 @@ def _point_ranges(alt, data: pd.DataFrame, x_title: str, y_title: str, order: li
                alt.Tooltip("n:N", title="in the window")]
     base = alt.Chart(data)
     return [_zero_rule(alt),
-            base.mark_rule(strokeWidth=1.8).encode(x=x, y=alt.Y("lo:Q", title=y_title), y2="hi:Q", color=color),
-            base.mark_circle(size=60, opacity=1).encode(x=x, y="estimate:Q", color=color, tooltip=tooltip)]
+            base.mark_rule(strokeWidth=1.8).encode(x=x, y=alt.Y("lo:Q", title=y_title), y2=alt.Y2("hi:Q"), color=color),
+            base.mark_circle(size=60, opacity=1).encode(x=x, y=alt.Y("estimate:Q"), color=color, tooltip=tooltip)]
 
 
 def _common_rule(alt, equality):
     if not equality.applies:
         return []
     frame = pd.DataFrame({"c": [float(equality.common_estimate)]})
-    return [alt.Chart(frame).mark_rule(color=MUTED, strokeDash=[4, 3], strokeWidth=1).encode(y="c:Q")]
+    return [alt.Chart(frame).mark_rule(color=MUTED, strokeDash=[4, 3], strokeWidth=1).encode(y=alt.Y("c:Q"))]
 
 
 def _test_text(equality) -> str:
@@ -87,7 +87,7 @@ def cutoff_effects_chart(effects, *, configure: bool = True):
            if effects.layout == "column" else
            [f"estimate and robust {_pct(effects.level)} CI, each fitted between its neighbouring cutoffs",
             "each effect is the increment of the treatment at its cutoff"])
-    chart = alt.layer(*layers).properties(
+    chart = alt.layer(*layers,
         width=WIDTH, height=HEIGHT,
         title=_title(alt, "Effects at each cutoff", [*how, _test_text(effects.equality)]))
     return _configure(chart, configure=configure)
@@ -108,7 +108,7 @@ def group_effects_chart(groups, *, configure: bool = True):
     data = _effects_frame(groups)
     order = [_label(r.label) for r in groups.rows]
     layers = _point_ranges(alt, data, groups.column, f"effect on {groups.outcome}", order) + _common_rule(alt, groups.equality)
-    chart = alt.layer(*layers).properties(
+    chart = alt.layer(*layers,
         width=WIDTH, height=HEIGHT,
         title=_title(alt, f"Effects by {groups.column}",
                      [f"estimate and robust {_pct(groups.level)} CI, each fitted on the group's rows",
@@ -135,9 +135,9 @@ def power_chart(report, *, configure: bool = True):
         y=alt.Y("power:Q", title="power", scale=alt.Scale(domain=[0, 1])),
         tooltip=[alt.Tooltip("effect:Q", format=".4g"), alt.Tooltip("power:Q", format=".3f")])
     marks = pd.DataFrame({"y": [0.8, 1 - curve.level], "what": ["80% power", "test size"]})
-    rules = alt.Chart(marks).mark_rule(color=MUTED, strokeDash=[4, 3]).encode(y="y:Q")
+    rules = alt.Chart(marks).mark_rule(color=MUTED, strokeDash=[4, 3]).encode(y=alt.Y("y:Q"))
     labels = alt.Chart(marks).mark_text(align="left", dx=3, dy=-5, fontSize=9, color=INK).encode(
-        x=alt.value(0), y="y:Q", text="what:N")
+        x=alt.XValue(0), y=alt.Y("y:Q"), text=alt.Text("what:N"))
     layers = [line, rules, labels]
     points = [{"effect": report.detectable, "power": 0.8, "what": f"80% at {report.detectable:.3g}"}]
     if report.effect is not None and report.power is not None:
@@ -145,13 +145,13 @@ def power_chart(report, *, configure: bool = True):
                        "what": f"planned {report.effect:g}: {report.power.power:.0%}"})
     dots = alt.Chart(pd.DataFrame(points))
     layers.append(dots.mark_circle(color=UNTREATED, size=50, opacity=1).encode(
-        x="effect:Q", y="power:Q", tooltip=[alt.Tooltip("what:N", title="")]))
+        x=alt.X("effect:Q"), y=alt.Y("power:Q"), tooltip=[alt.Tooltip("what:N", title="")]))
     layers.append(dots.mark_text(align="left", dx=7, dy=8, fontSize=9, color=INK).encode(
-        x="effect:Q", y="power:Q", text="what:N"))
+        x=alt.X("effect:Q"), y=alt.Y("power:Q"), text=alt.Text("what:N")))
     subtitle = [f"robust test at size {1 - curve.level:.3g} with the pilot's {curve.n_pilot} observations",
                 f"se scales as (n0 / n)^{curve.exponent:.3g} ({curve.scaling.replace('-', ' ')})"]
-    chart = alt.layer(*layers).properties(width=WIDTH, height=HEIGHT,
-                                          title=_title(alt, "Power against the effect", subtitle))
+    chart = alt.layer(*layers, width=WIDTH, height=HEIGHT,
+                      title=_title(alt, "Power against the effect", subtitle))
     return _configure(chart, configure=configure)
 
 

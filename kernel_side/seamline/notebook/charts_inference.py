@@ -25,10 +25,10 @@ def bias_aware_chart(aware, *, configure: bool = True):
     table = aware.sensitivity
     data = c._records(c._finite(table.assign(m=table["smoothness"], lo=table["ci_low"], hi=table["ci_high"]),
                                 ["m", "estimate"])[["m", "estimate", "lo", "hi"]])
-    layers = c._estimate_path(alt, data, "m", "smoothness bound M", alt.value(c.TREATED),
+    layers = c._estimate_path(alt, data, "m", "smoothness bound M", alt.ColorValue(c.TREATED),
                               f"jump in {aware.outcome}")
     layers.append(c._cutoff_rule(alt, float(aware.smoothness), label="chosen M"))
-    chart = alt.layer(*layers).properties(
+    chart = alt.layer(*layers,
         width=c.WIDTH, height=c.HEIGHT,
         title=c._title(alt, "Bias-aware interval against the smoothness bound",
                        [f"{c._pct(aware.level)} interval for 0.5 to 4 times M = {c.number(aware.smoothness)} "
@@ -46,8 +46,8 @@ def windows_chart(lr, *, configure: bool = True):
     threshold = pd.DataFrame({"t": [float(lr.balance_threshold)]})
     half = max(lr.window[1] - lr.cutoff, lr.cutoff - lr.window[0])
     layers = [
-        alt.Chart(threshold).mark_rule(color=c.MUTED, strokeDash=[2, 2]).encode(y="t:Q"),
-        alt.Chart(data).mark_line(color=c.TREATED, strokeWidth=1.2).encode(x="w:Q", y="p:Q"),
+        alt.Chart(threshold).mark_rule(color=c.MUTED, strokeDash=[2, 2]).encode(y=alt.Y("t:Q")),
+        alt.Chart(data).mark_line(color=c.TREATED, strokeWidth=1.2).encode(x=alt.X("w:Q"), y=alt.Y("p:Q")),
         alt.Chart(data).mark_circle(size=30, color=c.TREATED, opacity=1).encode(
             x=alt.X("w:Q", title=f"half-width of the window ({lr.score} units)"),
             y=alt.Y("p:Q", title="smallest balance p-value", scale=alt.Scale(domain=[0, 1])),
@@ -57,7 +57,7 @@ def windows_chart(lr, *, configure: bool = True):
                      alt.Tooltip("n_below:Q", title="below"), alt.Tooltip("n_above:Q", title="above")]),
         c._cutoff_rule(alt, float(half), label="analysed window"),
     ]
-    chart = alt.layer(*layers).properties(
+    chart = alt.layer(*layers,
         width=c.WIDTH, height=c.HEIGHT,
         title=c._title(alt, "Covariate balance in nested windows",
                        [f"smallest randomization p-value over the covariates; dashed line at "

@@ -133,6 +133,58 @@ def to_vega_lite(chart) -> dict:
     dict
         JSON-ready; the data inside are binned or summary values, never the raw rows.
     """
+    _inline_frames(chart)
     spec = chart.to_dict(validate=False)    # the builders are validated by the tests; saves ~40 ms a chart
     spec["$schema"] = _V5_SCHEMA
     return spec
+
+
+def _inline_frames(chart) -> None:
+    """Give every part of ``chart`` (built for this call: it is changed in place) the data
+    ``{"values": records}`` Altair would make of its pandas frame, read straight off the columns.
+    Altair's general sanitizer costs about 5 ms a frame, a large share of a live chart. Frames
+    with dtypes beyond numbers, booleans and text (dates, categories) are left to Altair; the
+    spec is the same either way (tested)."""
+    import pandas as pd
+    data = getattr(chart, "data", None)
+    if isinstance(data, pd.DataFrame):
+        values = _records(data)
+        if values is not None:
+            chart.data = {"values": values}
+    for name in ("layer", "hconcat", "vconcat", "concat"):
+        for part in getattr(chart, name, None) or ():
+            if not isinstance(part, (str, bytes)):
+                _inline_frames(part)
+    spec = getattr(chart, "spec", None)
+    if spec is not None and not isinstance(spec, (str, bytes, dict)):
+        _inline_frames(spec)
+
+
+def _records(frame) -> list[dict] | None:
+    """The frame's rows as JSON-ready dicts, as Altair's sanitizer makes them (non-finite floats
+    and missing values as None, numpy scalars as Python ones), or None for other dtypes."""
+    import numpy as np
+    import pandas as pd
+    if isinstance(frame.columns, pd.MultiIndex) or not all(isinstance(c, str) for c in frame.columns):
+        return None
+    columns = []
+    for name in frame.columns:
+        column = frame[name]
+        kind = column.dtype.kind if isinstance(column.dtype, np.dtype) else None
+        if kind == "f":
+            values = column.to_numpy()
+            items = values.tolist()
+            for i in np.flatnonzero(~np.isfinite(values)).tolist():
+                items[i] = None
+        elif kind in ("i", "u", "b"):
+            items = column.to_numpy().tolist()
+        elif kind == "O" or isinstance(column.dtype, pd.StringDtype):
+            items = column.astype(object).tolist()
+            if not all(v is None or v is pd.NA or isinstance(v, (str, bool, int, float)) for v in items):
+                return None       # arrays, dates or other objects: Altair's own rules
+            items = [None if v is None or v is pd.NA or (isinstance(v, float) and v != v) else v for v in items]
+        else:
+            return None
+        columns.append(items)
+    names = list(frame.columns)
+    return [dict(zip(names, row)) for row in zip(*columns)]

@@ -54,7 +54,7 @@ def sensitivity_chart(sensitivity, *, fit=None, bandwidths: pd.DataFrame | None 
     path, named = data[scaled], data[~scaled]
     color = (alt.Color("spec:N", legend=alt.Legend(title=None),
                        scale=alt.Scale(range=[TREATED, UNTREATED, MUTED, INK]))
-             if several else alt.value(TREATED))
+             if several else alt.ColorValue(TREATED))
     x_title = "bandwidth below the cutoff" if asymmetric else "bandwidth"
     dates = time_axes.scale_of(sensitivity, fit)
     if dates is not None:
@@ -70,18 +70,18 @@ def sensitivity_chart(sensitivity, *, fit=None, bandwidths: pd.DataFrame | None 
     ci = _finite(path, ["lo", "hi"])
     if not several and len(ci) > 2:
         layers.append(alt.Chart(ci).mark_area(opacity=0.14, color=TREATED).encode(
-            x=alt.X("h:Q"), y=alt.Y("lo:Q"), y2="hi:Q"))
+            x=alt.X("h:Q"), y=alt.Y("lo:Q"), y2=alt.Y2("hi:Q")))
     layers.append(alt.Chart(ci).mark_rule(strokeWidth=1.2).encode(
-        x=alt.X("h:Q"), y=alt.Y("lo:Q"), y2="hi:Q", color=color))
+        x=alt.X("h:Q"), y=alt.Y("lo:Q"), y2=alt.Y2("hi:Q"), color=color))
     layers.append(alt.Chart(path).mark_line(strokeWidth=1, opacity=0.6).encode(
-        x=alt.X("h:Q"), y=alt.Y("estimate:Q"), color=color, detail="spec:N"))
+        x=alt.X("h:Q"), y=alt.Y("estimate:Q"), color=color, detail=alt.Detail("spec:N")))
     layers.append(alt.Chart(path).mark_circle(size=30, opacity=1).encode(
         x=x_enc, y=alt.Y("estimate:Q", title=y_title, scale=alt.Scale(zero=False)), color=color,
         tooltip=tooltip))
     if len(named):
         named_ci = _finite(named, ["lo", "hi"])
         layers.append(alt.Chart(named_ci).mark_rule(strokeWidth=1, color=MUTED).encode(
-            x=alt.X("h:Q"), y=alt.Y("lo:Q"), y2="hi:Q"))
+            x=alt.X("h:Q"), y=alt.Y("lo:Q"), y2=alt.Y2("hi:Q")))
         layers.append(alt.Chart(named).mark_point(size=34, filled=False, strokeWidth=1.4, color=INK).encode(
             x=x_enc, y=alt.Y("estimate:Q", title=y_title, scale=alt.Scale(zero=False)), tooltip=tooltip))
 
@@ -114,12 +114,12 @@ def sensitivity_chart(sensitivity, *, fit=None, bandwidths: pd.DataFrame | None 
                 x=alt.X("h:Q")))
         layers.append(alt.Chart(frame).mark_text(align="left", baseline="top", dx=3, fontSize=9,
                                                  color=INK).encode(
-            x=alt.X("h:Q"), y=alt.Y("dy:Q", scale=None), text="label:N"))
+            x=alt.X("h:Q"), y=alt.Y("dy:Q", scale=None), text=alt.Text("label:N")))
     subtitle = [f"dots: estimate at multiples of the selected bandwidth; "
                 f"{'bars' if several else 'band'}: robust {_pct(level)} CI",
                 "open points: other selectors (dotted rules)"
                 + ("; dashed rule: the bandwidth in use" if fit is not None else "")]
-    chart = alt.layer(*layers).properties(
+    chart = alt.layer(*layers,
         width=WIDTH, height=HEIGHT, title=_title(alt, "Estimate versus bandwidth", subtitle))
     return _configure(chart, configure=configure)
 
@@ -156,15 +156,15 @@ def balance_chart(balance, *, configure: bool = True):
     zero = base.mark_rule(color=MUTED, strokeWidth=1).encode(x=alt.X("zero:Q"))
     bars = base.mark_rule(color=TREATED, strokeWidth=1.6).encode(
         x=alt.X("lo:Q", title=None, scale=alt.Scale(zero=True, nice=True),
-                axis=alt.Axis(tickCount=5, labelOverlap=True, labelFontSize=9)), x2="hi:Q")
+                axis=alt.Axis(tickCount=5, labelOverlap=True, labelFontSize=9)), x2=alt.X2("hi:Q"))
     dots = base.mark_circle(color=TREATED, size=36, opacity=1).encode(
         x=alt.X("estimate:Q"),
         tooltip=[alt.Tooltip("name:N", title="covariate"), alt.Tooltip("estimate:Q", format=".4g"),
                  alt.Tooltip("lo:Q", format=".4g", title="CI low"),
                  alt.Tooltip("hi:Q", format=".4g", title="CI high"), alt.Tooltip("p_text:N", title="p")])
     ptext = base.mark_text(align="right", baseline="middle", fontSize=9, color="#555555").encode(
-        x=alt.value(WIDTH - 10), text="p_text:N")
-    layer = alt.layer(zero, bars, dots, ptext, data=data).properties(width=WIDTH - 60, height=20)
+        x=alt.XValue(WIDTH - 10), text=alt.Text("p_text:N"))
+    layer = alt.layer(zero, bars, dots, ptext, data=data, width=WIDTH - 60, height=20)
     facet = layer.facet(
         row=alt.Row("name:N", sort=list(data["name"]), title=None,
                     header=alt.Header(labelAngle=0, labelAlign="left", labelOrient="left",
@@ -231,7 +231,7 @@ def placebo_chart(placebo, *, cutoff: float | None = None, score: str | None = N
         label = "true cutoff" if dates is None else f"true cutoff {time_axes.cutoff_text(dates, cutoff)}"
         layers.append(_cutoff_rule(alt, float(cutoff), label=label))
     level = _level(placebo)
-    chart = alt.layer(*layers).properties(
+    chart = alt.layer(*layers,
         width=WIDTH, height=HEIGHT,
         title=_title(alt, "Placebo cutoffs",
                      [f"estimate and robust {_pct(level)} CI at cutoffs where no jump is expected",
@@ -264,9 +264,9 @@ def donut_chart(donut, *, fit=None, configure: bool = True):
     radius_title = time_axes.unit_title(dates, f"donut radius ({score} units excluded each side)",
                                         "donut radius excluded each side")
     layers = _estimate_path(alt, data, "radius", radius_title,
-                            alt.value(TREATED), f"jump in {outcome}" if outcome else "estimate")
+                            alt.ColorValue(TREATED), f"jump in {outcome}" if outcome else "estimate")
     level = _level(donut, _level(fit))
-    chart = alt.layer(*layers).properties(
+    chart = alt.layer(*layers,
         width=WIDTH, height=HEIGHT,
         title=_title(alt, "Donut: dropping observations nearest the cutoff",
                      [f"estimate and robust {_pct(level)} CI by radius; radius 0 is the full sample",

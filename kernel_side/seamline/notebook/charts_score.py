@@ -76,23 +76,23 @@ def estimate_chart(bins, fit=None, *, global_polynomial: bool = False, y_title: 
         lo = max(cutoff - h_below, float(table["left"].min()))
         hi = min(cutoff + h_above, float(table["right"].max()))
         window = pd.DataFrame({"lo": [lo], "hi": [hi]})
-        layers.append(alt.Chart(window).mark_rect(color=WINDOW).encode(x="lo:Q", x2="hi:Q"))
+        layers.append(alt.Chart(window).mark_rect(color=WINDOW).encode(x=alt.X("lo:Q"), x2=alt.X2("hi:Q")))
     if curve is not None and len(curve):
         band = curve.assign(side_name=curve["side"].map(names))
         band = _records(_finite(band, ["x", "fit"])[["side", "side_name", "x", "fit", "ci_low", "ci_high"]])
         band_ok = _finite(band, ["ci_low", "ci_high"])
         layers.append(alt.Chart(band_ok).mark_area(opacity=0.18, clip=True).encode(
-            x=alt.X("x:Q"), y=alt.Y("ci_low:Q"), y2="ci_high:Q", color=color, detail="side:N"))
+            x=alt.X("x:Q"), y=alt.Y("ci_low:Q"), y2=alt.Y2("ci_high:Q"), color=color, detail=alt.Detail("side:N")))
     dots_ci = _finite(dots, ["ci_low", "ci_high"])
     layers.append(alt.Chart(dots_ci).mark_rule(strokeWidth=1, opacity=0.55, clip=True).encode(
-        x=alt.X("x:Q"), y=alt.Y("ci_low:Q"), y2="ci_high:Q", color=color))
+        x=alt.X("x:Q"), y=alt.Y("ci_low:Q"), y2=alt.Y2("ci_high:Q"), color=color))
     layers.append(alt.Chart(dots).mark_circle(size=22, opacity=0.9).encode(
         x=x_enc, y=y_enc, color=color,
         tooltip=[alt.Tooltip("left:Q", title="bin from"), alt.Tooltip("right:Q", title="bin to"),
                  alt.Tooltip("count:Q", title="observations"), alt.Tooltip("mean:Q", format=".4g")]))
     if curve is not None and len(curve):
         layers.append(alt.Chart(band).mark_line(strokeWidth=2).encode(
-            x=alt.X("x:Q"), y=alt.Y("fit:Q"), color=color, detail="side:N"))
+            x=alt.X("x:Q"), y=alt.Y("fit:Q"), color=color, detail=alt.Detail("side:N")))
     notes = []
     if global_polynomial:
         frame = bins.global_polynomial() if hasattr(bins, "global_polynomial") else None
@@ -100,7 +100,7 @@ def estimate_chart(bins, fit=None, *, global_polynomial: bool = False, y_title: 
             value = "fit" if "fit" in frame.columns else [c for c in frame.columns if c not in ("side", "x")][0]
             guide = _records(_finite(frame.rename(columns={value: "fit"}), ["x", "fit"])[["side", "x", "fit"]])
             layers.append(alt.Chart(guide).mark_line(strokeWidth=1, strokeDash=[2, 2], color=MUTED, clip=True).encode(
-                x=alt.X("x:Q"), y=alt.Y("fit:Q"), detail="side:N"))
+                x=alt.X("x:Q"), y=alt.Y("fit:Q"), detail=alt.Detail("side:N")))
             notes.append("dotted: global polynomial (display only)")
     layers.append(_cutoff_rule(alt, cutoff))
 
@@ -115,7 +115,7 @@ def estimate_chart(bins, fit=None, *, global_polynomial: bool = False, y_title: 
             f"bandwidth {_bandwidth_text(fit.bandwidth, dates)} (shaded)")
     subtitle.append(f"dots: bin means with {_pct(level)} CIs; lines: local polynomial fits with bands"
                     + ("; " + notes[0] if notes else ""))
-    chart = alt.layer(*layers).properties(width=WIDTH, height=HEIGHT, title=_title(alt, title, subtitle))
+    chart = alt.layer(*layers, width=WIDTH, height=HEIGHT, title=_title(alt, title, subtitle))
     return _configure(time_axes.dated(chart, dates, alt, ("left", "right")), configure=configure)
 
 
@@ -215,7 +215,7 @@ def density_chart(density, *, score: str | None = None, treated: str | None = No
     layers = [
         alt.Chart(hist).mark_rect(opacity=0.28, stroke="white", strokeWidth=0.5).encode(
             x=alt.X("left:Q", title=f"{score}", scale=alt.Scale(zero=False, nice=False)),
-            x2="right:Q", y2=alt.datum(0), color=color,
+            x2=alt.X2("right:Q"), y2=alt.Y2Datum(0), color=color,
             y=alt.Y("density:Q", title="density" if dates is None else f"density (per {dates.unit[:-1]})"),
             tooltip=[alt.Tooltip("left:Q", title="bin from"), alt.Tooltip("right:Q", title="bin to"),
                      alt.Tooltip("count:Q", title="observations")]),
@@ -223,9 +223,9 @@ def density_chart(density, *, score: str | None = None, treated: str | None = No
     band = _finite(grid, ["ci_low", "ci_high"])
     if len(band):
         layers.append(alt.Chart(band).mark_area(opacity=0.2).encode(
-            x="x:Q", y="ci_low:Q", y2="ci_high:Q", color=color, detail="side:N"))
+            x=alt.X("x:Q"), y=alt.Y("ci_low:Q"), y2=alt.Y2("ci_high:Q"), color=color, detail=alt.Detail("side:N")))
     layers.append(alt.Chart(grid).mark_line(strokeWidth=2).encode(
-        x="x:Q", y="density:Q", color=color, detail="side:N"))
+        x=alt.X("x:Q"), y=alt.Y("density:Q"), color=color, detail=alt.Detail("side:N")))
     layers.append(_cutoff_rule(alt, float(cutoff)))
     method = getattr(density, "method", "")
     method_text = {"local-cdf": "local polynomial density test (Cattaneo, Jansson and Ma 2020)",
@@ -235,5 +235,5 @@ def density_chart(density, *, score: str | None = None, treated: str | None = No
     title = f"Density of {score}: T = {_stat(stat)}, {_p_is(pval)}"
     subtitle = [method_text, f"bars: histogram; lines: fitted density with {_pct(_level(density))} band; "
                 "a jump hints at sorting"]
-    chart = alt.layer(*layers).properties(width=WIDTH, height=HEIGHT, title=_title(alt, title, subtitle))
+    chart = alt.layer(*layers, width=WIDTH, height=HEIGHT, title=_title(alt, title, subtitle))
     return _configure(time_axes.dated(chart, dates, alt), configure=configure)

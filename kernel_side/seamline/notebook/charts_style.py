@@ -7,6 +7,7 @@ nor vl-convert.
 """
 from __future__ import annotations
 
+import functools
 import math
 from typing import Any
 
@@ -163,10 +164,22 @@ def _ci_columns(df: pd.DataFrame) -> tuple[str, str]:
 
 
 def _configure(chart, *, configure: bool):
+    """The chart, which its builder has just made, with seamline's look (fonts, axes, legend) set
+    in place. The look is one ``Config``, built once: Altair's chained ``configure_*`` calls, and
+    even a shallow copy of a layered chart, copy every layer (about a third of a live chart's
+    cost). Sharing it is safe because Altair's ``configure_*`` methods copy the config before
+    they change it."""
     if not configure:
         return chart
+    chart.config = _look()
+    return chart
+
+
+@functools.lru_cache(maxsize=1)
+def _look():
+    alt = _alt()
     return (
-        chart.configure(font=FONT, background="white", padding=6)
+        alt.Chart().configure(font=FONT, background="white", padding=6)
         .configure_view(stroke=None)
         .configure_axis(
             labelFontSize=10, titleFontSize=11, titleFontWeight="normal", titleColor=INK,
@@ -180,7 +193,7 @@ def _configure(chart, *, configure: bool):
                           symbolSize=60, symbolOpacity=1, symbolType="circle", padding=0, offset=6,
                           labelLimit=220)
         .configure_header(labelFontSize=10, labelColor=INK, titleFontSize=11)
-    )
+    ).config
 
 
 def _title(alt, text: str, subtitle: str | list[str] | None = None):
@@ -208,7 +221,7 @@ def _cutoff_rule(alt, cutoff: float, *, label: str | None = None):
         return rule
     text = alt.Chart(frame).mark_text(
         align="left", baseline="top", dx=3, dy=2, fontSize=9, color=INK,
-    ).encode(x="c:Q", y=alt.value(0), text="label:N")
+    ).encode(x=alt.X("c:Q"), y=alt.YValue(0), text=alt.Text("label:N"))
     return rule + text
 
 
@@ -223,7 +236,7 @@ def _estimate_path(alt, data: pd.DataFrame, x: str, x_title: str, color, y_title
     ci = _finite(data, ["lo", "hi"])
     return [
         _zero_rule(alt, "y"),
-        alt.Chart(ci).mark_rule(strokeWidth=1.4).encode(x=alt.X(f"{x}:Q"), y="lo:Q", y2="hi:Q",
+        alt.Chart(ci).mark_rule(strokeWidth=1.4).encode(x=alt.X(f"{x}:Q"), y=alt.Y("lo:Q"), y2=alt.Y2("hi:Q"),
                                                          color=color),
         alt.Chart(data).mark_circle(size=34, opacity=1).encode(
             x=alt.X(f"{x}:Q", title=x_title, scale=alt.Scale(zero=False, nice=True)),
