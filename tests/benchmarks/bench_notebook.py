@@ -44,6 +44,7 @@ import seamline
 from _timing import timed  # tests/benchmarks/ is on sys.path when a script runs
 from seamline.demo_data import sharp_scenario
 from seamline.notebook.board import Board
+from seamline.notebook.charts import VEGA_LITE_MIME
 from seamline.notebook.static import PANEL_RESULTS
 from seamline.notebook.reactive import fingerprint_algorithm, fingerprints, use_fingerprint_algorithm
 
@@ -226,18 +227,20 @@ def live_board(n: int) -> None:
 
 def _until_open_tab_drawn(view, b, since: float, timeout: float = 30.0) -> None:
     """Poll (without awaiting, which would skip the board's settle delay) until what the user
-    sees is current: the board fresh, the open tab's panel text re-rendered for the new inputs
-    and each of its charts redrawn from the new results (or cleared where none applies)."""
+    sees is current: the board fresh, the open tab's results current and each of its charts
+    showing the spec of those results (a cache hit once the view's chart thread has drawn it)."""
+    from seamline.notebook.panels import chart_spec
     tab = view._open_tab()
-    before = [tuple(output.outputs) for _, output in view._charts[tab]]
     while time.perf_counter() - since < timeout:
         time.sleep(0.002)
         if b.status != "fresh" or view._paint or view._painting:
             continue
-        if b.state().pending & {"fit", *PANEL_RESULTS[tab]}:
+        state = b.state()
+        if state.pending & {"fit", *PANEL_RESULTS[tab]}:
             continue
-        now = [tuple(output.outputs) for _, output in view._charts[tab]]
-        if all(n != o or not n for n, o in zip(now, before)):
+        drawn = [output.outputs[0]["data"][VEGA_LITE_MIME] if output.outputs else None
+                 for _, output in view._charts[tab]]
+        if all(shown is chart_spec(state, what) for shown, (what, _) in zip(drawn, view._charts[tab])):
             return
     raise TimeoutError(f"the {tab} tab was not redrawn within {timeout} s")
 

@@ -453,3 +453,29 @@ def test_closing_the_view_unsubscribes(sharp_board):
     sharp_board.set_option("kernel", "uniform")
     sharp_board.wait()
     assert all(v == [] for v in seen.values())
+
+
+def test_panel_tables_are_kept_by_result_identity_and_never_go_stale():
+    # A live view re-renders a panel each time one of its results arrives; tables of results
+    # that did not change come from static_parts.memo_html, and a new result is always rendered.
+    from seamline.notebook import static_parts
+    calls = []
+
+    class Result:
+        def __init__(self, text):
+            self.text = text
+
+        def _repr_html_(self):
+            calls.append(self.text)
+            return f"<table>{self.text}</table>"
+
+    a, b = Result("a"), Result("b")
+    assert static_parts._table_html(a) == "<table>a</table>"
+    assert static_parts._table_html(a) == "<table>a</table>"
+    assert calls == ["a"]
+    assert static_parts._table_html(b) == "<table>b</table>"
+    assert calls == ["a", "b"]
+    for i in range(static_parts._MEMO_SIZE + 1):      # bounded: the oldest entries go
+        static_parts._table_html(Result(str(i)))
+    static_parts._table_html(a)
+    assert calls.count("a") == 2

@@ -76,7 +76,8 @@ def estimate_inference_html(board) -> str:
     parts = ['<h4 style="margin:10px 0 4px 0">Intervals side by side</h4>']
     aware = results.get("bias_aware")
     has_aware = hasattr(aware, "max_bias")
-    parts.append(_table(inference.interval_comparison(fit, aware if has_aware else None)))
+    parts.append(s.memo_html("intervals", (fit, aware), lambda: _table(
+        inference.interval_comparison(fit, aware if has_aware else None))))
     if has_aware:
         parts.append(f'<div class="seamline-smoothness" style="{s._NOTE}">'
                      f"{_esc(inference.smoothness_sentence(aware))} Change M with the <b>M (smoothness)</b> "
@@ -89,7 +90,8 @@ def estimate_inference_html(board) -> str:
         parts.append('<details class="seamline-bias-aware-sensitivity"><summary style="font-size:12px">'
                      "How the bias-aware interval moves with M</summary>"
                      f"{s._chart_or_error(board, 'bias_aware_sensitivity')}"
-                     f"{_table(inference.sensitivity_table(aware))}</details>")
+                     f"{s.memo_html('sensitivity over M', (aware,), lambda: _table(inference.sensitivity_table(aware)))}"
+                     "</details>")
     else:
         parts.append(_missing(board, "bias_aware", "bias-aware interval") or "")
     if fit.kind == "fuzzy":
@@ -102,7 +104,7 @@ def estimate_inference_html(board) -> str:
                          f"beside the Wald (robust ratio) interval [{_esc(_end(lo))}, {_esc(_end(hi))}]; "
                          f"robust first-stage F (squared robust t of the take-up jump) = {_esc(_number(weak.first_stage_f))}.</div>"
                          f'<div class="seamline-weak-iv-shape" style="{s._NOTE}">{_esc(weak.explanation)}</div>')
-            parts.append(_table(weak))
+            parts.append(s.memo_html("weak iv", (weak,), lambda: _table(weak)))
             parts.append(s._warnings_html(weak.warnings))
         else:
             parts.append(_missing(board, "weak_iv", "weak-instrument-robust set") or "")

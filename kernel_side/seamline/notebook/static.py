@@ -29,7 +29,7 @@ from . import charts, panels_designs, panels_inference, time_axes
 # The building blocks; panels_designs and panels_inference read them through this module.
 from .static_parts import (_BOX, _DIM, _NOTE, _ROW, _TABLES, _count, _errors, _esc, _figure, _fit, _info_html,
                            _number, _p_text, _pending, _results, _table_html, _warnings_html, error_html,
-                           pending_note)
+                           memo_html, pending_note)
 
 __all__ = [
     "PANELS",
@@ -361,9 +361,12 @@ def _estimate_panel(board) -> str:
     fit = _fit(board)
     if fit is None:
         return ""
-    specification = _specification(fit)
+    def tables() -> str:
+        specification = _specification(fit)
+        return _table_html(fit) + (_table_html(specification) if specification is not None else "")
+
     pieces = [_chart_or_error(board, "estimate")]
-    tables = _table_html(fit) + (_table_html(specification) if specification is not None else "")
+    tables = memo_html("estimate tables", (fit,), tables)
     pieces.append(f'<div class="seamline-tables" style="{_TABLES}">{tables}</div>')
     return f'<div style="{_ROW}">{"".join(pieces)}</div>' + panels_inference.estimate_inference_html(board)
 
