@@ -195,3 +195,31 @@ def test_result_renders_with_the_cautions():
         window=0.05)
     for text in (res.to_markdown(), res.to_latex(), res._repr_html_()):
         assert "local to the cutoff" in text and "window average effect" in text
+
+
+@pytest.mark.parametrize("statistic", ["Kolmogorov-Smirnov", "rank sum"])
+def test_a_level_change_on_a_kept_test_gives_what_a_fresh_design_gives(statistic):
+    # The window test of these statistics is kept on the design with its p(tau0) values, so a level
+    # change re-inverts from them; the interval must be the one a fresh design computes at that level.
+    frame = frame_near_cutoff(seed=4)
+    kwargs = dict(window=0.15, statistic=statistic, permutations=999, seed=2)
+    kept = seamline.Design(frame, score="x", cutoff=0.0, outcome="y")
+    first = kept.local_randomization(level=0.95, **kwargs)
+    again = kept.local_randomization(level=0.9, **kwargs)
+    fresh = seamline.Design(frame, score="x", cutoff=0.0, outcome="y").local_randomization(level=0.9, **kwargs)
+    assert (again.conf_int, again.p_value) == (fresh.conf_int, fresh.p_value)
+    assert kept.local_randomization(level=0.95, **kwargs).conf_int == first.conf_int
+    assert again.conf_int[0] >= first.conf_int[0] and again.conf_int[1] <= first.conf_int[1]
+
+
+def test_kolmogorov_smirnov_statistic_of_each_assignment_equals_scipy():
+    # Reference: scipy.stats.ks_2samp's two-sample statistic, assignment by assignment, with ties.
+    from seamline.core.randomization import statistic_values
+    rng = np.random.default_rng(8)
+    y = np.round(rng.normal(size=60), 1)
+    assign = np.zeros((50, 60), dtype=bool)
+    for row in assign:
+        row[rng.choice(60, size=25, replace=False)] = True
+    ours = statistic_values("Kolmogorov-Smirnov", assign, y)
+    theirs = [stats.ks_2samp(y[row], y[~row]).statistic for row in assign]
+    assert np.allclose(ours, theirs, rtol=1e-12, atol=1e-15)
