@@ -112,3 +112,18 @@ def test_one_side_copy_does_not_sort(monkeypatch):
     monkeypatch.setattr(np, "argsort", no_sort)
     copy.prepare(("y",))
     parent.prepare(("y",), 0.2)       # a donut of the parent: no sort either
+
+
+def test_a_donut_counts_tied_distances_as_a_fresh_side_does():
+    # Reference: numpy's own count of distinct values (np.unique) of the remaining distances, and a
+    # Side built on those distances from scratch (no base to read its groups from).
+    frame = raw_frame(seed=9)
+    base = data_of(frame, 0.0).prepare(("y",))
+    dist = base.above.distance
+    start = int(np.flatnonzero(np.diff(dist) > 0)[25]) + 1       # a group boundary, as a donut cuts
+    side = base.above.without_nearest(start)
+    fresh = Side(1, dist[start:].copy(), side.values + side.offsets, None, None, 3)
+    for n_rows in (0, 1, 7, 50, side.n // 2, side.n):
+        assert side.distinct_within(n_rows) == fresh.distinct_within(n_rows) == len(np.unique(dist[start:][:n_rows]))
+    for needed in (2, 10, 40):
+        assert side.bandwidth_for_distinct(needed, "triangular") == fresh.bandwidth_for_distinct(needed, "triangular")

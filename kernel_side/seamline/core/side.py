@@ -51,6 +51,7 @@ class Side:
         self._nn: np.ndarray | None = None
         self._nn_base: tuple[Side, int, bool] | None = None   # what this side is cut from (cut_from)
         self._group_starts: np.ndarray | None = None
+        self._tail_of: tuple[Side, int] | None = None    # (base, start): distance is base.distance[start:]
 
     def without_nearest(self, start: int, values: np.ndarray | None = None) -> "Side":
         """This side without its ``start`` observations nearest the cutoff (a donut), with no sort.
@@ -71,6 +72,7 @@ class Side:
                     None if self.rows is None else self.rows[start:])
         if start > 0:
             tail.cut_from(self, start, reversed_=False)
+            tail._tail_of = (self, start)
         return tail
 
     def cut_from(self, base: "Side", start: int, reversed_: bool) -> None:
@@ -181,8 +183,24 @@ class Side:
     def distinct_within(self, n_rows: int) -> int:
         """Number of distinct distances among the first n_rows observations."""
         if self._group_starts is None:
-            self._group_starts = np.flatnonzero(np.r_[True, np.diff(self.distance) > 0])
+            self._group_starts = self._tail_group_starts()
+            if self._group_starts is None:
+                self._group_starts = np.flatnonzero(np.r_[True, np.diff(self.distance) > 0])
         return int(np.searchsorted(self._group_starts, n_rows, side="left"))
+
+    def _tail_group_starts(self) -> np.ndarray | None:
+        """A donut's groups of tied distances read off its full side's (the same numbers from
+        ``start`` on, and a donut cuts between two groups): no pass over the side's distances,
+        which at 1e7 rows cost a donut ladder about a second. None when this side is no tail."""
+        if self._tail_of is None:
+            return None
+        base, start = self._tail_of
+        base.distinct_within(0)
+        starts = base._group_starts
+        k = int(np.searchsorted(starts, start))
+        if k == len(starts) or starts[k] != start:
+            return None                          # cut inside a group of ties: count afresh
+        return starts[k:] - start
 
     def bandwidth_for_distinct(self, needed: int, kernel: str) -> float:
         """Smallest bandwidth giving ``needed`` distinct distances positive weight (nan if impossible)."""
