@@ -3,7 +3,11 @@
 * Pinned numbers: ``data/pinned_density_bins.json`` holds the density tests' and the binned means'
   numbers on seeded inputs as computed by commit 3238b1f, before the density test read each side's
   sorted scores in place and the bins read the outcome run by run (``_pinned_inputs.py`` writes
-  it). The present code must give them within 1e-12 relative (it gives them bit for bit here).
+  it). The present code gives them bit for bit on the machine that pinned them, but numpy's
+  vectorised sums round differently from one CPU to another: on an AMD EPYC host the code of
+  49239ed (which passed at 1e-12 where it was written) differs from them by up to 3e-9 relative (the degree-3 local-CDF fit, badly
+  conditioned) and by 1e-11 absolute in a cross covariance of 3e-4. So: within 1e-8 relative or
+  1e-10 absolute, far below any change of method.
 * ``SortedScores.std`` / ``percentile`` against numpy's (reference: numpy.std(ddof=1),
   numpy.percentile), bit for bit, on both sides of a split and across chunks.
 * ``density_test_sorted`` on each side's sorted scores equals ``density_test`` on the array.
@@ -30,7 +34,8 @@ from seamline.errors import InvalidOptionError, OneSidedDataError
 
 from _pinned_inputs import density_inputs, numbers  # noqa: E402  (tests/core on sys.path)
 
-RTOL = 1e-12
+RTOL = 1e-8
+ATOL = 1e-10
 PINNED = os.path.join(os.path.dirname(__file__), "data", "pinned_density_bins.json")
 
 
@@ -39,7 +44,7 @@ def close(got, want, where):
     assert got.shape == want.shape, where
     assert np.array_equal(np.isnan(got), np.isnan(want)), where
     ok = ~np.isnan(want)
-    np.testing.assert_allclose(got[ok], want[ok], rtol=RTOL, atol=0, err_msg=where)
+    np.testing.assert_allclose(got[ok], want[ok], rtol=RTOL, atol=ATOL, err_msg=where)
 
 
 def test_numbers_equal_the_pinned_ones_of_the_previous_implementation():
