@@ -195,3 +195,19 @@ def test_checks_flag_few_observations():
     checks = seamline.Design(frame, score="x", cutoff=0.0, outcome="y").checks(bandwidth=0.08)
     fit = seamline.Design(frame, score="x", cutoff=0.0, outcome="y").fit(bandwidth=0.08)
     assert (f"observations in the window: {fit.n_used[0]} below, {fit.n_used[1]} above") in checks.warnings
+
+
+def test_heaping_shares_equal_the_share_of_observations_at_round_values():
+    # First principles: the share of (non-missing) observations whose score is a multiple of each
+    # step, asked observation by observation; the profile asks once per distinct value.
+    rng = np.random.default_rng(13)
+    x = np.round(rng.normal(0, 4, 5000), 2)
+    x[:900] = np.round(x[:900], 1)
+    x[::97] = np.nan
+    frame = pd.DataFrame({"x": x, "y": rng.normal(0, 1, 5000)})
+    profile = seamline.Design(frame, score="x", cutoff=0.0, outcome="y").score_profile()
+    scores = x[~np.isnan(x)]
+    assert profile.heaping
+    for row in profile.heaping:
+        step = row["step"]
+        assert row["share"] == float(np.isclose(scores / step, np.round(scores / step), atol=1e-9, rtol=0).mean())

@@ -71,20 +71,26 @@ def _census(design) -> dict:
     xs = _sorted_score(design)
     x = xs - design.cutoff                       # ascending
     split = int(np.searchsorted(x, 0.0, side="left"))
-    uniq = xs[np.r_[True, xs[1:] != xs[:-1]]] if len(xs) else xs    # sorted distinct values
+    starts = np.flatnonzero(np.r_[True, xs[1:] != xs[:-1]]) if len(xs) else np.zeros(0, dtype=np.int64)
+    uniq = xs[starts]                            # sorted distinct values
+    counts = np.diff(np.append(starts, len(xs)))
     gaps = np.diff(uniq)
     resolution = float(gaps[gaps > 0].min()) if np.any(gaps > 0) else 0.0
-    heaping, warnings = _heaping(_clean_score(design), uniq, resolution)
+    heaping, warnings = _heaping(xs, uniq, counts, resolution)
     return {"x": x, "split": split, "below": _run_row("below", "all", -x[:split]),
             "above": _run_row("above", "all", x[split:]), "resolution": resolution,
             "heaping": tuple(heaping), "warnings": tuple(warnings)}
 
 
 def _sorted_score(design) -> np.ndarray:
-    """Every non-missing score in ascending order, from the design's one sort when it covers them."""
+    """Every non-missing score in ascending order, from the design's one sort when it covers them
+    (the sorted score the design keeps, when it is that sort's)."""
     data = design._data
     if data.weights is None and data.cluster_codes is None:
-        return data.arrays[design.score][data.sorted_rows()[0]]
+        rows = data.sorted_rows()[0]
+        if data._parent is None and rows is data._score_order():
+            return data._ordered_score()
+        return data.arrays[design.score][rows]
     return np.sort(_clean_score(design))
 
 
@@ -96,16 +102,21 @@ def _run_lengths(monotone: np.ndarray) -> np.ndarray:
     return np.diff(np.append(starts, len(monotone)))
 
 
-def _heaping(score: np.ndarray, uniq: np.ndarray, resolution: float) -> tuple[list[dict], list[str]]:
-    """Share of observations at round values against what a smooth score would put there."""
+def _heaping(xs: np.ndarray, uniq: np.ndarray, counts: np.ndarray,
+             resolution: float) -> tuple[list[dict], list[str]]:
+    """Share of observations at round values against what a smooth score would put there.
+
+    ``xs``: the sorted scores; ``uniq``, ``counts``: their distinct values and how often each
+    occurs. Whether a value is round is asked once per distinct value, and the share is the count
+    of observations at round values over n (the same number as asking each observation)."""
     out, warnings = [], []
-    if len(score) < 200 or len(uniq) < 20:
+    if len(xs) < 200 or len(uniq) < 20:
         return out, warnings
     on_grid = resolution > 0 and np.allclose(uniq / resolution, np.round(uniq / resolution), atol=1e-6)
-    steps = [resolution * 5, resolution * 10] if on_grid else [10.0 ** np.floor(np.log10(np.std(score)))]
+    steps = [resolution * 5, resolution * 10] if on_grid else [10.0 ** np.floor(np.log10(np.std(xs)))]
     for step in steps:
-        at = np.isclose(score / step, np.round(score / step), atol=1e-9, rtol=0)
-        share = float(at.mean())
+        at = np.isclose(uniq / step, np.round(uniq / step), atol=1e-9, rtol=0)
+        share = float(counts[at].sum() / len(xs))
         expected = (resolution / step) if on_grid else 0.0
         out.append({"step": float(step), "share": share, "expected": expected})
         if share > max(2.0 * expected, 0.05) and share - expected > 0.02:
