@@ -242,7 +242,13 @@ def _until_open_tab_drawn(view, b, since: float, timeout: float = 30.0) -> None:
                  for _, output in view._charts[tab]]
         if all(shown is chart_spec(state, what) for shown, (what, _) in zip(drawn, view._charts[tab])):
             return
-    raise TimeoutError(f"the {tab} tab was not redrawn within {timeout} s")
+    state = b.state()
+    drawn = [output.outputs[0]["data"][VEGA_LITE_MIME] if output.outputs else None
+             for _, output in view._charts[tab]]
+    raise TimeoutError(f"the {tab} tab was not redrawn within {timeout} s (status {b.status}, pending "
+                       f"{sorted(state.pending)}, painting {bool(view._paint or view._painting)}, charts drawn "
+                       f"{[d is chart_spec(state, w) for d, (w, _) in zip(drawn, view._charts[tab])]}, "
+                       f"{[type(d).__name__ for d in drawn]})")
 
 
 def live_view(n: int = 100_000) -> None:

@@ -203,3 +203,20 @@ def test_a_newer_change_stops_a_long_background_computation(monkeypatch):
     ref = Design(sharp.data, **_kwargs(sharp)).fit(bandwidth=3.0)
     np.testing.assert_allclose(b.fit.robust_conf_int, ref.robust_conf_int, **TIGHT)
     assert b.results["local_randomization"] is not None and b.status == "fresh"
+
+
+def test_a_panel_that_becomes_current_with_the_same_result_is_announced(sharp):
+    # A change can leave a panel's result the very same object (a cached node) while its key moves;
+    # subscribers must still hear of the panel, or a view keeps its "updating" note and cleared
+    # charts although the numbers are current (found in the 1e5 view bench).
+    from seamline.notebook.board import Board
+    b = Board("same", _kwargs(sharp), {}, data=sharp.data).wait()
+    heard = []
+    b.on_change(lambda board, changed: heard.append(set(changed)))
+    value = b.results["density"]
+    with b._lock:
+        b._keys["density"] = None                  # pending, as after a change of its inputs
+    assert "density" in b.state().pending
+    b._publish(b._target, {"density": value})      # recomputed: the same object again
+    assert "density" in set().union(*heard)
+    assert "density" not in b.state().pending and b.results["density"] is value

@@ -307,6 +307,7 @@ class Scheduler:
                 return                          # inputs moved on: the result is discarded
             for panel, value in values.items():
                 old_result, old_error = self._results.get(panel), self._errors.get(panel)
+                was_current = self._current(panel)
                 if isinstance(value, Failure):
                     self._results[panel] = None
                     self._errors[panel] = value.message
@@ -314,7 +315,10 @@ class Scheduler:
                     self._results[panel] = value
                     self._errors.pop(panel, None)
                 self._keys[panel] = target.keys[panel]
-                if self._results[panel] is not old_result or self._errors.get(panel) != old_error:
+                # also when only its pending mark goes: the same object again (a cached node) must
+                # still take the "updating" note and the cleared charts off the panels showing it
+                if (self._results[panel] is not old_result or self._errors.get(panel) != old_error
+                        or not was_current):
                     changed.add(panel)
             self.updated_at = _dt.datetime.now().astimezone()
             self._fallback_dirty = True
