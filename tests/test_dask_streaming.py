@@ -284,3 +284,34 @@ def test_progress_of_the_score_pass_over_batches(parquet_folder, monkeypatch):
     below, above, lengths = design._data._scores[None]
     assert list(lengths) == list(SIZES)                               # rows read per file, in order
     assert np.all(np.diff(below) >= 0) and np.all(np.diff(above) >= 0)
+
+
+def test_bias_reduced_default_from_binned_moments_of_a_window(monkeypatch):
+    """The default variance on wide windows sums binned moments (``core.single_row_binned``): a
+    window side holds only its nearer rows, so its bins stop there (the bins past the rows a sum
+    reads are never used), while the bin size follows the whole side, as in memory."""
+    from seamline.core import single_row_binned
+    monkeypatch.setattr(single_row_binned, "MIN_ROWS", 2_000)     # the path of windows above 30 000 rows
+    rng = np.random.default_rng(17)
+    n = 120_000
+    x = rng.uniform(-1.0, 1.0, n)
+    y = 0.5 + 0.8 * x + (3.0 * x ** 2 + 4.0 * x ** 3) * (x >= 0) + 0.2 * (x >= 0) + rng.normal(0.0, 0.3, n)
+    frame = pd.DataFrame({"x": x, "y": y})
+    kwargs = dict(score="x", cutoff=0.0, outcome="y")
+    got = seamline.Design(dd.from_pandas(frame, npartitions=5), reading="streamed", **kwargs)
+    want = seamline.Design(frame, **kwargs)
+    for options in ({}, dict(bandwidth=0.2), dict(bandwidth=(0.1, 0.3))):
+        same_fit(got.fit(**options), want.fit(**options), str(options))
+    prep = got._data.window(("y",))
+    assert prep.below.n_window < prep.below.n and prep.above.n_window < prep.above.n
+    assert got._data._gathered is None
+    # a wider sum after a narrower one doubles the bins; on a window they stop at its rows, and
+    # they are the in-memory side's bins (first principles: the same rows in the same order)
+    window, side = prep.above, want._data.prepare(("y",)).above
+    single_row_binned.side_bins(window, 1, int(0.6 * window.n_window))
+    bins = single_row_binned.side_bins(window, 1, window.n_window - 10)
+    assert bins.starts[-1] <= window.n_window
+    full = single_row_binned.side_bins(side, 1, window.n_window)
+    g = len(bins.centre)
+    assert np.array_equal(bins.starts, full.starts[:g + 1]) and np.array_equal(bins.centre, full.centre[:g])
+    np.testing.assert_allclose(bins.moments, full.moments[:, :g], rtol=1e-9, atol=1e-9)

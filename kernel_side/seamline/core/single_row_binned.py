@@ -66,11 +66,14 @@ def side_bins(side: Side, n_vars: int, rows: int) -> SideBins:
     if base is not None and base[0].values.shape[1] == side.values.shape[1]:
         return _cut_bins(side, n_vars, rows, *base)
     cache = side.__dict__.setdefault("_single_row_bins", {})
-    size = max(64, -(-side.n // _TARGET_BINS))
+    # the bin size follows the whole side's count; the bins stop at the rows held (a side of a
+    # streamed window, ``core.window_side``, holds only its nearer rows: a bin past ``rows`` is never
+    # summed by moments, so fewer bins there give the same sums)
+    size, held_rows = max(64, -(-side.n // _TARGET_BINS)), len(side.distance)
     held = cache.get(n_vars)
-    if held is None or (held.starts[-1] < rows and held.starts[-1] + size <= side.n):
+    if held is None or (held.starts[-1] < rows and held.starts[-1] + size <= held_rows):
         have = 0 if held is None else int(held.starts[-1])
-        want = min(side.n // size, max(-(-rows // size), 2 * have // size))
+        want = min(held_rows // size, max(-(-rows // size), 2 * have // size))
         cache[n_vars] = _build_bins(side, n_vars, size, want)
     return cache[n_vars]
 
