@@ -315,3 +315,35 @@ def test_bias_reduced_default_from_binned_moments_of_a_window(monkeypatch):
     g = len(bins.centre)
     assert np.array_equal(bins.starts, full.starts[:g + 1]) and np.array_equal(bins.centre, full.centre[:g])
     np.testing.assert_allclose(bins.moments, full.moments[:, :g], rtol=1e-9, atol=1e-9)
+
+
+def test_a_fitted_window_holds_no_per_row_residuals_or_group_starts():
+    """The moment tables read each slice's neighbour residuals (with J groups of ties either side)
+    and distinct distances are counted from the nearest row: after the default fit the window holds
+    its distances and values only, and both equal the whole window's computation. Reference: the
+    in-memory design on the same rows, and ``neighbor_residuals`` of the whole window."""
+    from seamline.core.neighbors import neighbor_residuals
+    rng = np.random.default_rng(29)
+    n = 40_000
+    for x in (rng.uniform(-1.0, 1.0, n), np.round(rng.uniform(-1.0, 1.0, n), 4)):     # continuous, tied
+        y = 0.5 + 0.8 * x + (2.0 * x ** 2) * (x >= 0) + 0.2 * (x >= 0) + rng.normal(0.0, 0.3, n)
+        frame = pd.DataFrame({"x": x, "y": y})
+        got = seamline.Design(dd.from_pandas(frame, npartitions=3), reading="streamed", score="x", cutoff=0.0,
+                              outcome="y")
+        want = seamline.Design(frame, score="x", cutoff=0.0, outcome="y")
+        same_fit(got.fit(), want.fit(), "default")
+        same_fit(got.fit(variance="neighbors"), want.fit(variance="neighbors"), "neighbors")
+        prep = got._data.window(("y",))
+        for side in (prep.below, prep.above):
+            assert side._nn is None and side._group_starts is None
+            whole, _ = neighbor_residuals(side.distance, side.values, side.neighbors, tol=side.tie_tol)
+            for size in (7, 97, 33_000):     # every row, from slices of several sizes
+                pieces = [side._nn_rows(slice(a, a + size)) for a in range(0, side.n_window, size)]
+                np.testing.assert_allclose(np.concatenate(pieces), whole, rtol=1e-13, atol=1e-15)
+        memory = want._data.prepare(("y",))
+        for side, full in ((prep.below, memory.below), (prep.above, memory.above)):
+            for rows in (0, 1, 50, 3000, side.n_window):
+                assert side.distinct_within(rows) == min(full.distinct_within(rows), 16)
+            for needed in (1, 2, 5):
+                assert side.bandwidth_for_distinct(needed, "triangular") == full.bandwidth_for_distinct(needed, "triangular")
+                assert side.bandwidth_for_distinct(needed, "uniform") == full.bandwidth_for_distinct(needed, "uniform")
