@@ -109,7 +109,13 @@ def _cut_bins(side: Side, n_vars: int, rows: int, base: Side, start: int, revers
     return SideBins(new_starts, low, high, centre, moments)
 
 
-def _build_bins(side: Side, n_vars: int, size: int, count: int, chunk: int = 256) -> SideBins:
+BUILD_ROWS = 1 << 18      # rows per step of the bin moments (their temporaries: about 13 numbers a row)
+
+
+def _build_bins(side: Side, n_vars: int, size: int, count: int) -> SideBins:
+    # a few bins at a time, as many as make BUILD_ROWS rows: at 1e8 rows a bin holds 24 000 rows,
+    # and 256 bins at a time made temporaries of 0.6 GB
+    chunk = max(1, BUILD_ROWS // size)
     starts = np.arange(count + 1) * size
     d = side.distance[: count * size].reshape(count, size)
     low, high = d[:, 0], d[:, -1]
@@ -117,7 +123,7 @@ def _build_bins(side: Side, n_vars: int, size: int, count: int, chunk: int = 256
     vals = side.values[: count * size, :n_vars].reshape(count, size, n_vars)
     pairs = [(v, w) for v in range(n_vars) for w in range(v, n_vars)]
     moments = np.empty((1 + n_vars + len(pairs), count, ORDER + 1))
-    for g0 in range(0, count, chunk):        # a few bins at a time: (chunk, size, ORDER + 1) temporaries
+    for g0 in range(0, count, chunk):        # (chunk, size, ORDER + 1) temporaries
         g1 = min(count, g0 + chunk)
         t = d[g0:g1] - centre[g0:g1, None]
         powers = np.empty((g1 - g0, size, ORDER + 1))
