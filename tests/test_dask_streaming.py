@@ -229,9 +229,9 @@ def test_two_worker_processes_streamed(parquet_folder, memory_design):
 
 
 def test_automatic_reading_streams_only_large_inputs(parquet_folder, monkeypatch):
-    import seamline.streaming as streaming
+    import seamline.streaming_route as route
     assert not seamline.Design(parquet_folder, **KWARGS).streamed           # 4960 rows: gathered
-    monkeypatch.setattr(streaming, "STREAM_ABOVE_ROWS", 1000)
+    monkeypatch.setattr(route, "STREAM_ABOVE_ROWS", 1000)
     assert seamline.Design(parquet_folder, **KWARGS).streamed
     assert not seamline.Design(parquet_folder, reading="gathered", **KWARGS).streamed
 

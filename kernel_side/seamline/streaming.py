@@ -42,7 +42,6 @@ neighbours; when a bandwidth reaches the whole side (no curvature signal), the w
 from __future__ import annotations
 
 import math
-import os
 
 import numpy as np
 import pandas as pd
@@ -58,7 +57,6 @@ GATHER_LIMIT = 1 << 21       # values gathered at most per order statistic (16 M
 PILOT_DEGREE = 6             # pilot sums kept up to this polynomial degree (bias degree + 2 <= 6)
 FIRST_WINDOW = 4.0           # the first window's radius, in rule-of-thumb pilot bandwidths
 WIDEN = 1.25                 # a wider window reaches this much past the radius asked for
-STREAM_ABOVE_ROWS = 2_000_000   # reading="automatic": stream partitioned inputs with more rows
 
 
 def sort_keys(x: np.ndarray) -> np.ndarray:
@@ -271,8 +269,11 @@ def _tree(tasks: list, merge):
 
 
 def _compute(*tasks, name: str, total: int | None = None):
-    """Compute on the active scheduler; ``reading_progress`` hears of each partition done."""
+    """Compute on the active scheduler; ``reading_progress`` hears of each partition done. Memory
+    freed by the calling thread is handed back first: the workers' threads allocate from arenas of
+    their own, where it could not be reused."""
     from .partitioned import _compute as compute
+    release_memory()
     try:
         return compute(list(tasks), name, total)
     finally:
@@ -523,30 +524,31 @@ class StreamingData:
         for name in ("below", "above"):
             pieces = [p[name].pop("rows") for p in parts]
             # each piece is sorted by distance: a stable sort of their concatenation only merges the
-            # runs (timsort), and ties keep the input order, as one stable sort of the new rows would
-            # (each column is joined, reordered into its place with ``take`` and freed before the
-            # next: about 40 bytes a new row at most, not 56)
+            # runs (timsort), and ties keep the input order, as one stable sort of the new rows would.
+            # The pieces are copied into the new arrays and freed one by one, then each column is
+            # reordered there through one temporary: about 32 bytes a new row at most (was 56)
             side = old[name]
             held_rows = 0 if side is None else len(side.distance)
-            ds, vs, ws = ([p[i] for p in pieces] for i in range(3))
-            del pieces
-            new_d = np.concatenate(ds)
-            del ds
-            order = np.argsort(new_d, kind="stable")
-            total = held_rows + len(new_d)
+            total = held_rows + sum(len(p[0]) for p in pieces)
             d = np.empty(total)
-            np.take(new_d, order, out=d[held_rows:], mode="clip")      # "clip": no buffered copy
-            del new_d
-            vals = np.empty((total, vs[0].shape[1]), order="F")
-            for j in range(vals.shape[1]):
-                column = np.concatenate([v[:, j] for v in vs])
-                np.take(column, order, out=vals[held_rows:, j], mode="clip")
-                del column
-            del vs
-            w = None if ws[0] is None else np.empty(total)
-            if w is not None:
-                np.take(np.concatenate(ws), order, out=w[held_rows:], mode="clip")
-            del ws, order
+            vals = np.empty((total, pieces[0][1].shape[1]), order="F")
+            w = None if pieces[0][2] is None else np.empty(total)
+            at = held_rows
+            while pieces:                          # in partition order, each freed once copied
+                piece_d, piece_v, piece_w = pieces.pop(0)
+                rows_at = slice(at, at + len(piece_d))
+                d[rows_at], vals[rows_at] = piece_d, piece_v
+                if w is not None:
+                    w[rows_at] = piece_w
+                at = rows_at.stop
+                del piece_d, piece_v, piece_w
+            order = np.argsort(d[held_rows:], kind="stable")
+            spare = np.empty(total - held_rows)
+            for column in [d, w] + [vals[:, j] for j in range(vals.shape[1])]:
+                if column is not None:
+                    np.take(column[held_rows:], order, out=spare, mode="clip")    # "clip": no buffered copy
+                    column[held_rows:] = spare
+            del spare, order
             if side is not None:
                 # the rows held already come first: all are nearer than the new ones (distance <= the
                 # held radius < theirs), so they are not sorted again. Their values were centred by
@@ -574,59 +576,3 @@ def _quantile_ranks(n: int, q: float) -> list[int]:
     pos = q * (n - 1)
     lo = int(np.floor(pos))
     return sorted({lo, min(lo + 1, n - 1)})
-
-
-def large_enough(data) -> bool:
-    """reading="automatic": whether a partitioned input has more than STREAM_ABOVE_ROWS rows (a Parquet
-    path from its files' metadata; a dask frame from ``frame.shape[0]``, which dask may answer from
-    metadata too)."""
-    if isinstance(data, (str, os.PathLike)):
-        import pyarrow.parquet as pq
-        from .partitioned import parquet_files
-        return sum(pq.read_metadata(f).num_rows for f in parquet_files(data)) > STREAM_ABOVE_ROWS
-    return int(data.shape[0].compute()) > STREAM_ABOVE_ROWS
-
-
-READINGS = ("automatic", "streamed", "gathered")     # Design(reading=...): how a partitioned input is read
-STREAMED_RULES = ("mse", "mse-split", "coverage", "ik")    # bandwidth rules computed from a window (and numbers)
-
-
-def streamable_frame(data, roles: dict[str, str], reading: str, *, cutoff, takeup, cluster, score_unit):
-    """The dask DataFrame of the design's columns when the design goes through the bounded-memory
-    route, or None (then the caller gathers the columns, seamline.partitioned).
-
-    ``reading``: "automatic" streams a partitioned input of more than STREAM_ABOVE_ROWS rows that the
-    route supports (numeric columns, one numeric cutoff, no take-up, cluster or date score);
-    "streamed" asks for the route and names what stops it; "gathered" never streams.
-    """
-    from .errors import InvalidOptionError
-    from .partitioned import _check_dask_dtypes, _import_dask, is_partitioned, open_parquet
-    if reading == "gathered" or not is_partitioned(data):
-        return None
-    _import_dask()
-    why = None
-    if takeup is not None or cluster is not None:
-        why = "a fuzzy design (take-up)" if takeup is not None else "a cluster variable"
-    elif score_unit is not None or isinstance(cutoff, (str, bool)) or not np.isscalar(cutoff):
-        why = "a cutoff that is not one number"
-    frame = None
-    if why is None:
-        if isinstance(data, (str, os.PathLike)):
-            frame = open_parquet(data, roles)
-        else:
-            _check_dask_dtypes(data, roles)
-            frame = data[list(roles)]
-        bad = [c for c in roles if not (pd.api.types.is_numeric_dtype(frame.dtypes[c])
-                                        or pd.api.types.is_bool_dtype(frame.dtypes[c]))
-               or pd.api.types.is_object_dtype(frame.dtypes[c])]
-        if bad:
-            why = f"a column that is not numeric ({shown(bad[0])}, dtype {frame.dtypes[bad[0]]})"
-    if why is not None:
-        if reading == "streamed":
-            raise InvalidOptionError(f"`reading` \"streamed\" needs numeric columns, one numeric cutoff and no take-up "
-                                     f"or cluster; got {why}. Use reading=\"gathered\" (the data must then fit in "
-                                     "memory), or cast the columns in dask first.")
-        return None
-    if reading == "automatic" and not large_enough(data if isinstance(data, (str, os.PathLike)) else frame):
-        return None
-    return frame
