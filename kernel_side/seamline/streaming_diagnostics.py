@@ -72,8 +72,11 @@ def _bins_part(part, plan: dict, chunk, start: int) -> dict:
     are a few arrays of that many rows instead of the partition's length. ``start`` + i numbers
     the i-th kept row: increasing, as the chunk functions need."""
     _, values, w, keep, _, arrays = _columns(part, plan)
-    x, y = arrays[plan["score"]][keep], values[keep, 0]
-    w = None if w is None else w[keep]
+    if keep.all():                      # no copies of a partition without missing values
+        x, y = arrays[plan["score"]], values[:, 0]
+    else:
+        x, y = arrays[plan["score"]][keep], values[keep, 0]
+        w = None if w is None else w[keep]
     out = None
     for a in range(0, max(len(x), 1), BINS_ROWS):
         rows = slice(a, a + BINS_ROWS)
