@@ -133,9 +133,9 @@ def _summary_part(part: pd.DataFrame, plan: dict) -> dict:
     del top, negative
     n_above = int(np.count_nonzero(above))
     share = above.astype(np.float64)
-    sums = {"above": share @ vk}
+    sums = {"above": np.einsum("i,ij->j", share, vk)}
     np.subtract(1.0, share, out=share)
-    sums["below"] = share @ vk
+    sums["below"] = np.einsum("i,ij->j", share, vk)
     del share
     for name, n_side, h in (("below", len(xs) - n_above, hist[:1 << BITS]), ("above", n_above, hist[1 << BITS:])):
         if not n_side:
@@ -195,7 +195,9 @@ POWER_ROWS = 1 << 14          # rows per block of the power sums (their powers s
 
 def _power_sums(u: np.ndarray, w: np.ndarray | None, v: np.ndarray, moments: int, cross: int) -> tuple:
     """(sum w u^m for m <= moments, sum w u^m v for m <= cross), block by block: the powers of a block
-    of rows are made by repeated multiplication, as the in-memory pilot makes them, and summed there."""
+    of rows are made by repeated multiplication, as the in-memory pilot makes them, and summed there.
+    Products by einsum, not BLAS: the tasks already run on the scheduler's threads, and a threaded
+    BLAS call inside each took 1.5 to 3 times as long on this machine (measured per partition)."""
     out_m = np.zeros(moments + 1)
     out_c = np.zeros((cross + 1, v.shape[1]))
     block = np.empty((min(POWER_ROWS, len(u)), moments + 1), order="F")
@@ -206,12 +208,41 @@ def _power_sums(u: np.ndarray, w: np.ndarray | None, v: np.ndarray, moments: int
         for m in range(1, moments + 1):
             np.multiply(powers[:, m - 1], uc, out=powers[:, m])
         out_m += powers.sum(axis=0)
-        out_c += powers[:, :cross + 1].T @ v[a:a + POWER_ROWS]
+        out_c += np.einsum("im,ij->mj", powers[:, :cross + 1], v[a:a + POWER_ROWS])
     return out_m, out_c
 
 
+PART_ROWS = 1 << 19           # rows of a partition read into arrays at a time by the larger passes
+
+
+def blocks(part: pd.DataFrame):
+    """The partition in blocks of PART_ROWS rows (views): a task's arrays (the columns as float64,
+    masks, the rows kept) are then a block long, not a partition long (2e6 rows: about 0.2 GB)."""
+    for a in range(0, max(len(part), 1), PART_ROWS):
+        yield part.iloc[a:a + PART_ROWS]
+
+
 def _window_part(part: pd.DataFrame, plan: dict, sides: dict) -> dict:
-    """Per side: pilot sums (when asked) and the rows with inner < distance <= radius."""
+    """Per side: pilot sums (when asked) and the rows with inner < distance <= radius, as a list of
+    pieces each sorted by distance (one per block, in input order)."""
+    out = None
+    for block in blocks(part):
+        got = _window_block(block, plan, sides)
+        if out is None:
+            out = {name: dict(piece, rows=[piece["rows"]]) for name, piece in got.items()}
+            continue
+        for name, piece in got.items():
+            held = out[name]
+            held["rows"].append(piece["rows"])
+            for key, value in piece.items():
+                if key == "cubic":
+                    held[key] = {k: held[key][k] + v for k, v in value.items()}
+                elif key != "rows":
+                    held[key] = (held[key][0] + value[0], held[key][1] + value[1])
+    return out
+
+
+def _window_block(part: pd.DataFrame, plan: dict, sides: dict) -> dict:
     x, values, w, keep, _, _ = _columns(part, plan)
     out = {}
     if not any(ask["pilots"] or ask.get("cubic") is not None for ask in sides.values()):
@@ -247,8 +278,9 @@ def _window_part(part: pd.DataFrame, plan: dict, sides: dict) -> dict:
             xs = sign * d[inside] / score_sd
             term = np.ones(len(xs)) if ws is None else ws[inside]
             inner = vals[inside]
-            piece["cubic"] = {"rows": int(inside.sum()), "w": float(term.sum()), "w2": float(term @ term),
-                              "wv": term @ inner, "wvv": (inner * term[:, None]).T @ inner}
+            piece["cubic"] = {"rows": int(inside.sum()), "w": float(term.sum()),
+                              "w2": float(np.einsum("i,i->", term, term)), "wv": np.einsum("i,ij->j", term, inner),
+                              "wvv": np.einsum("ij,i,ik->jk", inner, term, inner)}
             piece["cubic"]["moments"], piece["cubic"]["xv"] = _power_sums(xs, None if ws is None else term, inner,
                                                                           6, 3)
         rows = np.flatnonzero((d > ask["inner"]) & (d <= ask["radius"]))
@@ -522,9 +554,10 @@ class StreamingData:
         old = dict(zip(("below", "above"), held.pop("sides", (None, None))))
         held.pop("prepared", None)
         for name in ("below", "above"):
-            pieces = [p[name].pop("rows") for p in parts]
-            # each piece is sorted by distance: a stable sort of their concatenation only merges the
-            # runs (timsort), and ties keep the input order, as one stable sort of the new rows would.
+            pieces = [piece for p in parts for piece in p[name].pop("rows")]
+            # each piece is sorted by distance, the pieces in input order: a stable sort of their
+            # concatenation merges the runs (timsort), and ties keep the input order, as one stable
+            # sort of the new rows would.
             # The pieces are copied into the new arrays and freed one by one, then each column is
             # reordered there through one temporary: about 32 bytes a new row at most (was 56)
             side = old[name]
