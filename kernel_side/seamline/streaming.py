@@ -33,10 +33,11 @@ order of floating-point sums (relative differences ~1e-12; counts identical). Ev
 computed on the gathered route (``partitioned.gather_frame``), exactly, the first time it is asked for;
 except density tests and bins, which gather only the sorted score (``streaming_diagnostics``).
 
-Memory bound: the window (per row about 8 bytes x (2 + 2 x variables) plus moment tables of about
-(degree + 1) / 512 numbers per row per series), the histograms (3 x 65536 counts per partition in
-flight), the partitions being read at that moment, and at most GATHER_LIMIT values per order
-statistic. The window holds the rows within the widest bandwidth the results use plus J groups of
+Memory bound: the window (per row 8 bytes x (1 + variables), plus 8 with weights: no neighbour
+residuals or group starts are held, ``core.window_side``; moment tables of about (degree + 1) / 512
+numbers per row per series), the histograms (3 x 65536 counts per partition in flight), the
+partitions being read at that moment (as arrays PART_ROWS rows at a time), and at most
+GATHER_LIMIT values per order statistic. The window holds the rows within the widest bandwidth the results use plus J groups of
 neighbours; when a bandwidth reaches the whole side (no curvature signal), the whole side is held.
 """
 from __future__ import annotations
