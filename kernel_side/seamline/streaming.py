@@ -24,7 +24,7 @@ Passes (for one set of variables; each reads only the design's columns)
    A result that needs rows beyond the window's exact part asks for a wider window: one more pass
    gathers the rows between the old and the new radius (appended after the held rows, which are
    all nearer and are not sorted again).
-After every pass the memory it freed is handed back to the system (``release_memory``).
+Before and after every pass freed memory is handed back to the system (``partitioned.release_memory``).
 
 What is exact: fits at manual bandwidths and at the "mse", "mse-split", "coverage" and "ik" rules with
 the "nearer-half" or "two-step" pilot, with any variance, equal the in-memory results up to the
@@ -51,7 +51,7 @@ from .core.kernels import normal_reference_constant
 from .core.window_side import WindowSide
 from .errors import (CutoffOutOfRangeError, EmptyColumnError, InvalidWeightsError, NonFiniteValueError,
                      OneSidedDataError, shown)
-from .partitioned import _partition_arrays
+from .partitioned import _partition_arrays, release_memory
 
 BITS = 16                    # bits of the key resolved per refinement pass
 GATHER_LIMIT = 1 << 21       # values gathered at most per order statistic (16 MB)
@@ -311,37 +311,6 @@ def _compute(*tasks, name: str, total: int | None = None):
         return compute(list(tasks), name, total)
     finally:
         release_memory()
-
-
-def release_memory() -> None:
-    """Hand the memory freed by a pass back to the system: pyarrow's pool keeps the pages of the
-    partitions it read, and glibc keeps the freed temporaries of each worker thread in that thread's
-    arena, where the next allocation of another thread (the gathered window, the sorted scores)
-    cannot reuse them. Without this, a pass leaves about its partitions' size behind (measured at
-    1e7 rows: 0.51 GB resident after the summary pass, 0.27 GB after both releases)."""
-    try:
-        import pyarrow
-        pyarrow.default_memory_pool().release_unused()
-    except (ImportError, AttributeError):
-        pass
-    if _LIBC is not None:
-        _LIBC.malloc_trim(0)
-
-
-def _libc():
-    import ctypes
-    import ctypes.util
-    import sys
-    if not sys.platform.startswith("linux"):
-        return None
-    try:
-        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
-        return libc if hasattr(libc, "malloc_trim") else None     # glibc only (not musl)
-    except OSError:
-        return None
-
-
-_LIBC = _libc()
 
 
 class StreamingData:
