@@ -86,9 +86,11 @@ def _from_key(k: int) -> float:
 
 
 # ---- per-partition arithmetic (each runs as one dask task) --------------------------------------
-def _columns(part: pd.DataFrame, plan: dict) -> tuple:
-    """(centred score, variables (n, k), weights or None, usable mask, dropped count) of one partition."""
-    arrays = _partition_arrays(part, plan["columns"])
+def _columns(part: pd.DataFrame, plan: dict, arrays: dict | None = None) -> tuple:
+    """(centred score, variables (n, k), weights or None, usable mask, dropped count, the columns as
+    arrays) of one partition (``arrays``: its columns already read, for a second plan)."""
+    if arrays is None:
+        arrays = _partition_arrays(part, plan["columns"])
     x = arrays[plan["score"]] - plan["cutoff"]
     keep = ~np.isnan(x)
     values = np.empty((len(x), len(plan["variables"])), order="F")

@@ -62,7 +62,7 @@ def _score_part(part, plan: dict, pilot) -> tuple:
         above.append(raw[keep & (raw >= plan["cutoff"])])
         if pilot is not None:
             bins_plan, chunk = pilot
-            _, values, w, rows, _, arrays = _columns(block, bins_plan)
+            _, values, w, rows, _, arrays = _columns(block, bins_plan, arrays)     # columns read once
             got = chunk(arrays[plan["score"]][rows], values[rows, 0], None if w is None else w[rows], 0)
             sums = got if sums is None else combine(sums, got)
     return len(part), below, above, sums
