@@ -68,7 +68,9 @@ def _score_part(part, plan: dict, pilot) -> tuple:
     return len(part), below, above, sums
 
 
-BINS_ROWS = 1 << 19      # input rows per call of a bins chunk function (its temporaries stay bounded)
+# input rows per call of a bins chunk function: its temporaries stay bounded, and fewer rows search
+# the sorted side less locally (per 2.2e6 scores on a 5e7-score side: 0.63 s at 2^19, 0.52 s here)
+BINS_ROWS = 1 << 20
 
 
 def _bins_part(part, plan: dict, chunk, start: int) -> dict:
