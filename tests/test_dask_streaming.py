@@ -229,9 +229,9 @@ def test_two_worker_processes_streamed(parquet_folder, memory_design):
 
 
 def test_automatic_reading_streams_only_large_inputs(parquet_folder, monkeypatch):
-    import seamline.streaming as streaming
+    import seamline.streaming_route as route
     assert not seamline.Design(parquet_folder, **KWARGS).streamed           # 4960 rows: gathered
-    monkeypatch.setattr(streaming, "STREAM_ABOVE_ROWS", 1000)
+    monkeypatch.setattr(route, "STREAM_ABOVE_ROWS", 1000)
     assert seamline.Design(parquet_folder, **KWARGS).streamed
     assert not seamline.Design(parquet_folder, reading="gathered", **KWARGS).streamed
 
@@ -284,3 +284,65 @@ def test_progress_of_the_score_pass_over_batches(parquet_folder, monkeypatch):
     below, above, lengths = design._data._scores[None]
     assert list(lengths) == list(SIZES)                               # rows read per file, in order
     assert np.all(np.diff(below) >= 0) and np.all(np.diff(above) >= 0)
+
+
+def test_bias_reduced_default_from_binned_moments_of_a_window(monkeypatch):
+    """The default variance on wide windows sums binned moments (``core.single_row_binned``): a
+    window side holds only its nearer rows, so its bins stop there (the bins past the rows a sum
+    reads are never used), while the bin size follows the whole side, as in memory."""
+    from seamline.core import single_row_binned
+    monkeypatch.setattr(single_row_binned, "MIN_ROWS", 2_000)     # the path of windows above 30 000 rows
+    rng = np.random.default_rng(17)
+    n = 120_000
+    x = rng.uniform(-1.0, 1.0, n)
+    y = 0.5 + 0.8 * x + (3.0 * x ** 2 + 4.0 * x ** 3) * (x >= 0) + 0.2 * (x >= 0) + rng.normal(0.0, 0.3, n)
+    frame = pd.DataFrame({"x": x, "y": y})
+    kwargs = dict(score="x", cutoff=0.0, outcome="y")
+    got = seamline.Design(dd.from_pandas(frame, npartitions=5), reading="streamed", **kwargs)
+    want = seamline.Design(frame, **kwargs)
+    for options in ({}, dict(bandwidth=0.2), dict(bandwidth=(0.1, 0.3))):
+        same_fit(got.fit(**options), want.fit(**options), str(options))
+    prep = got._data.window(("y",))
+    assert prep.below.n_window < prep.below.n and prep.above.n_window < prep.above.n
+    assert got._data._gathered is None
+    # a wider sum after a narrower one doubles the bins; on a window they stop at its rows, and
+    # they are the in-memory side's bins (first principles: the same rows in the same order)
+    window, side = prep.above, want._data.prepare(("y",)).above
+    single_row_binned.side_bins(window, 1, int(0.6 * window.n_window))
+    bins = single_row_binned.side_bins(window, 1, window.n_window - 10)
+    assert bins.starts[-1] <= window.n_window
+    full = single_row_binned.side_bins(side, 1, window.n_window)
+    g = len(bins.centre)
+    assert np.array_equal(bins.starts, full.starts[:g + 1]) and np.array_equal(bins.centre, full.centre[:g])
+    np.testing.assert_allclose(bins.moments, full.moments[:, :g], rtol=1e-9, atol=1e-9)
+
+
+def test_a_fitted_window_holds_no_per_row_residuals_or_group_starts():
+    """The moment tables read each slice's neighbour residuals (with J groups of ties either side)
+    and distinct distances are counted from the nearest row: after the default fit the window holds
+    its distances and values only, and both equal the whole window's computation. Reference: the
+    in-memory design on the same rows, and ``neighbor_residuals`` of the whole window."""
+    from seamline.core.neighbors import neighbor_residuals
+    rng = np.random.default_rng(29)
+    n = 40_000
+    for x in (rng.uniform(-1.0, 1.0, n), np.round(rng.uniform(-1.0, 1.0, n), 4)):     # continuous, tied
+        y = 0.5 + 0.8 * x + (2.0 * x ** 2) * (x >= 0) + 0.2 * (x >= 0) + rng.normal(0.0, 0.3, n)
+        frame = pd.DataFrame({"x": x, "y": y})
+        got = seamline.Design(dd.from_pandas(frame, npartitions=3), reading="streamed", score="x", cutoff=0.0,
+                              outcome="y")
+        want = seamline.Design(frame, score="x", cutoff=0.0, outcome="y")
+        same_fit(got.fit(), want.fit(), "default")
+        same_fit(got.fit(variance="neighbors"), want.fit(variance="neighbors"), "neighbors")
+        prep = got._data.window(("y",))
+        for side in (prep.below, prep.above):
+            assert side._nn is None and side._group_starts is None
+            whole, _ = neighbor_residuals(side.distance, side.values, side.neighbors, tol=side.tie_tol)
+            for size in (7, 97, 33_000):     # every row, from slices of several sizes
+                pieces = [side._nn_rows(slice(a, a + size)) for a in range(0, side.n_window, size)]
+                np.testing.assert_allclose(np.concatenate(pieces), whole, rtol=1e-13, atol=1e-15)
+        memory = want._data.prepare(("y",))
+        for side, full in ((prep.below, memory.below), (prep.above, memory.above)):
+            for rows in (0, 1, 50, 3000, side.n_window):
+                assert side.distinct_within(rows) == min(full.distinct_within(rows), 16)
+            for needed, kernel in ((1, "triangular"), (2, "triangular"), (5, "triangular"), (2, "uniform")):
+                assert side.bandwidth_for_distinct(needed, kernel) == full.bandwidth_for_distinct(needed, kernel)

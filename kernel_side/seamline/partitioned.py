@@ -301,3 +301,34 @@ def data_identity(data) -> str | None:
         from dask.base import tokenize
         return "dask-" + tokenize(data)
     return None
+
+
+def release_memory() -> None:
+    """Hand the memory freed by a pass back to the system: pyarrow's pool keeps the pages of the
+    partitions it read, and glibc keeps the freed temporaries of each worker thread in that thread's
+    arena, where the next allocation of another thread (the gathered window, the sorted scores)
+    cannot reuse them. Without this, a pass leaves about its partitions' size behind (measured at
+    1e7 rows: 0.51 GB resident after the summary pass, 0.27 GB after both releases)."""
+    try:
+        import pyarrow
+        pyarrow.default_memory_pool().release_unused()
+    except (ImportError, AttributeError):
+        pass
+    if _LIBC is not None:
+        _LIBC.malloc_trim(0)
+
+
+def _libc():
+    import ctypes
+    import ctypes.util
+    import sys
+    if not sys.platform.startswith("linux"):
+        return None
+    try:
+        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+        return libc if hasattr(libc, "malloc_trim") else None     # glibc only (not musl)
+    except OSError:
+        return None
+
+
+_LIBC = _libc()

@@ -24,7 +24,7 @@ Passes (for one set of variables; each reads only the design's columns)
    A result that needs rows beyond the window's exact part asks for a wider window: one more pass
    gathers the rows between the old and the new radius (appended after the held rows, which are
    all nearer and are not sorted again).
-After every pass the memory it freed is handed back to the system (``release_memory``).
+Before and after every pass freed memory is handed back to the system (``partitioned.release_memory``).
 
 What is exact: fits at manual bandwidths and at the "mse", "mse-split", "coverage" and "ik" rules with
 the "nearer-half" or "two-step" pilot, with any variance, equal the in-memory results up to the
@@ -33,16 +33,16 @@ order of floating-point sums (relative differences ~1e-12; counts identical). Ev
 computed on the gathered route (``partitioned.gather_frame``), exactly, the first time it is asked for;
 except density tests and bins, which gather only the sorted score (``streaming_diagnostics``).
 
-Memory bound: the window (per row about 8 bytes x (2 + 2 x variables) plus moment tables of about
-(degree + 1) / 512 numbers per row per series), the histograms (3 x 65536 counts per partition in
-flight), the partitions being read at that moment, and at most GATHER_LIMIT values per order
-statistic. The window holds the rows within the widest bandwidth the results use plus J groups of
+Memory bound: the window (per row 8 bytes x (1 + variables), plus 8 with weights: no neighbour
+residuals or group starts are held, ``core.window_side``; moment tables of about (degree + 1) / 512
+numbers per row per series), the histograms (3 x 65536 counts per partition in flight), the
+partitions being read at that moment (as arrays PART_ROWS rows at a time), and at most
+GATHER_LIMIT values per order statistic. The window holds the rows within the widest bandwidth the results use plus J groups of
 neighbours; when a bandwidth reaches the whole side (no curvature signal), the whole side is held.
 """
 from __future__ import annotations
 
 import math
-import os
 
 import numpy as np
 import pandas as pd
@@ -51,14 +51,13 @@ from .core.kernels import normal_reference_constant
 from .core.window_side import WindowSide
 from .errors import (CutoffOutOfRangeError, EmptyColumnError, InvalidWeightsError, NonFiniteValueError,
                      OneSidedDataError, shown)
-from .partitioned import _partition_arrays
+from .partitioned import _partition_arrays, release_memory
 
 BITS = 16                    # bits of the key resolved per refinement pass
 GATHER_LIMIT = 1 << 21       # values gathered at most per order statistic (16 MB)
 PILOT_DEGREE = 6             # pilot sums kept up to this polynomial degree (bias degree + 2 <= 6)
 FIRST_WINDOW = 4.0           # the first window's radius, in rule-of-thumb pilot bandwidths
 WIDEN = 1.25                 # a wider window reaches this much past the radius asked for
-STREAM_ABOVE_ROWS = 2_000_000   # reading="automatic": stream partitioned inputs with more rows
 
 
 def sort_keys(x: np.ndarray) -> np.ndarray:
@@ -87,9 +86,11 @@ def _from_key(k: int) -> float:
 
 
 # ---- per-partition arithmetic (each runs as one dask task) --------------------------------------
-def _columns(part: pd.DataFrame, plan: dict) -> tuple:
-    """(centred score, variables (n, k), weights or None, usable mask, dropped count) of one partition."""
-    arrays = _partition_arrays(part, plan["columns"])
+def _columns(part: pd.DataFrame, plan: dict, arrays: dict | None = None) -> tuple:
+    """(centred score, variables (n, k), weights or None, usable mask, dropped count, the columns as
+    arrays) of one partition (``arrays``: its columns already read, for a second plan)."""
+    if arrays is None:
+        arrays = _partition_arrays(part, plan["columns"])
     x = arrays[plan["score"]] - plan["cutoff"]
     keep = ~np.isnan(x)
     values = np.empty((len(x), len(plan["variables"])), order="F")
@@ -135,9 +136,9 @@ def _summary_part(part: pd.DataFrame, plan: dict) -> dict:
     del top, negative
     n_above = int(np.count_nonzero(above))
     share = above.astype(np.float64)
-    sums = {"above": share @ vk}
+    sums = {"above": np.einsum("i,ij->j", share, vk)}
     np.subtract(1.0, share, out=share)
-    sums["below"] = share @ vk
+    sums["below"] = np.einsum("i,ij->j", share, vk)
     del share
     for name, n_side, h in (("below", len(xs) - n_above, hist[:1 << BITS]), ("above", n_above, hist[1 << BITS:])):
         if not n_side:
@@ -197,7 +198,9 @@ POWER_ROWS = 1 << 14          # rows per block of the power sums (their powers s
 
 def _power_sums(u: np.ndarray, w: np.ndarray | None, v: np.ndarray, moments: int, cross: int) -> tuple:
     """(sum w u^m for m <= moments, sum w u^m v for m <= cross), block by block: the powers of a block
-    of rows are made by repeated multiplication, as the in-memory pilot makes them, and summed there."""
+    of rows are made by repeated multiplication, as the in-memory pilot makes them, and summed there.
+    Products by einsum, not BLAS: the tasks already run on the scheduler's threads, and a threaded
+    BLAS call inside each took 1.5 to 3 times as long on this machine (measured per partition)."""
     out_m = np.zeros(moments + 1)
     out_c = np.zeros((cross + 1, v.shape[1]))
     block = np.empty((min(POWER_ROWS, len(u)), moments + 1), order="F")
@@ -208,12 +211,41 @@ def _power_sums(u: np.ndarray, w: np.ndarray | None, v: np.ndarray, moments: int
         for m in range(1, moments + 1):
             np.multiply(powers[:, m - 1], uc, out=powers[:, m])
         out_m += powers.sum(axis=0)
-        out_c += powers[:, :cross + 1].T @ v[a:a + POWER_ROWS]
+        out_c += np.einsum("im,ij->mj", powers[:, :cross + 1], v[a:a + POWER_ROWS])
     return out_m, out_c
 
 
+PART_ROWS = 1 << 19           # rows of a partition read into arrays at a time by the larger passes
+
+
+def blocks(part: pd.DataFrame):
+    """The partition in blocks of PART_ROWS rows (views): a task's arrays (the columns as float64,
+    masks, the rows kept) are then a block long, not a partition long (2e6 rows: about 0.2 GB)."""
+    for a in range(0, max(len(part), 1), PART_ROWS):
+        yield part.iloc[a:a + PART_ROWS]
+
+
 def _window_part(part: pd.DataFrame, plan: dict, sides: dict) -> dict:
-    """Per side: pilot sums (when asked) and the rows with inner < distance <= radius."""
+    """Per side: pilot sums (when asked) and the rows with inner < distance <= radius, as a list of
+    pieces each sorted by distance (one per block, in input order)."""
+    out = None
+    for block in blocks(part):
+        got = _window_block(block, plan, sides)
+        if out is None:
+            out = {name: dict(piece, rows=[piece["rows"]]) for name, piece in got.items()}
+            continue
+        for name, piece in got.items():
+            held = out[name]
+            held["rows"].append(piece["rows"])
+            for key, value in piece.items():
+                if key == "cubic":
+                    held[key] = {k: held[key][k] + v for k, v in value.items()}
+                elif key != "rows":
+                    held[key] = (held[key][0] + value[0], held[key][1] + value[1])
+    return out
+
+
+def _window_block(part: pd.DataFrame, plan: dict, sides: dict) -> dict:
     x, values, w, keep, _, _ = _columns(part, plan)
     out = {}
     if not any(ask["pilots"] or ask.get("cubic") is not None for ask in sides.values()):
@@ -249,8 +281,9 @@ def _window_part(part: pd.DataFrame, plan: dict, sides: dict) -> dict:
             xs = sign * d[inside] / score_sd
             term = np.ones(len(xs)) if ws is None else ws[inside]
             inner = vals[inside]
-            piece["cubic"] = {"rows": int(inside.sum()), "w": float(term.sum()), "w2": float(term @ term),
-                              "wv": term @ inner, "wvv": (inner * term[:, None]).T @ inner}
+            piece["cubic"] = {"rows": int(inside.sum()), "w": float(term.sum()),
+                              "w2": float(np.einsum("i,i->", term, term)), "wv": np.einsum("i,ij->j", term, inner),
+                              "wvv": np.einsum("ij,i,ik->jk", inner, term, inner)}
             piece["cubic"]["moments"], piece["cubic"]["xv"] = _power_sums(xs, None if ws is None else term, inner,
                                                                           6, 3)
         rows = np.flatnonzero((d > ask["inner"]) & (d <= ask["radius"]))
@@ -271,43 +304,15 @@ def _tree(tasks: list, merge):
 
 
 def _compute(*tasks, name: str, total: int | None = None):
-    """Compute on the active scheduler; ``reading_progress`` hears of each partition done."""
+    """Compute on the active scheduler; ``reading_progress`` hears of each partition done. Memory
+    freed by the calling thread is handed back first: the workers' threads allocate from arenas of
+    their own, where it could not be reused."""
     from .partitioned import _compute as compute
+    release_memory()
     try:
         return compute(list(tasks), name, total)
     finally:
         release_memory()
-
-
-def release_memory() -> None:
-    """Hand the memory freed by a pass back to the system: pyarrow's pool keeps the pages of the
-    partitions it read, and glibc keeps the freed temporaries of each worker thread in that thread's
-    arena, where the next allocation of another thread (the gathered window, the sorted scores)
-    cannot reuse them. Without this, a pass leaves about its partitions' size behind (measured at
-    1e7 rows: 0.51 GB resident after the summary pass, 0.27 GB after both releases)."""
-    try:
-        import pyarrow
-        pyarrow.default_memory_pool().release_unused()
-    except (ImportError, AttributeError):
-        pass
-    if _LIBC is not None:
-        _LIBC.malloc_trim(0)
-
-
-def _libc():
-    import ctypes
-    import ctypes.util
-    import sys
-    if not sys.platform.startswith("linux"):
-        return None
-    try:
-        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
-        return libc if hasattr(libc, "malloc_trim") else None     # glibc only (not musl)
-    except OSError:
-        return None
-
-
-_LIBC = _libc()
 
 
 class StreamingData:
@@ -521,24 +526,34 @@ class StreamingData:
         old = dict(zip(("below", "above"), held.pop("sides", (None, None))))
         held.pop("prepared", None)
         for name in ("below", "above"):
-            pieces = [p[name].pop("rows") for p in parts]
-            # each piece is sorted by distance: a stable sort of their concatenation only merges the
-            # runs (timsort), and ties keep the input order, as one stable sort of the new rows would
+            pieces = [piece for p in parts for piece in p[name].pop("rows")]
+            # each piece is sorted by distance, the pieces in input order: a stable sort of their
+            # concatenation merges the runs (timsort), and ties keep the input order, as one stable
+            # sort of the new rows would.
+            # The pieces are copied into the new arrays and freed one by one, then each column is
+            # reordered there through one temporary: about 32 bytes a new row at most (was 56)
             side = old[name]
             held_rows = 0 if side is None else len(side.distance)
-            new_d = np.concatenate([p[0] for p in pieces])
-            order = np.argsort(new_d, kind="stable")
-            total = held_rows + len(new_d)
+            total = held_rows + sum(len(p[0]) for p in pieces)
             d = np.empty(total)
-            d[held_rows:] = new_d[order]
-            del new_d
             vals = np.empty((total, pieces[0][1].shape[1]), order="F")
-            for j in range(vals.shape[1]):
-                vals[held_rows:, j] = np.concatenate([p[1][:, j] for p in pieces])[order]
             w = None if pieces[0][2] is None else np.empty(total)
-            if w is not None:
-                w[held_rows:] = np.concatenate([p[2] for p in pieces])[order]
-            del pieces, order
+            at = held_rows
+            while pieces:                          # in partition order, each freed once copied
+                piece_d, piece_v, piece_w = pieces.pop(0)
+                rows_at = slice(at, at + len(piece_d))
+                d[rows_at], vals[rows_at] = piece_d, piece_v
+                if w is not None:
+                    w[rows_at] = piece_w
+                at = rows_at.stop
+                del piece_d, piece_v, piece_w
+            order = np.argsort(d[held_rows:], kind="stable")
+            spare = np.empty(total - held_rows)
+            for column in [d, w] + [vals[:, j] for j in range(vals.shape[1])]:
+                if column is not None:
+                    np.take(column[held_rows:], order, out=spare, mode="clip")    # "clip": no buffered copy
+                    column[held_rows:] = spare
+            del spare, order
             if side is not None:
                 # the rows held already come first: all are nearer than the new ones (distance <= the
                 # held radius < theirs), so they are not sorted again. Their values were centred by
@@ -566,59 +581,3 @@ def _quantile_ranks(n: int, q: float) -> list[int]:
     pos = q * (n - 1)
     lo = int(np.floor(pos))
     return sorted({lo, min(lo + 1, n - 1)})
-
-
-def large_enough(data) -> bool:
-    """reading="automatic": whether a partitioned input has more than STREAM_ABOVE_ROWS rows (a Parquet
-    path from its files' metadata; a dask frame from ``frame.shape[0]``, which dask may answer from
-    metadata too)."""
-    if isinstance(data, (str, os.PathLike)):
-        import pyarrow.parquet as pq
-        from .partitioned import parquet_files
-        return sum(pq.read_metadata(f).num_rows for f in parquet_files(data)) > STREAM_ABOVE_ROWS
-    return int(data.shape[0].compute()) > STREAM_ABOVE_ROWS
-
-
-READINGS = ("automatic", "streamed", "gathered")     # Design(reading=...): how a partitioned input is read
-STREAMED_RULES = ("mse", "mse-split", "coverage", "ik")    # bandwidth rules computed from a window (and numbers)
-
-
-def streamable_frame(data, roles: dict[str, str], reading: str, *, cutoff, takeup, cluster, score_unit):
-    """The dask DataFrame of the design's columns when the design goes through the bounded-memory
-    route, or None (then the caller gathers the columns, seamline.partitioned).
-
-    ``reading``: "automatic" streams a partitioned input of more than STREAM_ABOVE_ROWS rows that the
-    route supports (numeric columns, one numeric cutoff, no take-up, cluster or date score);
-    "streamed" asks for the route and names what stops it; "gathered" never streams.
-    """
-    from .errors import InvalidOptionError
-    from .partitioned import _check_dask_dtypes, _import_dask, is_partitioned, open_parquet
-    if reading == "gathered" or not is_partitioned(data):
-        return None
-    _import_dask()
-    why = None
-    if takeup is not None or cluster is not None:
-        why = "a fuzzy design (take-up)" if takeup is not None else "a cluster variable"
-    elif score_unit is not None or isinstance(cutoff, (str, bool)) or not np.isscalar(cutoff):
-        why = "a cutoff that is not one number"
-    frame = None
-    if why is None:
-        if isinstance(data, (str, os.PathLike)):
-            frame = open_parquet(data, roles)
-        else:
-            _check_dask_dtypes(data, roles)
-            frame = data[list(roles)]
-        bad = [c for c in roles if not (pd.api.types.is_numeric_dtype(frame.dtypes[c])
-                                        or pd.api.types.is_bool_dtype(frame.dtypes[c]))
-               or pd.api.types.is_object_dtype(frame.dtypes[c])]
-        if bad:
-            why = f"a column that is not numeric ({shown(bad[0])}, dtype {frame.dtypes[bad[0]]})"
-    if why is not None:
-        if reading == "streamed":
-            raise InvalidOptionError(f"`reading` \"streamed\" needs numeric columns, one numeric cutoff and no take-up "
-                                     f"or cluster; got {why}. Use reading=\"gathered\" (the data must then fit in "
-                                     "memory), or cast the columns in dask first.")
-        return None
-    if reading == "automatic" and not large_enough(data if isinstance(data, (str, os.PathLike)) else frame):
-        return None
-    return frame

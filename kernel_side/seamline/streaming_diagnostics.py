@@ -37,7 +37,7 @@ from .core.bins_streamed import binned_means_streamed, combine, pilot_chunk
 from .core.density import density_test_sorted
 from .errors import DataSourceError
 from .partitioned import _REPORT
-from .streaming import _columns, _compute, _tree
+from .streaming import _columns, _compute, _tree, blocks
 
 
 def _plan(data, variables: tuple[str, ...] | None) -> dict:
@@ -52,32 +52,43 @@ def _plan(data, variables: tuple[str, ...] | None) -> dict:
 
 def _score_part(part, plan: dict, pilot) -> tuple:
     """(rows read, kept scores below the cutoff, kept scores at or above it, the bins' pilot sums or
-    None) of one partition; ``pilot``: (the bins' plan, ``pilot_chunk``) or None."""
-    x, _, _, keep, _, arrays = _columns(part, plan)
-    raw = arrays[plan["score"]]
-    sums = None
-    if pilot is not None:
-        bins_plan, chunk = pilot
-        _, values, w, rows, _, arrays = _columns(part, bins_plan)
-        sums = chunk(arrays[plan["score"]][rows], values[rows, 0], None if w is None else w[rows], 0)
-    return len(raw), raw[keep & (raw < plan["cutoff"])], raw[keep & (raw >= plan["cutoff"])], sums
+    None) of one partition, the scores as one piece per block of rows; ``pilot``: (the bins' plan,
+    ``pilot_chunk``) or None."""
+    below, above, sums = [], [], None
+    for block in blocks(part):
+        _, _, _, keep, _, arrays = _columns(block, plan)
+        raw = arrays[plan["score"]]
+        below.append(raw[keep & (raw < plan["cutoff"])])
+        above.append(raw[keep & (raw >= plan["cutoff"])])
+        if pilot is not None:
+            bins_plan, chunk = pilot
+            _, values, w, rows, _, arrays = _columns(block, bins_plan, arrays)     # columns read once
+            got = chunk(arrays[plan["score"]][rows], values[rows, 0], None if w is None else w[rows], 0)
+            sums = got if sums is None else combine(sums, got)
+    return len(part), below, above, sums
 
 
-BINS_ROWS = 1 << 20      # kept rows per call of a bins chunk function (its temporaries stay bounded)
+# input rows per call of a bins chunk function: its temporaries stay bounded, and fewer rows search
+# the sorted side less locally (per 2.2e6 scores on a 5e7-score side: 0.63 s at 2^19, 0.52 s here)
+BINS_ROWS = 1 << 20
 
 
 def _bins_part(part, plan: dict, chunk, start: int) -> dict:
-    """One of ``binned_means_streamed``'s chunk functions on one partition's kept rows, BINS_ROWS
-    rows at a time (folded with ``combine``): the chunk's temporaries (masks, sort orders, ranks)
-    are a few arrays of that many rows instead of the partition's length. ``start`` + i numbers
-    the i-th kept row: increasing, as the chunk functions need."""
-    _, values, w, keep, _, arrays = _columns(part, plan)
-    x, y = arrays[plan["score"]][keep], values[keep, 0]
-    w = None if w is None else w[keep]
+    """One of ``binned_means_streamed``'s chunk functions on one partition's kept rows, a block of
+    BINS_ROWS input rows at a time (folded with ``combine``): the block's arrays and the chunk's
+    temporaries (masks, sort orders, ranks) are a few arrays of that many rows instead of the
+    partition's length. ``start`` + i numbers the i-th kept row: increasing, as the chunk functions
+    need."""
     out = None
-    for a in range(0, max(len(x), 1), BINS_ROWS):
-        rows = slice(a, a + BINS_ROWS)
-        got = chunk(x[rows], y[rows], None if w is None else w[rows], start + a)
+    for a in range(0, max(len(part), 1), BINS_ROWS):
+        _, values, w, keep, _, arrays = _columns(part.iloc[a:a + BINS_ROWS], plan)
+        if keep.all():                      # no copies of a block without missing values
+            x, y = arrays[plan["score"]], values[:, 0]
+        else:
+            x, y = arrays[plan["score"]][keep], values[keep, 0]
+            w = None if w is None else w[keep]
+        got = chunk(x, y, w, start)
+        start += len(x)
         out = got if out is None else combine(out, got)
     return out
 
@@ -144,14 +155,14 @@ def sorted_scores(data, variables: tuple[str, ...] | None = None):
         finally:
             if token is not None:
                 _REPORT.reset(token)
-        for rows, b, a, part_sums in got:
+        for rows, pieces_below, pieces_above, part_sums in got:
             if pilot is not None:
                 sums = part_sums if sums is None else combine(sums, part_sums)
-            if at_below + len(b) > n_below or at_above + len(a) > n_above:
-                break
-            below[at_below:at_below + len(b)] = b
-            above[at_above:at_above + len(a)] = a
-            at_below, at_above = at_below + len(b), at_above + len(a)
+            for b, a in zip(pieces_below, pieces_above):
+                if at_below + len(b) <= n_below and at_above + len(a) <= n_above:   # else: counted below
+                    below[at_below:at_below + len(b)] = b
+                    above[at_above:at_above + len(a)] = a
+                at_below, at_above = at_below + len(b), at_above + len(a)
             lengths.append(rows)
         del got
     if (at_below, at_above) != (n_below, n_above) or len(lengths) != len(parts):

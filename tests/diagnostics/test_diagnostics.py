@@ -216,6 +216,33 @@ def test_bins_curve_meets_the_fit_at_the_cutoff(design):
     assert set(glob.side) == {"below", "above"}
 
 
+@pytest.mark.parametrize("variance, cov_type", [("bias-reduced", "HC2"), ("hc3", "HC3")])
+def test_bins_bands_of_hc_variances_row_by_row_in_blocks(variance, cov_type, monkeypatch):
+    """The pointwise bands of the default variance are its HC2 part (HC3 likewise), summed block by
+    block over the rows inside h (blocks of 100 rows here, weighted rows). Reference: statsmodels
+    WLS(y, [1, x], weights=w (1 - |x|/h)).fit(cov_type=...) on each side's rows inside h; the band's
+    half-width at x0 is z sqrt([1, x0] V [1, x0]'), z from scipy.stats.norm.ppf."""
+    import statsmodels.api as sm
+    from scipy import stats
+    from seamline.core import locpoly
+
+    monkeypatch.setattr(locpoly, "HC_BLOCK", 100)
+    rng = np.random.default_rng(4)
+    data = lee(3000, rng).assign(w=rng.uniform(0.5, 2.0, 3000))
+    design = seamline.Design(data, score="x", cutoff=0.0, outcome="y", weights="w")
+    h = 0.3
+    curve = design.bins(bandwidth=h, variance=variance, level=0.9).curve_frame
+    for side in ("below", "above"):
+        rows = data[((data.x < 0) if side == "below" else (data.x >= 0)) & (data.x.abs() < h)]
+        cov = sm.WLS(rows.y, sm.add_constant(rows.x), weights=rows.w * (1 - rows.x.abs() / h)).fit(
+            cov_type=cov_type).cov_params().to_numpy()
+        part = curve[curve.side == side]
+        basis = np.column_stack([np.ones(len(part)), part.x])
+        half = stats.norm.ppf(0.95) * np.sqrt(np.einsum("ij,jk,ik->i", basis, cov, basis))
+        np.testing.assert_allclose(part.ci_high - part.fit, half, rtol=1e-8)
+        np.testing.assert_allclose(part.fit - part.ci_low, half, rtol=1e-8)
+
+
 def test_bins_bad_counts(design):
     with pytest.raises(SeamlineError, match="number"):
         design.bins(number=0)

@@ -224,8 +224,9 @@ def _pilot_chunk(cutoff: float, specs):
             rhs = np.zeros(deg + 1)
             for rows, basis in _legendre_chunks(xs_, to_t, deg):
                 weighted = basis if ws_ is None else basis * ws_[rows]
-                gram += weighted @ basis.T
-                rhs += weighted @ ys_[rows]
+                # einsum, not a threaded BLAS call: the chunk runs on one of the scheduler's threads
+                gram += np.einsum("ij,kj->ik", weighted, basis)
+                rhs += np.einsum("ij,j->i", weighted, ys_[rows])
             out[f"{side}.gram"], out[f"{side}.rhs"] = gram, rhs
         return out
     return chunk

@@ -204,3 +204,30 @@ def window_arrays(sf: SideFit) -> WindowArrays:
     resid_h = vals - rp @ sf.beta_h
     resid_b = vals - rq @ sf.beta_b
     return WindowArrays(rows, a, abc, kw_h, rp, resid_h, resid_b, kw_b, rq, sf.gamma_p, sf.gamma_q)
+
+
+HC_BLOCK = 1 << 16      # rows per block of ``hc_meat`` (its temporaries stay a few arrays this long)
+
+
+def hc_meat(sf: SideFit, lam: np.ndarray, power: int) -> np.ndarray:
+    """sum_i r_i r_i' K_i^2 e_i^2 / (1 - lev_i)^power of the order-p fit at h (the HC0 / HC2 / HC3
+    meat of its coefficients, e the residuals of the combined variable ``lam``), block by block
+    over the rows inside h: the sum ``window_arrays`` gives (its rows past h weigh 0) without its
+    per-row arrays over max(h, b), about 90 bytes a row."""
+    side, s = sf.side, float(sf.side.sign)
+    rows = side.count_positive(sf.h, sf.kernel)
+    inv = np.linalg.inv(sf.gamma_p)
+    coef = sf.beta_h[:, : len(lam)] @ lam
+    meat = np.zeros((sf.p + 1, sf.p + 1))
+    block = HC_BLOCK
+    for a in range(0, rows, block):
+        sl = slice(a, min(a + block, rows))
+        d = side.distance[sl]
+        kw = side.w(sl) * kernel_weights(sf.kernel, d / sf.h)
+        r = np.vander(s * d / sf.h, sf.p + 1, increasing=True)
+        omega = (side.values[sl, : len(lam)] @ lam - r @ coef) ** 2
+        if power:
+            lev = kw * np.einsum("ij,ij->i", r @ inv, r)
+            omega /= (1.0 - np.minimum(lev, 1 - 1e-12)) ** power
+        meat += (r * (kw ** 2 * omega)[:, None]).T @ r
+    return meat

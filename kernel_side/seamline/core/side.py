@@ -202,10 +202,14 @@ class Side:
             return None                          # cut inside a group of ties: count afresh
         return starts[k:] - start
 
+    def _first_groups(self, count: int) -> np.ndarray:
+        """The first rows of the side's first ``count`` distinct distances (fewer if it has fewer)."""
+        self.distinct_within(0)
+        return self._group_starts[:count]
+
     def bandwidth_for_distinct(self, needed: int, kernel: str) -> float:
         """Smallest bandwidth giving ``needed`` distinct distances positive weight (nan if impossible)."""
-        self.distinct_within(0)
-        starts = self._group_starts
+        starts = self._first_groups(needed + 1)
         if len(starts) < needed:
             return float("nan")
         d = self.distance[starts[needed - 1]]

@@ -66,11 +66,14 @@ def side_bins(side: Side, n_vars: int, rows: int) -> SideBins:
     if base is not None and base[0].values.shape[1] == side.values.shape[1]:
         return _cut_bins(side, n_vars, rows, *base)
     cache = side.__dict__.setdefault("_single_row_bins", {})
-    size = max(64, -(-side.n // _TARGET_BINS))
+    # the bin size follows the whole side's count; the bins stop at the rows held (a side of a
+    # streamed window, ``core.window_side``, holds only its nearer rows: a bin past ``rows`` is never
+    # summed by moments, so fewer bins there give the same sums)
+    size, held_rows = max(64, -(-side.n // _TARGET_BINS)), len(side.distance)
     held = cache.get(n_vars)
-    if held is None or (held.starts[-1] < rows and held.starts[-1] + size <= side.n):
+    if held is None or (held.starts[-1] < rows and held.starts[-1] + size <= held_rows):
         have = 0 if held is None else int(held.starts[-1])
-        want = min(side.n // size, max(-(-rows // size), 2 * have // size))
+        want = min(held_rows // size, max(-(-rows // size), 2 * have // size))
         cache[n_vars] = _build_bins(side, n_vars, size, want)
     return cache[n_vars]
 
@@ -106,7 +109,13 @@ def _cut_bins(side: Side, n_vars: int, rows: int, base: Side, start: int, revers
     return SideBins(new_starts, low, high, centre, moments)
 
 
-def _build_bins(side: Side, n_vars: int, size: int, count: int, chunk: int = 256) -> SideBins:
+BUILD_ROWS = 1 << 18      # rows per step of the bin moments (their temporaries: about 13 numbers a row)
+
+
+def _build_bins(side: Side, n_vars: int, size: int, count: int) -> SideBins:
+    # a few bins at a time, as many as make BUILD_ROWS rows: at 1e8 rows a bin holds 24 000 rows,
+    # and 256 bins at a time made temporaries of 0.6 GB
+    chunk = max(1, BUILD_ROWS // size)
     starts = np.arange(count + 1) * size
     d = side.distance[: count * size].reshape(count, size)
     low, high = d[:, 0], d[:, -1]
@@ -114,7 +123,7 @@ def _build_bins(side: Side, n_vars: int, size: int, count: int, chunk: int = 256
     vals = side.values[: count * size, :n_vars].reshape(count, size, n_vars)
     pairs = [(v, w) for v in range(n_vars) for w in range(v, n_vars)]
     moments = np.empty((1 + n_vars + len(pairs), count, ORDER + 1))
-    for g0 in range(0, count, chunk):        # a few bins at a time: (chunk, size, ORDER + 1) temporaries
+    for g0 in range(0, count, chunk):        # (chunk, size, ORDER + 1) temporaries
         g1 = min(count, g0 + chunk)
         t = d[g0:g1] - centre[g0:g1, None]
         powers = np.empty((g1 - g0, size, ORDER + 1))

@@ -19,6 +19,10 @@ from .side import Side
 # A lower bound of distinct distances this large answers every "enough distinct values?" question
 # the selectors ask of a whole side (degrees up to 6 need at most 7).
 DISTINCT_ENOUGH = 8
+# Distinct distances are counted up to this many, no further: every question asked of the count
+# compares it with less (the fits' warning of a discrete score with 10).
+DISTINCT_COUNTED = 16
+SCAN_ROWS = 1 << 12       # rows per step of a scan from the nearest row (grows fourfold per step)
 
 
 class WindowTooNarrow(Exception):
@@ -106,25 +110,75 @@ class WindowSide(Side):
         return super().count_positive(h, kernel)
 
     def nn_residuals(self) -> np.ndarray:
+        """The whole window's residuals (kept): only the direct paths read them; the moment tables
+        read each slice's own (``series``), so a fit holds no per-row residuals."""
         if self._nn is None:
             self._nn, _ = neighbor_residuals(self.distance, self.values, self.neighbors, tol=self.tie_tol)
         return self._nn
 
+    def series(self, kind: str, a: int = -1, b: int = -1):
+        if kind != "w2nn" or self._nn is not None:
+            return super().series(kind, a, b)
+
+        def w2nn(rows: slice) -> np.ndarray:
+            e = self._nn_rows(rows)
+            return self.w(rows) ** 2 * e[:, a] * e[:, b]
+        return ("w2nn", a, b), w2nn
+
+    def _nn_rows(self, rows: slice) -> np.ndarray:
+        """Neighbour residuals of a slice of rows, from the slice with J whole groups of ties (the
+        window's tie tolerance) on either side: a row's neighbours lie within J groups of it
+        (``neighbor_residuals`` chunks the same way), so these are the whole window's residuals."""
+        d, tol, j = self.distance, self.tie_tol, self.neighbors
+        start, stop = rows.indices(len(d))[:2]
+        if stop <= start:
+            return np.zeros((0, self.values.shape[1]))
+        span = 4 * (j + 1)
+        while True:                     # group starts in (lo0, start]: the slice's first group and J before
+            lo0 = max(0, start - span)
+            cuts = lo0 + 1 + np.flatnonzero(np.diff(d[lo0:start + 1]) > tol)
+            if len(cuts) > j or lo0 == 0:
+                break
+            span *= 4
+        lo = int(cuts[len(cuts) - j - 1]) if len(cuts) > j else 0
+        span = 4 * (j + 1)
+        while True:                     # group starts in [stop, hi0): the end of the slice's last group and J after
+            hi0 = min(len(d), stop + span)
+            cuts = stop + np.flatnonzero(np.diff(d[stop - 1:hi0]) > tol)
+            if len(cuts) > j or hi0 == len(d):
+                break
+            span *= 4
+        hi = int(cuts[j]) if len(cuts) > j else len(d)
+        resid, _ = neighbor_residuals(d[lo:hi], self.values[lo:hi], j, tol=tol)
+        return resid[start - lo: stop - lo]
+
+    def _scan_groups(self, n_rows: int, count: int) -> np.ndarray:
+        """First rows of the distinct distances among the first ``n_rows`` rows, the first ``count``
+        of them, found by scanning from the nearest row (no array of every group start)."""
+        d = self.distance
+        found, at, step = [np.zeros(1, dtype=np.intp)] if n_rows > 0 else [], 1, SCAN_ROWS
+        total = len(found)
+        while at < n_rows and total < count:
+            stop = min(n_rows, at + step)
+            new = at + np.flatnonzero(d[at:stop] > d[at - 1:stop - 1])
+            found.append(new)
+            total += len(new)
+            at, step = stop, 4 * step
+        return np.concatenate(found)[:count] if found else np.zeros(0, dtype=np.intp)
+
     def distinct_within(self, n_rows: int) -> int:
-        """Exact within the window; beyond it a lower bound, given only when it is DISTINCT_ENOUGH."""
-        if n_rows <= self.n_window or self.complete:
-            return super().distinct_within(min(n_rows, self.n_window))
-        have = super().distinct_within(self.n_window)
-        if have >= DISTINCT_ENOUGH:
+        """Exact below DISTINCT_COUNTED, else DISTINCT_COUNTED (a lower bound); beyond the window's
+        rows a lower bound too, given only when it reaches DISTINCT_ENOUGH."""
+        have = len(self._scan_groups(min(n_rows, self.n_window), DISTINCT_COUNTED))
+        if n_rows <= self.n_window or self.complete or have >= DISTINCT_ENOUGH:
             return have
         raise WindowTooNarrow(np.inf)
 
-    def bandwidth_for_distinct(self, needed: int, kernel: str) -> float:
-        self.distinct_within(0)
-        groups = len(self._group_starts)
-        if not self.complete and groups <= needed:     # the answer may lie beyond the window
+    def _first_groups(self, count: int) -> np.ndarray:
+        starts = self._scan_groups(self.n_window, count)
+        if not self.complete and len(starts) < count:    # the answer may lie beyond the window
             raise WindowTooNarrow(np.inf)
-        return super().bandwidth_for_distinct(needed, kernel)
+        return starts
 
     def pilot_sums(self, share: float, degree: int):
         rows = max(int(np.ceil(share * self.n)), 1)

@@ -10,7 +10,8 @@ import pandas as pd
 from ..core.bandwidth import Selection
 from ..core.window_side import WindowTooNarrow
 from ..data import DesignData, Prepared, as_frame
-from ..streaming import READINGS, StreamingData
+from ..streaming import StreamingData
+from ..streaming_route import READINGS
 from ..errors import CutoffTypeError, InvalidOptionError, shown
 from ..options import SIDES, check_option
 from ..time_score import TIME_CAUTION, is_time_value

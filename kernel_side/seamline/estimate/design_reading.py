@@ -8,7 +8,8 @@ Functions of a ``Design`` (seamline.estimate.design), which reads its data throu
 from __future__ import annotations
 
 from ..data import DesignData, Prepared, as_frame, check_columns, column_names
-from ..streaming import STREAMED_RULES, StreamingData, streamable_frame
+from ..streaming import StreamingData
+from ..streaming_route import STREAMED_RULES, streamable_frame
 from ..time_score import looks_like_date
 from .multiple_cutoffs import CutoffNotChosen, CutoffPlan, plan_cutoffs
 from .options import FitSpec

@@ -14,7 +14,7 @@ import numpy as np
 from ..core.cluster_variance import FitRows, bias_reduced_variance, single_row_variance
 from ..core.single_row_binned import single_row_variance_binned
 from ..core.kernels import kernel_poly
-from ..core.locpoly import SideFit, WindowArrays, _omega_terms, fit_side, variance_fast, window_arrays
+from ..core.locpoly import SideFit, WindowArrays, _omega_terms, fit_side, hc_meat, variance_fast, window_arrays
 from ..core.moments import window_gram
 from ..data import Prepared
 from ..errors import CollinearCovariatesError, TooFewClustersError, TooFewDistinctValuesError, shown
@@ -242,6 +242,11 @@ class JumpEngine:
             kp = kernel_poly(self.kernel)
             terms = _omega_terms(side, lam, kind, sf.beta_h, sf.h, sf.h)
             meat = window_gram(side.moments, sf.h, terms, p + 1, p + 1, kp, kp, 1.0, 1.0, float(side.sign))
+        elif not cluster and variance != "neighbors":
+            # HC: block by block over the rows inside h, not the fit's per-row arrays over max(h, b)
+            # (the default variance's pointwise bands read this; on a wide window those arrays were
+            # the largest allocation of a streamed design's bins)
+            meat = hc_meat(sf, lam, {"hc2": 1, "hc3": 2}.get(variance, 0))
         else:
             wa = self.arrays()[index]
             kw, r = wa.kw_h, wa.rp
@@ -252,11 +257,7 @@ class JumpEngine:
                 np.add.at(scores, inv, (kw * resid)[:, None] * r)
                 meat = scores.T @ scores
             else:
-                if variance == "neighbors":
-                    omega = (side.nn_residuals()[: wa.rows, : len(lam)] @ lam) ** 2
-                else:
-                    power = {"hc2": 1, "hc3": 2}.get(variance, 0)
-                    omega = resid ** 2 / (1.0 - np.minimum(wa.lev_h, 1 - 1e-12)) ** power
+                omega = (side.nn_residuals()[: wa.rows, : len(lam)] @ lam) ** 2
                 meat = (r * (kw ** 2 * omega)[:, None]).T @ r
         bread = np.linalg.inv(sf.gamma_p)
         return bread @ meat @ bread
