@@ -26,13 +26,13 @@ produced), ``seamline-error`` (an error box).
 from __future__ import annotations
 
 import threading
-from collections import OrderedDict
 from collections.abc import Iterable
 from typing import Any
 
 import ipywidgets as widgets
 
 from . import charts, panels_designs, static
+from .identity_memo import IdentityMemo
 from .panels_controls import ViewControls
 from .panels_exports import ViewExports
 from .static import PANEL_EXPORTS, PANEL_RESULTS, PANELS, error_html, header_html, panel_html
@@ -343,30 +343,17 @@ class BoardView(ViewControls, ViewExports, widgets.VBox):
 # (its links point off the machine).
 _EMBED = {charts.VEGA_LITE_MIME: {"embed_options": {"renderer": "svg", "actions": False}}}
 
-_SPEC_CACHE: "OrderedDict[tuple, tuple[tuple, dict]]" = OrderedDict()
-_SPEC_CACHE_SIZE = 48
-_SPEC_LOCK = threading.Lock()
+_SPECS = IdentityMemo(48)
 
 
 def chart_spec(state, what: str) -> dict | None:
     """The Vega-Lite spec of one chart of a board state, or None when its results are missing or
-    do not apply (the panel's text says why). Cached by the identity of the results it draws."""
+    do not apply (the panel's text says why). Kept by the identity of the results it draws."""
     inputs = static._chart_inputs(state, what)
-    key = (what, *(id(obj) for obj in inputs))
-    with _SPEC_LOCK:
-        hit = _SPEC_CACHE.get(key)
-        if hit is not None and all(a is b for a, b in zip(hit[0], inputs)):
-            _SPEC_CACHE.move_to_end(key)
-            return hit[1]
     try:
-        spec = charts.to_vega_lite(charts.chart_for(state, what))
+        return _SPECS.get(what, inputs, lambda: charts.to_vega_lite(charts.chart_for(state, what)))
     except ValueError:
         return None
-    with _SPEC_LOCK:
-        _SPEC_CACHE[key] = (inputs, spec)
-        while len(_SPEC_CACHE) > _SPEC_CACHE_SIZE:
-            _SPEC_CACHE.popitem(last=False)
-    return spec
 
 
 def mimebundle(view: BoardView, *, charts: bool = True) -> dict[str, Any]:

@@ -9,14 +9,13 @@ ipywidgets nor IPython.
 from __future__ import annotations
 
 import html
-import threading
-from collections import OrderedDict
 from collections.abc import Callable, Iterable, Mapping
 from typing import Any
 
 import pandas as pd
 
 from . import charts
+from .identity_memo import IdentityMemo
 
 _esc = html.escape
 _BOX = ("font-family:var(--jp-ui-font-family, Helvetica, Arial, sans-serif);font-size:13px;"
@@ -91,28 +90,15 @@ def _table_html(obj, title: str = "") -> str:
     return memo_html("table", (obj,), render)
 
 
-_MEMO: OrderedDict = OrderedDict()
-_MEMO_LOCK = threading.Lock()
 _MEMO_SIZE = 64
+_MEMO = IdentityMemo(_MEMO_SIZE)
 
 
 def memo_html(tag: str, results: tuple, render: Callable[[], str]) -> str:
-    """HTML that depends on nothing but ``results`` (result objects, never changed once made),
-    kept by their identity. A live view re-renders a panel each time one of its results
-    arrives; the tables of the results that did not change are then read from here (about 10 ms
-    a render on the Estimate tab)."""
-    key = (tag, *(id(r) for r in results))
-    with _MEMO_LOCK:
-        hit = _MEMO.get(key)
-        if hit is not None and all(a is b for a, b in zip(hit[0], results)):
-            _MEMO.move_to_end(key)
-            return hit[1]
-    text = render()
-    with _MEMO_LOCK:
-        _MEMO[key] = (results, text)
-        while len(_MEMO) > _MEMO_SIZE:
-            _MEMO.popitem(last=False)
-    return text
+    """HTML that depends on nothing but ``results``, kept by their identity: a live view
+    re-renders a panel each time one of its results arrives, and the tables of the results that
+    did not change are read from here (about 10 ms a render on the Estimate tab)."""
+    return _MEMO.get(tag, results, render)
 
 
 def _figure(svg: str) -> str:
