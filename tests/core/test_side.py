@@ -127,3 +127,26 @@ def test_a_donut_counts_tied_distances_as_a_fresh_side_does():
         assert side.distinct_within(n_rows) == fresh.distinct_within(n_rows) == len(np.unique(dist[start:][:n_rows]))
     for needed in (2, 10, 40):
         assert side.bandwidth_for_distinct(needed, "triangular") == fresh.bandwidth_for_distinct(needed, "triangular")
+
+
+def test_a_joint_preparation_stacked_from_single_ones_equals_a_fresh_one():
+    # The joint balance test's preparation is stacked from the per-covariate ones when they hold the
+    # same rows (DesignData._stacked); reference: the same preparation made directly on a fresh design.
+    frame = raw_frame(seed=12).dropna().reset_index(drop=True)
+    frame["z2"] = frame["z"] ** 2
+
+    def data() -> DesignData:
+        return DesignData(frame, score="x", cutoff=0.0, outcomes=("y",), takeup=None, covariates=("z", "z2"),
+                          cluster="g", weights="w")
+    stacked_data = data()
+    for v in ("z", "z2"):
+        stacked_data.prepare((v,))
+    stacked = stacked_data.prepare(("z", "z2"))
+    assert stacked is not None and stacked_data._stacked(("z", "z2"), 0.0, 3) is not None
+    fresh = data().prepare(("z", "z2"))
+    for a, b in ((stacked.below, fresh.below), (stacked.above, fresh.above)):
+        np.testing.assert_array_equal(a.distance, b.distance)
+        np.testing.assert_array_equal(a.values, b.values)       # bit for bit
+        np.testing.assert_array_equal(a.offsets, b.offsets)
+        np.testing.assert_array_equal(a.rows, b.rows)
+    assert (stacked.n_dropped, stacked.score_sd, stacked.n_total) == (fresh.n_dropped, fresh.score_sd, fresh.n_total)
