@@ -89,18 +89,24 @@ def test_slider_drag_on_a_million_rows_and_a_free_kernel(page, lab):
     assert marks and all(m > 0 for m in marks), marks
 
     # 2. A long recomputation (a new cutoff: every panel, the density test included); a cell run
-    # meanwhile returns at once.
-    ui.run_code(page, "live.set_option('cutoff', 41.0)")
-    ui.add_cell_at_end(page, "1 + 1")
-    cells = page.locator(".jp-NotebookPanel .jp-CodeCell")
-    cell = cells.nth(cells.count() - 1).locator(".jp-OutputArea")
-    start = time.monotonic()
-    page.keyboard.press("Shift+Enter")              # runs the cell (and adds an empty one below)
-    expect(cell).to_contain_text("2", timeout=10_000)
-    took = time.monotonic() - start
-    status = page.locator(".seamline-chip[data-name='live']").get_attribute("data-status")
-    print(f"`1 + 1` returned after {took:.2f} s while the board was {status}")
-    assert took < 1.0, f"`1 + 1` took {took:.2f} s"
+    # meanwhile returns at once. A second trial, with another new cutoff, when the first misses: the
+    # suite runs beside another test process on two CPUs (a first trial took 1.02 s once, against
+    # 0.22-0.26 s alone), while a kernel that waited for the board would miss both by seconds.
+    trials = []
+    for cutoff in (41.0, 41.5):
+        ui.run_code(page, f"live.set_option('cutoff', {cutoff})")
+        ui.add_cell_at_end(page, "1 + 1")
+        cells = page.locator(".jp-NotebookPanel .jp-CodeCell")
+        cell = cells.nth(cells.count() - 1).locator(".jp-OutputArea")
+        start = time.monotonic()
+        page.keyboard.press("Shift+Enter")              # runs the cell (and adds an empty one below)
+        expect(cell).to_contain_text("2", timeout=10_000)
+        trials.append(time.monotonic() - start)
+        status = page.locator(".seamline-chip[data-name='live']").get_attribute("data-status")
+        print(f"`1 + 1` returned after {trials[-1]:.2f} s while the board was {status}")
+        if trials[-1] < 1.0:
+            break
+    assert min(trials) < 1.0, f"`1 + 1` took {', then '.join(f'{t:.2f}' for t in trials)} s"
 
     # 3. Settled: the saved notebook's static copy shows the current headline, with charts.
     ui.run_code(page, "live.wait(); print('settled again')")
