@@ -296,6 +296,7 @@ class DesignData:
             values = np.empty((first.n, len(variables)), order="F")     # columns contiguous
             for j, part in enumerate(parts):
                 values[:, j] = part.values[:, 0]
+            # the values are centred already: centre on zeros, then record the singles' offsets
             side = Side(first.sign, first.distance, values, first.weights, first.clusters, neighbors,
                         rows=first.rows, offsets=np.zeros(len(variables)))
             side.offsets = np.array([part.offsets[0] for part in parts])

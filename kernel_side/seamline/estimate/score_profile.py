@@ -71,9 +71,8 @@ def _census(design) -> dict:
     xs = _sorted_score(design)
     x = xs - design.cutoff                       # ascending
     split = int(np.searchsorted(x, 0.0, side="left"))
-    starts = np.flatnonzero(np.r_[True, xs[1:] != xs[:-1]]) if len(xs) else np.zeros(0, dtype=np.int64)
+    starts, counts = _runs(xs)
     uniq = xs[starts]                            # sorted distinct values
-    counts = np.diff(np.append(starts, len(xs)))
     gaps = np.diff(uniq)
     resolution = float(gaps[gaps > 0].min()) if np.any(gaps > 0) else 0.0
     heaping, warnings = _heaping(xs, uniq, counts, resolution)
@@ -96,10 +95,15 @@ def _sorted_score(design) -> np.ndarray:
 
 def _run_lengths(monotone: np.ndarray) -> np.ndarray:
     """Sizes of the runs of equal values of a sorted (ascending or descending) array."""
+    return _runs(monotone)[1]
+
+
+def _runs(monotone: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(first position, size) of each run of equal values of a sorted array."""
     if len(monotone) == 0:
-        return np.zeros(0, dtype=np.int64)
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
     starts = np.flatnonzero(np.r_[True, monotone[1:] != monotone[:-1]])
-    return np.diff(np.append(starts, len(monotone)))
+    return starts, np.diff(np.append(starts, len(monotone)))
 
 
 def _heaping(xs: np.ndarray, uniq: np.ndarray, counts: np.ndarray,

@@ -127,6 +127,8 @@ def to_vega_lite(chart) -> dict:
     Parameters
     ----------
     chart : altair chart
+        Its pandas frames are replaced in place by the records Altair would make of them (the same
+        spec, built faster; ``_inline_frames``): pass a chart built for this call.
 
     Returns
     -------
