@@ -73,6 +73,51 @@ def test_balance_holm_equals_statsmodels(design):
     assert 0.0 <= bal.joint_p_value <= 1.0
 
 
+def test_balance_joint_test_equals_linearmodels_sur():
+    # With a uniform kernel and the bias bandwidth equal to the bandwidth, each robust estimate is
+    # the jump of a local quadratic fit (common practice: the bias-corrected local linear estimate
+    # at b = h is the local quadratic one), so the joint Wald test with HC0 residuals is that of
+    # two interacted quadratic OLS regressions on the same window. Reference: linearmodels' SUR
+    # (equation-by-equation OLS, heteroskedasticity-robust cross-equation covariance, no
+    # small-sample factor).
+    from linearmodels.system import SUR
+    data = lee(3000, np.random.default_rng(5))
+    h = 0.4
+    d = seamline.Design(data, score="x", cutoff=0.0, outcome="y", covariates=["z", "z2"])
+    bal = d.balance(bandwidth=h, pilot_bandwidth=h, kernel="uniform", variance="hc0")
+    w = data[data.x.abs() <= h]
+    t = (w.x >= 0).astype(float)
+    exog = pd.DataFrame({"c": 1.0, "x": w.x, "x2": w.x ** 2, "t": t, "tx": t * w.x, "tx2": t * w.x ** 2},
+                        index=w.index)
+    res = SUR({v: {"dependent": w[v], "exog": exog} for v in ("z", "z2")}).fit(
+        method="ols", cov_type="robust", debiased=False)
+    names = ["z_t", "z2_t"]
+    tau = res.params[names].to_numpy()
+    cov = res.cov.loc[names, names].to_numpy()
+    np.testing.assert_allclose([r["robust_estimate"] for r in bal.rows], tau, rtol=1e-9)
+    assert bal.joint_statistic == pytest.approx(float(tau @ np.linalg.solve(cov, tau)), rel=1e-9)
+    assert bal.joint_df == 2
+
+
+@pytest.mark.parametrize("variance", ["hc0", "neighbors"])
+@pytest.mark.parametrize("weighted", [False, True])
+def test_balance_joint_test_of_one_covariate_is_its_squared_t(variance, weighted):
+    # One covariate: the joint Wald statistic is the square of its robust t statistic, whose
+    # standard error is checked against statsmodels elsewhere (tests/reference); each covariate's
+    # own bandwidths, triangular kernel.
+    data = lee(2000, np.random.default_rng(6))
+    if weighted:
+        data["w"] = np.random.default_rng(7).uniform(0.5, 2.0, len(data))
+    d = seamline.Design(data, score="x", cutoff=0.0, outcome="y", covariates=["z", "z2"],
+                        weights="w" if weighted else None)
+    for name in ("z", "z2"):
+        bal = d.balance(covariates=[name], variance=variance)
+        row = bal.rows[0]
+        assert bal.joint_statistic == pytest.approx((row["robust_estimate"] / row["robust_std_error"]) ** 2,
+                                                    rel=1e-9)
+        assert bal.joint_p_value == pytest.approx(row["p_value"], rel=1e-8)
+
+
 def test_balance_window_means_equal_pandas(design):
     bal = design.balance(bandwidth=0.3)
     data = lee(3000, np.random.default_rng(1))
