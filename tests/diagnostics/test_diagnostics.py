@@ -73,19 +73,23 @@ def test_balance_holm_equals_statsmodels(design):
     assert 0.0 <= bal.joint_p_value <= 1.0
 
 
-def test_balance_joint_test_equals_linearmodels_sur():
+@pytest.mark.parametrize("missing", [False, True])
+def test_balance_joint_test_equals_linearmodels_sur(missing):
     # With a uniform kernel and the bias bandwidth equal to the bandwidth, each robust estimate is
     # the jump of a local quadratic fit (common practice: the bias-corrected local linear estimate
     # at b = h is the local quadratic one), so the joint Wald test with HC0 residuals is that of
     # two interacted quadratic OLS regressions on the same window. Reference: linearmodels' SUR
     # (equation-by-equation OLS, heteroskedasticity-robust cross-equation covariance, no
     # small-sample factor).
+    # With a covariate missing in some rows, the joint test refits both on the complete cases.
     from linearmodels.system import SUR
     data = lee(3000, np.random.default_rng(5))
+    if missing:
+        data.loc[data.index[::13], "z2"] = np.nan
     h = 0.4
     d = seamline.Design(data, score="x", cutoff=0.0, outcome="y", covariates=["z", "z2"])
     bal = d.balance(bandwidth=h, pilot_bandwidth=h, kernel="uniform", variance="hc0")
-    w = data[data.x.abs() <= h]
+    w = data[(data.x.abs() <= h) & data.z2.notna()]
     t = (w.x >= 0).astype(float)
     exog = pd.DataFrame({"c": 1.0, "x": w.x, "x2": w.x ** 2, "t": t, "tx": t * w.x, "tx2": t * w.x ** 2},
                         index=w.index)
@@ -94,7 +98,8 @@ def test_balance_joint_test_equals_linearmodels_sur():
     names = ["z_t", "z2_t"]
     tau = res.params[names].to_numpy()
     cov = res.cov.loc[names, names].to_numpy()
-    np.testing.assert_allclose([r["robust_estimate"] for r in bal.rows], tau, rtol=1e-9)
+    if not missing:
+        np.testing.assert_allclose([r["robust_estimate"] for r in bal.rows], tau, rtol=1e-9)
     assert bal.joint_statistic == pytest.approx(float(tau @ np.linalg.solve(cov, tau)), rel=1e-9)
     assert bal.joint_df == 2
 
@@ -125,6 +130,20 @@ def test_balance_window_means_equal_pandas(design):
     below = data[(data.x < 0) & (data.x >= -0.3)].z.mean()
     above = data[(data.x >= 0) & (data.x <= 0.3)].z.mean()
     assert row.mean_below == pytest.approx(below) and row.mean_above == pytest.approx(above)
+
+
+def test_balance_window_means_equal_pandas_with_weights_and_missing_values():
+    # Reference: pandas' weighted means of the rows inside each bandwidth (rows missing the
+    # covariate left out), the below side x in [-h, 0), the above side [0, h].
+    data = lee(3000, np.random.default_rng(3))
+    data["w"] = np.random.default_rng(4).uniform(0.2, 3.0, len(data))
+    data.loc[data.index[::17], "z"] = np.nan
+    d = seamline.Design(data, score="x", cutoff=0.0, outcome="y", covariates=["z"], weights="w")
+    row = d.balance(bandwidth=(0.25, 0.35)).table().iloc[0]
+    ok = data.z.notna()
+    for side, inside in (("below", (data.x < 0) & (data.x >= -0.25)), ("above", (data.x >= 0) & (data.x <= 0.35))):
+        part = data[inside & ok]
+        assert row[f"mean_{side}"] == pytest.approx((part.w * part.z).sum() / part.w.sum(), rel=1e-12)
 
 
 @pytest.mark.slow

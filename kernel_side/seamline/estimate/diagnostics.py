@@ -19,14 +19,13 @@ from ..core.binning import binned_means
 from ..core.density import density_test as core_density_test
 from ..core.density import with_level as density_at_level
 from ..core.density_sample import array_std
-from ..core.kernels import kernel_weights
 from ..errors import (InvalidOptionError, OneSidedDataError, SeamlineError, TooFewDistinctValuesError,
                       shown)
 from ..options import BIN_METHODS, BIN_RULES, DENSITY_METHODS, check_level, check_option
 from ..results.diagnostics import (Balance, Bins, Checks, DensityTest, Donut, Placebo, ScoreProfile,
                                    Sensitivity, fit_row, holm)
 from .check_rows import ALPHA, check_rows
-from .engine import JumpEngine
+from .balance_joint import variance_option, joint_test
 # score_profile is looked up here by Design._diagnostic and cache_key, like every diagnostic
 from .score_profile import _clean_score, _sorted_score, score_profile  # noqa: F401
 
@@ -143,6 +142,22 @@ def density_test(design, method: str = "local-cdf", *, level: float = 0.95, **op
 
 # ---------------------------------------------------------------------------------------------
 def _window_mean(design, column: str, h: tuple[float, float]) -> tuple[float, float]:
+    """Mean of ``column`` on each side within the bandwidths (weighted by the design's weights)."""
+    data = design._data
+    if data.cluster_codes is None and data._only is None:
+        # the covariate's prepared sides hold exactly these rows, sorted by distance: the means are
+        # of their first rows, with no pass over every row (which, at 1e7, costs a fit)
+        prep = data.prepare((column,))
+        out = []
+        for side, bw in ((prep.below, h[0]), (prep.above, h[1])):
+            rows = slice(0, side.moments.count(bw))
+            if rows.stop == 0:
+                out.append(float("nan"))
+                continue
+            v = side.values[rows, 0]
+            mean = float(np.mean(v) if side.weights is None else np.average(v, weights=side.weights[rows]))
+            out.append(mean + float(side.offsets[0]))
+        return out[0], out[1]
     x = design._data.arrays[design.score] - design.cutoff
     v = design._data.arrays[column]
     w = design._data.weights
@@ -199,7 +214,7 @@ def balance(design, covariates=None, *, bandwidth="own", **fit_options) -> Balan
                      "ci_low": lo, "ci_high": hi, "p_value": f.robust_p_value, "p_value_holm": ph,
                      "bandwidth_below": f.bandwidth[0], "bandwidth_above": f.bandwidth[1],
                      "mean_below": mb, "mean_above": ma, "n_below": f.n_used[0], "n_above": f.n_used[1]})
-    stat, df, p_joint, n_joint = _joint_test(design, names, fits)
+    stat, df, p_joint, n_joint = joint_test(design, names, fits)
     warnings = []
     flagged = [r["covariate"] for r in rows if r["p_value_holm"] < ALPHA]
     if flagged:
@@ -210,97 +225,6 @@ def balance(design, covariates=None, *, bandwidth="own", **fit_options) -> Balan
         warnings.append(f"The joint test rejects balance of all covariates (p = {p_joint:.3f}).")
     return Balance(rows=tuple(rows), joint_statistic=stat, joint_df=df, joint_p_value=p_joint, joint_n=n_joint,
                    bandwidth_source=source, level=fits[0].level, fits=tuple(fits), warnings=tuple(warnings))
-
-
-def _joint_test(design, names, fits) -> tuple[float, int, float, int]:
-    """Wald test of no jump in any covariate, with the covariance of the stacked robust estimates.
-
-    Each covariate keeps its own bandwidths; the estimates are linear smoothers on the same
-    observations (complete cases in all covariates), so their covariance is the sum over
-    observations of the products of their influence terms: sum_i a_ki a_li omega_kli (neighbour
-    residual products, or residual products for HC variances), or sums within clusters.
-    """
-    k = len(names)
-    spec0 = design._spec(names[0], bandwidth=fits[0].bandwidth, kernel=fits[0].kernel, degree=fits[0].degree,
-                         bias_degree=fits[0].bias_degree, pilot_bandwidth=None, variance=_variance_option(fits[0]),
-                         level=fits[0].level, donut=fits[0].donut, derivative=fits[0].derivative, adjust=False)
-    prep = design._data.prepare(tuple(names), spec0.donut)
-    clustered = design.cluster is not None
-    engines = [JumpEngine(prep, h=f.bandwidth, b=f.pilot_bandwidth, p=f.degree, q=f.bias_degree, nu=f.derivative,
-                          kernel=f.kernel, treated_sign=design.treated_sign, n_main=k, direct=True) for f in fits]
-    tau = np.array([eng.jump(np.eye(k)[j], robust=True) for j, eng in enumerate(engines)])
-    cov = np.zeros((k, k))
-    for s_index, side in enumerate((prep.below, prep.above)):
-        weights = [_robust_weights(eng.fits[s_index]) for eng in engines]
-        rows = max(len(abc) for abc in weights)
-        a = np.zeros((k, rows))
-        e = np.zeros((k, rows))
-        for j, eng in enumerate(engines):
-            abc = weights[j]
-            a[j, : len(abc)] = design.treated_sign * side.sign * abc
-            if fits[0].variance == "neighbors" and not clustered:
-                e[j, :rows] = _neighbor_column(design, prep, names[j], s_index, j, spec0.donut)[:rows]
-            else:
-                resid = side.values[:rows, j] - np.vander(side.sign * side.distance[:rows] / eng.fits[s_index].b,
-                                                           eng.q + 1, increasing=True) @ eng.fits[s_index].beta_b[:, j]
-                e[j] = resid
-        contrib = a * e
-        if clustered:
-            _, inv = np.unique(side.clusters[:rows], return_inverse=True)
-            sums = np.zeros((k, inv.max() + 1))
-            for j in range(k):
-                sums[j] = np.bincount(inv, weights=contrib[j])
-            if s_index == 0:
-                cluster_codes, cluster_sums = [side.clusters[:rows]], [contrib]
-            else:
-                cluster_codes.append(side.clusters[:rows])
-                cluster_sums.append(contrib)
-        else:
-            cov += contrib @ contrib.T
-    if clustered:
-        codes = np.concatenate(cluster_codes)
-        contrib = np.concatenate(cluster_sums, axis=1)
-        _, inv = np.unique(codes, return_inverse=True)
-        sums = np.stack([np.bincount(inv, weights=contrib[j]) for j in range(k)])
-        g = sums.shape[1]
-        cov = g / (g - 1) * (sums @ sums.T)
-    try:
-        stat = float(tau @ np.linalg.solve(cov, tau))
-    except np.linalg.LinAlgError:
-        return float("nan"), k, float("nan"), prep.n_total
-    return stat, k, float(stats.chi2.sf(stat, k)), prep.n_total
-
-
-def _robust_weights(sf) -> np.ndarray:
-    """Bias-corrected smoother weights of one side's fit over its window (the ``abc`` of
-    seamline.core.locpoly.window_arrays, without the residuals and leverages the joint test
-    does not use)."""
-    side, s = sf.side, float(sf.side.sign)
-    rows = side.count_positive(max(sf.h, sf.b), sf.kernel)
-    d = side.distance[:rows]
-    w = side.w(slice(0, rows))
-    a = w * kernel_weights(sf.kernel, d / sf.h) * (np.vander(s * d / sf.h, sf.p + 1, increasing=True) @ sf.c_h)
-    return a - w * kernel_weights(sf.kernel, d / sf.b) * (np.vander(s * d / sf.b, sf.q + 1, increasing=True) @ sf.c_b)
-
-
-def _neighbor_column(design, prep, name: str, s_index: int, j: int, donut: float) -> np.ndarray:
-    """Neighbour residuals of covariate ``name`` on one side of the joint preparation.
-
-    They depend on the side's distances and that covariate only, so when the covariate's own
-    preparation (made for its balance fit) holds the same rows in the same order, its residuals,
-    already computed, are the joint side's column j; otherwise the joint side computes its own.
-    """
-    side = (prep.below, prep.above)[s_index]
-    own = design._data.prepare((name,), donut)
-    own_side = (own.below, own.above)[s_index]
-    if own_side.rows is not None and side.rows is not None and own_side.n == side.n \
-            and np.array_equal(own_side.rows, side.rows):
-        return own_side.nn_residuals()[:, 0]
-    return side.nn_residuals()[:, j]
-
-
-def _variance_option(fit) -> str:
-    return "neighbors" if fit.variance in ("neighbors", "cluster") else fit.variance
 
 
 # ---------------------------------------------------------------------------------------------
@@ -480,7 +404,7 @@ def bins(design, outcome=None, method: str = "equal-width", number=None, *, rule
     spec = design._spec(outcome, **_spec_options(fit, fit_options))
     engine, _, _, _ = design._engine(spec)
     lam = np.eye(engine.n_main)[0]
-    variance = _variance_option(fit) if fit.variance != "cluster" else "hc0"
+    variance = variance_option(fit) if fit.variance != "cluster" else "hc0"
     z = stats.norm.ppf(0.5 + level / 2)
     parts = []
     for sign, rel, fitted, se in engine.curve(lam, variance, design.cluster is not None):
