@@ -12,6 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from .core.density_sample import array_std
 from .core.side import Side
 from .partitioned import gather_frame, is_partitioned
 from .time_score import TimeScale, is_time_column, reject_time_cutoff, time_scale
@@ -401,7 +402,7 @@ class DesignData:
         """(sd, min(sd, IQR / 1.349)) of the sorted centred scores, computed once per row set."""
         key = id(rows)
         if key not in self._spreads:
-            score_sd = float(np.std(x_sorted, ddof=1))
+            score_sd = array_std(x_sorted)          # np.std(ddof=1), without its n-long temporaries
             q25, q75 = _sorted_quantile(x_sorted, 0.25), _sorted_quantile(x_sorted, 0.75)
             self._spreads[key] = (rows, score_sd, min(score_sd, (q75 - q25) / 1.349) if q75 > q25 else score_sd)
         return self._spreads[key][1:]

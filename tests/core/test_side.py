@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from seamline.core.side import Side
+from seamline.core.side import DISTINCT_COUNTED, Side
 from seamline.data import DesignData
 
 RTOL = 1e-12   # rebuilding values from centred values and offsets rounds in the last digit
@@ -115,18 +115,36 @@ def test_one_side_copy_does_not_sort(monkeypatch):
 
 
 def test_a_donut_counts_tied_distances_as_a_fresh_side_does():
-    # Reference: numpy's own count of distinct values (np.unique) of the remaining distances, and a
-    # Side built on those distances from scratch (no base to read its groups from).
+    # Reference: numpy's own count of distinct values (np.unique) of the remaining distances, capped
+    # at DISTINCT_COUNTED (every caller compares the count with less), and a Side built on those
+    # distances from scratch; asked in any order (a side keeps the group starts it has scanned).
     frame = raw_frame(seed=9)
     base = data_of(frame, 0.0).prepare(("y",))
     dist = base.above.distance
     start = int(np.flatnonzero(np.diff(dist) > 0)[25]) + 1       # a group boundary, as a donut cuts
     side = base.above.without_nearest(start)
     fresh = Side(1, dist[start:].copy(), side.values + side.offsets, None, None, 3)
-    for n_rows in (0, 1, 7, 50, side.n // 2, side.n):
-        assert side.distinct_within(n_rows) == fresh.distinct_within(n_rows) == len(np.unique(dist[start:][:n_rows]))
+    for n_rows in (side.n, 7, 0, 50, 1, side.n // 2, 3):
+        want = min(len(np.unique(dist[start:][:n_rows])), DISTINCT_COUNTED)
+        assert side.distinct_within(n_rows) == fresh.distinct_within(n_rows) == want
     for needed in (2, 10, 40):
         assert side.bandwidth_for_distinct(needed, "triangular") == fresh.bandwidth_for_distinct(needed, "triangular")
+        assert side.bandwidth_for_distinct(needed, "uniform") == np.unique(dist[start:])[needed - 1]
+
+
+@pytest.mark.parametrize("values", [100, 5, 40_000])
+def test_distinct_distances_of_a_long_side_are_counted_as_numpy_counts_them(values):
+    # Long sides scanned in several steps: few tied values, a score with five, a continuous one.
+    # Reference: np.unique of the first rows, capped at DISTINCT_COUNTED.
+    rng = np.random.default_rng(values)
+    dist = np.sort(np.floor(rng.uniform(0, values, 60_000)) / values)
+    side = Side(1, dist, rng.normal(size=(dist.size, 1)), None, None, 3)
+    for n_rows in (30_000, 10, 60_000, 4_097, 0, 12_345):
+        assert side.distinct_within(n_rows) == min(len(np.unique(dist[:n_rows])), DISTINCT_COUNTED)
+    for needed in (3, 5, 6, 20):
+        unique = np.unique(dist)
+        got = side.bandwidth_for_distinct(needed, "uniform")
+        assert (got == unique[needed - 1]) if needed <= len(unique) else np.isnan(got)
 
 
 def test_a_joint_preparation_stacked_from_single_ones_equals_a_fresh_one():

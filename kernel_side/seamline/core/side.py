@@ -9,6 +9,11 @@ import numpy as np
 from .moments import SideMoments
 from .neighbors import neighbor_residuals
 
+# Distinct distances are counted up to this many, no further: every question asked of the count
+# compares it with less (degrees up to 6 need 7; the fits' warning of a discrete score, 10).
+DISTINCT_COUNTED = 16
+SCAN_ROWS = 1 << 12       # rows per step of a scan from the nearest row (grows fourfold per step)
+
 
 class Side:
     """Observations on one side of the cutoff sorted by distance |score - cutoff| (ascending).
@@ -50,8 +55,7 @@ class Side:
         self.moments = SideMoments(distance)
         self._nn: np.ndarray | None = None
         self._nn_base: tuple[Side, int, bool] | None = None   # what this side is cut from (cut_from)
-        self._group_starts: np.ndarray | None = None
-        self._tail_of: tuple[Side, int] | None = None    # (base, start): distance is base.distance[start:]
+        self._groups: tuple[int, np.ndarray] | None = None   # (rows scanned, their group starts)
 
     def without_nearest(self, start: int, values: np.ndarray | None = None) -> "Side":
         """This side without its ``start`` observations nearest the cutoff (a donut), with no sort.
@@ -72,7 +76,6 @@ class Side:
                     None if self.rows is None else self.rows[start:])
         if start > 0:
             tail.cut_from(self, start, reversed_=False)
-            tail._tail_of = (self, start)
         return tail
 
     def cut_from(self, base: "Side", start: int, reversed_: bool) -> None:
@@ -181,31 +184,36 @@ class Side:
         return int(np.searchsorted(self.distance, h, side=side))
 
     def distinct_within(self, n_rows: int) -> int:
-        """Number of distinct distances among the first n_rows observations."""
-        if self._group_starts is None:
-            self._group_starts = self._tail_group_starts()
-            if self._group_starts is None:
-                self._group_starts = np.flatnonzero(np.r_[True, np.diff(self.distance) > 0])
-        return int(np.searchsorted(self._group_starts, n_rows, side="left"))
-
-    def _tail_group_starts(self) -> np.ndarray | None:
-        """A donut's groups of tied distances read off its full side's (the same numbers from
-        ``start`` on, and a donut cuts between two groups): no pass over the side's distances,
-        which at 1e7 rows cost a donut ladder about a second. None when this side is no tail."""
-        if self._tail_of is None:
-            return None
-        base, start = self._tail_of
-        base.distinct_within(0)
-        starts = base._group_starts
-        k = int(np.searchsorted(starts, start))
-        if k == len(starts) or starts[k] != start:
-            return None                          # cut inside a group of ties: count afresh
-        return starts[k:] - start
+        """Number of distinct distances among the first n_rows observations: exact below
+        DISTINCT_COUNTED, else DISTINCT_COUNTED (a lower bound; every caller compares with less).
+        A scan from the nearest row: a continuous score reads a few thousand rows, not the side."""
+        return len(self._scan_groups(n_rows, DISTINCT_COUNTED))
 
     def _first_groups(self, count: int) -> np.ndarray:
         """The first rows of the side's first ``count`` distinct distances (fewer if it has fewer)."""
-        self.distinct_within(0)
-        return self._group_starts[:count]
+        return self._scan_groups(len(self.distance), count)
+
+    def _scan_groups(self, n_rows: int, count: int) -> np.ndarray:
+        """First rows of the distinct distances among the first ``n_rows`` rows, the first ``count``
+        of them. The rows scanned so far and their group starts are kept, so repeated questions
+        (every fit asks several) read each row at most once."""
+        d = self.distance
+        n_rows = min(n_rows, len(d))
+        if self._groups is None:
+            self._groups = (min(1, len(d)), np.zeros(min(1, len(d)), dtype=np.intp))
+        at, starts = self._groups
+        if at < n_rows and len(starts) < count:
+            found, step = [starts], max(SCAN_ROWS, at)
+            total = len(starts)
+            while at < n_rows and total < count:
+                stop = min(n_rows, at + step)
+                new = at + np.flatnonzero(d[at:stop] > d[at - 1:stop - 1])
+                found.append(new)
+                total += len(new)
+                at, step = stop, 4 * step
+            starts = np.concatenate(found)
+            self._groups = (at, starts)
+        return starts[: min(count, int(np.searchsorted(starts, n_rows, side="left")))]
 
     def bandwidth_for_distinct(self, needed: int, kernel: str) -> float:
         """Smallest bandwidth giving ``needed`` distinct distances positive weight (nan if impossible)."""

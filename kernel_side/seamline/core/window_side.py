@@ -14,15 +14,11 @@ import numpy as np
 
 from .moments import SideMoments
 from .neighbors import neighbor_residuals
-from .side import Side
+from .side import DISTINCT_COUNTED, Side
 
 # A lower bound of distinct distances this large answers every "enough distinct values?" question
 # the selectors ask of a whole side (degrees up to 6 need at most 7).
 DISTINCT_ENOUGH = 8
-# Distinct distances are counted up to this many, no further: every question asked of the count
-# compares it with less (the fits' warning of a discrete score with 10).
-DISTINCT_COUNTED = 16
-SCAN_ROWS = 1 << 12       # rows per step of a scan from the nearest row (grows fourfold per step)
 
 
 class WindowTooNarrow(Exception):
@@ -151,20 +147,6 @@ class WindowSide(Side):
         hi = int(cuts[j]) if len(cuts) > j else len(d)
         resid, _ = neighbor_residuals(d[lo:hi], self.values[lo:hi], j, tol=tol)
         return resid[start - lo: stop - lo]
-
-    def _scan_groups(self, n_rows: int, count: int) -> np.ndarray:
-        """First rows of the distinct distances among the first ``n_rows`` rows, the first ``count``
-        of them, found by scanning from the nearest row (no array of every group start)."""
-        d = self.distance
-        found, at, step = [np.zeros(1, dtype=np.intp)] if n_rows > 0 else [], 1, SCAN_ROWS
-        total = len(found)
-        while at < n_rows and total < count:
-            stop = min(n_rows, at + step)
-            new = at + np.flatnonzero(d[at:stop] > d[at - 1:stop - 1])
-            found.append(new)
-            total += len(new)
-            at, step = stop, 4 * step
-        return np.concatenate(found)[:count] if found else np.zeros(0, dtype=np.intp)
 
     def distinct_within(self, n_rows: int) -> int:
         """Exact below DISTINCT_COUNTED, else DISTINCT_COUNTED (a lower bound); beyond the window's

@@ -187,7 +187,7 @@ def balance(design, covariates=None, *, bandwidth="own", **fit_options) -> Balan
                                  "Design(..., covariates=[...]) so they are validated once.")
     for name in names:
         values = design._data.arrays[name]
-        if np.nanstd(values) == 0:
+        if np.nanmin(values) == np.nanmax(values):      # constant (no n-long temporary, unlike nanstd)
             raise InvalidOptionError(f"`covariates` must vary; got {shown(name)} constant "
                                      f"({np.nanmax(values):g} everywhere). Drop it from the balance checks.")
     fit_options = {k: v for k, v in fit_options.items() if k not in ("adjust", "outcome")}
