@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from seamline.core.side import DISTINCT_COUNTED, Side
+from seamline.core.side import DISTINCT_COUNTED, RunResiduals, Side
 from seamline.data import DesignData
 
 RTOL = 1e-12   # rebuilding values from centred values and offsets rounds in the last digit
@@ -168,3 +168,24 @@ def test_a_joint_preparation_stacked_from_single_ones_equals_a_fresh_one():
         np.testing.assert_array_equal(a.offsets, b.offsets)
         np.testing.assert_array_equal(a.rows, b.rows)
     assert (stacked.n_dropped, stacked.score_sd, stacked.n_total) == (fresh.n_dropped, fresh.score_sd, fresh.n_total)
+
+
+def test_a_donut_reads_its_neighbour_residuals_off_its_full_side_in_any_slice():
+    # A donut side's residuals are its first J groups computed afresh and a view of the full
+    # side's beyond them (RunResiduals). Reference: neighbor_residuals run on the donut side's own
+    # rows from scratch (itself checked against a brute-force search in tests/core).
+    from seamline.core.neighbors import neighbor_residuals
+    frame = raw_frame(seed=14)
+    base = data_of(frame, 0.0).prepare(("y", "z"))
+    full = base.above
+    full.nn_residuals()
+    start = int(np.flatnonzero(np.diff(full.distance) > 0)[30]) + 1
+    side = full.without_nearest(start)
+    got = side.nn_residuals()
+    assert isinstance(got, RunResiduals) and 0 < len(got.head) < side.n
+    want, _ = neighbor_residuals(side.distance, side.values, side.neighbors)
+    n = side.n
+    for rows in (slice(0, n), slice(0, 2), slice(1, 9), slice(5, n // 2), slice(n // 3, n), slice(n, n)):
+        np.testing.assert_allclose(got[rows], want[rows], rtol=1e-9, atol=1e-12)
+        np.testing.assert_allclose(got[rows, 1], want[rows, 1], rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(np.asarray(got), want, rtol=1e-9, atol=1e-12)

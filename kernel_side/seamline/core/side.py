@@ -105,8 +105,9 @@ class Side:
     def w(self, rows: slice) -> np.ndarray:
         return np.ones(len(self.distance[rows])) if self.weights is None else self.weights[rows]
 
-    def nn_residuals(self) -> np.ndarray:
-        """(n, k) scaled nearest-neighbour residuals; neighbours are searched over the whole side."""
+    def nn_residuals(self) -> "np.ndarray | RunResiduals":
+        """(n, k) scaled nearest-neighbour residuals; neighbours are searched over the whole side.
+        Indexed by a row slice (and columns): on a side cut from another, a ``RunResiduals``."""
         if self._nn is None:
             self._nn = self._tail_residuals()
             if self._nn is None:
@@ -122,7 +123,8 @@ class Side:
         (whose run ends where this side ends: at base's far end, or reversed, at its first row),
         and so are the residuals (up to rounding: each side centres its values on its own mean).
         The first J groups are computed afresh on this side's first 2J groups, with the tie
-        tolerance of the whole side. None: compute the whole side directly.
+        tolerance of the whole side; the rest are a view of base's (no copy of the side: at 1e7
+        rows a donut ladder's copies cost more than its fits). None: compute the whole side directly.
         """
         if self._nn_base is None or self.n < 2:
             return None
@@ -141,10 +143,8 @@ class Side:
             return None                             # a side of few groups: compute it whole
         cut, stop = int(starts[j]), int(starts[2 * j])
         first, _ = neighbor_residuals(d[:stop], self.values[:stop], j, tol=tol)
-        out = np.empty_like(self.values)
-        out[:cut] = first[:cut]
-        out[cut:] = base._nn[:start - cut][::-1] if reversed_ else base._nn[start + cut:]
-        return out
+        rest = base._nn[:start - cut][::-1] if reversed_ else base._nn[start + cut:]
+        return RunResiduals(first[:cut], rest)
 
     def series(self, kind: str, a: int = -1, b: int = -1):
         """(key, function of rows) for the series the moment engine sums."""
@@ -226,3 +226,35 @@ class Side:
         # d == h gets zero weight under triangular/Epanechnikov: go a little past the value
         nxt = self.distance[starts[needed]] if len(starts) > needed else d * 1.01 + 1e-12
         return float(d + 0.01 * (nxt - d)) if nxt > d else float(d * 1.01)
+
+
+class RunResiduals:
+    """The neighbour residuals of a side cut from another: its first rows computed afresh
+    (``head``), the rest a view of the base side's (``rest``, the same numbers). Indexed like the
+    (n, k) array it stands for, by a row slice and optionally columns; only a slice that spans
+    both parts is copied."""
+
+    def __init__(self, head: np.ndarray, rest: np.ndarray):
+        self.head, self.rest = head, rest
+        self.shape = (len(head) + len(rest), head.shape[1])
+
+    def __len__(self) -> int:
+        return self.shape[0]
+
+    def __getitem__(self, key) -> np.ndarray:
+        rows, columns = key if isinstance(key, tuple) else (key, slice(None))
+        if not isinstance(rows, slice):
+            raise TypeError("RunResiduals are read by a row slice")
+        start, stop, step = rows.indices(self.shape[0])
+        if step != 1:
+            raise TypeError("RunResiduals are read by a contiguous row slice")
+        cut = len(self.head)
+        if start >= cut:
+            return self.rest[start - cut: max(stop - cut, start - cut), columns]
+        if stop <= cut:
+            return self.head[start:stop, columns]
+        return np.concatenate([self.head[start:, columns], self.rest[: stop - cut, columns]])
+
+    def __array__(self, dtype=None, copy=None) -> np.ndarray:
+        out = np.concatenate([self.head, self.rest])
+        return out if dtype is None else out.astype(dtype)
