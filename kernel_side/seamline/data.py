@@ -468,31 +468,16 @@ class DesignData:
                 side.cut_from(below, cut - b, reversed_=False)
 
     def _with_donut(self, base: Prepared, donut: float) -> Prepared:
-        """``base`` (no donut) without the rows closer than ``donut`` to the cutoff: no sort, no search
-        beyond one per side; the score's spread is that of all usable rows, as in ``_prepare``."""
+        """``base`` (no donut) without the rows closer than ``donut`` to the cutoff: no sort, no copy,
+        no search beyond one per side (``Side.without_nearest``); the score's spread is that of all
+        usable rows, as in ``_prepare``."""
         sides, n_donut = [], 0
-        run = self._run_of_order(base.variables)
-        split = base.below.n
-        for side, part in ((base.below, slice(split - 1, None, -1) if split else slice(0, 0)),
-                           (base.above, slice(split, None))):
+        for side in (base.below, base.above):
             start = int(np.searchsorted(side.distance, donut, side="left"))
             n_donut += start
             self._check_side(side.n - start, side.sign, donut)
-            variables = base.variables
-            values = self._gather(variables, side.rows[start:]) if run is None or not variables else \
-                run[0]._ordered_values(variables, run[1], part, start)
-            sides.append(side.without_nearest(start, values))
+            sides.append(side.without_nearest(start))
         return self._finish(sides, base.variables, base.n_dropped, n_donut, base.score_sd, base.score_scale)
-
-    def _run_of_order(self, variables: tuple[str, ...]) -> tuple["DesignData", slice] | None:
-        """(design, positions) such that this design's sorted rows for ``variables`` are the
-        positions of that design's score order (its own when nothing is dropped, a one-sided
-        copy's parent's when its rows are a run of it), or None: then values are gathered."""
-        rows = self.sorted_rows(variables)[0]
-        if self._parent is None:
-            return (self, slice(0, len(rows))) if rows is self._score_order() else None
-        span = self._spans.get(variables)
-        return None if span is None else (self._parent, slice(*span))
 
     def _check_side(self, n_side: int, sign: int, donut: float) -> None:
         if n_side == 0:

@@ -13,7 +13,7 @@ import pytest
 from seamline.core.side import DISTINCT_COUNTED, RunResiduals, Side
 from seamline.data import DesignData
 
-RTOL = 1e-12   # rebuilding values from centred values and offsets rounds in the last digit
+RTOL = 1e-12   # values centred on another mean, offsets added back: rounding in the last digit
 
 
 def raw_frame(n: int = 4000, seed: int = 2) -> pd.DataFrame:
@@ -33,7 +33,7 @@ def data_of(frame: pd.DataFrame, cutoff: float) -> DesignData:
 
 
 def direct_side(frame: pd.DataFrame, cutoff: float, sign: int, donut: float = 0.0):
-    """First principles: kept rows of one side, sorted by distance, variables centred."""
+    """First principles: kept rows of one side, sorted by distance, and their variables."""
     ok = frame[["x", "y", "z", "w"]].notna().all(axis=1) & (frame["w"] > 0)
     sub = frame[ok]
     d = (sub["x"] - cutoff) * sign
@@ -41,16 +41,19 @@ def direct_side(frame: pd.DataFrame, cutoff: float, sign: int, donut: float = 0.
     sub, d = sub[inside], d[inside]
     order = np.argsort(d.to_numpy(), kind="stable")
     values = sub[["y", "z"]].to_numpy()[order]
-    return d.to_numpy()[order], values - values.mean(axis=0), sub["w"].to_numpy()[order]
+    return d.to_numpy()[order], values, sub["w"].to_numpy()[order]
 
 
-def assert_same_side(side: Side, distance, centred, weights) -> None:
+def assert_same_side(side: Side, distance, values, weights) -> None:
+    """Same rows, distances and weights; the same variables once the side's centring offsets
+    (its own means, or a donut's side's) are added back."""
     assert side.n == len(distance)
     np.testing.assert_array_equal(side.distance, distance)
     # tie order may differ between sorts: compare per distinct distance through sorted (d, v) pairs
-    got = np.lexsort((side.values[:, 0], side.distance))
-    want = np.lexsort((centred[:, 0], distance))
-    np.testing.assert_allclose(side.values[got], centred[want], rtol=RTOL, atol=1e-12)
+    uncentred = side.values + side.offsets
+    got = np.lexsort((uncentred[:, 0], side.distance))
+    want = np.lexsort((values[:, 0], distance))
+    np.testing.assert_allclose(uncentred[got], values[want], rtol=RTOL, atol=1e-12)
     np.testing.assert_allclose(side.weights[got], weights[want], rtol=0, atol=0)
 
 
@@ -66,9 +69,10 @@ def test_donut_side_equals_direct_preparation(donut):
     scratch = data_of(frame, 0.1)._prepare(("y", "z"), donut, 3)
     assert (trimmed.score_sd, trimmed.score_scale, trimmed.n_dropped, trimmed.n_donut, trimmed.n_clusters) == (
         scratch.score_sd, scratch.score_scale, scratch.n_dropped, scratch.n_donut, scratch.n_clusters)
-    for a, b in ((trimmed.below, scratch.below), (trimmed.above, scratch.above)):
-        np.testing.assert_array_equal(a.values, b.values)      # same rows, same order: bit for bit
-        np.testing.assert_array_equal(a.rows, b.rows)
+    for a, b, full in ((trimmed.below, scratch.below, base.below), (trimmed.above, scratch.above, base.above)):
+        np.testing.assert_array_equal(a.rows, b.rows)          # same rows, same order
+        np.testing.assert_allclose(a.values + a.offsets, b.values + b.offsets, rtol=RTOL, atol=1e-12)
+        assert np.shares_memory(a.values, full.values)         # a view of the full side: no copy
     assert base.below.n - trimmed.below.n + base.above.n - trimmed.above.n == trimmed.n_donut
 
 
@@ -77,7 +81,7 @@ def test_without_nearest_rebuilds_values_up_to_rounding():
     base = data_of(frame, 0.0).prepare(("y", "z"))
     dist = base.above.distance
     start = int(np.flatnonzero(np.diff(dist) > 0)[10]) + 1       # a group boundary: no tie is split
-    side = base.above.without_nearest(start)                      # values rebuilt from the offsets
+    side = base.above.without_nearest(start)                      # a view, centred on the side's means
     assert_same_side(side, *direct_side(frame, 0.0, 1, donut=dist[start]))
     assert side.rows is not None and len(side.rows) == side.n
 

@@ -24,19 +24,21 @@ class Side:
     distance : (n,) sorted distances (>= 0).
     values : (n, k) variables in the same order (outcome, take-up, covariates ...). The Side takes
         ownership: the array is centred in place on the side mean (``offsets``, which level
-        estimates add back), so pass a fresh array, never user data.
+        estimates add back), so pass a fresh array, never user data (unless ``centred``).
     weights : (n,) positive user weights or None (all ones).
     clusters : (n,) integer cluster codes (shared coding across sides) or None.
     neighbors : J for the nearest-neighbour residuals.
-    rows : (n,) integer positions of the observations in the source data, or None. The data layer
-        keeps them so that a derived side (``without_nearest``) reads its variables afresh.
+    rows : (n,) integer positions of the observations in the source data, or None.
     offsets : (k,) the side means to centre on, or None (the mean of ``values``). A side that holds
         only the rows nearest the cutoff (``core.window_side``) centres on its whole side's means.
+    centred : ``values`` are centred on ``offsets`` already (a view of another side's, a donut's):
+        they are neither copied nor changed.
     """
 
     def __init__(self, sign: int, distance: np.ndarray, values: np.ndarray,
                  weights: np.ndarray | None = None, clusters: np.ndarray | None = None,
-                 neighbors: int = 3, rows: np.ndarray | None = None, offsets: np.ndarray | None = None):
+                 neighbors: int = 3, rows: np.ndarray | None = None, offsets: np.ndarray | None = None,
+                 centred: bool = False):
         self.sign = sign
         self.rows = rows
         self.distance = distance
@@ -46,7 +48,8 @@ class Side:
         if offsets is None:
             offsets = values.mean(axis=0) if len(values) else np.zeros(values.shape[1])
         self.offsets = offsets
-        values -= self.offsets  # the caller hands over a fresh array (never user data)
+        if not centred:
+            values -= self.offsets  # the caller hands over a fresh array (never user data)
         self.values = values
         self.weights = weights
         self.clusters = clusters
@@ -57,23 +60,23 @@ class Side:
         self._nn_base: tuple[Side, int, bool] | None = None   # what this side is cut from (cut_from)
         self._groups: tuple[int, np.ndarray] | None = None   # (rows scanned, their group starts)
 
-    def without_nearest(self, start: int, values: np.ndarray | None = None) -> "Side":
-        """This side without its ``start`` observations nearest the cutoff (a donut), with no sort.
+    def without_nearest(self, start: int) -> "Side":
+        """This side without its ``start`` observations nearest the cutoff (a donut), with no sort
+        and no copy.
 
         The side is sorted by distance, so the remaining observations are the tail ``[start:]``,
-        still sorted. ``values``: the remaining rows' variables, uncentred, as a fresh array (the new
-        side centres them on its own mean); by default they are rebuilt from this side's centred
-        values and offsets, which equals reading them afresh up to rounding in the last digit.
-        The result equals a Side prepared from scratch on the remaining rows; its moment tables
-        are rebuilt on demand (they depend on which rows remain), its neighbour residuals are
-        this side's beyond the first J groups of ties (``cut_from``).
+        still sorted: distances, values, weights and clusters are views of this side's. The values
+        stay centred on this side's means (``offsets``), not on the tail's own: centring is for
+        precision (squared residuals expanded in the moment tables), and a donut's mean is close to
+        its side's; every estimate equals a Side prepared from scratch on the remaining rows up to
+        rounding in the last digits. At 1e7 rows a fresh copy per radius cost a donut ladder more
+        than its fits. Its moment tables are rebuilt on demand (they depend on which rows remain),
+        its neighbour residuals are this side's beyond the first J groups of ties (``cut_from``).
         """
-        if values is None:
-            values = self.values[start:] + self.offsets
-        tail = Side(self.sign, self.distance[start:], values,
+        tail = Side(self.sign, self.distance[start:], self.values[start:],
                     None if self.weights is None else self.weights[start:],
                     None if self.clusters is None else self.clusters[start:], self.neighbors,
-                    None if self.rows is None else self.rows[start:])
+                    None if self.rows is None else self.rows[start:], offsets=self.offsets, centred=True)
         if start > 0:
             tail.cut_from(self, start, reversed_=False)
         return tail

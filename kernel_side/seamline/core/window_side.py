@@ -188,5 +188,5 @@ class WindowSide(Side):
         return {"rows": rows, "w": float(w.sum()), "w2": float(w @ w), "wv": w @ v, "wvv": (v * w[:, None]).T @ v,
                 "gram": (basis * w[:, None]).T @ basis, "cross": (basis * w[:, None]).T @ v}
 
-    def without_nearest(self, start: int, values: np.ndarray | None = None) -> "Side":
+    def without_nearest(self, start: int) -> "Side":
         raise WindowTooNarrow(np.inf)      # donuts go through the gathered route
