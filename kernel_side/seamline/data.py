@@ -419,8 +419,12 @@ class DesignData:
         score_sd, score_scale = self._spread(rows, x_sorted)
         n_donut = 0
         sides = []
+        span = self._spans.get(variables)
+        runs = (self._parent._runs_in_sides(variables, neighbors, span, split)
+                if donut == 0 and span is not None and variables else (None, None))
         # below: walk outward from the cutoff, i.e. the sorted order reversed; above: as sorted
-        for sign, part in ((-1, slice(split - 1, None, -1) if split else slice(0, 0)), (1, slice(split, None))):
+        for sign, part, run in ((-1, slice(split - 1, None, -1) if split else slice(0, 0), runs[0]),
+                                (1, slice(split, None), runs[1])):
             # above: a view (already >= 0); below: reversed and negated, a new array
             dist = x_sorted[part] if sign > 0 else -x_sorted[part]
             src = rows[part]
@@ -430,18 +434,19 @@ class DesignData:
                 n_donut += start
                 src, dist = src[start:], dist[start:]
             self._check_side(len(src), sign, donut)
-            span = self._spans.get(variables)
+            if run is not None:          # a run of the parent's prepared side: views of its arrays
+                sides.append(_run_side(sign, dist, run, neighbors, src))
+                continue
             values = self._gather(variables, src) if span is None or not variables else \
                 self._parent._ordered_values(variables, slice(*span), part, start)
             sides.append(Side(sign, dist, values, *self._row_arrays(src), neighbors, rows=src))
         del x_sorted
-        if donut == 0 and self._spans.get(variables) is not None:
-            self._parent._lend_residuals(variables, neighbors, self._spans[variables], split, sides)
         return self._finish(sides, variables, n_dropped, n_donut, score_sd, score_scale)
 
-    def _lend_residuals(self, variables, neighbors, span: tuple[int, int], split: int, sides: list[Side]) -> None:
-        """Let the sides of a one-sided copy (a placebo cutoff) take their neighbour residuals from
-        this design's prepared side they are cut from (``Side.cut_from``).
+    def _runs_in_sides(self, variables, neighbors, span: tuple[int, int], split: int) -> list:
+        """Where the two sides of a one-sided copy (a placebo cutoff) lie in this design's prepared
+        sides: per side, (this design's side, start, reversed) as ``Side.cut_from`` takes them, or
+        None.
 
         The copy keeps positions ``span`` of this design's sorted order and splits them at
         ``split``: its above side is positions [span[0] + split, span[1]) ascending, its below side
@@ -451,21 +456,24 @@ class DesignData:
         """
         own = self._cache.get((variables, 0.0, neighbors))
         if own is None or self.sorted_rows(variables)[0] is not self._score_order():
-            return
+            return [None, None]
         below, above = own.below, own.above
         cut, total = below.n, below.n + above.n          # this design's split in its sorted order
-        for side, (a, b), ascending in ((sides[0], (span[0], span[0] + split), False),
-                                        (sides[1], (span[0] + split, span[1]), True)):
+        runs = []
+        for (a, b), ascending in (((span[0], span[0] + split), False), ((span[0] + split, span[1]), True)):
+            run = None
             if b <= a:
-                continue
-            if a >= cut and ascending and b == total:            # a tail of the above side
-                side.cut_from(above, a - cut, reversed_=False)
+                pass
+            elif a >= cut and ascending and b == total:          # a tail of the above side
+                run = (above, a - cut, False)
             elif a == cut and not ascending and b <= total:      # the above side's head, reversed
-                side.cut_from(above, b - cut, reversed_=True)
+                run = (above, b - cut, True)
             elif b == cut and ascending and a >= 0:              # the below side's head, reversed
-                side.cut_from(below, cut - a, reversed_=True)
+                run = (below, cut - a, True)
             elif a == 0 and not ascending and b <= cut:          # a tail of the below side
-                side.cut_from(below, cut - b, reversed_=False)
+                run = (below, cut - b, False)
+            runs.append(run)
+        return runs
 
     def _with_donut(self, base: Prepared, donut: float) -> Prepared:
         """``base`` (no donut) without the rows closer than ``donut`` to the cutoff: no sort, no copy,
@@ -507,3 +515,22 @@ class DesignData:
                                               f"got {g}. Use a finer cluster variable or drop `cluster`.")
             n_clusters = int(len(np.unique(np.concatenate([s.clusters for s in sides]))))
         return Prepared(sides[0], sides[1], variables, n_dropped, n_donut, score_sd, score_scale, n_clusters)
+
+
+def _run_side(sign: int, distance: np.ndarray, run: tuple[Side, int, bool], neighbors: int,
+              rows: np.ndarray) -> Side:
+    """A placebo cutoff's side that is a run of a prepared side (``DesignData._runs_in_sides``):
+    its values, weights and clusters are views of that side's, centred on that side's means (no
+    gather, no copy; the estimates equal a from-scratch preparation up to rounding), and its
+    neighbour residuals are read off that side's (``Side.cut_from``)."""
+    base, start, reversed_ = run
+    part = slice(start - 1, None, -1) if reversed_ else slice(start, None)
+    if reversed_ and start == 0:
+        part = slice(0, 0)
+
+    def view(a):
+        return None if a is None else a[part]
+    side = Side(sign, distance, base.values[part], view(base.weights), view(base.clusters), neighbors, rows=rows,
+                offsets=base.offsets, centred=True)
+    side.cut_from(base, start, reversed_)
+    return side

@@ -193,3 +193,26 @@ def test_a_donut_reads_its_neighbour_residuals_off_its_full_side_in_any_slice():
         np.testing.assert_allclose(got[rows], want[rows], rtol=1e-9, atol=1e-12)
         np.testing.assert_allclose(got[rows, 1], want[rows, 1], rtol=1e-9, atol=1e-12)
     np.testing.assert_allclose(np.asarray(got), want, rtol=1e-9, atol=1e-12)
+
+
+@pytest.mark.parametrize("side_name, placebo", [("below", -0.6), ("above", 0.45)])
+def test_a_placebo_side_is_a_view_of_its_parents_prepared_side(side_name, placebo):
+    # Once the parent has prepared its sides, a placebo cutoff's sides are views of them (values
+    # centred on the parent side's means, weights and clusters as they are). Reference: a design
+    # built from scratch on that side's rows.
+    frame = raw_frame(seed=16)
+    frame = frame[frame.y.notna()].reset_index(drop=True)   # the parent's rows for y: its score order
+    parent = data_of(frame, 0.1)
+    full = parent.prepare(("y",))
+    copy = parent.one_side(side_name, placebo)
+    rows = frame["x"] >= 0.1 if side_name == "above" else frame["x"] < 0.1
+    scratch = data_of(frame[rows].reset_index(drop=True), placebo)
+    got, want = copy.prepare(("y",)), scratch.prepare(("y",))
+    for a, b in ((got.below, want.below), (got.above, want.above)):
+        assert any(np.shares_memory(a.values, s.values) for s in (full.below, full.above))
+        np.testing.assert_array_equal(a.distance, b.distance)
+        ia, ib = np.lexsort((a.values[:, 0], a.distance)), np.lexsort((b.values[:, 0], b.distance))
+        np.testing.assert_allclose((a.values + a.offsets)[ia], (b.values + b.offsets)[ib], rtol=RTOL, atol=1e-12)
+        np.testing.assert_array_equal(a.weights[ia], b.weights[ib])
+        pairs = set(zip(a.clusters[ia], b.clusters[ib]))     # the same clusters (coded per design)
+        assert len(pairs) == len(set(a.clusters)) == len(set(b.clusters))
