@@ -237,6 +237,7 @@ class DesignData:
         self._spans: dict[tuple, tuple[int, int]] = {}   # a one-sided copy's run of the parent's order
         self._only: np.ndarray | None = None      # row filter of a one-sided copy (``one_side``)
         self._parent: DesignData | None = None    # whose sorted rows a one-sided copy reuses
+        self._side: str | None = None             # which side of the parent's cutoff a copy keeps
         self._sides: dict[str, tuple] = {}        # what one-sided copies of each side share
         self._columns: dict[str, np.ndarray] = {}  # variables in the sorted order, for those copies
 
@@ -260,7 +261,7 @@ class DesignData:
         out = copy.copy(self)
         out.cutoff = float(cutoff)
         out.n_rows = n_rows
-        out._only, out._parent = only, self
+        out._only, out._parent, out._side = only, self, side
         out._cache, out._order, out._spreads, out._ordered = {}, None, {}, None
         out._sorted, out._spans = sorted_rows, spans
         out._donuts, out._sides, out._columns = [], {}, {}
@@ -327,15 +328,27 @@ class DesignData:
             keep, n_dropped = self._usable(variables)
             if self._parent is not None:
                 base = self._parent._score_order()
-                kept = np.flatnonzero(keep[base])
-                if len(kept) and kept[-1] - kept[0] + 1 == len(kept):    # a run of the parent's order
-                    self._spans[variables] = (int(kept[0]), int(kept[-1]) + 1)
-                rows = base[kept]
+                whole = self._parent._side_span(self._side)
+                if int(keep.sum()) == whole[1] - whole[0]:
+                    # every usable row of the parent's side is kept (the kept rows are among them):
+                    # the run of the parent's order that side is, found with no pass over the rows
+                    self._spans[variables] = whole
+                    rows = base[whole[0]:whole[1]]
+                else:
+                    kept = np.flatnonzero(keep[base])
+                    if len(kept) and kept[-1] - kept[0] + 1 == len(kept):    # a run of the parent's order
+                        self._spans[variables] = (int(kept[0]), int(kept[-1]) + 1)
+                    rows = base[kept]
             else:
                 base = self._score_order()
                 rows = base if int(keep.sum()) == len(base) else self._argsort(keep)
             self._sorted[variables] = (rows, n_dropped)
         return self._sorted[variables]
+
+    def _side_span(self, side: str) -> tuple[int, int]:
+        """Positions of this design's score order below (score < cutoff) or above its cutoff."""
+        cut = int(np.searchsorted(self._ordered_score(), self.cutoff, side="left"))
+        return (0, cut) if side == "below" else (cut, len(self._score_order()))
 
     def _usable(self, variables: tuple[str, ...]) -> tuple[np.ndarray, int]:
         """Rows with every value a fit on ``variables`` needs, and how many were dropped as missing."""
@@ -359,15 +372,18 @@ class DesignData:
             self._order = self._argsort(self._usable(())[0])
         return self._order
 
-    def _sorted_score(self, variables: tuple[str, ...], rows: np.ndarray) -> np.ndarray:
-        """score[rows] as a new array. A one-sided copy whose rows are a run of its parent's sorted
-        rows slices the parent's sorted score (the same values) instead of gathering row by row."""
+    def _centred_score(self, variables: tuple[str, ...], rows: np.ndarray) -> np.ndarray:
+        """score[rows] - cutoff as a new array, in one pass. A one-sided copy whose rows are a run
+        of its parent's sorted rows slices the parent's sorted score (the same values) instead of
+        gathering row by row."""
         span = self._spans.get(variables)
         if span is not None:
-            return self._parent._ordered_score()[span[0]:span[1]].copy()
+            return np.subtract(self._parent._ordered_score()[span[0]:span[1]], self.cutoff)
         if self._parent is None and rows is self._score_order():
-            return self._ordered_score().copy()      # gathered once, kept for the binned means
-        return self.arrays[self.score_name][rows]
+            return np.subtract(self._ordered_score(), self.cutoff)   # gathered once, kept for the binned means
+        x = self.arrays[self.score_name][rows]
+        x -= self.cutoff
+        return x
 
     def _ordered_values(self, variables: tuple[str, ...], span: slice, part: slice, start: int) -> np.ndarray:
         """A one-sided copy's side values, sliced from the variables in this design's sorted order
@@ -413,8 +429,7 @@ class DesignData:
             raise OneSidedDataError(f"the design must keep observations on both sides of the cutoff; got "
                                     f"{len(rows)} usable rows after dropping missing values in "
                                     f"{shown([self.score_name, *variables])}. Check for missing data.")
-        x_sorted = self._sorted_score(variables, rows)
-        x_sorted -= self.cutoff
+        x_sorted = self._centred_score(variables, rows)
         split = int(np.searchsorted(x_sorted, 0.0, side="left"))
         score_sd, score_scale = self._spread(rows, x_sorted)
         n_donut = 0
