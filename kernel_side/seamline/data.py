@@ -233,6 +233,7 @@ class DesignData:
         self._sorted: dict[tuple, tuple[np.ndarray, int]] = {}
         self._order: np.ndarray | None = None     # the one sort of the score (``_score_order``)
         self._spreads: dict[int, tuple] = {}      # score spread per sorted row set (keyed by identity)
+        self._distances: dict[int, tuple] = {}    # sorted distances per sorted row set (``_distances_of``)
         self._ordered: np.ndarray | None = None   # the score in that order (``_ordered_score``)
         self._spans: dict[tuple, tuple[int, int]] = {}   # a one-sided copy's run of the parent's order
         self._only: np.ndarray | None = None      # row filter of a one-sided copy (``one_side``)
@@ -262,7 +263,7 @@ class DesignData:
         out.cutoff = float(cutoff)
         out.n_rows = n_rows
         out._only, out._parent, out._side = only, self, side
-        out._cache, out._order, out._spreads, out._ordered = {}, None, {}, None
+        out._cache, out._order, out._spreads, out._ordered, out._distances = {}, None, {}, None, {}
         out._sorted, out._spans = sorted_rows, spans
         out._donuts, out._sides, out._columns = [], {}, {}
         return out
@@ -372,6 +373,19 @@ class DesignData:
             self._order = self._argsort(self._usable(())[0])
         return self._order
 
+    def _distances_of(self, variables: tuple[str, ...], rows: np.ndarray) -> tuple[np.ndarray, int, np.ndarray]:
+        """(score - cutoff in the order of ``rows``, the split, the below side's distances: reversed
+        and negated, a new array), made once per row set: every preparation on the same rows
+        (outcome, covariates, the balance's) shares them, read-only (the above side's distances
+        are a view of the first)."""
+        key = id(rows)
+        if key not in self._distances:
+            x_sorted = self._centred_score(variables, rows)
+            split = int(np.searchsorted(x_sorted, 0.0, side="left"))
+            below = -x_sorted[split - 1::-1] if split else np.zeros(0)
+            self._distances[key] = (rows, x_sorted, split, below)
+        return self._distances[key][1:]
+
     def _centred_score(self, variables: tuple[str, ...], rows: np.ndarray) -> np.ndarray:
         """score[rows] - cutoff as a new array, in one pass. A one-sided copy whose rows are a run
         of its parent's sorted rows slices the parent's sorted score (the same values) instead of
@@ -429,8 +443,7 @@ class DesignData:
             raise OneSidedDataError(f"the design must keep observations on both sides of the cutoff; got "
                                     f"{len(rows)} usable rows after dropping missing values in "
                                     f"{shown([self.score_name, *variables])}. Check for missing data.")
-        x_sorted = self._centred_score(variables, rows)
-        split = int(np.searchsorted(x_sorted, 0.0, side="left"))
+        x_sorted, split, below_distance = self._distances_of(variables, rows)
         score_sd, score_scale = self._spread(rows, x_sorted)
         n_donut = 0
         sides = []
@@ -440,8 +453,7 @@ class DesignData:
         # below: walk outward from the cutoff, i.e. the sorted order reversed; above: as sorted
         for sign, part, run in ((-1, slice(split - 1, None, -1) if split else slice(0, 0), runs[0]),
                                 (1, slice(split, None), runs[1])):
-            # above: a view (already >= 0); below: reversed and negated, a new array
-            dist = x_sorted[part] if sign > 0 else -x_sorted[part]
+            dist = x_sorted[part] if sign > 0 else below_distance
             src = rows[part]
             start = 0
             if donut > 0:

@@ -13,7 +13,8 @@ CHUNK = 1 << 16
 
 
 def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int = 3,
-                       rel_tol: float = 1e-12, tol: float | None = None) -> tuple[np.ndarray, np.ndarray]:
+                       rel_tol: float = 1e-12, tol: float | None = None,
+                       counts: bool = True) -> tuple[np.ndarray, np.ndarray | None]:
     """Scaled nearest-neighbour residuals for observations on one side of the cutoff.
 
     Parameters
@@ -24,11 +25,12 @@ def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int 
     rel_tol : distances closer than ``rel_tol * range(x)`` count as ties, so that floating-point
         noise in discrete scores does not break ties arbitrarily.
     tol : an absolute tie tolerance instead (a part of a side computed with the whole side's).
+    counts : also return M_i (False: None instead, and no n-long array of them is made).
 
     Returns
     -------
     residuals : (n, k) array, sqrt(M_i/(M_i+1)) * (values_i - mean of neighbours of i).
-    n_neighbors : (n,) int array, M_i (>= J when the side has more than J observations).
+    n_neighbors : (n,) int array, M_i (>= J when the side has more than J observations), or None.
     """
     x = np.asarray(x_sorted, dtype=float)
     vals = np.asarray(values, dtype=float)
@@ -36,7 +38,7 @@ def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int 
         vals = vals[:, None]
     n = len(x)
     if n < 2:
-        return np.full_like(vals, np.nan), np.zeros(n, dtype=int)
+        return np.full_like(vals, np.nan), (np.zeros(n, dtype=int) if counts else None)
     if tol is None:
         tol = rel_tol * max(x[-1] - x[0], np.finfo(float).tiny)
     # Where a new group of (near-)equal values starts, found chunk by chunk: no full-length gaps array.
@@ -46,7 +48,7 @@ def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int 
         stop = min(start + CHUNK, n)
         np.greater(x[start:stop] - x[start - 1:stop - 1], tol, out=new_group[start:stop])
     resid = np.empty_like(vals)
-    m = np.empty(n, dtype=int)
+    m = np.empty(n, dtype=int) if counts else None
     if new_group.all():
         # Without ties every neighbour lies within J positions, so chunks with a J-row halo are
         # exact and keep the temporaries small.
@@ -56,7 +58,8 @@ def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int 
             lo, hi = max(0, start - neighbors), min(n, stop + neighbors)
             r, mm = _without_ties(x[lo:hi], vals[lo:hi], neighbors, tol)
             resid[start:stop] = r[start - lo: stop - lo]
-            m[start:stop] = mm[start - lo: stop - lo]
+            if m is not None:
+                m[start:stop] = mm[start - lo: stop - lo]
         return resid, m
     starts = np.flatnonzero(new_group)
     del new_group
@@ -69,12 +72,12 @@ def neighbor_residuals(x_sorted: np.ndarray, values: np.ndarray, neighbors: int 
         lo, hi = starts[h0], (starts[h1] if h1 < n_groups else n)
         first, stop = starts[g0], (starts[g1] if g1 < n_groups else n)
         _with_ties(x[lo:hi], vals[lo:hi], neighbors, tol, starts[h0:h1] - lo,
-                   (first - lo, stop - lo), resid[first:stop], m[first:stop])
+                   (first - lo, stop - lo), resid[first:stop], None if m is None else m[first:stop])
     return resid, m
 
 
 def _with_ties(x: np.ndarray, vals: np.ndarray, neighbors: int, tol: float, starts: np.ndarray,
-               rows: tuple[int, int], resid: np.ndarray, m_rows: np.ndarray) -> None:
+               rows: tuple[int, int], resid: np.ndarray, m_rows: np.ndarray | None) -> None:
     """Residuals when some values are tied, written into ``resid`` and ``m_rows`` for ``rows``.
 
     ``starts`` are the first rows of the groups of ties in ``x``; ``rows`` (a range of whole groups,
@@ -126,7 +129,8 @@ def _with_ties(x: np.ndarray, vals: np.ndarray, neighbors: int, tol: float, star
             neighbor_mean = (range_sum[group] - vals[start:stop]) / m[:, None]
             scale = np.sqrt(m / (m + 1.0))
         resid[start - first: stop - first] = scale[:, None] * (vals[start:stop] - neighbor_mean)
-        m_rows[start - first: stop - first] = have[group]
+        if m_rows is not None:
+            m_rows[start - first: stop - first] = have[group]
 
 
 def _without_ties(x: np.ndarray, vals: np.ndarray, neighbors: int, tol: float):

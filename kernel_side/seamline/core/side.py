@@ -114,7 +114,7 @@ class Side:
         if self._nn is None:
             self._nn = self._tail_residuals()
             if self._nn is None:
-                self._nn, _ = neighbor_residuals(self.distance, self.values, self.neighbors)
+                self._nn, _ = neighbor_residuals(self.distance, self.values, self.neighbors, counts=False)
         return self._nn
 
     def _tail_residuals(self) -> np.ndarray | None:
@@ -145,7 +145,7 @@ class Side:
         if len(starts) <= 2 * j:
             return None                             # a side of few groups: compute it whole
         cut, stop = int(starts[j]), int(starts[2 * j])
-        first, _ = neighbor_residuals(d[:stop], self.values[:stop], j, tol=tol)
+        first, _ = neighbor_residuals(d[:stop], self.values[:stop], j, tol=tol, counts=False)
         rest = base._nn[:start - cut][::-1] if reversed_ else base._nn[start + cut:]
         return RunResiduals(first[:cut], rest)
 

@@ -109,7 +109,7 @@ class WindowSide(Side):
         """The whole window's residuals (kept): only the direct paths read them; the moment tables
         read each slice's own (``series``), so a fit holds no per-row residuals."""
         if self._nn is None:
-            self._nn, _ = neighbor_residuals(self.distance, self.values, self.neighbors, tol=self.tie_tol)
+            self._nn, _ = neighbor_residuals(self.distance, self.values, self.neighbors, tol=self.tie_tol, counts=False)
         return self._nn
 
     def series(self, kind: str, a: int = -1, b: int = -1):
@@ -145,7 +145,7 @@ class WindowSide(Side):
                 break
             span *= 4
         hi = int(cuts[j]) if len(cuts) > j else len(d)
-        resid, _ = neighbor_residuals(d[lo:hi], self.values[lo:hi], j, tol=tol)
+        resid, _ = neighbor_residuals(d[lo:hi], self.values[lo:hi], j, tol=tol, counts=False)
         return resid[start - lo: stop - lo]
 
     def distinct_within(self, n_rows: int) -> int:
