@@ -136,3 +136,19 @@ def test_donut_and_placebo_sides_take_their_bins_from_the_design_sides(frame, mo
     rows, binned, cut = both(placebo)
     assert True in cut and False in cut              # a head reversed and a tail
     pd.testing.assert_frame_equal(binned, rows, check_exact=False, rtol=1e-9)
+
+
+def test_a_wider_window_adds_bins_to_those_built_bit_for_bit():
+    # The bins are extended (doubling) when a wider window needs more; each bin's moments are its
+    # own rows', so the extended table equals one built at once, bit for bit.
+    from seamline.core.side import Side
+    rng = np.random.default_rng(31)
+    d = np.sort(rng.uniform(0.0, 1.0, 200_000))
+    side = Side(1, d, rng.normal(size=(d.size, 2)), None, None, 3)
+    small = single_row_binned.side_bins(side, 2, 20_000)
+    grown = single_row_binned.side_bins(side, 2, 90_000)
+    assert grown.starts[-1] > small.starts[-1] >= 20_000
+    size = int(grown.starts[1] - grown.starts[0])
+    whole = single_row_binned._build_bins(side, 2, size, len(grown.centre))
+    for field in ("starts", "low", "high", "centre", "moments"):
+        np.testing.assert_array_equal(getattr(grown, field), getattr(whole, field))

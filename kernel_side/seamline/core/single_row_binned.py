@@ -74,7 +74,10 @@ def side_bins(side: Side, n_vars: int, rows: int) -> SideBins:
     if held is None or (held.starts[-1] < rows and held.starts[-1] + size <= held_rows):
         have = 0 if held is None else int(held.starts[-1])
         want = min(held_rows // size, max(-(-rows // size), 2 * have // size))
-        cache[n_vars] = _build_bins(side, n_vars, size, want)
+        new = _build_bins(side, n_vars, size, want, first=have // size)
+        cache[n_vars] = new if held is None else SideBins(
+            np.r_[held.starts[:-1], new.starts], np.r_[held.low, new.low], np.r_[held.high, new.high],
+            np.r_[held.centre, new.centre], np.concatenate([held.moments, new.moments], axis=1))
     return cache[n_vars]
 
 
@@ -112,15 +115,19 @@ def _cut_bins(side: Side, n_vars: int, rows: int, base: Side, start: int, revers
 BUILD_ROWS = 1 << 18      # rows per step of the bin moments (their temporaries: about 13 numbers a row)
 
 
-def _build_bins(side: Side, n_vars: int, size: int, count: int) -> SideBins:
+def _build_bins(side: Side, n_vars: int, size: int, count: int, first: int = 0) -> SideBins:
+    """Bins ``first`` .. ``count`` - 1 of ``size`` rows each (a wider window adds bins to those it
+    has: each bin's moments are its own rows', so the result is the same bit for bit)."""
     # a few bins at a time, as many as make BUILD_ROWS rows: at 1e8 rows a bin holds 24 000 rows,
     # and 256 bins at a time made temporaries of 0.6 GB
     chunk = max(1, BUILD_ROWS // size)
-    starts = np.arange(count + 1) * size
-    d = side.distance[: count * size].reshape(count, size)
+    starts = np.arange(first, count + 1) * size
+    rows = slice(first * size, count * size)
+    count -= first
+    d = side.distance[rows].reshape(count, size)
     low, high = d[:, 0], d[:, -1]
     centre = 0.5 * (low + high)
-    vals = side.values[: count * size, :n_vars].reshape(count, size, n_vars)
+    vals = side.values[rows, :n_vars].reshape(count, size, n_vars)
     pairs = [(v, w) for v in range(n_vars) for w in range(v, n_vars)]
     moments = np.empty((1 + n_vars + len(pairs), count, ORDER + 1))
     for g0 in range(0, count, chunk):        # (chunk, size, ORDER + 1) temporaries
