@@ -52,6 +52,7 @@ from .core.window_side import WindowSide
 from .errors import (CutoffOutOfRangeError, EmptyColumnError, InvalidWeightsError, NonFiniteValueError,
                      OneSidedDataError, shown)
 from .partitioned import _partition_arrays, release_memory
+from .streaming_memory import held_bytes, make_room, rows_within
 
 BITS = 16                    # bits of the key resolved per refinement pass
 GATHER_LIMIT = 1 << 21       # values gathered at most per order statistic (16 MB)
@@ -338,6 +339,9 @@ class StreamingData:
         self._scores: dict = {}                  # sorted scores per row set (streaming_diagnostics)
         self._pilots: dict = {}                  # the bins' pilot sums per outcome, made in the score pass
         self.passes = 0                          # passes over the data so far (benchmarks report it)
+        # what is let go of between calls to stay within the budget (streaming_memory)
+        self.on_release: list = []               # called when windows are let go of (the design's engines)
+        self.released = 0                        # how many times held data were let go of
         self._check(self._summary(outcomes[:1]))
 
     # ---- the gathered fallback --------------------------------------------------------------
@@ -349,7 +353,8 @@ class StreamingData:
         return self._gathered
 
     def __getattr__(self, name):
-        if name.startswith("__") or name in ("_gathered", "_gathered_loader", "_scores", "_pilots"):
+        if name.startswith("__") or name in ("_gathered", "_gathered_loader", "_scores", "_pilots", "_windows",
+                                              "on_release", "released"):
             raise AttributeError(name)
         return getattr(self.gathered, name)
 
@@ -447,7 +452,7 @@ class StreamingData:
         from .data import Prepared
         key = (variables, neighbors)
         held = self._windows.get(key)
-        if held is not None and (radius is None or radius < held["limit"]):
+        if held is not None and "released" not in held and (radius is None or radius < held["limit"]):
             return held["prepared"]
         s = self._summary(variables)
         if variables != next(iter(self._summaries)):
@@ -478,8 +483,14 @@ class StreamingData:
             held = {"sd": sd, "scale": scale, "tops": tops, "pilots": None, "radius": -np.inf, "rows": None,
                     "cubic_tops": {k: stats[(k, r - 1)] for k, r in ik_rows.items()}, "ik_rows": ik_rows}
             radius = first
+        elif "released" in held:       # its rows were let go of (streaming_memory): the same radius, one pass
+            was, limit = held.pop("released")
+            radius = was if radius is None or radius < limit else max(radius * WIDEN, was * WIDEN)
         else:
             radius = max(radius * WIDEN, held["radius"] * WIDEN)
+        per_row = 8.0 * (1 + len(variables) + (self.weights_name is not None))
+        wanted = per_row * sum(rows_within(s[name]["hist"], radius) for name in ("below", "above"))
+        make_room(self, "window", max(0.0, wanted - held_bytes(held)))
         self._widen(variables, s, held, radius)
         sides = []
         for name, sign in (("below", -1), ("above", 1)):

@@ -38,6 +38,7 @@ from .core.density import density_test_sorted
 from .errors import DataSourceError
 from .partitioned import _REPORT
 from .streaming import _columns, _compute, _tree, blocks
+from .streaming_memory import make_room
 
 
 def _plan(data, variables: tuple[str, ...] | None) -> dict:
@@ -141,6 +142,7 @@ def sorted_scores(data, variables: tuple[str, ...] | None = None):
         plan["columns"] = list(dict.fromkeys(plan["columns"] + bins_plan["columns"]))
     parts = data.frame[plan["columns"]].to_delayed()       # only these columns are read
     sums = None
+    make_room(data, "scores", 8.0 * (n_below + n_above))      # may let the fits' window go (streaming_memory)
     below, above = np.empty(n_below), np.empty(n_above)
     lengths, at_below, at_above = [], 0, 0
     report, step = _REPORT.get(), _in_flight()

@@ -1,0 +1,97 @@
+"""What a streamed design lets go of between calls to stay within its budget (seamline.streaming_memory).
+
+Reference: the in-memory pandas path on the same rows (``pandas.concat`` of the pieces written to
+Parquet), as in tests/test_dask_streaming.py: a window let go of and gathered again, and sorted
+scores gathered again, give results within a relative 1e-8 of it, counts identical.
+"""
+from __future__ import annotations
+
+import gc
+import weakref
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import seamline
+import seamline.streaming_memory as memory
+from seamline.streaming import top_bins
+
+from _partitioned_data import KWARGS, assert_same, pieces, results
+
+pytest.importorskip("dask.dataframe")
+
+
+@pytest.fixture
+def no_floor(monkeypatch):
+    """Small test data hold less than HOLD_FLOOR: without it, the budget is the share alone."""
+    monkeypatch.setattr(memory, "HOLD_FLOOR", 0)
+
+
+def test_every_result_equals_memory_when_held_data_are_let_go_of(parquet_folder, memory_design, no_floor):
+    design = seamline.Design(parquet_folder, reading="streamed", **KWARGS)
+    got = results(design)
+    assert design._data.released >= 2            # windows and sorted scores were let go of, and came back
+    assert design._data._gathered is not None     # (balance, placebo, donut: gathered, as without the budget)
+    assert_same(got, results(memory_design))
+
+
+ONE = dict(score="x", cutoff=0.0, outcome="y")        # two columns: a budget of 12 bytes a row
+
+
+def test_the_window_goes_before_the_sorted_scores_come(parquet_folder, no_floor):
+    memory_design = seamline.Design(pd.concat(pieces(), ignore_index=True), **ONE)
+    design = seamline.Design(parquet_folder, reading="streamed", **ONE)
+    data = design._data
+    fit = design.fit()
+    prep = data.window(("y",))
+    rows = prep.below.n_window + prep.above.n_window
+    gone = weakref.ref(prep.below.distance)
+    before, engines = data.passes, len(design._engines)
+    assert engines and memory.budget(data) < memory.window_bytes(data) + 8.0 * data.n_rows
+    del prep
+    design.density_test()
+    gc.collect()
+    assert gone() is None                         # no engine, selection or side keeps the window's rows
+    assert memory.window_bytes(data) == 0 and len(design._engines) < engines
+    assert data.passes == before + 1              # the score pass only
+    bins = design.bins()                          # its curve needs the fit's engine: the window again
+    # y drops rows of its own, so its bins sort their own scores (a score pass), then two bins
+    # passes, then one pass gathers the window again
+    assert data.passes == before + 1 + 1 + 2 + 1
+    assert not data._scores                       # the sorted scores went to make room for it
+    again = data.window(("y",))
+    assert again.below.n_window + again.above.n_window == rows
+    want = memory_design.bins()
+    pd.testing.assert_frame_equal(bins.table(), want.table(), check_exact=False, rtol=1e-8, atol=0)
+    pd.testing.assert_frame_equal(bins.curve_frame, want.curve_frame, check_exact=False, rtol=1e-8, atol=0)
+    refit = design.fit()                          # cached: the same object, no pass
+    assert refit is fit and data.passes == before + 5
+    other = design.fit(bandwidth=(0.3, 0.4))      # a new fit on the window gathered again
+    want_other = memory_design.fit(bandwidth=(0.3, 0.4))
+    np.testing.assert_allclose(other.robust_conf_int, want_other.robust_conf_int, rtol=1e-8, atol=0)
+    assert other.n_used == want_other.n_used
+    density = design.density_test()               # cached result: the sorted scores are not needed
+    assert density.statistic == memory_design.density_test().statistic
+    assert data.passes == before + 5
+
+
+def test_under_the_floor_both_are_held(parquet_folder):
+    design = seamline.Design(parquet_folder, reading="streamed", **KWARGS)
+    design.fit(), design.density_test(), design.bins()
+    assert design._data.released == 0 and design._data._scores and memory.window_bytes(design._data) > 0
+
+
+def test_rows_within_bounds_the_window_from_above():
+    """The summary's histogram of distances (16-bit keys) bounds the rows within a radius; the bound
+    passes the count by at most the rows of the radius's own bin."""
+    rng = np.random.default_rng(3)
+    d = np.abs(rng.normal(size=50_000))
+    bins = top_bins(d, non_negative=True)
+    hist = np.bincount(bins, minlength=2 << 16)[:1 << 16]
+    for radius in (0.0, 1e-3, 0.1, 0.5, 1.0, 2.5, 10.0, np.inf):
+        exact = int(np.count_nonzero(d <= radius))
+        bound = memory.rows_within(hist, radius)
+        own = int(np.count_nonzero(bins == top_bins(np.array([min(radius, 1e308)]), non_negative=True)[0]))
+        assert exact <= bound <= exact + own, radius
+    assert memory.rows_within(hist, -np.inf) == 0
