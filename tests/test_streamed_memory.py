@@ -19,7 +19,7 @@ from seamline.streaming import top_bins
 
 from _partitioned_data import KWARGS, assert_same, pieces, results
 
-pytest.importorskip("dask.dataframe")
+dd = pytest.importorskip("dask.dataframe")
 
 
 @pytest.fixture
@@ -51,8 +51,8 @@ def test_the_window_goes_before_the_sorted_scores_come(parquet_folder, no_floor)
     assert engines and memory.budget(data) < memory.window_bytes(data) + 8.0 * data.n_rows
     del prep
     design.density_test()
-    gc.collect()
-    assert gone() is None                         # no engine, selection or side keeps the window's rows
+    assert gone() is None                         # no engine, selection, side or cycle keeps the window's rows
+    scores = [weakref.ref(a) for a in data._scores[None][:2]]
     assert memory.window_bytes(data) == 0 and len(design._engines) < engines
     assert data.passes == before + 1              # the score pass only
     bins = design.bins()                          # its curve needs the fit's engine: the window again
@@ -60,6 +60,7 @@ def test_the_window_goes_before_the_sorted_scores_come(parquet_folder, no_floor)
     # passes, then one pass gathers the window again
     assert data.passes == before + 1 + 1 + 2 + 1
     assert not data._scores                       # the sorted scores went to make room for it
+    assert all(r() is None for r in scores)       # (the density test's engine cycle does not keep them)
     again = data.window(("y",))
     assert again.below.n_window + again.above.n_window == rows
     want = memory_design.bins()
@@ -95,3 +96,23 @@ def test_rows_within_bounds_the_window_from_above():
         own = int(np.count_nonzero(bins == top_bins(np.array([min(radius, 1e308)]), non_negative=True)[0]))
         assert exact <= bound <= exact + own, radius
     assert memory.rows_within(hist, -np.inf) == 0
+
+
+def test_let_go_of_means_freed_even_inside_reference_cycles(no_floor):
+    """A density test's engine sits in a reference cycle with the sorted scores: letting them go
+    must free them now, not when the collector next runs (disabled here, so that it cannot)."""
+    rng = np.random.default_rng(8)
+    x = rng.uniform(-1.0, 1.0, 20_000)
+    frame = pd.DataFrame({"x": x, "y": 0.3 + x + 0.2 * (x >= 0) + rng.normal(0.0, 0.3, x.size)})
+    design = seamline.Design(dd.from_pandas(frame, npartitions=3), reading="streamed", **ONE)
+    gc.disable()
+    try:
+        design.fit()
+        window = weakref.ref(design._data.window(("y",)).below.distance)
+        design.density_test()
+        assert window() is None
+        scores = [weakref.ref(a) for a in design._data._scores[None][:2]]      # the bins share them
+        design.bins()
+        assert all(r() is None for r in scores)
+    finally:
+        gc.enable()

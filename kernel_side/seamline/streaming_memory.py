@@ -22,6 +22,8 @@ density tests or bins pays one pass each time it switches).
 """
 from __future__ import annotations
 
+import gc
+
 import numpy as np
 
 from .partitioned import release_memory
@@ -74,15 +76,21 @@ def release_windows(data) -> None:
     if released:
         for drop in data.on_release:
             drop()
-        data.released += 1
-        release_memory()
+        _let_go(data)
 
 
 def release_scores(data) -> None:
     if data._scores:
         data._scores.clear()
-        data.released += 1
-        release_memory()
+        _let_go(data)
+
+
+def _let_go(data) -> None:
+    # the engines of earlier results sit in reference cycles (a density test's window engine and
+    # its closures, a fit's sides and fits) that would keep the arrays until the collector ran
+    gc.collect()
+    data.released += 1
+    release_memory()
 
 
 def make_room(data, kind: str, nbytes: float) -> None:
