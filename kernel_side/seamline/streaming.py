@@ -59,6 +59,7 @@ GATHER_LIMIT = 1 << 21       # values gathered at most per order statistic (16 M
 PILOT_DEGREE = 6             # pilot sums kept up to this polynomial degree (bias degree + 2 <= 6)
 FIRST_WINDOW = 4.0           # the first window's radius, in rule-of-thumb pilot bandwidths
 WIDEN = 1.25                 # a wider window reaches this much past the radius asked for
+TAKE_ROWS = 1 << 20          # rows reordered per call when a window is built ("clip": no buffered copy)
 
 
 def sort_keys(x: np.ndarray) -> np.ndarray:
@@ -542,7 +543,9 @@ class StreamingData:
             # concatenation merges the runs (timsort), and ties keep the input order, as one stable
             # sort of the new rows would.
             # The pieces are copied into the new arrays and freed one by one, then each column is
-            # reordered there through one temporary: about 32 bytes a new row at most (was 56)
+            # reordered there through one temporary, by an order kept as int32: about 28 bytes a
+            # new row at most (the argsort's int64 result and its merge buffer, 12, beside the
+            # columns, 16; then the int32 order and the temporary, 12)
             side = old[name]
             held_rows = 0 if side is None else len(side.distance)
             total = held_rows + sum(len(p[0]) for p in pieces)
@@ -559,10 +562,14 @@ class StreamingData:
                 at = rows_at.stop
                 del piece_d, piece_v, piece_w
             order = np.argsort(d[held_rows:], kind="stable")
+            if len(order) < 1 << 31:
+                order = order.astype(np.int32)
             spare = np.empty(total - held_rows)
             for column in [d, w] + [vals[:, j] for j in range(vals.shape[1])]:
                 if column is not None:
-                    np.take(column[held_rows:], order, out=spare, mode="clip")    # "clip": no buffered copy
+                    source = column[held_rows:]
+                    for a in range(0, len(order), TAKE_ROWS):   # int32 indices are widened per call
+                        np.take(source, order[a:a + TAKE_ROWS], out=spare[a:a + TAKE_ROWS], mode="clip")
                     column[held_rows:] = spare
             del spare, order
             if side is not None:
