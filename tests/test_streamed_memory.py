@@ -49,6 +49,7 @@ def test_the_window_goes_before_the_sorted_scores_come(parquet_folder, no_floor)
     gone = weakref.ref(prep.below.distance)
     before, engines = data.passes, len(design._engines)
     assert engines and memory.budget(data) < memory.window_bytes(data) + 8.0 * data.n_rows
+    selections = dict(design._selections)
     del prep
     design.density_test()
     assert gone() is None                         # no engine, selection, side or cycle keeps the window's rows
@@ -72,9 +73,17 @@ def test_the_window_goes_before_the_sorted_scores_come(parquet_folder, no_floor)
     want_other = memory_design.fit(bandwidth=(0.3, 0.4))
     np.testing.assert_allclose(other.robust_conf_int, want_other.robust_conf_int, rtol=1e-8, atol=0)
     assert other.n_used == want_other.n_used
+    # the selections were kept (their common pair is not selected again) ...
+    assert all(design._selections[k][0] is sel for k, (sel, _) in selections.items())
+    # ... and their per-side pair, which went with the old window, is selected on the new one
+    split, want_split = design.fit(bandwidth="mse-split"), memory_design.fit(bandwidth="mse-split")
+    np.testing.assert_allclose(split.bandwidth, want_split.bandwidth, rtol=1e-8, atol=0)
+    np.testing.assert_allclose(split.pilot_bandwidth, want_split.pilot_bandwidth, rtol=1e-8, atol=0)
+    np.testing.assert_allclose(split.robust_conf_int, want_split.robust_conf_int, rtol=1e-8, atol=0)
+    passes = data.passes
     density = design.density_test()               # cached result: the sorted scores are not needed
     assert density.statistic == memory_design.density_test().statistic
-    assert data.passes == before + 5
+    assert data.passes == passes
 
 
 def test_under_the_floor_both_are_held(parquet_folder):

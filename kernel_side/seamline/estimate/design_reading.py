@@ -74,8 +74,9 @@ def read_data(design, data, score, cutoff, takeup, cluster, weights, score_unit)
 
 def _window_dropper(design):
     """What the design drops when the streamed window's rows are let go of (seamline.streaming_memory):
-    the engines fitted on it and the bandwidth selections whose per-side pair is not read yet (both
-    hold its arrays); they are made again, on the window gathered again, when next asked for."""
+    the engines fitted on it (made again, on the window gathered again, when next asked for) and the
+    per-side pair of bandwidth selections that is not read yet (its closure holds the window's
+    sides; ``bandwidth_choice.selection`` selects it again on the new window if it is read)."""
     ref = weakref.ref(design)               # the data must not keep the design alive
 
     def drop() -> None:
@@ -84,8 +85,9 @@ def _window_dropper(design):
             return
         for key in [k for k, engine in d._engines.items() if isinstance(engine.prep.below, WindowSide)]:
             del d._engines[key]
-        for key in [k for k, (sel, _) in d._selections.items() if sel.split is not None and sel._split_value is None]:
-            del d._selections[key]
+        for sel, _ in d._selections.values():
+            if sel._split_value is None:
+                sel.split = None
     return drop
 
 
