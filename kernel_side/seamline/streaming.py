@@ -39,6 +39,7 @@ numbers per row per series), the histograms (3 x 65536 counts per partition in f
 partitions being read at that moment (as arrays PART_ROWS rows at a time), and at most
 GATHER_LIMIT values per order statistic. The window holds the rows within the widest bandwidth the results use plus J groups of
 neighbours; when a bandwidth reaches the whole side (no curvature signal), the whole side is held.
+Held beside the density test's and bins' sorted scores only within ``streaming_memory``'s budget.
 """
 from __future__ import annotations
 

@@ -21,7 +21,8 @@ nothing else that a pass could not sum, so:
   sums with their squared deviations) when the pilot sums came with the scores, else three.
   Counts and edges exact, sums equal up to their order.
 
-Memory bound: 8 bytes per kept row (the sorted scores, kept on the design for later calls), plus the
+Memory bound: 8 bytes per kept row (the sorted scores, kept on the design for later calls unless a
+window needs the room, and gathered only after the fits' window made room: ``streaming_memory``), plus the
 partitions in flight; the bins' passes add per partition a few arrays of BINS_ROWS rows in the workers.
 The chunk functions close over the sorted scores: on a distributed cluster they travel to each
 worker once per pass (one graph key), which costs the score's size in network and worker memory.
