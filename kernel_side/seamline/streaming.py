@@ -39,6 +39,7 @@ numbers per row per series), the histograms (3 x 65536 counts per partition in f
 partitions being read at that moment (as arrays PART_ROWS rows at a time), and at most
 GATHER_LIMIT values per order statistic. The window holds the rows within the widest bandwidth the results use plus J groups of
 neighbours; when a bandwidth reaches the whole side (no curvature signal), the whole side is held.
+Held beside the density test's and bins' sorted scores only within ``streaming_memory``'s budget.
 """
 from __future__ import annotations
 
@@ -52,12 +53,14 @@ from .core.window_side import WindowSide
 from .errors import (CutoffOutOfRangeError, EmptyColumnError, InvalidWeightsError, NonFiniteValueError,
                      OneSidedDataError, shown)
 from .partitioned import _partition_arrays, release_memory
+from .streaming_memory import held_bytes, make_room, rows_within
 
 BITS = 16                    # bits of the key resolved per refinement pass
 GATHER_LIMIT = 1 << 21       # values gathered at most per order statistic (16 MB)
 PILOT_DEGREE = 6             # pilot sums kept up to this polynomial degree (bias degree + 2 <= 6)
 FIRST_WINDOW = 4.0           # the first window's radius, in rule-of-thumb pilot bandwidths
 WIDEN = 1.25                 # a wider window reaches this much past the radius asked for
+TAKE_ROWS = 1 << 20          # rows reordered per call when a window is built ("clip": no buffered copy)
 
 
 def sort_keys(x: np.ndarray) -> np.ndarray:
@@ -338,6 +341,9 @@ class StreamingData:
         self._scores: dict = {}                  # sorted scores per row set (streaming_diagnostics)
         self._pilots: dict = {}                  # the bins' pilot sums per outcome, made in the score pass
         self.passes = 0                          # passes over the data so far (benchmarks report it)
+        # what is let go of between calls to stay within the budget (streaming_memory)
+        self.on_release: list = []               # called when windows are let go of (the design's engines)
+        self.released = 0                        # how many times held data were let go of
         self._check(self._summary(outcomes[:1]))
 
     # ---- the gathered fallback --------------------------------------------------------------
@@ -349,7 +355,8 @@ class StreamingData:
         return self._gathered
 
     def __getattr__(self, name):
-        if name.startswith("__") or name in ("_gathered", "_gathered_loader", "_scores", "_pilots"):
+        if name.startswith("__") or name in ("_gathered", "_gathered_loader", "_scores", "_pilots", "_windows",
+                                              "on_release", "released"):
             raise AttributeError(name)
         return getattr(self.gathered, name)
 
@@ -447,7 +454,7 @@ class StreamingData:
         from .data import Prepared
         key = (variables, neighbors)
         held = self._windows.get(key)
-        if held is not None and (radius is None or radius < held["limit"]):
+        if held is not None and "released" not in held and (radius is None or radius < held["limit"]):
             return held["prepared"]
         s = self._summary(variables)
         if variables != next(iter(self._summaries)):
@@ -478,8 +485,14 @@ class StreamingData:
             held = {"sd": sd, "scale": scale, "tops": tops, "pilots": None, "radius": -np.inf, "rows": None,
                     "cubic_tops": {k: stats[(k, r - 1)] for k, r in ik_rows.items()}, "ik_rows": ik_rows}
             radius = first
+        elif "released" in held:       # its rows were let go of (streaming_memory): the same radius, one pass
+            was, limit = held.pop("released")
+            radius = was if radius is None or radius < limit else max(radius * WIDEN, was * WIDEN)
         else:
             radius = max(radius * WIDEN, held["radius"] * WIDEN)
+        per_row = 8.0 * (1 + len(variables) + (self.weights_name is not None))
+        wanted = per_row * sum(rows_within(s[name]["hist"], radius) for name in ("below", "above"))
+        make_room(self, "window", max(0.0, wanted - held_bytes(held)))
         self._widen(variables, s, held, radius)
         sides = []
         for name, sign in (("below", -1), ("above", 1)):
@@ -531,7 +544,9 @@ class StreamingData:
             # concatenation merges the runs (timsort), and ties keep the input order, as one stable
             # sort of the new rows would.
             # The pieces are copied into the new arrays and freed one by one, then each column is
-            # reordered there through one temporary: about 32 bytes a new row at most (was 56)
+            # reordered there through one temporary, by an order kept as int32: about 28 bytes a
+            # new row at most (the argsort's int64 result and its merge buffer, 12, beside the
+            # columns, 16; then the int32 order and the temporary, 12)
             side = old[name]
             held_rows = 0 if side is None else len(side.distance)
             total = held_rows + sum(len(p[0]) for p in pieces)
@@ -548,10 +563,14 @@ class StreamingData:
                 at = rows_at.stop
                 del piece_d, piece_v, piece_w
             order = np.argsort(d[held_rows:], kind="stable")
+            if len(order) < 1 << 31:
+                order = order.astype(np.int32)
             spare = np.empty(total - held_rows)
             for column in [d, w] + [vals[:, j] for j in range(vals.shape[1])]:
                 if column is not None:
-                    np.take(column[held_rows:], order, out=spare, mode="clip")    # "clip": no buffered copy
+                    source = column[held_rows:]
+                    for a in range(0, len(order), TAKE_ROWS):   # int32 indices are widened per call
+                        np.take(source, order[a:a + TAKE_ROWS], out=spare[a:a + TAKE_ROWS], mode="clip")
                     column[held_rows:] = spare
             del spare, order
             if side is not None:

@@ -21,7 +21,8 @@ nothing else that a pass could not sum, so:
   sums with their squared deviations) when the pilot sums came with the scores, else three.
   Counts and edges exact, sums equal up to their order.
 
-Memory bound: 8 bytes per kept row (the sorted scores, kept on the design for later calls), plus the
+Memory bound: 8 bytes per kept row (the sorted scores, kept on the design for later calls unless a
+window needs the room, and gathered only after the fits' window made room: ``streaming_memory``), plus the
 partitions in flight; the bins' passes add per partition a few arrays of BINS_ROWS rows in the workers.
 The chunk functions close over the sorted scores: on a distributed cluster they travel to each
 worker once per pass (one graph key), which costs the score's size in network and worker memory.
@@ -38,6 +39,7 @@ from .core.density import density_test_sorted
 from .errors import DataSourceError
 from .partitioned import _REPORT
 from .streaming import _columns, _compute, _tree, blocks
+from .streaming_memory import make_room
 
 
 def _plan(data, variables: tuple[str, ...] | None) -> dict:
@@ -141,6 +143,7 @@ def sorted_scores(data, variables: tuple[str, ...] | None = None):
         plan["columns"] = list(dict.fromkeys(plan["columns"] + bins_plan["columns"]))
     parts = data.frame[plan["columns"]].to_delayed()       # only these columns are read
     sums = None
+    make_room(data, "scores", 8.0 * (n_below + n_above))      # may let the fits' window go (streaming_memory)
     below, above = np.empty(n_below), np.empty(n_above)
     lengths, at_below, at_above = [], 0, 0
     report, step = _REPORT.get(), _in_flight()

@@ -51,7 +51,18 @@ def selection(design, spec: FitSpec, prep: Prepared, fuzzy: bool, n_main: int) -
     key = (prep.variables, spec.donut, spec.kernel, spec.degree, spec.bias_degree, spec.derivative,
            spec.variance, pilot_rule)
     if key in design._selections:
-        return design._selections[key]
+        sel, lam = design._selections[key]
+        if sel.split is None and sel._split_value is None:
+            # the per-side pair went with a streamed window (estimate.design_reading._window_dropper):
+            # the common pair is kept, the split one is selected again on this window if read
+            sel.split = lambda: _select(design, spec, prep, fuzzy, n_main, pilot_rule)[0]._pair()
+        return sel, lam
+    design._selections[key] = _select(design, spec, prep, fuzzy, n_main, pilot_rule)
+    return design._selections[key]
+
+
+def _select(design, spec: FitSpec, prep: Prepared, fuzzy: bool, n_main: int,
+            pilot_rule: str) -> tuple[Selection, np.ndarray]:
     n_vars = len(prep.variables)
     lam = np.zeros(n_vars)
     lam[0] = 1.0
@@ -73,7 +84,6 @@ def selection(design, spec: FitSpec, prep: Prepared, fuzzy: bool, n_main: int) -
     sel = mse_selection(prep.below, prep.above, p=p, q=q, nu=nu, kernel=spec.kernel, lam=lam,
                         variance_fn=variance_fn(design, spec), score_scale=prep.score_scale,
                         n_total=prep.n_total, pilot_rule=pilot_rule)
-    design._selections[key] = (sel, lam)
     return sel, lam
 
 

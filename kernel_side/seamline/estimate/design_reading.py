@@ -7,6 +7,9 @@ Functions of a ``Design`` (seamline.estimate.design), which reads its data throu
 """
 from __future__ import annotations
 
+import weakref
+
+from ..core.window_side import WindowSide
 from ..data import DesignData, Prepared, as_frame, check_columns, column_names
 from ..streaming import StreamingData
 from ..streaming_route import STREAMED_RULES, streamable_frame
@@ -48,6 +51,7 @@ def read_data(design, data, score, cutoff, takeup, cluster, weights, score_unit)
                                        design._frame, score=score, cutoff=cutoff, outcomes=design.outcomes,
                                        takeup=None, covariates=design.covariates, cluster=None,
                                        weights=weights))
+        design._data.on_release.append(_window_dropper(design))
         design.cutoff, design.time_scale = design._data.cutoff, None
         return
     design._frame = as_frame(data, list(roles), roles)
@@ -66,6 +70,25 @@ def read_data(design, data, score, cutoff, takeup, cluster, weights, score_unit)
         # A date score is measured as the distance from the cutoff date: the numeric cutoff is 0.
         design.cutoff = design._data.cutoff
         design.time_scale = design._data.time_scale
+
+
+def _window_dropper(design):
+    """What the design drops when the streamed window's rows are let go of (seamline.streaming_memory):
+    the engines fitted on it (made again, on the window gathered again, when next asked for) and the
+    per-side pair of bandwidth selections that is not read yet (its closure holds the window's
+    sides; ``bandwidth_choice.selection`` selects it again on the new window if it is read)."""
+    ref = weakref.ref(design)               # the data must not keep the design alive
+
+    def drop() -> None:
+        d = ref()
+        if d is None:
+            return
+        for key in [k for k, engine in d._engines.items() if isinstance(engine.prep.below, WindowSide)]:
+            del d._engines[key]
+        for sel, _ in d._selections.values():
+            if sel._split_value is None:
+                sel.split = None
+    return drop
 
 
 def prepared_sides(design, spec: FitSpec, variables: tuple[str, ...]) -> Prepared:
