@@ -34,6 +34,12 @@ class IdentityMemo:
                 return hit[1]
         value = make()
         with self._lock:
+            hit = self._entries.get(key)
+            if hit is not None and all(a is b for a, b in zip(hit[0], results)):
+                # another thread made it meanwhile (a view's painter and a reader): keep the first,
+                # so every caller gets the very object that is shown
+                self._entries.move_to_end(key)
+                return hit[1]
             self._entries[key] = (results, value)
             while len(self._entries) > self.size:
                 self._entries.popitem(last=False)
