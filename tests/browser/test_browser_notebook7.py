@@ -89,6 +89,19 @@ def notebook7(tmp_path_factory):
             process.wait(timeout=10)
 
 
+def _start_session(base: str, token: str) -> None:
+    """Start the demo's kernel through the server's REST API (a session for the notebook's path), so
+    that the page opens on a kernel already chosen and started: loaded, Notebook 7 otherwise raised
+    its kernel dialog again and again over the Run menu (seen in a full run). The page's own waits
+    (the kernel idle, the board) follow."""
+    import json
+    request = urllib.request.Request(
+        f"{base}/api/sessions?token={token}", method="POST", headers={"Content-Type": "application/json"},
+        data=json.dumps({"path": DEMO, "name": DEMO, "type": "notebook", "kernel": {"name": "python3"}}).encode())
+    with urllib.request.urlopen(request, timeout=60) as response:
+        assert json.loads(response.read())["kernel"]["id"]
+
+
 def _answer_dialogs(page, seen: list[str]) -> None:
     """Accept a dialog the server raised while the machine was loaded (seen once in a full run, with
     the Run menu behind it), keeping its text for the failure message: the board checks below still
@@ -126,6 +139,7 @@ def test_demo_board_runs_in_notebook_7(browser, notebook7):
     page.on("request", lambda r: outside.append(r.url) if r.url.startswith("http")
             and not r.url.startswith("http://127.0.0.1") else None)
     try:
+        _start_session(base, token)
         page.goto(f"{base}/notebooks/{DEMO}?token={token}")
         expect(page.locator(".jp-NotebookPanel").first).to_be_visible(timeout=60_000)
         expect(page.locator(ui.IDLE).first).to_be_attached(timeout=90_000)
