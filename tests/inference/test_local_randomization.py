@@ -223,3 +223,19 @@ def test_kolmogorov_smirnov_statistic_of_each_assignment_equals_scipy():
     ours = statistic_values("Kolmogorov-Smirnov", assign, y)
     theirs = [stats.ks_2samp(y[row], y[~row]).statistic for row in assign]
     assert np.allclose(ours, theirs, rtol=1e-12, atol=1e-15)
+
+
+@pytest.mark.parametrize("n, n1", [(7, 3), (64, 20), (203, 101)])
+def test_packed_rank_sums_equal_the_cast_product_bit_for_bit(n, n1):
+    # Reference: scipy's mid-ranks (stats.rankdata, with ties) summed over each assignment's treated
+    # units by a float product (first principles); the packed table must give the very same numbers.
+    from seamline.core.randomization import PackedRankSums
+    rng = np.random.default_rng(n)
+    y = np.round(rng.normal(size=n), 1)
+    assign = np.zeros((5000, n), dtype=bool)
+    for row in assign:
+        row[rng.choice(n, size=n1, replace=False)] = True
+    ranks = stats.rankdata(y)
+    packed = PackedRankSums(assign)
+    np.testing.assert_array_equal(packed(ranks), assign.astype(float) @ ranks)
+    np.testing.assert_array_equal(packed.n1, np.full(5000, n1))

@@ -237,6 +237,34 @@ def _rank_sum(assign: np.ndarray, y: np.ndarray) -> np.ndarray:
     return np.abs(assign.astype(float) @ ranks - n1 * (len(y) + 1) / 2.0)
 
 
+# Bit j of every byte value: the subsets of eight units a packed byte stands for.
+_BYTE_BITS = ((np.arange(256)[:, None] >> np.arange(8)[None, :]) & 1).astype(float)
+
+
+class PackedRankSums:
+    """The rank sum of the treated units of every assignment, at any ranks, without a cast of the
+    assignments: they are packed eight units a byte, and at given ranks a table holds, for each
+    byte position, the sum of ranks of each of its 256 subsets; a draw's rank sum is then the sum
+    of one table entry per byte (n/8 reads from a table of 2n numbers, which stays in the cache).
+    Ranks are multiples of 1/2, so every partial sum is exact: the same numbers as the product of
+    the assignments cast to floats with the ranks, about ten times faster at 2,000 units."""
+
+    def __init__(self, assignments: np.ndarray):
+        self.n = assignments.shape[1]
+        self.n1 = assignments.sum(axis=1)
+        packed = np.packbits(assignments, axis=1, bitorder="little")       # unit 8b + j is bit j of byte b
+        self.bytes = packed.shape[1]
+        # positions in the flattened table (byte position b, byte value v) -> 256 b + v
+        self.index = packed.astype(np.intp) + 256 * np.arange(self.bytes, dtype=np.intp)
+
+    def __call__(self, ranks: np.ndarray) -> np.ndarray:
+        padded = np.zeros(8 * self.bytes)
+        padded[: self.n] = ranks
+        table = np.ascontiguousarray((_BYTE_BITS @ padded.reshape(self.bytes, 8).T).T).ravel()
+        return np.concatenate([np.take(table, self.index[i: i + CHUNK]).sum(axis=1)
+                               for i in range(0, len(self.index), CHUNK)])
+
+
 def _kolmogorov_smirnov(assign: np.ndarray, y: np.ndarray) -> np.ndarray:
     order = np.argsort(y, kind="stable")
     ys = y[order]
@@ -314,6 +342,7 @@ class RandomizationTest:
         self.exact = exact
         self._shifted: ShiftedDifference | None = None
         self._p_at: dict[float, float] = {}
+        self._rank_sums: PackedRankSums | None = None     # the rank sum's packed assignments
 
     def shifted(self) -> ShiftedDifference:
         """The difference in means at any tau0 without the assignments (computed on first use, so a
@@ -336,6 +365,12 @@ class RandomizationTest:
         return float(statistic_values(self.statistic, self.treated[None, :], y)[0])
 
     def p_value(self, y: np.ndarray) -> float:
+        if self.statistic == "rank sum":        # the same numbers as statistic_values, packed
+            if self._rank_sums is None:
+                self._rank_sums = PackedRankSums(self.assignments)
+            y = np.asarray(y, dtype=float)
+            null = np.abs(self._rank_sums(stats.rankdata(y)) - self._rank_sums.n1 * (len(y) + 1) / 2.0)
+            return p_value(self.observed(y), null, self.exact)
         return p_value(self.observed(y), statistic_values(self.statistic, self.assignments, y), self.exact)
 
     def p_value_shifted(self, tau0: float) -> float:
