@@ -239,3 +239,25 @@ def test_packed_rank_sums_equal_the_cast_product_bit_for_bit(n, n1):
     packed = PackedRankSums(assign)
     np.testing.assert_array_equal(packed(ranks), assign.astype(float) @ ranks)
     np.testing.assert_array_equal(packed.n1, np.full(5000, n1))
+
+
+def test_inversion_with_known_steps_follows_the_same_bisection_with_fewer_tests():
+    # A step function of tau0 (first principles: the share of fixed points below tau0, as p(tau0)
+    # of a rank statistic is constant between the shifts where two units' order changes): the
+    # inversion told the steps must end where the plain bisection ends, computing p less often.
+    from seamline.core.randomization import invert
+    rng = np.random.default_rng(12)
+    steps = np.unique(np.round(rng.normal(size=3000), 3))
+
+    def p_of(tau0):
+        calls.append(tau0)
+        share = np.searchsorted(steps, tau0, side="right") / len(steps)
+        return 1.0 - 2.0 * abs(share - 0.5)
+
+    for alpha in (0.05, 0.1, 0.3):
+        calls = []
+        plain = invert(p_of, 0.0, 0.2, alpha, points=33, refine=16)
+        n_plain = len(calls)
+        calls = []
+        told = invert(p_of, 0.0, 0.2, alpha, points=33, refine=16, steps=steps)
+        assert told == plain and len(calls) < n_plain

@@ -209,6 +209,7 @@ class _WindowOutcome:
         self.p, self.statistic_value = p, statistic_value
         self.shifted = shifted
         self.p_value_shifted = shifted.p_value_shifted if shifted is not None else test.p_value_shifted
+        self.steps = test.steps if test is not None else (lambda: None)   # where p(tau0) can change
         # other statistics hold the assignments: kept on the design (for a level change) while small
         self.keep = shifted is not None or test.assignments.nbytes <= KEEP_ASSIGNMENTS_BYTES
 
@@ -263,7 +264,7 @@ def _outcome_row(part: _WindowOutcome, level: float) -> dict:
     else:
         # other statistics recompute the test at each tau0: a grid, then bisection at each end
         (low, high), contiguous = invert(part.p_value_shifted, estimate, se if se > 0 else 1.0, 1.0 - level,
-                                         points=33, refine=16)
+                                         points=33, refine=16, steps=part.steps())
     n = part.assignments
     return {"estimate": estimate, "statistic_value": part.statistic_value, "p_value": p,
             "p_value_std_error": 0.0 if part.exact else float(np.sqrt(p * (1 - p) / n)),
