@@ -69,14 +69,20 @@ def _score_census(design) -> dict:
 
 def _census(design) -> dict:
     xs = _sorted_score(design)
-    x = xs - design.cutoff                       # ascending
-    split = int(np.searchsorted(x, 0.0, side="left"))
+    data = design._data
+    if xs is data._ordered:
+        # the preparations' centred score and below distances, shared (read-only; no n-long copy)
+        x, split, below = data._distances_of((), data._score_order())
+    else:
+        x = xs - design.cutoff                       # ascending
+        split = int(np.searchsorted(x, 0.0, side="left"))
+        below = -x[:split]
     starts, counts = _runs(xs)
     uniq = xs[starts]                            # sorted distinct values
     gaps = np.diff(uniq)
     resolution = float(gaps[gaps > 0].min()) if np.any(gaps > 0) else 0.0
     heaping, warnings = _heaping(xs, uniq, counts, resolution)
-    return {"x": x, "split": split, "below": _run_row("below", "all", -x[:split]),
+    return {"x": x, "split": split, "below": _run_row("below", "all", below),
             "above": _run_row("above", "all", x[split:]), "resolution": resolution,
             "heaping": tuple(heaping), "warnings": tuple(warnings)}
 
