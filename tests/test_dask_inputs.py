@@ -161,3 +161,19 @@ def test_duplicate_names_in_a_dask_frame():
     frame = pd.DataFrame(np.ones((6, 3)), columns=["x", "y", "y"])
     with pytest.raises(DuplicateColumnError, match=r"column names must be unique; got duplicates \['y'\]"):
         seamline.Design(dd.from_pandas(frame, npartitions=2), score="x", cutoff=0.0, outcome="y")
+
+
+def test_row_groups_are_read_as_partitions(tmp_path, want, monkeypatch):
+    """A Parquet path is read a row group at a time (fewer rows in flight per thread; DEVELOPERS.md,
+    "Partitioned inputs"), row groups smaller than PARTITION_BLOCKSIZE merged within a file; the
+    results are the in-memory ones all the same (reference: the in-memory pandas path on the same
+    rows)."""
+    import seamline.partitioned as partitioned
+    for k, frame in enumerate(pieces()):       # row groups of 500 rows: 4, 1, 2 and 5 of them
+        pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), tmp_path / f"part-{k}.parquet",
+                       row_group_size=500)
+    roles = {"x": "score", "y": "outcome", "z": "outcome", "c": "covariate"}
+    assert partitioned.open_parquet(str(tmp_path), roles).npartitions == 4      # small: a file each
+    monkeypatch.setattr(partitioned, "PARTITION_BLOCKSIZE", "1KiB")            # every row group alone
+    assert partitioned.open_parquet(str(tmp_path), roles).npartitions == 12
+    assert_same(results(seamline.Design(str(tmp_path), **KWARGS)), want)
