@@ -200,3 +200,21 @@ def test_window_and_score_passes_in_row_blocks(folder, monkeypatch):
     assert np.array_equal(got.binned.count, want.binned.count)
     close(got.binned.mean, want.binned.mean)
     assert design._data._gathered is None
+
+
+def test_both_sides_sorted_at_once_equal_one_after_the_other(monkeypatch):
+    """The two sides' scores sorted in two threads are numpy's sort of each (common practice: a
+    sort's result does not depend on the thread it runs in); a failure in the other thread is raised."""
+    import seamline.streaming_diagnostics as sd
+    rng = np.random.default_rng(4)
+    below, above = rng.normal(size=3000), rng.integers(0, 50, 2500).astype(float)   # ties on one side
+    want = np.sort(below), np.sort(above)
+    monkeypatch.setattr(sd, "SORT_APART_FROM", 1)
+    sd._sort_both(below, above)
+    assert np.array_equal(below, want[0]) and np.array_equal(above, want[1])
+
+    class Broken(np.ndarray):
+        def sort(self, *args, **kwargs):
+            raise MemoryError("no room to sort")
+    with pytest.raises(MemoryError, match="no room"):
+        sd._sort_both(rng.normal(size=10), rng.normal(size=10).view(Broken))

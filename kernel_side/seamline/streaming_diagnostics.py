@@ -30,6 +30,7 @@ worker once per pass (one graph key), which costs the score's size in network an
 from __future__ import annotations
 
 import os
+import threading
 import uuid
 
 import numpy as np
@@ -178,10 +179,37 @@ def sorted_scores(data, variables: tuple[str, ...] | None = None):
     # in place: no copy of either side. numpy's default sort of float64 (vectorised quicksort) takes
     # 0.7 s for 5e7 scores here; sorting the partitions' pieces in the workers and merging their runs
     # with a stable sort took 0.6 + 1.8 s (measured), so the pieces come unsorted
-    below.sort()
-    above.sort()
+    _sort_both(below, above)
     held = data._scores[key] = (below, above, np.asarray(lengths, dtype=np.int64))
     return held
+
+
+SORT_APART_FROM = 1 << 20     # scores per side from which the two sides are sorted at the same time
+
+
+def _sort_both(below: np.ndarray, above: np.ndarray) -> None:
+    """Sort both sides in place, at the same time when both are long and there are two CPUs: numpy
+    releases the interpreter lock while it sorts (2 x 1.5e7 scores: 2.1 s one after the other, 1.1-1.2 s
+    at once, measured here). The sorted values are the same either way."""
+    if min(below.size, above.size) < SORT_APART_FROM or (os.cpu_count() or 1) < 2:
+        below.sort()
+        above.sort()
+        return
+    failed: list[BaseException] = []
+
+    def sort_above():
+        try:
+            above.sort()
+        except BaseException as exc:        # raised again below: an unsorted side must never be used
+            failed.append(exc)
+    other = threading.Thread(target=sort_above, name="seamline-sort-above")
+    other.start()
+    try:
+        below.sort()
+    finally:
+        other.join()
+    if failed:
+        raise failed[0]
 
 
 def density_test(data, method: str, options: dict):
