@@ -30,11 +30,11 @@ worker once per pass (one graph key), which costs the score's size in network an
 from __future__ import annotations
 
 import os
-import threading
 import uuid
 
 import numpy as np
 
+from .core.at_once import at_once
 from .core.bins_streamed import binned_means_streamed, combine, pilot_chunk
 from .core.density import density_test_sorted
 from .errors import DataSourceError
@@ -188,28 +188,10 @@ SORT_APART_FROM = 1 << 20     # scores per side from which the two sides are sor
 
 
 def _sort_both(below: np.ndarray, above: np.ndarray) -> None:
-    """Sort both sides in place, at the same time when both are long and there are two CPUs: numpy
-    releases the interpreter lock while it sorts (2 x 1.5e7 scores: 2.1 s one after the other, 1.1-1.2 s
-    at once, measured here). The sorted values are the same either way."""
-    if min(below.size, above.size) < SORT_APART_FROM or (os.cpu_count() or 1) < 2:
-        below.sort()
-        above.sort()
-        return
-    failed: list[BaseException] = []
-
-    def sort_above():
-        try:
-            above.sort()
-        except BaseException as exc:        # raised again below: an unsorted side must never be used
-            failed.append(exc)
-    other = threading.Thread(target=sort_above, name="seamline-sort-above")
-    other.start()
-    try:
-        below.sort()
-    finally:
-        other.join()
-    if failed:
-        raise failed[0]
+    """Sort both sides in place, at the same time when both are long: numpy releases the interpreter
+    lock while it sorts (2 x 1.5e7 scores: 2.1 s one after the other, 1.1-1.2 s at once, measured
+    here). The sorted values are the same either way."""
+    at_once(below.sort, above.sort, worth_it=min(below.size, above.size) >= SORT_APART_FROM)
 
 
 def density_test(data, method: str, options: dict):
