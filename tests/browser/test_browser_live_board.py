@@ -92,7 +92,7 @@ def test_slider_drag_on_a_million_rows_and_a_free_kernel(page, lab):
     assert marks and all(m > 0 for m in marks), marks
 
     # 2. A long recomputation (a new cutoff: every panel, the density test included); a cell run
-    # meanwhile returns at once. A second trial, with another new cutoff, when the first misses: the
+    # meanwhile returns at once. Another trial, with another new cutoff, when one misses: the
     # suite runs beside another test process on two CPUs (a first trial took 1.02 s once, against
     # 0.22-0.26 s alone), while a kernel that waited for the board would miss both by seconds.
     # The cell also notes which panels were still being computed as the kernel ran it (hidden tabs

@@ -1,8 +1,10 @@
 """Two independent calls at the same time, for work numpy does with the interpreter lock released.
 
-Sorting a long array or building a side's window tables is numpy work on one side's arrays alone;
-the two sides of a cutoff are independent, so on two CPUs they can run at once. Nothing here
-changes a number: each call does exactly what it does alone. An exception in either call is raised
+Sorting a long array is numpy work with the lock released, on one side's arrays alone; the two
+sides of a cutoff are independent, so on two CPUs they can sort at once (the streamed sorted
+scores). Work that runs Python between small numpy calls gains nothing (the density test's block
+tables were tried: DEVELOPERS.md). Nothing here changes a number: each call does exactly what it
+does alone. An exception in either call is raised
 (the other thread's too), so a half-done result is never used.
 """
 from __future__ import annotations
